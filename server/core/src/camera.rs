@@ -296,7 +296,7 @@ impl Intrinsics {
     /// (Z ≤ 0) or the result is not finite.
     pub fn project(&self, point_camera_m: [f64; 3]) -> Option<[f64; 2]> {
         let [x, y, z] = point_camera_m;
-        if !(z > 0.0) {
+        if z.is_nan() || z <= 0.0 {
             return None;
         }
         let iz = 1.0 / z;
@@ -328,7 +328,7 @@ impl Intrinsics {
             for _ in 0..UNDISTORT_MAX_ITER {
                 let r2 = x * x + y * y;
                 let icdist = 1.0 / (1.0 + ((k3 * r2 + k2) * r2 + k1) * r2);
-                if !(icdist > 0.0) || !icdist.is_finite() {
+                if !(icdist.is_finite() && icdist > 0.0) {
                     // OpenCV gives up here too; Newton from the distorted point may still work.
                     (x, y) = (x0, y0);
                     break;
@@ -355,7 +355,7 @@ impl Intrinsics {
                 }
                 let [[a, b], [c, d]] = self.distortion_jacobian([x, y]);
                 let det = a * d - b * c;
-                if !(det.abs() > 1e-300) {
+                if det.is_nan() || det.abs() <= 1e-300 {
                     return None;
                 }
                 x -= (d * ex - b * ey) / det;
@@ -366,7 +366,8 @@ impl Intrinsics {
             }
             // Beyond the fold the map is no longer one-to-one; a root there is not the pixel's ray.
             let [[a, b], [c, d]] = self.distortion_jacobian([x, y]);
-            if !(a * d - b * c > 0.0) {
+            let jacobian_det = a * d - b * c;
+            if jacobian_det.is_nan() || jacobian_det <= 0.0 {
                 return None;
             }
         }
@@ -423,7 +424,7 @@ impl WorkPlane {
         }
         finite(offset_m, "offset_m")?;
         let len = norm3(normal);
-        if !(len > 0.0) || !len.is_finite() {
+        if !(len.is_finite() && len > 0.0) {
             return Err(CameraError::ZeroNormal);
         }
         Ok(Self {
@@ -491,7 +492,7 @@ impl Pose {
             - r[0][1] * (r[1][0] * r[2][2] - r[1][2] * r[2][0])
             + r[0][2] * (r[1][0] * r[2][1] - r[1][1] * r[2][0]);
         error = error.max((det - 1.0).abs());
-        if !(error <= ROTATION_TOLERANCE) {
+        if error.is_nan() || error > ROTATION_TOLERANCE {
             return Err(CameraError::NotARotation { error });
         }
         Ok(Self {
@@ -533,11 +534,11 @@ pub fn pixel_to_plane(
     let ray = [x, y, 1.0];
     let n = plane.normal;
     let denom = n[0] * ray[0] + n[1] * ray[1] + n[2] * ray[2];
-    if !(denom.abs() > 1e-12 * norm3(ray)) {
+    if denom.is_nan() || denom.abs() <= 1e-12 * norm3(ray) {
         return None;
     }
     let s = plane.offset_m / denom;
-    if !(s > 0.0) || !s.is_finite() {
+    if !(s.is_finite() && s > 0.0) {
         return None;
     }
     Some(ray.map(|c| c * s))

@@ -1,0 +1,1443 @@
+//! The cost of candidate futures against a goal, exactly as the design's "Conventions" say.
+//!
+//! A goal contributes P source points, each with a target shape (a point, a polygon region or a
+//! painted mask), a weight w_p (a rigid term's weight already split over its points) and a
+//! tolerance tol_p. For a predicted position x the distance d_p(x) is Euclidean to the target
+//! point, to the closed polygon (0 inside) or to the nearest painted pixel centre (0 on one),
+//! and the metric m is `euclidean` d, `squared` d² or `huber` (d²/2 up to δ, δ(d − δ/2) beyond).
+//!
+//! Candidates come as points (N, T, P, 2) or probability maps (N, T, P, h, w):
+//! - points, `expected`: c = m(d_p(x)); `hit`: c = −ln(ε + 1[d_p(x) ≤ tol_p]);
+//! - maps, `expected`: c = Σ_u P(u)·M_p(u) with the cost map M_p = m(d_p) at (h, w);
+//!   `hit`: c = −ln(ε + Σ_{u: d_p(u) ≤ tol_p} P(u)); ε = [`HIT_EPSILON`].
+//!
+//! `final` uses t = T−1 only (and reads nothing else), `all` sums over t; the total is
+//! C_n = Σ_p w_p Σ_t c. Probability maps are used as given, **not** renormalised: the cost is
+//! the P-weighted sum, so a planner sending maps that sum to s gets s times the expected cost.
+//!
+//! A map of size (h, w) other than the frame's (W, H) samples frame point
+//! ((i + 0.5)·W/w − 0.5, (j + 0.5)·H/h − 0.5) for map pixel (i, j), exactly, for every target
+//! kind; it is not an interpolation of the full-size map.
+//!
+//! Work runs on the current rayon pool; wrap a call in `ThreadPool::install` to choose the
+//! number of threads (the benchmarks do this to report one thread and all cores).
+
+use crate::distance::{self, Mask};
+use crate::geometry::{PixelPoint, Polygon};
+use half::f16;
+use half::slice::HalfFloatSliceExt;
+use rayon::prelude::*;
+use std::sync::Arc;
+use thiserror::Error;
+
+/// ε in the `hit` cost −ln(ε + probability).
+pub const HIT_EPSILON: f64 = 1e-9;
+/// Most values (P · h · w) in one stack of cost maps.
+pub const MAX_MAP_VALUES: usize = 1 << 27;
+
+/// Why a cost model cannot be built or a batch cannot be scored.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum CostError {
+    /// Huber's δ must be a finite number > 0.
+    #[error("huber delta must be a finite number > 0 px, got {0}")]
+    BadHuberDelta(f64),
+    /// The frame has no pixels.
+    #[error("the frame must be at least 1x1 pixels, got {width}x{height}")]
+    BadFrameSize {
+        /// Width given.
+        width: usize,
+        /// Height given.
+        height: usize,
+    },
+    /// A goal needs at least one source point.
+    #[error("a cost model needs at least one source point")]
+    NoPoints,
+    /// A weight is negative or not finite.
+    #[error("point {point}: weight must be a finite number >= 0, got {value}")]
+    BadWeight {
+        /// Index of the source point.
+        point: usize,
+        /// The weight.
+        value: f64,
+    },
+    /// A tolerance is negative or not finite.
+    #[error("point {point}: tolerance must be a finite number >= 0 px, got {value}")]
+    BadTolerance {
+        /// Index of the source point.
+        point: usize,
+        /// The tolerance.
+        value: f64,
+    },
+    /// A mask target is not of the frame's size.
+    #[error(
+        "point {point}: the mask is {mask_width}x{mask_height} but the frame is {width}x{height}"
+    )]
+    MaskSize {
+        /// Index of the source point.
+        point: usize,
+        /// Mask width.
+        mask_width: usize,
+        /// Mask height.
+        mask_height: usize,
+        /// Frame width.
+        width: usize,
+        /// Frame height.
+        height: usize,
+    },
+    /// A requested map size is zero or too large.
+    #[error(
+        "cost maps of {width}x{height} for {points} points are not possible (each side >= 1, at most {MAX_MAP_VALUES} values in all)"
+    )]
+    BadMapSize {
+        /// Map width.
+        width: usize,
+        /// Map height.
+        height: usize,
+        /// Number of source points.
+        points: usize,
+    },
+    /// The batch has no candidates or no steps.
+    #[error("a batch needs at least one candidate and one step, got N={n}, T={t}")]
+    EmptyBatch {
+        /// Candidates.
+        n: usize,
+        /// Steps.
+        t: usize,
+    },
+    /// The batch length does not match its shape.
+    #[error("the batch has {got} values but shape {shape} needs {expected}")]
+    BatchShape {
+        /// The shape, e.g. `(N=4, T=10, P=2, 2)`.
+        shape: String,
+        /// Values the shape needs.
+        expected: String,
+        /// Values given.
+        got: usize,
+    },
+    /// A predicted point is NaN or infinite.
+    #[error("candidate {candidate}, step {step}, point {point}: coordinates must be finite")]
+    NonFinitePoint {
+        /// n.
+        candidate: usize,
+        /// t.
+        step: usize,
+        /// p.
+        point: usize,
+    },
+    /// A probability map has a negative, NaN or infinite entry (or sums beyond f32 range).
+    #[error(
+        "candidate {candidate}, step {step}, point {point}: probability maps must hold finite values >= 0"
+    )]
+    BadProbability {
+        /// n.
+        candidate: usize,
+        /// t.
+        step: usize,
+        /// p.
+        point: usize,
+    },
+    /// A cost overflowed (coordinates astronomically far from the frame).
+    #[error("candidate {candidate}: the cost is not a finite number (coordinates too far out)")]
+    NonFiniteCost {
+        /// n.
+        candidate: usize,
+    },
+}
+
+/// The metric m(d) applied to a distance in pixels.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Metric {
+    /// m(d) = d.
+    Euclidean,
+    /// m(d) = d².
+    Squared,
+    /// m(d) = d²/2 for d ≤ δ, δ(d − δ/2) beyond.
+    Huber {
+        /// δ in pixels, finite and > 0.
+        delta_px: f64,
+    },
+}
+
+impl Metric {
+    /// m(d).
+    pub fn apply(&self, d: f64) -> f64 {
+        match *self {
+            Metric::Euclidean => d,
+            Metric::Squared => d * d,
+            Metric::Huber { delta_px } => {
+                if d <= delta_px {
+                    0.5 * d * d
+                } else {
+                    delta_px * (d - 0.5 * delta_px)
+                }
+            }
+        }
+    }
+}
+
+/// Which predicted steps count.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Steps {
+    /// Only t = T − 1.
+    Final,
+    /// Every t, summed.
+    All,
+}
+
+/// Expected metric cost, or negative log probability of being within tolerance.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Mode {
+    /// c = m(d) for points, Σ P·M for maps.
+    Expected,
+    /// c = −ln(ε + probability of d ≤ tol).
+    Hit,
+}
+
+/// Checked cost settings.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct CostSettings {
+    metric: Metric,
+    steps: Steps,
+    mode: Mode,
+}
+
+impl CostSettings {
+    /// Checks the settings: Huber's δ finite and > 0.
+    pub fn new(metric: Metric, steps: Steps, mode: Mode) -> Result<Self, CostError> {
+        if let Metric::Huber { delta_px } = metric
+            && !(delta_px.is_finite() && delta_px > 0.0)
+        {
+            return Err(CostError::BadHuberDelta(delta_px));
+        }
+        Ok(Self {
+            metric,
+            steps,
+            mode,
+        })
+    }
+    /// The metric.
+    pub fn metric(&self) -> Metric {
+        self.metric
+    }
+    /// Which steps count.
+    pub fn steps(&self) -> Steps {
+        self.steps
+    }
+    /// Expected or hit.
+    pub fn mode(&self) -> Mode {
+        self.mode
+    }
+}
+
+/// Where a source point should end up.
+#[derive(Debug, Clone)]
+pub enum TargetShape {
+    /// A target pixel.
+    Point(PixelPoint),
+    /// Anywhere inside (or on) a polygon.
+    Region(Polygon),
+    /// On a painted pixel of a mask of the frame's size.
+    Mask(Arc<Mask>),
+}
+
+/// One source point of a goal as the cost engine sees it.
+#[derive(Debug, Clone)]
+pub struct CostPoint {
+    /// Its target.
+    pub target: TargetShape,
+    /// w_p ≥ 0 (a rigid term's weight already divided by its number of points).
+    pub weight: f64,
+    /// tol_p ≥ 0 in pixels, used by `hit` mode.
+    pub tolerance_px: f64,
+}
+
+/// Candidates' costs.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CostResult {
+    /// C_n for each candidate.
+    pub costs: Vec<f64>,
+    /// per_point[n][p] = w_p Σ_t c, so costs[n] = Σ_p per_point[n][p].
+    pub per_point: Vec<Vec<f64>>,
+    /// argmin of `costs` (the first on ties).
+    pub best: usize,
+}
+
+/// Probability maps (N, T, P, h, w), C order.
+#[derive(Debug, Clone, Copy)]
+pub enum MapBatch<'a> {
+    /// float32 maps.
+    F32(&'a [f32]),
+    /// float16 maps, converted to float32 on the fly.
+    F16(&'a [f16]),
+}
+
+impl MapBatch<'_> {
+    fn len(&self) -> usize {
+        match self {
+            MapBatch::F32(v) => v.len(),
+            MapBatch::F16(v) => v.len(),
+        }
+    }
+}
+
+/// A goal's source points with their targets, ready to score candidates.
+#[derive(Debug, Clone)]
+pub struct CostModel {
+    width: usize,
+    height: usize,
+    points: Vec<CostPoint>,
+    settings: CostSettings,
+    /// For mask targets: the column index for exact off-grid queries.
+    mask_index: Vec<Option<MaskIndex>>,
+}
+
+impl CostModel {
+    /// Checks and builds a model for a `frame_width` × `frame_height` frame: at least one
+    /// point, weights and tolerances finite and ≥ 0, masks of the frame's size.
+    pub fn new(
+        frame_width: usize,
+        frame_height: usize,
+        points: Vec<CostPoint>,
+        settings: CostSettings,
+    ) -> Result<Self, CostError> {
+        if frame_width == 0 || frame_height == 0 {
+            return Err(CostError::BadFrameSize {
+                width: frame_width,
+                height: frame_height,
+            });
+        }
+        if points.is_empty() {
+            return Err(CostError::NoPoints);
+        }
+        let mut mask_index = Vec::with_capacity(points.len());
+        for (i, p) in points.iter().enumerate() {
+            if !(p.weight.is_finite() && p.weight >= 0.0) {
+                return Err(CostError::BadWeight {
+                    point: i,
+                    value: p.weight,
+                });
+            }
+            if !(p.tolerance_px.is_finite() && p.tolerance_px >= 0.0) {
+                return Err(CostError::BadTolerance {
+                    point: i,
+                    value: p.tolerance_px,
+                });
+            }
+            mask_index.push(match &p.target {
+                TargetShape::Mask(m) => {
+                    if m.width() != frame_width || m.height() != frame_height {
+                        return Err(CostError::MaskSize {
+                            point: i,
+                            mask_width: m.width(),
+                            mask_height: m.height(),
+                            width: frame_width,
+                            height: frame_height,
+                        });
+                    }
+                    Some(MaskIndex::new(m))
+                }
+                _ => None,
+            });
+        }
+        Ok(Self {
+            width: frame_width,
+            height: frame_height,
+            points,
+            settings,
+            mask_index,
+        })
+    }
+
+    /// Number of source points P.
+    pub fn len(&self) -> usize {
+        self.points.len()
+    }
+    /// Always false: a model has at least one point.
+    pub fn is_empty(&self) -> bool {
+        self.points.is_empty()
+    }
+    /// The source points in order.
+    pub fn points(&self) -> &[CostPoint] {
+        &self.points
+    }
+    /// The checked settings.
+    pub fn settings(&self) -> &CostSettings {
+        &self.settings
+    }
+    /// Frame (width, height).
+    pub fn frame_size(&self) -> (usize, usize) {
+        (self.width, self.height)
+    }
+
+    /// d_p at frame position (x, y), which may lie anywhere, also outside the frame.
+    /// `None` when `p` is not a point index.
+    pub fn distance(&self, p: usize, x: f64, y: f64) -> Option<f64> {
+        let point = self.points.get(p)?;
+        Some(match &point.target {
+            TargetShape::Point(t) => t.distance_to(x, y),
+            TargetShape::Region(poly) => poly.distance(x, y),
+            TargetShape::Mask(_) => self.mask_index[p].as_ref()?.distance(x, y),
+        })
+    }
+
+    /// Frame coordinates of the pixel centres of a (h, w) map: (xs of length w, ys of length h),
+    /// x_i = (i + 0.5)·W/w − 0.5, y_j = (j + 0.5)·H/h − 0.5 (exactly i, j at the frame size).
+    pub fn map_coordinates(&self, width: usize, height: usize) -> (Vec<f64>, Vec<f64>) {
+        (
+            sample_positions(self.width, width),
+            sample_positions(self.height, height),
+        )
+    }
+
+    /// Distance maps d_p at the pixel centres of a (height, width) map, shape (P, h, w).
+    pub fn distance_maps(&self, width: usize, height: usize) -> Result<Vec<f64>, CostError> {
+        let plane = self.check_map_size(width, height)?;
+        let (xs, ys) = self.map_coordinates(width, height);
+        let mut out = vec![0.0f64; plane * self.points.len()];
+        for (point, dst) in self.points.iter().zip(out.chunks_exact_mut(plane)) {
+            match &point.target {
+                TargetShape::Point(t) => {
+                    for (row, &y) in dst.chunks_exact_mut(width).zip(&ys) {
+                        for (v, &x) in row.iter_mut().zip(&xs) {
+                            *v = t.distance_to(x, y);
+                        }
+                    }
+                }
+                TargetShape::Region(poly) => {
+                    dst.par_chunks_mut(width)
+                        .zip(ys.par_iter())
+                        .for_each(|(row, &y)| {
+                            for (v, &x) in row.iter_mut().zip(&xs) {
+                                *v = poly.distance(x, y);
+                            }
+                        });
+                }
+                TargetShape::Mask(m) => dst.copy_from_slice(&distance::edt_at(m, &xs, &ys)),
+            }
+        }
+        Ok(out)
+    }
+
+    /// The cost maps M_p = m(d_p) as float32, shape (P, height, width), C order.
+    pub fn cost_maps(&self, width: usize, height: usize) -> Result<Vec<f32>, CostError> {
+        let metric = self.settings.metric;
+        Ok(self
+            .distance_maps(width, height)?
+            .into_iter()
+            .map(|d| metric.apply(d) as f32)
+            .collect())
+    }
+
+    /// Precomputes what scoring (N, T, P, height, width) maps needs: the cost maps for
+    /// `expected`, the within-tolerance indicators for `hit`. Keep it to score many batches.
+    pub fn prepare_maps(&self, width: usize, height: usize) -> Result<PreparedMaps, CostError> {
+        let distances = self.distance_maps(width, height)?;
+        let plane = width * height;
+        let metric = self.settings.metric;
+        let kernel: Vec<f32> = match self.settings.mode {
+            Mode::Expected => distances.iter().map(|&d| metric.apply(d) as f32).collect(),
+            Mode::Hit => distances
+                .chunks_exact(plane)
+                .zip(&self.points)
+                .flat_map(|(ds, p)| {
+                    ds.iter()
+                        .map(move |&d| if d <= p.tolerance_px { 1.0 } else { 0.0 })
+                })
+                .collect(),
+        };
+        Ok(PreparedMaps {
+            width,
+            height,
+            weights: self.points.iter().map(|p| p.weight).collect(),
+            settings: self.settings,
+            kernel,
+        })
+    }
+
+    /// Scores probability maps of shape (n, t, P, height, width); see [`PreparedMaps::evaluate`].
+    pub fn evaluate_maps(
+        &self,
+        maps: MapBatch<'_>,
+        n: usize,
+        t: usize,
+        height: usize,
+        width: usize,
+    ) -> Result<CostResult, CostError> {
+        check_batch(maps.len(), n, t, self.len(), height, width)?;
+        self.prepare_maps(width, height)?.evaluate(maps, n, t)
+    }
+
+    /// Scores predicted points, `points` of shape (n, t, P, 2) C order (`[x, y]` last).
+    pub fn evaluate_points(
+        &self,
+        points: &[f64],
+        n: usize,
+        t: usize,
+    ) -> Result<CostResult, CostError> {
+        let np = self.len();
+        if n == 0 || t == 0 {
+            return Err(CostError::EmptyBatch { n, t });
+        }
+        let expected = n.checked_mul(t).and_then(|v| v.checked_mul(np * 2));
+        if expected != Some(points.len()) {
+            return Err(CostError::BatchShape {
+                shape: format!("(N={n}, T={t}, P={np}, 2)"),
+                expected: expected.map_or("more than 2^64".into(), |e| e.to_string()),
+                got: points.len(),
+            });
+        }
+        if let Some(k) = points.iter().position(|v| !v.is_finite()) {
+            let k = k / 2;
+            return Err(CostError::NonFinitePoint {
+                candidate: k / (t * np),
+                step: (k / np) % t,
+                point: k % np,
+            });
+        }
+        let steps = step_range(self.settings.steps, t);
+        let stride = t * np * 2;
+        let mut per = vec![0.0f64; n * np];
+        let score = |(cand, out): (&[f64], &mut [f64])| {
+            for s in steps.clone() {
+                let row = &cand[s * np * 2..(s + 1) * np * 2];
+                for (p, acc) in out.iter_mut().enumerate() {
+                    let (x, y) = (row[2 * p], row[2 * p + 1]);
+                    let d = self.distance(p, x, y).unwrap_or(f64::INFINITY);
+                    *acc += match self.settings.mode {
+                        Mode::Expected => self.settings.metric.apply(d),
+                        Mode::Hit => hit_cost(if d <= self.points[p].tolerance_px {
+                            1.0
+                        } else {
+                            0.0
+                        }),
+                    };
+                }
+            }
+            for (acc, p) in out.iter_mut().zip(&self.points) {
+                *acc *= p.weight;
+            }
+        };
+        let work = n * steps.len() * np;
+        if work >= 4096 {
+            points
+                .par_chunks_exact(stride)
+                .zip(per.par_chunks_exact_mut(np))
+                .with_min_len(64)
+                .for_each(score);
+        } else {
+            points
+                .chunks_exact(stride)
+                .zip(per.chunks_exact_mut(np))
+                .for_each(score);
+        }
+        finish(per, np)
+    }
+
+    fn check_map_size(&self, width: usize, height: usize) -> Result<usize, CostError> {
+        let bad = CostError::BadMapSize {
+            width,
+            height,
+            points: self.len(),
+        };
+        if width == 0 || height == 0 {
+            return Err(bad);
+        }
+        match width
+            .checked_mul(height)
+            .and_then(|v| v.checked_mul(self.len()))
+        {
+            Some(v) if v <= MAX_MAP_VALUES => Ok(width * height),
+            _ => Err(bad),
+        }
+    }
+}
+
+/// (i + 0.5)·frame/size − 0.5 for i in 0..size, computed so that size == frame gives exactly i.
+fn sample_positions(frame: usize, size: usize) -> Vec<f64> {
+    let (f, s) = (frame as f64, size as f64);
+    (0..size).map(|i| (i as f64 + 0.5) * f / s - 0.5).collect()
+}
+
+fn step_range(steps: Steps, t: usize) -> std::ops::Range<usize> {
+    match steps {
+        Steps::Final => t - 1..t,
+        Steps::All => 0..t,
+    }
+}
+
+fn hit_cost(probability: f64) -> f64 {
+    -(HIT_EPSILON + probability).ln()
+}
+
+fn check_batch(
+    len: usize,
+    n: usize,
+    t: usize,
+    p: usize,
+    height: usize,
+    width: usize,
+) -> Result<(), CostError> {
+    if n == 0 || t == 0 {
+        return Err(CostError::EmptyBatch { n, t });
+    }
+    let expected = [t, p, height, width]
+        .iter()
+        .try_fold(n, |acc, &d| acc.checked_mul(d));
+    if expected != Some(len) {
+        return Err(CostError::BatchShape {
+            shape: format!("(N={n}, T={t}, P={p}, h={height}, w={width})"),
+            expected: expected.map_or("more than 2^64".into(), |e| e.to_string()),
+            got: len,
+        });
+    }
+    Ok(())
+}
+
+/// Totals, argmin, and the overflow check from the flat (N, P) weighted contributions.
+fn finish(per: Vec<f64>, np: usize) -> Result<CostResult, CostError> {
+    let costs: Vec<f64> = per.chunks_exact(np).map(|c| c.iter().sum()).collect();
+    if let Some(candidate) = costs.iter().position(|c| !c.is_finite()) {
+        return Err(CostError::NonFiniteCost { candidate });
+    }
+    let mut best = 0;
+    for (i, &c) in costs.iter().enumerate() {
+        if c < costs[best] {
+            best = i;
+        }
+    }
+    Ok(CostResult {
+        costs,
+        per_point: per.chunks_exact(np).map(<[f64]>::to_vec).collect(),
+        best,
+    })
+}
+
+/// A model's maps at one size, ready to score batches of probability maps.
+#[derive(Debug, Clone)]
+pub struct PreparedMaps {
+    width: usize,
+    height: usize,
+    weights: Vec<f64>,
+    settings: CostSettings,
+    /// (P, h, w): M_p for `expected`, 1[d_p ≤ tol_p] for `hit`.
+    kernel: Vec<f32>,
+}
+
+/// Values summed in float32 lanes before the lanes are added into a float64 total; keeps the
+/// rounding error of a map's sum near 1e-6 relative whatever the map size.
+const BLOCK: usize = 1024;
+/// Independent float32 accumulators, so the compiler can keep several vector registers busy.
+const LANES: usize = 16;
+
+/// Σ a·b in float32 lanes flushed to float64 every [`BLOCK`] values, and the minimum of `a`
+/// (NaN in `a` shows up as a NaN sum, so the caller checks sum finite and min ≥ 0).
+#[inline(always)]
+fn dot_min_f32(a: &[f32], b: &[f32]) -> (f64, f32) {
+    let mut total = 0.0f64;
+    let mut mn = [f32::INFINITY; LANES];
+    for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
+        let mut acc = [0.0f32; LANES];
+        let mut ac = ab.chunks_exact(LANES);
+        let mut bc = bb.chunks_exact(LANES);
+        for (x, y) in (&mut ac).zip(&mut bc) {
+            for l in 0..LANES {
+                acc[l] += x[l] * y[l];
+                mn[l] = if x[l] < mn[l] { x[l] } else { mn[l] };
+            }
+        }
+        for (x, y) in ac.remainder().iter().zip(bc.remainder()) {
+            acc[0] += x * y;
+            mn[0] = if *x < mn[0] { *x } else { mn[0] };
+        }
+        total += acc.iter().map(|&v| f64::from(v)).sum::<f64>();
+    }
+    (total, mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)))
+}
+
+/// As [`dot_min_f32`] for float16 `a`, converted block by block into a stack buffer.
+#[inline(always)]
+fn dot_min_f16(a: &[f16], b: &[f32]) -> (f64, f32) {
+    let mut buf = [0.0f32; BLOCK];
+    let mut total = 0.0;
+    let mut mn = f32::INFINITY;
+    for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
+        let dst = &mut buf[..ab.len()];
+        ab.convert_to_f32_slice(dst);
+        let (s, m) = dot_min_f32(dst, bb);
+        total += s;
+        mn = mn.min(m);
+    }
+    (total, mn)
+}
+
+impl PreparedMaps {
+    /// Map width w.
+    pub fn width(&self) -> usize {
+        self.width
+    }
+    /// Map height h.
+    pub fn height(&self) -> usize {
+        self.height
+    }
+    /// Number of source points P.
+    pub fn points(&self) -> usize {
+        self.weights.len()
+    }
+    /// The (P, h, w) float32 maps the kernel multiplies with: M_p for `expected`, the
+    /// within-tolerance indicator for `hit`.
+    pub fn kernel_maps(&self) -> &[f32] {
+        &self.kernel
+    }
+
+    /// Scores probability maps of shape (n, t, P, h, w).
+    ///
+    /// `expected`: c = Σ_u P(u)·M_p(u); `hit`: c = −ln(ε + Σ_{d_p(u) ≤ tol_p} P(u)). The maps
+    /// are used as given (no renormalisation). Every map read must hold finite values ≥ 0;
+    /// with `final` only the t = T−1 maps are read (and checked).
+    pub fn evaluate(
+        &self,
+        maps: MapBatch<'_>,
+        n: usize,
+        t: usize,
+    ) -> Result<CostResult, CostError> {
+        let np = self.points();
+        let plane = self.width * self.height;
+        check_batch(maps.len(), n, t, np, self.height, self.width)?;
+        let steps = step_range(self.settings.steps, t);
+        let mut per = vec![0.0f64; n * np];
+        let work = n * steps.len() * np * plane;
+        let parallel = n > 1 && work >= 1 << 20;
+        let result = match maps {
+            MapBatch::F32(v) => self.run(v, &mut per, t, steps, parallel, dot_min_f32),
+            MapBatch::F16(v) => self.run(v, &mut per, t, steps, parallel, dot_min_f16),
+        };
+        result?;
+        finish(per, np)
+    }
+
+    fn run<T: Sync>(
+        &self,
+        maps: &[T],
+        per: &mut [f64],
+        t: usize,
+        steps: std::ops::Range<usize>,
+        parallel: bool,
+        dot: fn(&[T], &[f32]) -> (f64, f32),
+    ) -> Result<(), CostError> {
+        let np = self.points();
+        let plane = self.width * self.height;
+        let stride = t * np * plane;
+        let score = |cand: &[T], out: &mut [f64]| -> Result<(), (usize, usize)> {
+            for s in steps.clone() {
+                let slab = &cand[s * np * plane..(s + 1) * np * plane];
+                for (p, acc) in out.iter_mut().enumerate() {
+                    let (sum, min) = dot(
+                        &slab[p * plane..(p + 1) * plane],
+                        &self.kernel[p * plane..(p + 1) * plane],
+                    );
+                    if !(sum.is_finite() && min >= 0.0) {
+                        return Err((s, p));
+                    }
+                    *acc += match self.settings.mode {
+                        Mode::Expected => sum,
+                        Mode::Hit => hit_cost(sum),
+                    };
+                }
+            }
+            for (acc, w) in out.iter_mut().zip(&self.weights) {
+                *acc *= w;
+            }
+            Ok(())
+        };
+        let outcome = if parallel {
+            maps.par_chunks_exact(stride)
+                .zip(per.par_chunks_exact_mut(np))
+                .try_for_each(|(c, o)| score(c, o))
+        } else {
+            maps.chunks_exact(stride)
+                .zip(per.chunks_exact_mut(np))
+                .try_for_each(|(c, o)| score(c, o))
+        };
+        if outcome.is_ok() {
+            return Ok(());
+        }
+        // Report the first bad map in batch order, whichever thread found one first.
+        let mut scratch = vec![0.0; np];
+        for (candidate, c) in maps.chunks_exact(stride).enumerate() {
+            scratch.fill(0.0);
+            if let Err((step, point)) = score(c, &mut scratch) {
+                return Err(CostError::BadProbability {
+                    candidate,
+                    step,
+                    point,
+                });
+            }
+        }
+        // Not reached: the serial pass sees the same data as the parallel one.
+        Err(CostError::BadProbability {
+            candidate: 0,
+            step: 0,
+            point: 0,
+        })
+    }
+}
+
+/// Exact distance from any point of the plane to the nearest painted pixel centre of a mask.
+///
+/// For each pixel (i, j) it stores the nearest painted row at or above j and at or below j in
+/// column i (row-major, so one query reads two contiguous rows). A query at (x, y) takes, for
+/// each column i, the nearer of those rows around y, and minimises (x − i)² + dy² over the
+/// columns within the best distance found so far, starting next to x. The cost of a query
+/// grows with its distance to the mask (in columns), never with the mask's area.
+#[derive(Debug, Clone)]
+struct MaskIndex {
+    width: usize,
+    height: usize,
+    /// Nearest painted row ≤ j in column i, or −∞.
+    up: Vec<f32>,
+    /// Nearest painted row ≥ j in column i, or +∞.
+    down: Vec<f32>,
+}
+
+impl MaskIndex {
+    fn new(mask: &Mask) -> Self {
+        let (w, h) = (mask.width(), mask.height());
+        let data = mask.data();
+        let mut up = vec![f32::NEG_INFINITY; w * h];
+        let mut down = vec![f32::INFINITY; w * h];
+        for j in 0..h {
+            for i in 0..w {
+                let k = j * w + i;
+                up[k] = if data[k] {
+                    j as f32
+                } else if j > 0 {
+                    up[k - w]
+                } else {
+                    f32::NEG_INFINITY
+                };
+            }
+        }
+        for j in (0..h).rev() {
+            for i in 0..w {
+                let k = j * w + i;
+                down[k] = if data[k] {
+                    j as f32
+                } else if j + 1 < h {
+                    down[k + w]
+                } else {
+                    f32::INFINITY
+                };
+            }
+        }
+        Self {
+            width: w,
+            height: h,
+            up,
+            down,
+        }
+    }
+
+    fn distance(&self, x: f64, y: f64) -> f64 {
+        let (w, h) = (self.width, self.height);
+        let last_row = (h - 1) as f64;
+        // Rows of `up` at floor(y) and `down` at ceil(y), clamped into the mask.
+        let jf = y.floor().clamp(0.0, last_row) as usize;
+        let jc = y.ceil().clamp(0.0, last_row) as usize;
+        let up = &self.up[jf * w..(jf + 1) * w];
+        let down = &self.down[jc * w..(jc + 1) * w];
+        let d2_range = |lo: usize, hi: usize| -> f64 {
+            let mut best = f64::INFINITY;
+            for i in lo..=hi {
+                let dy = (y - f64::from(up[i]))
+                    .abs()
+                    .min((f64::from(down[i]) - y).abs());
+                let dx = x - i as f64;
+                let d2 = dx * dx + dy * dy;
+                best = if d2 < best { d2 } else { best };
+            }
+            best
+        };
+        let last_col = w - 1;
+        let i0 = x.round().clamp(0.0, last_col as f64) as usize;
+        const WINDOW: usize = 16;
+        let (wlo, whi) = (i0.saturating_sub(WINDOW), (i0 + WINDOW).min(last_col));
+        let mut best = d2_range(wlo, whi);
+        // Columns farther than sqrt(best) from x cannot do better.
+        let r = best.sqrt();
+        let lo = if r.is_finite() {
+            (x - r).ceil().max(0.0)
+        } else {
+            0.0
+        };
+        let hi = if r.is_finite() {
+            (x + r).floor().min(last_col as f64)
+        } else {
+            last_col as f64
+        };
+        if lo <= hi {
+            let (lo, hi) = (lo as usize, hi as usize);
+            if lo < wlo {
+                best = best.min(d2_range(lo, wlo - 1));
+            }
+            if hi > whi {
+                best = best.min(d2_range(whi + 1, hi));
+            }
+        }
+        best.sqrt()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+    use serde_json::Value;
+
+    /// numpy / shapely / scipy evaluation of the DESIGN.md formulas; see
+    /// tests/reference/gen_cost.py.
+    const REFERENCE: &str = include_str!(concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/../../tests/reference/gen_cost.json"
+    ));
+
+    fn floats(v: &Value) -> Vec<f64> {
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|x| x.as_f64().unwrap())
+            .collect()
+    }
+
+    fn pt(x: f64, y: f64) -> PixelPoint {
+        PixelPoint::new(x, y).unwrap()
+    }
+
+    fn reference_points(doc: &Value) -> Vec<CostPoint> {
+        doc["points"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|p| {
+                let target = match p["kind"].as_str().unwrap() {
+                    "point" => {
+                        let t = floats(&p["target"]);
+                        TargetShape::Point(pt(t[0], t[1]))
+                    }
+                    "region" => TargetShape::Region(
+                        Polygon::new(
+                            p["polygon"]
+                                .as_array()
+                                .unwrap()
+                                .iter()
+                                .map(|v| {
+                                    let v = floats(v);
+                                    pt(v[0], v[1])
+                                })
+                                .collect(),
+                        )
+                        .unwrap(),
+                    ),
+                    _ => {
+                        let rows: Vec<&str> = p["rows"]
+                            .as_array()
+                            .unwrap()
+                            .iter()
+                            .map(|r| r.as_str().unwrap())
+                            .collect();
+                        let inside = rows.iter().flat_map(|r| r.bytes().map(|b| b == b'1'));
+                        TargetShape::Mask(Arc::new(
+                            Mask::new(rows[0].len(), rows.len(), inside.collect()).unwrap(),
+                        ))
+                    }
+                };
+                CostPoint {
+                    target,
+                    weight: p["weight"].as_f64().unwrap(),
+                    tolerance_px: p["tolerance_px"].as_f64().unwrap(),
+                }
+            })
+            .collect()
+    }
+
+    fn settings_of(case: &Value) -> CostSettings {
+        let metric = match case["metric"].as_str().unwrap() {
+            "euclidean" => Metric::Euclidean,
+            "squared" => Metric::Squared,
+            _ => Metric::Huber {
+                delta_px: case["huber_delta_px"].as_f64().unwrap(),
+            },
+        };
+        let steps = match case["steps"].as_str().unwrap() {
+            "final" => Steps::Final,
+            _ => Steps::All,
+        };
+        let mode = match case["mode"].as_str().unwrap() {
+            "expected" => Mode::Expected,
+            _ => Mode::Hit,
+        };
+        CostSettings::new(metric, steps, mode).unwrap()
+    }
+
+    fn close(got: f64, want: f64) -> bool {
+        (got - want).abs() <= 1e-5 * want.abs() + 1e-7
+    }
+
+    #[test]
+    fn matches_the_numpy_reference_for_every_setting() {
+        let doc: Value = serde_json::from_str(REFERENCE).unwrap();
+        let (w, h) = (
+            doc["width"].as_u64().unwrap() as usize,
+            doc["height"].as_u64().unwrap() as usize,
+        );
+        let points = reference_points(&doc);
+        let pred = &doc["predicted_points"];
+        let pred_values = floats(&pred["values"]);
+        let (pn, pt_) = (
+            pred["n"].as_u64().unwrap() as usize,
+            pred["t"].as_u64().unwrap() as usize,
+        );
+        let mut checked = 0;
+        for case in doc["cases"].as_array().unwrap() {
+            let model = CostModel::new(w, h, points.clone(), settings_of(case)).unwrap();
+            let input = case["input"].as_str().unwrap();
+            let got = if input == "points" {
+                model.evaluate_points(&pred_values, pn, pt_).unwrap()
+            } else {
+                let m = &doc["maps"][input.trim_start_matches("maps_")];
+                let f32s: Vec<f32> = floats(&m["values"]).iter().map(|&v| v as f32).collect();
+                let f16s: Vec<f16> = f32s.iter().map(|&v| f16::from_f32(v)).collect();
+                let batch = match case["dtype"].as_str().unwrap() {
+                    "f32" => MapBatch::F32(&f32s),
+                    _ => MapBatch::F16(&f16s),
+                };
+                let dims = ["n", "t", "height", "width"].map(|k| m[k].as_u64().unwrap() as usize);
+                model
+                    .evaluate_maps(batch, dims[0], dims[1], dims[2], dims[3])
+                    .unwrap()
+            };
+            let want_costs = floats(&case["costs"]);
+            for (n, (g, e)) in got.costs.iter().zip(&want_costs).enumerate() {
+                assert!(close(*g, *e), "{case}: cost[{n}] {g} vs {e}");
+                let want_pp = floats(&case["per_point"][n]);
+                for (p, (g, e)) in got.per_point[n].iter().zip(&want_pp).enumerate() {
+                    assert!(close(*g, *e), "{input}: per_point[{n}][{p}] {g} vs {e}");
+                }
+                let sum: f64 = got.per_point[n].iter().sum();
+                assert_eq!(sum, got.costs[n]);
+            }
+            assert_eq!(got.costs.len(), want_costs.len());
+            assert_eq!(got.best as u64, case["best"].as_u64().unwrap(), "{case}");
+            checked += 1;
+        }
+        assert_eq!(checked, 60);
+    }
+
+    #[test]
+    fn distance_maps_match_the_reference_at_frame_and_resampled_size() {
+        let doc: Value = serde_json::from_str(REFERENCE).unwrap();
+        let points = reference_points(&doc);
+        let settings = CostSettings::new(Metric::Squared, Steps::Final, Mode::Expected).unwrap();
+        let model = CostModel::new(24, 18, points, settings).unwrap();
+        for key in ["frame", "resampled"] {
+            let r = &doc["distance_maps"][key];
+            let (w, h) = (
+                r["width"].as_u64().unwrap() as usize,
+                r["height"].as_u64().unwrap() as usize,
+            );
+            let want = floats(&r["values"]);
+            let got = model.distance_maps(w, h).unwrap();
+            let maps = model.cost_maps(w, h).unwrap();
+            assert_eq!(got.len(), want.len());
+            for (k, ((g, e), m)) in got.iter().zip(&want).zip(&maps).enumerate() {
+                assert!((g - e).abs() <= 1e-9 * (1.0 + e), "{key}[{k}]: {g} vs {e}");
+                assert!(
+                    close(f64::from(*m), e * e),
+                    "{key}[{k}] map {m} vs {}",
+                    e * e
+                );
+            }
+            // Scattered-point distances agree with the map's.
+            let (xs, ys) = model.map_coordinates(w, h);
+            for p in 0..model.len() {
+                for (j, &y) in ys.iter().enumerate() {
+                    for (i, &x) in xs.iter().enumerate() {
+                        let d = model.distance(p, x, y).unwrap();
+                        let e = want[(p * h + j) * w + i];
+                        assert!((d - e).abs() <= 1e-9 * (1.0 + e), "{key} p{p} ({x},{y})");
+                    }
+                }
+            }
+        }
+    }
+
+    fn brute_mask_distance(mask: &Mask, x: f64, y: f64) -> f64 {
+        let mut best = f64::INFINITY;
+        for j in 0..mask.height() {
+            for i in 0..mask.width() {
+                if mask.is_inside(i, j) {
+                    best = best.min((x - i as f64).hypot(y - j as f64));
+                }
+            }
+        }
+        best
+    }
+
+    fn random_mask(w: usize, h: usize, seed: u64, density: f64) -> Mask {
+        let mut s = seed;
+        let mut inside: Vec<bool> = (0..w * h)
+            .map(|_| {
+                s = s
+                    .wrapping_mul(6364136223846793005)
+                    .wrapping_add(1442695040888963407);
+                ((s >> 11) as f64 / (1u64 << 53) as f64) < density
+            })
+            .collect();
+        inside[(seed as usize) % (w * h)] = true;
+        Mask::new(w, h, inside).unwrap()
+    }
+
+    proptest! {
+        #[test]
+        fn mask_index_is_exact_anywhere(
+            w in 1usize..40, h in 1usize..30, seed in 0u64..1000, density in 0.0f64..0.2,
+            qs in proptest::collection::vec((-60.0f64..100.0, -60.0f64..90.0), 1..20),
+        ) {
+            let mask = random_mask(w, h, seed, density);
+            let index = MaskIndex::new(&mask);
+            for (x, y) in qs {
+                let fast = index.distance(x, y);
+                let slow = brute_mask_distance(&mask, x, y);
+                prop_assert!((fast - slow).abs() <= 1e-12 * (1.0 + slow), "{fast} vs {slow}");
+            }
+            // Integer and half-integer positions too (floor/ceil edge cases).
+            for (x, y) in [(0.0, 0.0), (w as f64 - 1.0, h as f64 - 1.0), (0.5, 0.5), (-0.5, h as f64)] {
+                let fast = index.distance(x, y);
+                prop_assert!((fast - brute_mask_distance(&mask, x, y)).abs() <= 1e-12 * (1.0 + fast));
+            }
+        }
+
+        #[test]
+        fn kernels_match_a_plain_f64_sum(len in 0usize..5000, seed in 0u64..1000) {
+            let mut s = seed;
+            let mut next = || {
+                s = s.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+                (s >> 40) as f32 / (1u64 << 24) as f32
+            };
+            let a: Vec<f32> = (0..len).map(|_| next()).collect();
+            let b: Vec<f32> = (0..len).map(|_| next() * 100.0).collect();
+            let want: f64 = a.iter().zip(&b).map(|(x, y)| f64::from(*x) * f64::from(*y)).sum();
+            let (got, min) = dot_min_f32(&a, &b);
+            prop_assert!((got - want).abs() <= 1e-6 * want.abs() + 1e-9, "{got} vs {want}");
+            let want_min = a.iter().copied().fold(f32::INFINITY, f32::min);
+            prop_assert_eq!(min, want_min);
+            let a16: Vec<f16> = a.iter().map(|&v| f16::from_f32(v)).collect();
+            let want16: f64 = a16.iter().zip(&b).map(|(x, y)| f64::from(x.to_f32()) * f64::from(*y)).sum();
+            let (got16, min16) = dot_min_f16(&a16, &b);
+            prop_assert!((got16 - want16).abs() <= 1e-6 * want16.abs() + 1e-9);
+            prop_assert_eq!(min16, a16.iter().map(|v| v.to_f32()).fold(f32::INFINITY, f32::min));
+        }
+
+        #[test]
+        fn permuting_points_permutes_per_point(
+            perm_seed in 0u64..1000,
+            coords in proptest::collection::vec(-20.0f64..40.0, 4 * 3 * 4 * 2),
+        ) {
+            let mut points = mixed_points();
+            let settings = CostSettings::new(Metric::Huber { delta_px: 2.0 }, Steps::All, Mode::Expected).unwrap();
+            let model = CostModel::new(30, 20, points.clone(), settings).unwrap();
+            let base = model.evaluate_points(&coords, 4, 3).unwrap();
+            // A permutation of the 4 points from the seed.
+            let mut order: Vec<usize> = (0..4).collect();
+            let mut s = perm_seed;
+            for i in (1..4).rev() {
+                s = s.wrapping_mul(6364136223846793005).wrapping_add(1);
+                order.swap(i, (s >> 33) as usize % (i + 1));
+            }
+            points = order.iter().map(|&k| points[k].clone()).collect();
+            let permuted_model = CostModel::new(30, 20, points, settings).unwrap();
+            let mut permuted = coords.clone();
+            for nt in 0..12 {
+                for (new, &old) in order.iter().enumerate() {
+                    permuted[(nt * 4 + new) * 2] = coords[(nt * 4 + old) * 2];
+                    permuted[(nt * 4 + new) * 2 + 1] = coords[(nt * 4 + old) * 2 + 1];
+                }
+            }
+            let got = permuted_model.evaluate_points(&permuted, 4, 3).unwrap();
+            for n in 0..4 {
+                for (new, &old) in order.iter().enumerate() {
+                    prop_assert_eq!(got.per_point[n][new], base.per_point[n][old]);
+                }
+                prop_assert!((got.costs[n] - base.costs[n]).abs() <= 1e-12 * (1.0 + base.costs[n].abs()));
+            }
+        }
+
+        #[test]
+        fn cost_is_zero_on_target_and_grows_with_distance(
+            tx in 0.0f64..29.0, ty in 0.0f64..19.0, angle in 0.0f64..std::f64::consts::TAU,
+            r1 in 0.0f64..50.0, dr in 0.001f64..50.0, metric_kind in 0usize..3,
+        ) {
+            let metric = [Metric::Euclidean, Metric::Squared, Metric::Huber { delta_px: 3.0 }][metric_kind];
+            let settings = CostSettings::new(metric, Steps::Final, Mode::Expected).unwrap();
+            let target = CostPoint { target: TargetShape::Point(pt(tx, ty)), weight: 1.0, tolerance_px: 1.0 };
+            let model = CostModel::new(30, 20, vec![target], settings).unwrap();
+            let (c, s) = (angle.cos(), angle.sin());
+            let r2 = r1 + dr;
+            let pts = [tx, ty, tx + r1 * c, ty + r1 * s, tx + r2 * c, ty + r2 * s];
+            let res = model.evaluate_points(&pts, 3, 1).unwrap();
+            prop_assert_eq!(res.costs[0], 0.0);
+            prop_assert!(res.costs[1] <= res.costs[2]);
+            prop_assert!(res.costs[1] >= 0.0);
+            prop_assert_eq!(res.best, 0);
+        }
+    }
+
+    /// A point, a region, a mask and a point, on a 30×20 frame.
+    fn mixed_points() -> Vec<CostPoint> {
+        let square = Polygon::new(vec![
+            pt(5.0, 5.0),
+            pt(12.0, 5.0),
+            pt(12.0, 11.0),
+            pt(5.0, 11.0),
+        ])
+        .unwrap();
+        vec![
+            CostPoint {
+                target: TargetShape::Point(pt(3.0, 4.0)),
+                weight: 1.0,
+                tolerance_px: 2.0,
+            },
+            CostPoint {
+                target: TargetShape::Region(square),
+                weight: 0.5,
+                tolerance_px: 1.0,
+            },
+            CostPoint {
+                target: TargetShape::Mask(Arc::new(random_mask(30, 20, 7, 0.02))),
+                weight: 2.0,
+                tolerance_px: 1.5,
+            },
+            CostPoint {
+                target: TargetShape::Point(pt(25.5, 15.25)),
+                weight: 0.25,
+                tolerance_px: 3.0,
+            },
+        ]
+    }
+
+    fn mixed_model(steps: Steps, mode: Mode) -> CostModel {
+        let settings = CostSettings::new(Metric::Euclidean, steps, mode).unwrap();
+        CostModel::new(30, 20, mixed_points(), settings).unwrap()
+    }
+
+    #[test]
+    fn zero_cost_on_every_kind_of_target() {
+        let model = mixed_model(Steps::Final, Mode::Expected);
+        let mask = match &model.points()[2].target {
+            TargetShape::Mask(m) => m.clone(),
+            _ => unreachable!(),
+        };
+        let k = mask.data().iter().position(|&b| b).unwrap();
+        let (mi, mj) = ((k % 30) as f64, (k / 30) as f64);
+        let res = model
+            .evaluate_points(&[3.0, 4.0, 8.0, 7.5, mi, mj, 25.5, 15.25], 1, 1)
+            .unwrap();
+        assert_eq!(res.costs, vec![0.0]);
+        // Hit mode: everything within tolerance costs −ln(1 + ε) per point.
+        let hit = mixed_model(Steps::Final, Mode::Hit);
+        let res = hit
+            .evaluate_points(&[3.0, 4.0, 8.0, 7.5, mi, mj, 25.5, 15.25], 1, 1)
+            .unwrap();
+        let each = -(1.0 + HIT_EPSILON).ln();
+        assert!((res.costs[0] - each * 3.75).abs() < 1e-15);
+        // A miss costs −ln ε times the weight.
+        let res = hit
+            .evaluate_points(&[100.0, 4.0, 8.0, 7.5, mi, mj, 25.5, 15.25], 1, 1)
+            .unwrap();
+        assert!((res.per_point[0][0] + HIT_EPSILON.ln()).abs() < 1e-12);
+    }
+
+    #[test]
+    fn maps_at_the_target_cost_nothing_and_unnormalised_maps_scale() {
+        let settings = CostSettings::new(Metric::Squared, Steps::All, Mode::Expected).unwrap();
+        let target = CostPoint {
+            target: TargetShape::Point(pt(4.0, 2.0)),
+            weight: 3.0,
+            tolerance_px: 1.0,
+        };
+        let model = CostModel::new(8, 6, vec![target], settings).unwrap();
+        let mut maps = vec![0.0f32; 2 * 6 * 8];
+        maps[2 * 8 + 4] = 1.0; // t = 0 on the target
+        maps[48 + 2 * 8 + 6] = 1.0; // t = 1 two pixels to the right: d² = 4
+        let res = model
+            .evaluate_maps(MapBatch::F32(&maps), 1, 2, 6, 8)
+            .unwrap();
+        assert_eq!(res.costs, vec![12.0]);
+        let doubled: Vec<f32> = maps.iter().map(|v| v * 2.0).collect();
+        let res2 = model
+            .evaluate_maps(MapBatch::F32(&doubled), 1, 2, 6, 8)
+            .unwrap();
+        assert_eq!(res2.costs, vec![24.0]);
+    }
+
+    #[test]
+    fn final_reads_only_the_last_step() {
+        let model = mixed_model(Steps::Final, Mode::Expected);
+        let plane = 5 * 7;
+        let mut maps = vec![1.0f32 / plane as f32; 2 * 3 * 4 * plane];
+        let before = model
+            .evaluate_maps(MapBatch::F32(&maps), 2, 3, 5, 7)
+            .unwrap();
+        // Garbage in steps 0 and 1 is never read with `final`.
+        for n in 0..2 {
+            for v in &mut maps[n * 3 * 4 * plane..(n * 3 + 2) * 4 * plane] {
+                *v = f32::NAN;
+            }
+        }
+        let after = model
+            .evaluate_maps(MapBatch::F32(&maps), 2, 3, 5, 7)
+            .unwrap();
+        assert_eq!(before, after);
+        let all = mixed_model(Steps::All, Mode::Expected);
+        assert_eq!(
+            all.evaluate_maps(MapBatch::F32(&maps), 2, 3, 5, 7),
+            Err(CostError::BadProbability {
+                candidate: 0,
+                step: 0,
+                point: 0
+            })
+        );
+    }
+
+    #[test]
+    fn bad_probabilities_are_refused_with_their_position() {
+        let model = mixed_model(Steps::All, Mode::Hit);
+        let plane = 4 * 4;
+        let n = 40; // enough work to take the parallel path
+        let mut maps = vec![0.01f32; n * 2 * 4 * plane];
+        let at = |c: usize, s: usize, p: usize| ((c * 2 + s) * 4 + p) * plane + 5;
+        maps[at(33, 1, 2)] = -1e-3;
+        maps[at(37, 0, 1)] = f32::INFINITY;
+        let err = model.evaluate_maps(MapBatch::F32(&maps), n, 2, 4, 4);
+        assert_eq!(
+            err,
+            Err(CostError::BadProbability {
+                candidate: 33,
+                step: 1,
+                point: 2
+            })
+        );
+        maps[at(33, 1, 2)] = 0.0;
+        let f16s: Vec<f16> = maps.iter().map(|&v| f16::from_f32(v)).collect();
+        assert_eq!(
+            model.evaluate_maps(MapBatch::F16(&f16s), n, 2, 4, 4),
+            Err(CostError::BadProbability {
+                candidate: 37,
+                step: 0,
+                point: 1
+            })
+        );
+        // Large batches go parallel; big enough and well-formed still works.
+        let big = vec![0.5f32; 64 * 2 * 4 * 64 * 64];
+        let res = model
+            .evaluate_maps(MapBatch::F32(&big), 64, 2, 64, 64)
+            .unwrap();
+        assert!(res.costs.iter().all(|c| *c == res.costs[0]));
+    }
+
+    #[test]
+    fn shape_and_setting_errors() {
+        assert_eq!(
+            CostSettings::new(Metric::Huber { delta_px: 0.0 }, Steps::All, Mode::Hit),
+            Err(CostError::BadHuberDelta(0.0))
+        );
+        assert!(
+            CostSettings::new(Metric::Huber { delta_px: f64::NAN }, Steps::All, Mode::Hit).is_err()
+        );
+        let settings = CostSettings::new(Metric::Euclidean, Steps::All, Mode::Expected).unwrap();
+        assert_eq!(
+            CostModel::new(10, 10, vec![], settings).unwrap_err(),
+            CostError::NoPoints
+        );
+        let mut p = mixed_points();
+        p[1].weight = -1.0;
+        assert!(matches!(
+            CostModel::new(30, 20, p, settings),
+            Err(CostError::BadWeight { point: 1, .. })
+        ));
+        assert!(matches!(
+            CostModel::new(31, 20, mixed_points(), settings),
+            Err(CostError::MaskSize { point: 2, .. })
+        ));
+        let model = mixed_model(Steps::All, Mode::Expected);
+        assert!(matches!(
+            model.evaluate_points(&[0.0; 15], 1, 2),
+            Err(CostError::BatchShape { .. })
+        ));
+        assert_eq!(
+            model.evaluate_points(&[], 0, 1).unwrap_err(),
+            CostError::EmptyBatch { n: 0, t: 1 }
+        );
+        let mut pts = vec![1.0; 2 * 2 * 4 * 2];
+        pts[(4 + 3) * 2 + 1] = f64::NAN; // n = 0, t = 1, p = 3, y
+        assert_eq!(
+            model.evaluate_points(&pts, 2, 2).unwrap_err(),
+            CostError::NonFinitePoint {
+                candidate: 0,
+                step: 1,
+                point: 3
+            }
+        );
+        pts[(4 + 3) * 2 + 1] = 1e300; // squares overflow? euclidean: finite; squared below
+        assert!(model.evaluate_points(&pts, 2, 2).is_ok());
+        let sq = CostModel::new(
+            30,
+            20,
+            mixed_points(),
+            CostSettings::new(Metric::Squared, Steps::All, Mode::Expected).unwrap(),
+        )
+        .unwrap();
+        assert_eq!(
+            sq.evaluate_points(&pts, 2, 2).unwrap_err(),
+            CostError::NonFiniteCost { candidate: 0 }
+        );
+        assert!(matches!(
+            model.evaluate_maps(MapBatch::F32(&[0.0; 10]), 1, 1, 2, 2),
+            Err(CostError::BatchShape { .. })
+        ));
+        assert!(model.cost_maps(0, 5).is_err());
+        assert!(model.cost_maps(1 << 20, 1 << 20).is_err());
+        assert_eq!(model.distance(9, 0.0, 0.0), None);
+    }
+
+    #[test]
+    fn ties_pick_the_first_candidate() {
+        let model = mixed_model(Steps::Final, Mode::Expected);
+        let same = [3.0, 4.0, 8.0, 7.5, 0.0, 0.0, 25.0, 15.0];
+        let mut pts = vec![];
+        pts.extend_from_slice(&[50.0; 8]);
+        pts.extend_from_slice(&same);
+        pts.extend_from_slice(&same);
+        let res = model.evaluate_points(&pts, 3, 1).unwrap();
+        assert_eq!(res.best, 1);
+    }
+
+    #[test]
+    fn one_thread_and_many_agree() {
+        let model = mixed_model(Steps::All, Mode::Expected);
+        let plane: usize = 16 * 16;
+        let maps: Vec<f32> = (0..300 * 2 * 4 * plane)
+            .map(|k| ((k * 7919) % 1000) as f32 * 1e-6)
+            .collect();
+        let one = rayon::ThreadPoolBuilder::new()
+            .num_threads(1)
+            .build()
+            .unwrap();
+        let a = one
+            .install(|| model.evaluate_maps(MapBatch::F32(&maps), 300, 2, 16, 16))
+            .unwrap();
+        let b = model
+            .evaluate_maps(MapBatch::F32(&maps), 300, 2, 16, 16)
+            .unwrap();
+        assert_eq!(a, b);
+    }
+}
