@@ -1,0 +1,640 @@
+//! Exact Euclidean distance transforms of painted masks
+//! (Felzenszwalb & Huttenlocher, "Distance Transforms of Sampled Functions", 2012).
+
+use thiserror::Error;
+
+/// What is wrong with a mask.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum MaskError {
+    /// Width or height is zero.
+    #[error("a mask must be at least 1x1 pixels")]
+    Empty,
+    /// The data length is not width × height.
+    #[error("mask data has {got} entries, expected {expected}")]
+    WrongLength {
+        /// Entries given.
+        got: usize,
+        /// width × height.
+        expected: usize,
+    },
+    /// No pixel is inside, so distances are undefined.
+    #[error("the mask has no painted pixel")]
+    NothingPainted,
+}
+
+/// A binary mask of width × height pixels, row-major, with at least one inside pixel.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Mask {
+    width: usize,
+    height: usize,
+    inside: Vec<bool>,
+}
+
+impl Mask {
+    /// Checks and builds a mask; `inside[j * width + i]` is pixel (x = i, y = j).
+    pub fn new(width: usize, height: usize, inside: Vec<bool>) -> Result<Self, MaskError> {
+        if width == 0 || height == 0 {
+            return Err(MaskError::Empty);
+        }
+        if inside.len() != width * height {
+            return Err(MaskError::WrongLength {
+                got: inside.len(),
+                expected: width * height,
+            });
+        }
+        if !inside.iter().any(|&b| b) {
+            return Err(MaskError::NothingPainted);
+        }
+        Ok(Self {
+            width,
+            height,
+            inside,
+        })
+    }
+    /// Width in pixels.
+    pub fn width(&self) -> usize {
+        self.width
+    }
+    /// Height in pixels.
+    pub fn height(&self) -> usize {
+        self.height
+    }
+    /// Whether pixel (x = i, y = j) is painted.
+    pub fn is_inside(&self, i: usize, j: usize) -> bool {
+        self.inside[j * self.width + i]
+    }
+    /// The row-major painted flags.
+    pub fn data(&self) -> &[bool] {
+        &self.inside
+    }
+}
+
+/// Marks "no painted pixel in this direction" in the integer column passes.
+const NONE: u32 = u32::MAX;
+
+/// Distance from every pixel centre to the nearest painted pixel centre, row-major (H, W), 0 inside.
+///
+/// Exact (every value is the correctly rounded square root of an exact integer squared
+/// distance, for distances below 4096 px; beyond that within f32 rounding). Linear time: first
+/// the vertical distance to the nearest painted pixel of the same column (two sweeps over the
+/// rows), then, per row, the lower envelope of the parabolas `g(i)² + (x − i)²`
+/// (Felzenszwalb & Huttenlocher 2012, section 3), built and evaluated in exact integer
+/// arithmetic. Runs on the calling thread; callers that need many maps parallelise over maps.
+pub fn edt(mask: &Mask) -> Vec<f32> {
+    let (w, h) = (mask.width, mask.height);
+    if w.max(h) <= 1 << 20 {
+        edt_impl::<i64>(mask)
+    } else {
+        edt_impl::<i128>(mask)
+    }
+}
+
+/// Integer type for the envelope: i64 is exact for masks up to 2^20 px on a side (squared
+/// distances stay below 2^41 and the cross-multiplied comparisons below 2^62); i128 beyond.
+trait Exact:
+    Copy
+    + Ord
+    + From<i64>
+    + std::ops::Add<Output = Self>
+    + std::ops::Sub<Output = Self>
+    + std::ops::Mul<Output = Self>
+{
+    fn to_f64(self) -> f64;
+}
+
+impl Exact for i64 {
+    fn to_f64(self) -> f64 {
+        self as f64
+    }
+}
+
+impl Exact for i128 {
+    fn to_f64(self) -> f64 {
+        self as f64
+    }
+}
+
+fn edt_impl<T: Exact>(mask: &Mask) -> Vec<f32> {
+    let (w, h) = (mask.width, mask.height);
+    let inside = &mask.inside;
+    // The output buffer first holds, per pixel, the distance (in rows) up to the nearest
+    // painted pixel of its column at or above it, stored as u32 bits; row j is turned into
+    // final distances only after its own up-distances are read, so no second H×W buffer is
+    // needed.
+    let mut out = vec![0.0f32; w * h];
+    for (o, &p) in out[..w].iter_mut().zip(&inside[..w]) {
+        *o = f32::from_bits(if p { 0 } else { NONE });
+    }
+    for j in 1..h {
+        let (above, rest) = out.split_at_mut(j * w);
+        let above = &above[(j - 1) * w..];
+        let row = &mut rest[..w];
+        let ins = &inside[j * w..(j + 1) * w];
+        for ((o, &a), &p) in row.iter_mut().zip(above.iter()).zip(ins) {
+            let up = a.to_bits().saturating_add(1);
+            *o = f32::from_bits(if p { 0 } else { up });
+        }
+    }
+    // Bottom-up: `down` is the distance down to the nearest painted pixel at or below; `g` the
+    // nearer of up and down, the 1-D transform of the column.
+    let mut down = vec![NONE; w];
+    let mut g = vec![NONE; w];
+    let mut env = Envelope::<T>::with_capacity(w);
+    for j in (0..h).rev() {
+        let row = &mut out[j * w..(j + 1) * w];
+        let ins = &inside[j * w..(j + 1) * w];
+        for (((gi, dn), o), &p) in g.iter_mut().zip(down.iter_mut()).zip(row.iter()).zip(ins) {
+            *dn = if p { 0 } else { dn.saturating_add(1) };
+            *gi = (*dn).min(o.to_bits());
+        }
+        env.row(&g, row);
+    }
+    out
+}
+
+/// One parabola f + (x − v)² on the lower envelope, with A = f + v², and where it takes over
+/// from its left neighbour on the envelope: from x ≥ num / (2·den) on (num, den unused for the
+/// first parabola).
+#[derive(Clone, Copy)]
+struct Parabola<T> {
+    v: T,
+    f: T,
+    a: T,
+    num: T,
+    den: T,
+}
+
+/// Scratch for the exact lower envelope of one row, reused across rows.
+struct Envelope<T> {
+    /// The parabolas of the envelope, left to right (a stack while it is built).
+    stack: Vec<Parabola<T>>,
+    /// `x as f64` for x in 0..w, so the per-pixel loop has no integer-to-float conversion.
+    xs: Vec<f64>,
+}
+
+impl<T: Exact> Envelope<T> {
+    fn with_capacity(w: usize) -> Self {
+        Self {
+            stack: Vec::with_capacity(w),
+            xs: (0..w).map(|x| x as f64).collect(),
+        }
+    }
+
+    /// `out[x] = sqrt(min_i g[i]² + (x − i)²)` over the columns with `g[i] != NONE` (at least
+    /// one, since the mask has a painted pixel).
+    fn row(&mut self, g: &[u32], out: &mut [f32]) {
+        let stack = &mut self.stack;
+        stack.clear();
+        let zero = T::from(0);
+        for (q, &gq) in g.iter().enumerate() {
+            if gq == NONE {
+                continue;
+            }
+            let q = T::from(q as i64);
+            let gq = T::from(i64::from(gq));
+            let f = gq * gq;
+            let a = f + q * q;
+            // Pop the top parabola p while the new one q takes over from it no later than p
+            // takes over from its own left neighbour: (A_q − A_p)/(q − v_p) <= num_p/den_p,
+            // cross-multiplied (both denominators are positive).
+            let mut entry = Parabola {
+                v: q,
+                f,
+                a,
+                num: zero,
+                den: zero,
+            };
+            while let Some(p) = stack.last() {
+                entry.num = a - p.a;
+                entry.den = q - p.v;
+                if stack.len() == 1 || entry.num * p.den > p.num * entry.den {
+                    break;
+                }
+                stack.pop();
+            }
+            stack.push(entry);
+        }
+        // Parabola k owns the whole pixels from ⌈num_k / (2 den_k)⌉ up to where k+1 takes over:
+        // fill each run without branches.
+        let w = out.len();
+        let mut start = 0usize;
+        for (k, p) in stack.iter().enumerate() {
+            let end = stack
+                .get(k + 1)
+                .map_or(w, |n| takeover(n.num, n.den + n.den, w));
+            if end > start {
+                let (v, f) = (p.v.to_f64(), p.f.to_f64());
+                for (o, &x) in out[start..end].iter_mut().zip(&self.xs[start..end]) {
+                    let d = x - v;
+                    *o = (d * d + f).sqrt() as f32;
+                }
+                start = end;
+            }
+        }
+    }
+}
+
+/// The smallest whole x in [0, w] with x · den ≥ num (den > 0): ⌈num / den⌉, clamped.
+fn takeover<T: Exact>(num: T, den: T, w: usize) -> usize {
+    let t = num.to_f64() / den.to_f64();
+    if t <= 0.0 {
+        return 0;
+    }
+    if t >= w as f64 {
+        return w;
+    }
+    // The rounded quotient is within one of the truth: settle ⌈num/den⌉ exactly.
+    let mut c = t as i64;
+    while c > 0 && T::from(c - 1) * den >= num {
+        c -= 1;
+    }
+    while T::from(c) * den < num {
+        c += 1;
+    }
+    (c.max(0) as usize).min(w)
+}
+
+/// Exact distance from each query point `(xs[i], ys[j])` to the nearest painted pixel centre;
+/// the result is row-major (ys.len(), xs.len()). Query points may lie anywhere, also off the grid.
+///
+/// The same separable scheme as [`edt`], at arbitrary positions: for each mask column the
+/// squared vertical distance from each query y to the nearest painted pixel of that column
+/// (found in O(1) from per-pixel "nearest painted at or above / at or below" tables), then for
+/// each query row the lower envelope of the parabolas `f_i + (x − i)²` over the columns,
+/// evaluated at every query x. `xs` may be in any order; ascending `xs` take a linear walk,
+/// others a binary search per point. Exact up to f64 rounding. A NaN coordinate gives NaN, an
+/// infinite one infinity. Cost O(W·H + ys.len()·(W + xs.len())) on the calling thread.
+pub fn edt_at(mask: &Mask, xs: &[f64], ys: &[f64]) -> Vec<f64> {
+    let (w, h) = (mask.width, mask.height);
+    let mut out = vec![0.0f64; xs.len() * ys.len()];
+    if out.is_empty() {
+        return out;
+    }
+    // above[j*w+i]: the largest painted row ≤ j in column i; below: the smallest ≥ j.
+    let mut above = vec![NONE; w * h];
+    let mut below = vec![NONE; w * h];
+    for j in 0..h {
+        for i in 0..w {
+            let k = j * w + i;
+            above[k] = if mask.inside[k] {
+                j as u32
+            } else if j > 0 {
+                above[k - w]
+            } else {
+                NONE
+            };
+        }
+    }
+    for j in (0..h).rev() {
+        for i in 0..w {
+            let k = j * w + i;
+            below[k] = if mask.inside[k] {
+                j as u32
+            } else if j + 1 < h {
+                below[k + w]
+            } else {
+                NONE
+            };
+        }
+    }
+    let ascending = xs.windows(2).all(|p| p[0] <= p[1]);
+    let mut f = vec![f64::INFINITY; w];
+    let mut v: Vec<f64> = Vec::with_capacity(w);
+    let mut fv: Vec<f64> = Vec::with_capacity(w);
+    let mut z: Vec<f64> = Vec::with_capacity(w);
+    let last_row = (h - 1) as f64;
+    for (&y, row) in ys.iter().zip(out.chunks_mut(xs.len())) {
+        if y.is_nan() || y.is_infinite() {
+            row.fill(if y.is_nan() { f64::NAN } else { f64::INFINITY });
+            continue;
+        }
+        // Rows of the nearest candidates: at or above y, and at or below y.
+        let (up_row, down_row) = if y < 0.0 {
+            (None, Some(0))
+        } else if y > last_row {
+            (Some(h - 1), None)
+        } else {
+            (Some(y.floor() as usize), Some(y.ceil() as usize))
+        };
+        for (i, fi) in f.iter_mut().enumerate() {
+            let mut best = f64::INFINITY;
+            if let Some(r) = up_row {
+                let p = above[r * w + i];
+                if p != NONE {
+                    let d = y - f64::from(p);
+                    best = d * d;
+                }
+            }
+            if let Some(r) = down_row {
+                let p = below[r * w + i];
+                if p != NONE {
+                    let d = f64::from(p) - y;
+                    best = best.min(d * d);
+                }
+            }
+            *fi = best;
+        }
+        // Lower envelope (F&H 2012, algorithm DT(f)), with z[k] where parabola k takes over.
+        v.clear();
+        fv.clear();
+        z.clear();
+        for (q, &fq) in f.iter().enumerate() {
+            if fq == f64::INFINITY {
+                continue;
+            }
+            let q = q as f64;
+            loop {
+                let Some(&p) = v.last() else {
+                    v.push(q);
+                    fv.push(fq);
+                    z.push(f64::NEG_INFINITY);
+                    break;
+                };
+                let fp = fv[fv.len() - 1];
+                let s = ((fq + q * q) - (fp + p * p)) / (2.0 * (q - p));
+                if s <= z[z.len() - 1] {
+                    v.pop();
+                    fv.pop();
+                    z.pop();
+                } else {
+                    v.push(q);
+                    fv.push(fq);
+                    z.push(s);
+                    break;
+                }
+            }
+        }
+        let eval = |k: usize, x: f64| ((x - v[k]) * (x - v[k]) + fv[k]).sqrt();
+        if ascending {
+            let mut k = 0usize;
+            for (o, &x) in row.iter_mut().zip(xs) {
+                while k + 1 < v.len() && z[k + 1] <= x {
+                    k += 1;
+                }
+                *o = eval(k, x);
+            }
+        } else {
+            for (o, &x) in row.iter_mut().zip(xs) {
+                let k = z[1..].partition_point(|&b| b <= x);
+                *o = eval(k, x);
+            }
+        }
+    }
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+    use serde_json::Value;
+
+    /// The obvious O(N·M) reference: nearest painted pixel centre by exhaustive search.
+    fn brute(mask: &Mask, x: f64, y: f64) -> f64 {
+        let mut best = f64::INFINITY;
+        for j in 0..mask.height() {
+            for i in 0..mask.width() {
+                if mask.is_inside(i, j) {
+                    best = best.min((x - i as f64).hypot(y - j as f64));
+                }
+            }
+        }
+        best
+    }
+
+    fn mask_from_rows(rows: &[&str]) -> Mask {
+        let w = rows[0].len();
+        let inside = rows
+            .iter()
+            .flat_map(|r| r.bytes().map(|b| b == b'1'))
+            .collect();
+        Mask::new(w, rows.len(), inside).unwrap()
+    }
+
+    fn reference() -> Value {
+        serde_json::from_str(include_str!(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/../../tests/reference/edt_scipy.json"
+        )))
+        .unwrap()
+    }
+
+    fn case_mask(case: &Value) -> Mask {
+        let rows: Vec<&str> = case["rows"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| r.as_str().unwrap())
+            .collect();
+        mask_from_rows(&rows)
+    }
+
+    /// Outside reference: scipy 1.17 `scipy.ndimage.distance_transform_edt(~painted)` on random
+    /// masks (tests/reference/gen_geometry.py); scipy measures from nonzero entries to the nearest
+    /// zero, hence the negation. Both `edt` (f32) and `edt_at` on the pixel grid (f64).
+    #[test]
+    fn matches_scipy_distance_transform_edt() {
+        let data = reference();
+        for case in data["cases"].as_array().unwrap() {
+            let name = case["name"].as_str().unwrap();
+            let mask = case_mask(case);
+            let want: Vec<f64> = case["distance"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .map(|v| v.as_f64().unwrap())
+                .collect();
+            let got = edt(&mask);
+            let xs: Vec<f64> = (0..mask.width()).map(|i| i as f64).collect();
+            let ys: Vec<f64> = (0..mask.height()).map(|j| j as f64).collect();
+            let got_at = edt_at(&mask, &xs, &ys);
+            assert_eq!(got.len(), want.len());
+            for k in 0..want.len() {
+                assert!(
+                    (f64::from(got[k]) - want[k]).abs() <= 1e-4
+                        && (f64::from(got[k]) - want[k]).abs() <= 1e-6 * want[k].max(1.0),
+                    "{name}[{k}]: {} vs scipy {}",
+                    got[k],
+                    want[k]
+                );
+                assert!(
+                    (got_at[k] - want[k]).abs() <= 1e-12 * want[k].max(1.0),
+                    "{name}[{k}]: {} vs scipy {}",
+                    got_at[k],
+                    want[k]
+                );
+            }
+        }
+    }
+
+    /// The worked example in the docstring of `scipy.ndimage.distance_transform_edt` (the 5×5
+    /// array `a`; distances from its nonzero entries to its zeros, printed to 4 decimals), read
+    /// from the installed scipy's docstring by gen_geometry.py; its zeros are our painted pixels.
+    #[test]
+    fn matches_scipy_docstring_example() {
+        let data = reference();
+        let case = &data["docstring_example"];
+        let mask = case_mask(case);
+        assert_eq!(
+            mask_from_rows(&["10000", "11000", "10000", "10001", "10011"]),
+            mask
+        );
+        let got = edt(&mask);
+        for key in ["distance", "documented_distance"] {
+            let want = case[key].as_array().unwrap();
+            for (g, w) in got.iter().zip(want) {
+                assert!(
+                    (f64::from(*g) - w.as_f64().unwrap()).abs() <= 0.5e-4 + 1e-7,
+                    "{key}: {g} vs {w}"
+                );
+            }
+        }
+        assert_eq!(got[4], 3.0);
+        assert_eq!(got[3], 5f32.sqrt());
+    }
+
+    #[test]
+    fn mask_errors() {
+        assert_eq!(Mask::new(0, 3, vec![]), Err(MaskError::Empty));
+        assert_eq!(
+            Mask::new(2, 2, vec![true; 3]),
+            Err(MaskError::WrongLength {
+                got: 3,
+                expected: 4
+            })
+        );
+        assert_eq!(
+            Mask::new(2, 1, vec![false; 2]),
+            Err(MaskError::NothingPainted)
+        );
+    }
+
+    #[test]
+    fn single_row_and_column_and_query_edges() {
+        let row = mask_from_rows(&["0001000010"]);
+        let d = edt(&row);
+        assert_eq!(d, vec![3.0, 2.0, 1.0, 0.0, 1.0, 2.0, 2.0, 1.0, 0.0, 1.0]);
+        let col = Mask::new(1, 5, vec![false, false, false, false, true]).unwrap();
+        assert_eq!(edt(&col), vec![4.0, 3.0, 2.0, 1.0, 0.0]);
+        // Queries off the grid, outside the mask, empty, and non-finite.
+        let got = edt_at(&row, &[-2.0, 3.5, 12.0], &[0.0, -4.0]);
+        let want = [5.0, 0.5, 4.0, 41f64.sqrt(), 0.5f64.hypot(4.0), 32f64.sqrt()];
+        for (g, w) in got.iter().zip(want) {
+            assert!((g - w).abs() < 1e-12, "{got:?}");
+        }
+        assert!(edt_at(&row, &[], &[1.0]).is_empty());
+        assert!(edt_at(&row, &[1.0], &[]).is_empty());
+        let odd = edt_at(
+            &row,
+            &[f64::NAN, 1.0, f64::INFINITY],
+            &[f64::NAN, 0.0, f64::NEG_INFINITY],
+        );
+        assert!(odd[..3].iter().all(|v| v.is_nan()));
+        assert!(odd[3].is_nan() && odd[4] == 2.0 && odd[5] == f64::INFINITY);
+        assert!(odd[6..].iter().all(|&v| v == f64::INFINITY));
+    }
+
+    /// Masks wider or taller than 2^20 px take the i128 envelope path.
+    #[test]
+    fn very_wide_and_very_tall_masks() {
+        let n = (1 << 20) + 3;
+        let painted = [5usize, 700_000, n - 1];
+        let mut inside = vec![false; n];
+        for &p in &painted {
+            inside[p] = true;
+        }
+        let nearest = |k: usize| painted.iter().map(|&p| p.abs_diff(k)).min().unwrap() as f32;
+        for (w, h) in [(n, 1), (1, n)] {
+            let mask = Mask::new(w, h, inside.clone()).unwrap();
+            let d = edt(&mask);
+            for k in [
+                0,
+                5,
+                6,
+                350_000,
+                352_502,
+                352_503,
+                699_999,
+                1_000_000,
+                n - 2,
+                n - 1,
+            ] {
+                assert_eq!(d[k], nearest(k), "{w}x{h} at {k}");
+            }
+        }
+    }
+
+    #[test]
+    fn takeover_is_the_exact_ceiling() {
+        for w in [0usize, 1, 7, 40] {
+            for num in -100i64..=100 {
+                for den in 1i64..=30 {
+                    let want = (0..=w).find(|&x| x as i64 * den >= num).unwrap_or(w);
+                    assert_eq!(takeover(num, den, w), want, "{num}/{den}, w {w}");
+                    assert_eq!(takeover(i128::from(num), i128::from(den), w), want);
+                }
+            }
+        }
+    }
+
+    fn arb_mask() -> impl Strategy<Value = Mask> {
+        (1usize..24, 1usize..24, 0.0f64..0.4, any::<u64>()).prop_map(|(w, h, density, seed)| {
+            let mut state = seed;
+            let mut inside: Vec<bool> = (0..w * h)
+                .map(|_| {
+                    // SplitMix64 draws, so shrinking the seed keeps masks reproducible.
+                    state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
+                    let mut z = state;
+                    z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+                    z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+                    (((z ^ (z >> 31)) >> 11) as f64) * (-53f64).exp2() < density
+                })
+                .collect();
+            if !inside.iter().any(|&b| b) {
+                let k = (seed as usize) % (w * h);
+                inside[k] = true;
+            }
+            Mask::new(w, h, inside).unwrap()
+        })
+    }
+
+    proptest! {
+        #[test]
+        fn edt_matches_brute_force(mask in arb_mask()) {
+            let d = edt(&mask);
+            for j in 0..mask.height() {
+                for i in 0..mask.width() {
+                    let want = brute(&mask, i as f64, j as f64);
+                    // Integer squared distances: the f32 result is the rounded exact root.
+                    prop_assert_eq!(d[j * mask.width() + i], want as f32, "at ({}, {})", i, j);
+                }
+            }
+        }
+
+        #[test]
+        fn edt_at_matches_brute_force(
+            mask in arb_mask(),
+            mut xs in prop::collection::vec(-8.0f64..32.0, 0..12),
+            ys in prop::collection::vec(-8.0f64..32.0, 0..12),
+            sort in any::<bool>(),
+            whole in prop::collection::vec(-3i32..26, 0..4),
+        ) {
+            // Some queries exactly on pixel centres, where the envelope has its ties.
+            xs.extend(whole.iter().map(|&v| f64::from(v)));
+            let mut ys = ys;
+            ys.extend(whole.iter().map(|&v| f64::from(v) * 0.5));
+            if sort {
+                xs.sort_by(f64::total_cmp);
+            }
+            let got = edt_at(&mask, &xs, &ys);
+            prop_assert_eq!(got.len(), xs.len() * ys.len());
+            for (j, &y) in ys.iter().enumerate() {
+                for (i, &x) in xs.iter().enumerate() {
+                    let want = brute(&mask, x, y);
+                    let g = got[j * xs.len() + i];
+                    prop_assert!((g - want).abs() <= 1e-9 * want.max(1.0), "({}, {}): {} vs {}", x, y, g, want);
+                }
+            }
+        }
+    }
+}
