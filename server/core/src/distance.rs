@@ -69,24 +69,109 @@ impl Mask {
     }
 }
 
-/// Marks "no painted pixel in this direction" in the integer column passes.
+/// Marks "no painted pixel in this direction" in `edt_at`'s per-pixel tables.
 const NONE: u32 = u32::MAX;
 
 /// Distance from every pixel centre to the nearest painted pixel centre, row-major (H, W), 0 inside.
 ///
-/// Exact (every value is the correctly rounded square root of an exact integer squared
-/// distance, for distances below 4096 px; beyond that within f32 rounding). Linear time: first
+/// Exact: every value is the correctly rounded square root of the exact integer squared
+/// distance, for distances below 4096 px (beyond that, within f32 rounding). Linear time: first
 /// the vertical distance to the nearest painted pixel of the same column (two sweeps over the
 /// rows), then, per row, the lower envelope of the parabolas `g(i)² + (x − i)²`
 /// (Felzenszwalb & Huttenlocher 2012, section 3), built and evaluated in exact integer
 /// arithmetic. Runs on the calling thread; callers that need many maps parallelise over maps.
 pub fn edt(mask: &Mask) -> Vec<f32> {
-    let (w, h) = (mask.width, mask.height);
-    if w.max(h) <= 1 << 20 {
-        edt_impl::<i64>(mask)
+    if mask.width.max(mask.height) <= 1 << 20 {
+        edt_fast(mask)
     } else {
-        edt_impl::<i128>(mask)
+        edt_wide(mask)
     }
+}
+
+/// "No painted pixel in this direction" for the fast path's column distances: counting up
+/// from it stays below 2^32 for masks up to 2^20 px tall, so no saturation is needed.
+const FAR: u32 = 1 << 31;
+
+/// Masks up to 2^20 px on a side: u32 column distances, i64 envelope.
+fn edt_fast(mask: &Mask) -> Vec<f32> {
+    let (w, h) = (mask.width, mask.height);
+    let inside = &mask.inside;
+    // All-ones where the pixel is not painted, zero where it is: branch-free, vectorisable.
+    let keep = |p: bool| u32::from(p).wrapping_sub(1);
+    // The output buffer first holds each pixel's distance up to the nearest painted pixel of
+    // its column at or above it (u32 bits); row j becomes final distances only after its own
+    // up-distances are read, so no second H×W buffer is needed.
+    let mut out = vec![0.0f32; w * h];
+    for (o, &p) in out[..w].iter_mut().zip(&inside[..w]) {
+        *o = f32::from_bits(FAR & keep(p));
+    }
+    for j in 1..h {
+        let (above, rest) = out.split_at_mut(j * w);
+        let above = &above[(j - 1) * w..];
+        let ins = &inside[j * w..(j + 1) * w];
+        for ((o, a), &p) in rest[..w].iter_mut().zip(above).zip(ins) {
+            *o = f32::from_bits((a.to_bits() + 1) & keep(p));
+        }
+    }
+    // Bottom-up: `down` is the distance down to the nearest painted pixel at or below; the
+    // nearer of up and down is the column's 1-D transform g, and f = g² feeds the envelope.
+    let mut down = vec![FAR; w];
+    let mut g = vec![0u32; w];
+    let mut env = Envelope::<i64>::new(w);
+    for j in (0..h).rev() {
+        let row = &mut out[j * w..(j + 1) * w];
+        let ins = &inside[j * w..(j + 1) * w];
+        for (((gi, dn), o), &p) in g.iter_mut().zip(down.iter_mut()).zip(row.iter()).zip(ins) {
+            *dn = (*dn + 1) & keep(p);
+            *gi = (*dn).min(o.to_bits());
+        }
+        for (fi, &gi) in env.f_row().iter_mut().zip(&g) {
+            *fi = if gi >= FAR {
+                i64::HUGE
+            } else {
+                i64::from(gi) * i64::from(gi)
+            };
+        }
+        env.row(row);
+    }
+    out
+}
+
+/// Masks over 2^20 px on a side (one very long row or column): u64 column distances, i128
+/// envelope. Plain code; such masks are rare and big anyway.
+fn edt_wide(mask: &Mask) -> Vec<f32> {
+    let (w, h) = (mask.width, mask.height);
+    let none = u64::MAX;
+    let mut up = vec![none; w * h];
+    for k in 0..w * h {
+        up[k] = if mask.inside[k] {
+            0
+        } else if k >= w {
+            up[k - w].saturating_add(1)
+        } else {
+            none
+        };
+    }
+    let mut out = vec![0.0f32; w * h];
+    let mut down = vec![none; w];
+    let mut env = Envelope::<i128>::new(w);
+    for j in (0..h).rev() {
+        for (i, (dn, fi)) in down.iter_mut().zip(env.f_row().iter_mut()).enumerate() {
+            *dn = if mask.inside[j * w + i] {
+                0
+            } else {
+                dn.saturating_add(1)
+            };
+            let g = (*dn).min(up[j * w + i]);
+            *fi = if g == none {
+                i128::HUGE
+            } else {
+                i128::from(g) * i128::from(g)
+            };
+        }
+        env.row(&mut out[j * w..(j + 1) * w]);
+    }
+    out
 }
 
 /// Integer type for the envelope: i64 is exact for masks up to 2^20 px on a side (squared
@@ -99,57 +184,28 @@ trait Exact:
     + std::ops::Sub<Output = Self>
     + std::ops::Mul<Output = Self>
 {
+    /// Marks "no parabola": larger than any real g² yet safe to add small squares to.
+    const HUGE: Self;
+    /// Whether f64 division of the envelope's numerators by their denominators always has the
+    /// exact ceiling (true for i64 here: |quotient| ≤ 2^20, denominators ≤ 2^21).
+    const EXACT_QUOTIENT: bool;
     fn to_f64(self) -> f64;
 }
 
 impl Exact for i64 {
+    const HUGE: Self = 1 << 61;
+    const EXACT_QUOTIENT: bool = true;
     fn to_f64(self) -> f64 {
         self as f64
     }
 }
 
 impl Exact for i128 {
+    const HUGE: Self = 1 << 100;
+    const EXACT_QUOTIENT: bool = false;
     fn to_f64(self) -> f64 {
         self as f64
     }
-}
-
-fn edt_impl<T: Exact>(mask: &Mask) -> Vec<f32> {
-    let (w, h) = (mask.width, mask.height);
-    let inside = &mask.inside;
-    // The output buffer first holds, per pixel, the distance (in rows) up to the nearest
-    // painted pixel of its column at or above it, stored as u32 bits; row j is turned into
-    // final distances only after its own up-distances are read, so no second H×W buffer is
-    // needed.
-    let mut out = vec![0.0f32; w * h];
-    for (o, &p) in out[..w].iter_mut().zip(&inside[..w]) {
-        *o = f32::from_bits(if p { 0 } else { NONE });
-    }
-    for j in 1..h {
-        let (above, rest) = out.split_at_mut(j * w);
-        let above = &above[(j - 1) * w..];
-        let row = &mut rest[..w];
-        let ins = &inside[j * w..(j + 1) * w];
-        for ((o, &a), &p) in row.iter_mut().zip(above.iter()).zip(ins) {
-            let up = a.to_bits().saturating_add(1);
-            *o = f32::from_bits(if p { 0 } else { up });
-        }
-    }
-    // Bottom-up: `down` is the distance down to the nearest painted pixel at or below; `g` the
-    // nearer of up and down, the 1-D transform of the column.
-    let mut down = vec![NONE; w];
-    let mut g = vec![NONE; w];
-    let mut env = Envelope::<T>::with_capacity(w);
-    for j in (0..h).rev() {
-        let row = &mut out[j * w..(j + 1) * w];
-        let ins = &inside[j * w..(j + 1) * w];
-        for (((gi, dn), o), &p) in g.iter_mut().zip(down.iter_mut()).zip(row.iter()).zip(ins) {
-            *dn = if p { 0 } else { dn.saturating_add(1) };
-            *gi = (*dn).min(o.to_bits());
-        }
-        env.row(&g, row);
-    }
-    out
 }
 
 /// One parabola f + (x − v)² on the lower envelope, with A = f + v², and where it takes over
@@ -164,8 +220,16 @@ struct Parabola<T> {
     den: T,
 }
 
+/// How many neighbours on each side the envelope's prefilter compares a column with.
+const DOMINATION_REACH: usize = 3;
+
 /// Scratch for the exact lower envelope of one row, reused across rows.
 struct Envelope<T> {
+    /// f = g² per column (`T::HUGE`: no painted pixel in the column), with DOMINATION_REACH
+    /// `HUGE` columns of padding on each side.
+    f: Vec<T>,
+    /// Columns that survive the prefilter, left to right.
+    candidates: Vec<u32>,
     /// The parabolas of the envelope, left to right (a stack while it is built).
     stack: Vec<Parabola<T>>,
     /// `x as f64` for x in 0..w, so the per-pixel loop has no integer-to-float conversion.
@@ -173,33 +237,59 @@ struct Envelope<T> {
 }
 
 impl<T: Exact> Envelope<T> {
-    fn with_capacity(w: usize) -> Self {
+    fn new(w: usize) -> Self {
         Self {
+            f: vec![T::HUGE; w + 2 * DOMINATION_REACH],
+            candidates: vec![0; w],
             stack: Vec::with_capacity(w),
             xs: (0..w).map(|x| x as f64).collect(),
         }
     }
 
-    /// `out[x] = sqrt(min_i g[i]² + (x − i)²)` over the columns with `g[i] != NONE` (at least
-    /// one, since the mask has a painted pixel).
-    fn row(&mut self, g: &[u32], out: &mut [f32]) {
+    /// The row's f values, to be filled before [`Envelope::row`].
+    fn f_row(&mut self) -> &mut [T] {
+        let w = self.xs.len();
+        &mut self.f[DOMINATION_REACH..DOMINATION_REACH + w]
+    }
+
+    /// `out[x] = sqrt(min_i f[i] + (x − i)²)` over the columns with a parabola (at least one,
+    /// since the mask has a painted pixel).
+    fn row(&mut self, out: &mut [f32]) {
+        const R: usize = DOMINATION_REACH;
+        let f = &self.f;
+        // Prefilter: parabola q can be left out when, at every whole x, another parabola is no
+        // larger. A column p dominates q on the whole side of q that p lies on exactly when
+        // f_p + (p − q)² ≤ f_q (their difference is linear in x, so checking x = q suffices);
+        // so q is dropped when some column within DOMINATION_REACH on each side does that.
+        // This removes about half the columns of a typical row before the (branchy) stack
+        // pass. Kept columns are compacted without branches.
+        let cand = &mut self.candidates;
+        let mut n = 0usize;
+        for (q, win) in f.windows(2 * R + 1).enumerate() {
+            let fq = win[R];
+            let mut left = false;
+            let mut right = false;
+            for r in 1..=R {
+                let rr = T::from((r * r) as i64);
+                left |= win[R - r] + rr <= fq;
+                right |= win[R + r] + rr <= fq;
+            }
+            cand[n] = q as u32;
+            n += usize::from((fq != T::HUGE) & !(left & right));
+        }
         let stack = &mut self.stack;
         stack.clear();
         let zero = T::from(0);
-        for (q, &gq) in g.iter().enumerate() {
-            if gq == NONE {
-                continue;
-            }
-            let q = T::from(q as i64);
-            let gq = T::from(i64::from(gq));
-            let f = gq * gq;
-            let a = f + q * q;
+        for &q in &cand[..n] {
+            let fq = f[q as usize + R];
+            let q = T::from(i64::from(q));
+            let a = fq + q * q;
             // Pop the top parabola p while the new one q takes over from it no later than p
             // takes over from its own left neighbour: (A_q − A_p)/(q − v_p) <= num_p/den_p,
             // cross-multiplied (both denominators are positive).
             let mut entry = Parabola {
                 v: q,
-                f,
+                f: fq,
                 a,
                 num: zero,
                 den: zero,
@@ -214,8 +304,9 @@ impl<T: Exact> Envelope<T> {
             }
             stack.push(entry);
         }
-        // Parabola k owns the whole pixels from ⌈num_k / (2 den_k)⌉ up to where k+1 takes over:
-        // fill each run without branches.
+        // Parabola k owns the whole pixels from ⌈num_k / (2 den_k)⌉ up to where k+1 takes over.
+        // Fill each run with the exact squared distance (as f32, exact below 2^24), then take
+        // all square roots of the row in one vectorised pass.
         let w = out.len();
         let mut start = 0usize;
         for (k, p) in stack.iter().enumerate() {
@@ -226,10 +317,13 @@ impl<T: Exact> Envelope<T> {
                 let (v, f) = (p.v.to_f64(), p.f.to_f64());
                 for (o, &x) in out[start..end].iter_mut().zip(&self.xs[start..end]) {
                     let d = x - v;
-                    *o = (d * d + f).sqrt() as f32;
+                    *o = (d * d + f) as f32;
                 }
                 start = end;
             }
+        }
+        for o in out.iter_mut() {
+            *o = o.sqrt();
         }
     }
 }
@@ -243,13 +337,19 @@ fn takeover<T: Exact>(num: T, den: T, w: usize) -> usize {
     if t >= w as f64 {
         return w;
     }
-    // The rounded quotient is within one of the truth: settle ⌈num/den⌉ exactly.
+    // Ceiling by hand (f64::ceil is a library call on baseline x86-64); 0 < t < w here.
     let mut c = t as i64;
-    while c > 0 && T::from(c - 1) * den >= num {
-        c -= 1;
-    }
-    while T::from(c) * den < num {
+    if (c as f64) < t {
         c += 1;
+    }
+    if !T::EXACT_QUOTIENT {
+        // The rounded quotient can be one off near a whole number: settle it exactly.
+        while c > 0 && T::from(c - 1) * den >= num {
+            c -= 1;
+        }
+        while T::from(c) * den < num {
+            c += 1;
+        }
     }
     (c.max(0) as usize).min(w)
 }
@@ -273,35 +373,35 @@ pub fn edt_at(mask: &Mask, xs: &[f64], ys: &[f64]) -> Vec<f64> {
     // above[j*w+i]: the largest painted row ≤ j in column i; below: the smallest ≥ j.
     let mut above = vec![NONE; w * h];
     let mut below = vec![NONE; w * h];
-    for j in 0..h {
-        for i in 0..w {
-            let k = j * w + i;
-            above[k] = if mask.inside[k] {
-                j as u32
-            } else if j > 0 {
-                above[k - w]
-            } else {
-                NONE
-            };
-        }
+    for k in 0..w * h {
+        above[k] = if mask.inside[k] {
+            (k / w) as u32
+        } else if k >= w {
+            above[k - w]
+        } else {
+            NONE
+        };
     }
-    for j in (0..h).rev() {
-        for i in 0..w {
-            let k = j * w + i;
-            below[k] = if mask.inside[k] {
-                j as u32
-            } else if j + 1 < h {
-                below[k + w]
-            } else {
-                NONE
-            };
-        }
+    for k in (0..w * h).rev() {
+        below[k] = if mask.inside[k] {
+            (k / w) as u32
+        } else if k + w < w * h {
+            below[k + w]
+        } else {
+            NONE
+        };
     }
+    // Only columns with a painted pixel carry a parabola, for every query row alike.
+    let cols: Vec<usize> = (0..w).filter(|&i| below[i] != NONE).collect();
+    let m = cols.len();
+    let colx: Vec<f64> = cols.iter().map(|&i| i as f64).collect();
     let ascending = xs.windows(2).all(|p| p[0] <= p[1]);
-    let mut f = vec![f64::INFINITY; w];
-    let mut v: Vec<f64> = Vec::with_capacity(w);
-    let mut fv: Vec<f64> = Vec::with_capacity(w);
-    let mut z: Vec<f64> = Vec::with_capacity(w);
+    const R: usize = DOMINATION_REACH;
+    // f per painted column, padded with R infinite entries on each side for the prefilter.
+    let mut f = vec![f64::INFINITY; m + 2 * R];
+    let mut cand: Vec<usize> = vec![0; m];
+    let mut stack: Vec<Parabola<f64>> = Vec::with_capacity(m);
+    let mut z: Vec<f64> = Vec::with_capacity(m);
     let last_row = (h - 1) as f64;
     for (&y, row) in ys.iter().zip(out.chunks_mut(xs.len())) {
         if y.is_nan() || y.is_infinite() {
@@ -316,7 +416,7 @@ pub fn edt_at(mask: &Mask, xs: &[f64], ys: &[f64]) -> Vec<f64> {
         } else {
             (Some(y.floor() as usize), Some(y.ceil() as usize))
         };
-        for (i, fi) in f.iter_mut().enumerate() {
+        for (fk, &i) in f[R..R + m].iter_mut().zip(&cols) {
             let mut best = f64::INFINITY;
             if let Some(r) = up_row {
                 let p = above[r * w + i];
@@ -332,51 +432,67 @@ pub fn edt_at(mask: &Mask, xs: &[f64], ys: &[f64]) -> Vec<f64> {
                     best = best.min(d * d);
                 }
             }
-            *fi = best;
+            *fk = best;
         }
-        // Lower envelope (F&H 2012, algorithm DT(f)), with z[k] where parabola k takes over.
-        v.clear();
-        fv.clear();
-        z.clear();
-        for (q, &fq) in f.iter().enumerate() {
-            if fq == f64::INFINITY {
-                continue;
+        // Prefilter as in `edt`: drop parabolas that a neighbour on each side is no larger than
+        // everywhere on that side (f_p + (x_p − x_q)² ≤ f_q).
+        let mut n = 0usize;
+        for k in 0..m {
+            let (fq, xq) = (f[R + k], colx[k]);
+            let mut left = false;
+            let mut right = false;
+            for r in 1..=R.min(k) {
+                let d = xq - colx[k - r];
+                left |= f[R + k - r] + d * d <= fq;
             }
-            let q = q as f64;
-            loop {
-                let Some(&p) = v.last() else {
-                    v.push(q);
-                    fv.push(fq);
-                    z.push(f64::NEG_INFINITY);
-                    break;
-                };
-                let fp = fv[fv.len() - 1];
-                let s = ((fq + q * q) - (fp + p * p)) / (2.0 * (q - p));
-                if s <= z[z.len() - 1] {
-                    v.pop();
-                    fv.pop();
-                    z.pop();
-                } else {
-                    v.push(q);
-                    fv.push(fq);
-                    z.push(s);
+            for r in 1..=R.min(m - 1 - k) {
+                let d = colx[k + r] - xq;
+                right |= f[R + k + r] + d * d <= fq;
+            }
+            cand[n] = k;
+            n += usize::from(!(left & right));
+        }
+        // Lower envelope (F&H 2012, algorithm DT(f)), popping by cross-multiplication; the
+        // take-over points z are divided out once at the end.
+        stack.clear();
+        for &k in &cand[..n] {
+            let (q, fq) = (colx[k], f[R + k]);
+            let a = fq + q * q;
+            let mut entry = Parabola {
+                v: q,
+                f: fq,
+                a,
+                num: 0.0,
+                den: 0.0,
+            };
+            while let Some(p) = stack.last() {
+                entry.num = a - p.a;
+                entry.den = q - p.v;
+                if stack.len() == 1 || entry.num * p.den > p.num * entry.den {
                     break;
                 }
+                stack.pop();
             }
+            stack.push(entry);
         }
-        let eval = |k: usize, x: f64| ((x - v[k]) * (x - v[k]) + fv[k]).sqrt();
+        z.clear();
+        z.push(f64::NEG_INFINITY);
+        z.extend(stack[1..].iter().map(|p| p.num / (2.0 * p.den)));
+        let eval = |k: usize, x: f64| {
+            let d = x - stack[k].v;
+            (d * d + stack[k].f).sqrt()
+        };
         if ascending {
             let mut k = 0usize;
             for (o, &x) in row.iter_mut().zip(xs) {
-                while k + 1 < v.len() && z[k + 1] <= x {
+                while k + 1 < z.len() && z[k + 1] <= x {
                     k += 1;
                 }
                 *o = eval(k, x);
             }
         } else {
             for (o, &x) in row.iter_mut().zip(xs) {
-                let k = z[1..].partition_point(|&b| b <= x);
-                *o = eval(k, x);
+                *o = eval(z[1..].partition_point(|&b| b <= x), x);
             }
         }
     }
