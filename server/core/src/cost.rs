@@ -670,6 +670,50 @@ fn dot_min_f16(a: &[f16], b: &[f32]) -> (f64, f32) {
     (total, mn)
 }
 
+/// The same kernels compiled for AVX2 (and F16C for the conversion), chosen at run time.
+/// Results are bit-identical to the portable ones: the lanes, their order and the float32
+/// operations are the same, only wider registers carry them (and float16 → float32 is exact).
+#[cfg(target_arch = "x86_64")]
+mod x86 {
+    use super::{BLOCK, dot_min_f32};
+    use half::f16;
+    use std::arch::x86_64::{_mm_loadu_si128, _mm256_cvtph_ps, _mm256_storeu_ps};
+
+    #[target_feature(enable = "avx2")]
+    pub(super) fn dot_min_f32_avx2(a: &[f32], b: &[f32]) -> (f64, f32) {
+        dot_min_f32(a, b)
+    }
+
+    #[target_feature(enable = "avx2,f16c")]
+    pub(super) fn dot_min_f16_avx2(a: &[f16], b: &[f32]) -> (f64, f32) {
+        let mut buf = [0.0f32; BLOCK];
+        let mut total = 0.0;
+        let mut mn = f32::INFINITY;
+        for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
+            let dst = &mut buf[..ab.len()];
+            let mut src8 = ab.chunks_exact(8);
+            let mut dst8 = dst.chunks_exact_mut(8);
+            for (s, d) in (&mut src8).zip(&mut dst8) {
+                // SAFETY: `s` is 8 f16 (16 readable bytes), `d` 8 writable f32; both intrinsics
+                // take unaligned pointers, and this function enables AVX and F16C.
+                unsafe {
+                    _mm256_storeu_ps(
+                        d.as_mut_ptr(),
+                        _mm256_cvtph_ps(_mm_loadu_si128(s.as_ptr().cast())),
+                    )
+                };
+            }
+            for (s, d) in src8.remainder().iter().zip(dst8.into_remainder()) {
+                *d = s.to_f32();
+            }
+            let (s, m) = dot_min_f32(dst, bb);
+            total += s;
+            mn = mn.min(m);
+        }
+        (total, mn)
+    }
+}
+
 impl PreparedMaps {
     /// Map width w.
     pub fn width(&self) -> usize {
@@ -708,8 +752,30 @@ impl PreparedMaps {
         let work = n * steps.len() * np * plane;
         let parallel = n > 1 && work >= 1 << 20;
         let result = match maps {
-            MapBatch::F32(v) => self.run(v, &mut per, t, steps, parallel, dot_min_f32),
-            MapBatch::F16(v) => self.run(v, &mut per, t, steps, parallel, dot_min_f16),
+            MapBatch::F32(v) => {
+                #[cfg(target_arch = "x86_64")]
+                if std::arch::is_x86_feature_detected!("avx2") {
+                    // SAFETY: the CPU has AVX2 (checked just above).
+                    let dot = |a: &[f32], b: &[f32]| unsafe { x86::dot_min_f32_avx2(a, b) };
+                    return self
+                        .run(v, &mut per, t, steps, parallel, dot)
+                        .and_then(|()| finish(per, np));
+                }
+                self.run(v, &mut per, t, steps, parallel, dot_min_f32)
+            }
+            MapBatch::F16(v) => {
+                #[cfg(target_arch = "x86_64")]
+                if std::arch::is_x86_feature_detected!("avx2")
+                    && std::arch::is_x86_feature_detected!("f16c")
+                {
+                    // SAFETY: the CPU has AVX2 and F16C (checked just above).
+                    let dot = |a: &[f16], b: &[f32]| unsafe { x86::dot_min_f16_avx2(a, b) };
+                    return self
+                        .run(v, &mut per, t, steps, parallel, dot)
+                        .and_then(|()| finish(per, np));
+                }
+                self.run(v, &mut per, t, steps, parallel, dot_min_f16)
+            }
         };
         result?;
         finish(per, np)
@@ -722,7 +788,7 @@ impl PreparedMaps {
         t: usize,
         steps: std::ops::Range<usize>,
         parallel: bool,
-        dot: fn(&[T], &[f32]) -> (f64, f32),
+        dot: impl Fn(&[T], &[f32]) -> (f64, f32) + Sync,
     ) -> Result<(), CostError> {
         let np = self.points();
         let plane = self.width * self.height;
@@ -787,8 +853,8 @@ impl PreparedMaps {
 /// For each pixel (i, j) it stores the nearest painted row at or above j and at or below j in
 /// column i (row-major, so one query reads two contiguous rows). A query at (x, y) takes, for
 /// each column i, the nearer of those rows around y, and minimises (x − i)² + dy² over the
-/// columns within the best distance found so far, starting next to x. The cost of a query
-/// grows with its distance to the mask (in columns), never with the mask's area.
+/// columns within the best distance found so far (and within the columns that hold painted
+/// pixels), starting next to x. A query costs at most one pass over the mask's column span.
 #[derive(Debug, Clone)]
 struct MaskIndex {
     width: usize,
@@ -797,6 +863,9 @@ struct MaskIndex {
     up: Vec<f32>,
     /// Nearest painted row ≥ j in column i, or +∞.
     down: Vec<f32>,
+    /// First and last column with a painted pixel; no other column can be nearest.
+    first_col: usize,
+    last_col: usize,
 }
 
 impl MaskIndex {
@@ -829,16 +898,23 @@ impl MaskIndex {
                 };
             }
         }
+        // A mask has at least one painted pixel, so both exist; fall back to all columns.
+        let painted_col = |i: &usize| (0..h).any(|j| data[j * w + i]);
+        let first_col = (0..w).find(painted_col).unwrap_or(0);
+        let last_col = (0..w).rev().find(painted_col).unwrap_or(w - 1);
         Self {
             width: w,
             height: h,
             up,
             down,
+            first_col,
+            last_col,
         }
     }
 
     fn distance(&self, x: f64, y: f64) -> f64 {
         let (w, h) = (self.width, self.height);
+        let (c0, c1) = (self.first_col, self.last_col);
         let last_row = (h - 1) as f64;
         // Rows of `up` at floor(y) and `down` at ceil(y), clamped into the mask.
         let jf = y.floor().clamp(0.0, last_row) as usize;
@@ -848,31 +924,29 @@ impl MaskIndex {
         let d2_range = |lo: usize, hi: usize| -> f64 {
             let mut best = f64::INFINITY;
             for i in lo..=hi {
-                let dy = (y - f64::from(up[i]))
-                    .abs()
-                    .min((f64::from(down[i]) - y).abs());
+                let a = (y - f64::from(up[i])).abs();
+                let b = (f64::from(down[i]) - y).abs();
+                let dy = if a < b { a } else { b };
                 let dx = x - i as f64;
                 let d2 = dx * dx + dy * dy;
                 best = if d2 < best { d2 } else { best };
             }
             best
         };
-        let last_col = w - 1;
-        let i0 = x.round().clamp(0.0, last_col as f64) as usize;
+        // Start next to x, within the columns that hold painted pixels at all.
+        let i0 = x.round().clamp(c0 as f64, c1 as f64) as usize;
         const WINDOW: usize = 16;
-        let (wlo, whi) = (i0.saturating_sub(WINDOW), (i0 + WINDOW).min(last_col));
+        let (wlo, whi) = (i0.saturating_sub(WINDOW).max(c0), (i0 + WINDOW).min(c1));
         let mut best = d2_range(wlo, whi);
         // Columns farther than sqrt(best) from x cannot do better.
         let r = best.sqrt();
-        let lo = if r.is_finite() {
-            (x - r).ceil().max(0.0)
+        let (lo, hi) = if r.is_finite() {
+            (
+                (x - r).ceil().max(c0 as f64),
+                (x + r).floor().min(c1 as f64),
+            )
         } else {
-            0.0
-        };
-        let hi = if r.is_finite() {
-            (x + r).floor().min(last_col as f64)
-        } else {
-            last_col as f64
+            (c0 as f64, c1 as f64)
         };
         if lo <= hi {
             let (lo, hi) = (lo as usize, hi as usize);
@@ -1135,6 +1209,25 @@ mod tests {
             let (got16, min16) = dot_min_f16(&a16, &b);
             prop_assert!((got16 - want16).abs() <= 1e-6 * want16.abs() + 1e-9);
             prop_assert_eq!(min16, a16.iter().map(|v| v.to_f32()).fold(f32::INFINITY, f32::min));
+        }
+
+        #[cfg(target_arch = "x86_64")]
+        #[test]
+        fn wide_kernels_are_bit_identical(len in 0usize..3000, seed in 0u64..1000) {
+            prop_assume!(std::arch::is_x86_feature_detected!("avx2")
+                && std::arch::is_x86_feature_detected!("f16c"));
+            let mut s = seed;
+            let mut next = || {
+                s = s.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+                (s >> 40) as f32 / (1u64 << 24) as f32 - 0.1
+            };
+            let a: Vec<f32> = (0..len).map(|_| next()).collect();
+            let b: Vec<f32> = (0..len).map(|_| next() * 100.0).collect();
+            let a16: Vec<f16> = a.iter().map(|&v| f16::from_f32(v * 1e3)).collect();
+            // SAFETY: both features were detected above.
+            let (wide, wide16) = unsafe { (x86::dot_min_f32_avx2(&a, &b), x86::dot_min_f16_avx2(&a16, &b)) };
+            prop_assert_eq!(wide, dot_min_f32(&a, &b));
+            prop_assert_eq!(wide16, dot_min_f16(&a16, &b));
         }
 
         #[test]

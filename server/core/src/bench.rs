@@ -1,0 +1,428 @@
+//! Built-in benchmarks on synthetic data (`goalsmith bench cost|edt`).
+//!
+//! Each benchmark returns rows of a median time and named parameters; [`BenchRow::to_json`]
+//! prints the contract's line `{"bench": NAME, "median_ms": …, "params": {…}}`. Sizes are
+//! numbers and `threads` is always the number of threads the kernel ran on.
+//!
+//! `cost` times the map kernel (N=200, T=10, P=2 at 64×64 and 128×128, steps `all`, float32
+//! and float16, on one thread and on all cores), the point kernel (N=10000, T=10, P=4) and,
+//! as the yardstick for a memory-bound kernel, one thread summing a 512 MiB float32 buffer
+//! (`memory_read`). Map rows carry `gb_per_s` (bytes of maps read per second) and
+//! `memory_ratio` = their `gb_per_s` ÷ the 512 MiB `memory_read` rate. A second `memory_read`
+//! row over 64 MiB shows the rate when the data fits in the last-level cache, which on
+//! machines with a large cache is the fairer yardstick for the 64×64 batch (65 MB).
+//!
+//! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is
+//! shared with `tests/reference/bench_edt_compare.py`: pixel k (row-major) is painted when
+//! u_k < 1 %, u_k = (z_k >> 11)·2⁻⁵³, z_k the k-th output of SplitMix64 seeded with 20261201
+//! (Steele, Lea & Flood 2014).
+
+use crate::cost::{CostModel, CostPoint, CostSettings, MapBatch, Metric, Mode, Steps, TargetShape};
+use crate::distance::{self, Mask};
+use crate::geometry::{PixelPoint, Polygon};
+use half::f16;
+use half::slice::HalfFloatSliceExt;
+use std::hint::black_box;
+use std::sync::Arc;
+use std::time::{Duration, Instant};
+
+/// A parameter value: a number (sizes, rates) or a text (dtype, steps).
+#[derive(Debug, Clone, PartialEq)]
+pub enum ParamValue {
+    /// A number; integral values print without a fraction.
+    Num(f64),
+    /// A string.
+    Text(String),
+}
+
+/// One measurement.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BenchRow {
+    /// Benchmark name, e.g. `cost`, `memory_read`, `edt`.
+    pub bench: String,
+    /// Median wall time of one run, milliseconds.
+    pub median_ms: f64,
+    /// Named parameters in print order; always includes `threads`.
+    pub params: Vec<(String, ParamValue)>,
+}
+
+impl BenchRow {
+    /// The value of a parameter, if present.
+    pub fn param(&self, name: &str) -> Option<&ParamValue> {
+        self.params.iter().find(|(k, _)| k == name).map(|(_, v)| v)
+    }
+
+    /// One JSON object on one line: `{"bench": …, "median_ms": …, "params": {…}}`.
+    pub fn to_json(&self) -> String {
+        let params: Vec<String> = self
+            .params
+            .iter()
+            .map(|(k, v)| {
+                let v = match v {
+                    ParamValue::Num(x) => json_number(*x),
+                    ParamValue::Text(s) => json_string(s),
+                };
+                format!("{}: {v}", json_string(k))
+            })
+            .collect();
+        format!(
+            "{{\"bench\": {}, \"median_ms\": {}, \"params\": {{{}}}}}",
+            json_string(&self.bench),
+            json_number(self.median_ms),
+            params.join(", ")
+        )
+    }
+}
+
+fn json_number(x: f64) -> String {
+    if !x.is_finite() {
+        "null".into()
+    } else if x.fract() == 0.0 && x.abs() < 9.0e15 {
+        format!("{}", x as i64)
+    } else {
+        format!("{x}")
+    }
+}
+
+fn json_string(s: &str) -> String {
+    let mut out = String::with_capacity(s.len() + 2);
+    out.push('"');
+    for c in s.chars() {
+        match c {
+            '"' => out.push_str("\\\""),
+            '\\' => out.push_str("\\\\"),
+            c if (c as u32) < 0x20 => out.push_str(&format!("\\u{:04x}", c as u32)),
+            c => out.push(c),
+        }
+    }
+    out.push('"');
+    out
+}
+
+/// The benchmarks [`run`] knows.
+pub const NAMES: [&str; 2] = ["cost", "edt"];
+
+/// Runs the named benchmark (`cost` or `edt`) and returns its rows.
+pub fn run(name: &str) -> Result<Vec<BenchRow>, String> {
+    match name {
+        "cost" => cost_bench(),
+        "edt" => edt_bench(),
+        other => Err(format!(
+            "unknown benchmark {other:?}; known: {}",
+            NAMES.join(", ")
+        )),
+    }
+}
+
+/// SplitMix64 (Steele, Lea & Flood 2014): the k-th call returns output k of `seed`.
+struct SplitMix64(u64);
+
+impl SplitMix64 {
+    fn next_u64(&mut self) -> u64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^ (z >> 31)
+    }
+    /// Uniform in [0, 1) with 53 random bits.
+    fn next_f64(&mut self) -> f64 {
+        (self.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
+    }
+}
+
+/// Median of repeated runs of `f`: at least `min_reps`, and until ~`budget` has passed.
+fn median_ms(min_reps: usize, budget: Duration, mut f: impl FnMut()) -> f64 {
+    f(); // warm up caches, page tables and the thread pool
+    let start = Instant::now();
+    let mut times = Vec::new();
+    while times.len() < min_reps || (start.elapsed() < budget && times.len() < 200) {
+        let t0 = Instant::now();
+        f();
+        times.push(t0.elapsed().as_secs_f64() * 1e3);
+    }
+    times.sort_by(f64::total_cmp);
+    times[times.len() / 2]
+}
+
+fn round4(x: f64) -> f64 {
+    (x * 1e4).round() / 1e4
+}
+
+fn num(k: &str, v: f64) -> (String, ParamValue) {
+    (k.to_string(), ParamValue::Num(v))
+}
+
+fn text(k: &str, v: &str) -> (String, ParamValue) {
+    (k.to_string(), ParamValue::Text(v.to_string()))
+}
+
+fn pool(threads: usize) -> Result<rayon::ThreadPool, String> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| format!("cannot start a thread pool: {e}"))
+}
+
+/// Sum of a float32 buffer in 16 independent lanes: a pure streaming read.
+fn sum_f32(data: &[f32]) -> f32 {
+    let mut acc = [0.0f32; 16];
+    let mut chunks = data.chunks_exact(16);
+    for c in &mut chunks {
+        for l in 0..16 {
+            acc[l] += c[l];
+        }
+    }
+    acc.iter().sum::<f32>() + chunks.remainder().iter().sum::<f32>()
+}
+
+fn memory_read_row(bytes: usize) -> BenchRow {
+    let mut rng = SplitMix64(7);
+    let buf: Vec<f32> = (0..bytes / 4).map(|_| rng.next_f64() as f32).collect();
+    let ms = median_ms(5, Duration::from_secs(2), || {
+        black_box(sum_f32(black_box(&buf)));
+    });
+    BenchRow {
+        bench: "memory_read".into(),
+        median_ms: round4(ms),
+        params: vec![
+            num("bytes", bytes as f64),
+            text("dtype", "f32"),
+            num("threads", 1.0),
+            num("gb_per_s", round4(bytes as f64 / (ms * 1e-3) / 1e9)),
+        ],
+    }
+}
+
+/// Greenhouse potting bench on a 1280×720 frame: a pot's target spot, a seed-tray region,
+/// a painted bench area and a label's target spot.
+fn bench_points(count: usize) -> Result<Vec<CostPoint>, String> {
+    let p = |x, y| PixelPoint::new(x, y).map_err(|e| e.to_string());
+    let tray = Polygon::new(vec![
+        p(700.0, 380.0)?,
+        p(980.0, 370.0)?,
+        p(1000.0, 560.0)?,
+        p(720.0, 575.0)?,
+    ])
+    .map_err(|e| e.to_string())?;
+    let (w, h) = (1280usize, 720usize);
+    let mut painted = vec![false; w * h];
+    for j in 100..220 {
+        for i in 150..400 {
+            painted[j * w + i] = (i - 150) * (i - 150) / 250 + (j - 100) * (j - 100) / 120 < 140;
+        }
+    }
+    let mask = Mask::new(w, h, painted).map_err(|e| e.to_string())?;
+    let all = [
+        CostPoint {
+            target: TargetShape::Point(p(412.5, 300.25)?),
+            weight: 1.0,
+            tolerance_px: 5.0,
+        },
+        CostPoint {
+            target: TargetShape::Region(tray),
+            weight: 1.0,
+            tolerance_px: 5.0,
+        },
+        CostPoint {
+            target: TargetShape::Mask(Arc::new(mask)),
+            weight: 1.0,
+            tolerance_px: 5.0,
+        },
+        CostPoint {
+            target: TargetShape::Point(p(1100.0, 620.0)?),
+            weight: 0.5,
+            tolerance_px: 5.0,
+        },
+    ];
+    Ok(all.into_iter().take(count).collect())
+}
+
+fn cost_bench() -> Result<Vec<BenchRow>, String> {
+    let all_threads = rayon::current_num_threads().max(1);
+    let mut thread_counts = vec![1];
+    if all_threads > 1 {
+        thread_counts.push(all_threads);
+    }
+    let mut rows = vec![memory_read_row(512 << 20), memory_read_row(64 << 20)];
+    let memory_gbps = match rows[0].param("gb_per_s") {
+        Some(ParamValue::Num(v)) => *v,
+        _ => f64::NAN,
+    };
+
+    let settings = CostSettings::new(Metric::Euclidean, Steps::All, Mode::Expected)
+        .map_err(|e| e.to_string())?;
+    let model = CostModel::new(1280, 720, bench_points(2)?, settings).map_err(|e| e.to_string())?;
+    let (n, t, p) = (200usize, 10usize, 2usize);
+    for side in [64usize, 128] {
+        let prepared = model.prepare_maps(side, side).map_err(|e| e.to_string())?;
+        let len = n * t * p * side * side;
+        let mut rng = SplitMix64(side as u64);
+        let scale = 2.0 / (side * side) as f64;
+        let maps32: Vec<f32> = (0..len).map(|_| (rng.next_f64() * scale) as f32).collect();
+        for dtype in ["f32", "f16"] {
+            let maps16: Vec<f16>;
+            let (batch, bytes) = if dtype == "f32" {
+                (MapBatch::F32(&maps32), len * 4)
+            } else {
+                let mut v = vec![f16::ZERO; len];
+                v.convert_from_f32_slice(&maps32);
+                maps16 = v;
+                (MapBatch::F16(&maps16), len * 2)
+            };
+            for &threads in &thread_counts {
+                let pool = pool(threads)?;
+                let mut failed = None;
+                let ms = pool.install(|| {
+                    median_ms(5, Duration::from_secs(2), || {
+                        if let Err(e) = prepared.evaluate(batch, n, t) {
+                            failed = Some(e.to_string());
+                        }
+                    })
+                });
+                if let Some(e) = failed {
+                    return Err(e);
+                }
+                let gbps = bytes as f64 / (ms * 1e-3) / 1e9;
+                rows.push(BenchRow {
+                    bench: "cost".into(),
+                    median_ms: round4(ms),
+                    params: vec![
+                        text("kind", "maps"),
+                        num("n", n as f64),
+                        num("t", t as f64),
+                        num("p", p as f64),
+                        num("h", side as f64),
+                        num("w", side as f64),
+                        text("dtype", dtype),
+                        text("steps", "all"),
+                        text("mode", "expected"),
+                        num("threads", threads as f64),
+                        num("bytes", bytes as f64),
+                        num("gb_per_s", round4(gbps)),
+                        num("memory_ratio", round4(gbps / memory_gbps)),
+                    ],
+                });
+            }
+        }
+    }
+
+    // Points: N=10000, T=10 over a point, a region, a mask and a point, partly off the frame.
+    let model = CostModel::new(1280, 720, bench_points(4)?, settings).map_err(|e| e.to_string())?;
+    let (n, t, p) = (10_000usize, 10usize, 4usize);
+    let mut rng = SplitMix64(99);
+    let pts: Vec<f64> = (0..n * t * p)
+        .flat_map(|_| {
+            [
+                rng.next_f64() * 1400.0 - 60.0,
+                rng.next_f64() * 800.0 - 40.0,
+            ]
+        })
+        .collect();
+    for &threads in &thread_counts {
+        let pool = pool(threads)?;
+        let mut failed = None;
+        let ms = pool.install(|| {
+            median_ms(5, Duration::from_secs(2), || {
+                if let Err(e) = model.evaluate_points(&pts, n, t) {
+                    failed = Some(e.to_string());
+                }
+            })
+        });
+        if let Some(e) = failed {
+            return Err(e);
+        }
+        rows.push(BenchRow {
+            bench: "cost".into(),
+            median_ms: round4(ms),
+            params: vec![
+                text("kind", "points"),
+                num("n", n as f64),
+                num("t", t as f64),
+                num("p", p as f64),
+                text("targets", "point,region,mask,point"),
+                text("dtype", "f64"),
+                text("steps", "all"),
+                text("mode", "expected"),
+                num("threads", threads as f64),
+                num("points_per_s", round4((n * t * p) as f64 / (ms * 1e-3))),
+            ],
+        });
+    }
+    Ok(rows)
+}
+
+/// The shared 1280×720 benchmark mask (see the module docs for the recipe).
+pub fn edt_bench_mask() -> Result<Mask, String> {
+    let (w, h) = (1280usize, 720usize);
+    let mut rng = SplitMix64(20261201);
+    let painted: Vec<bool> = (0..w * h).map(|_| rng.next_f64() < 0.01).collect();
+    Mask::new(w, h, painted).map_err(|e| e.to_string())
+}
+
+fn edt_bench() -> Result<Vec<BenchRow>, String> {
+    let mask = edt_bench_mask()?;
+    let painted = mask.data().iter().filter(|&&b| b).count();
+    let pool = pool(1)?;
+    let ms = pool.install(|| {
+        median_ms(11, Duration::from_secs(2), || {
+            black_box(distance::edt(black_box(&mask)));
+        })
+    });
+    Ok(vec![BenchRow {
+        bench: "edt".into(),
+        median_ms: round4(ms),
+        params: vec![
+            num("width", mask.width() as f64),
+            num("height", mask.height() as f64),
+            num("density", 0.01),
+            num("seed", 20261201.0),
+            num("painted", painted as f64),
+            num("threads", 1.0),
+        ],
+    }])
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn rows_print_as_json_lines() {
+        let row = BenchRow {
+            bench: "cost".into(),
+            median_ms: 1.25,
+            params: vec![
+                num("n", 200.0),
+                text("dtype", "f\"16"),
+                num("gb_per_s", 12.5),
+                num("threads", 1.0),
+            ],
+        };
+        let line = row.to_json();
+        assert_eq!(
+            line,
+            r#"{"bench": "cost", "median_ms": 1.25, "params": {"n": 200, "dtype": "f\"16", "gb_per_s": 12.5, "threads": 1}}"#
+        );
+        let v: serde_json::Value = serde_json::from_str(&line).unwrap();
+        assert_eq!(v["params"]["n"], 200);
+        assert!(run("nope").is_err());
+    }
+
+    #[test]
+    fn splitmix_matches_the_reference_stream() {
+        // First outputs of SplitMix64 seeded with 0 (reference values, from memory; the painted
+        // count below cross-checks the stream against bench_edt_compare.py).
+        let mut r = SplitMix64(0);
+        assert_eq!(r.next_u64(), 0xE220_A839_7B1D_CDAF);
+        assert_eq!(r.next_u64(), 0x6E78_9E6A_A1B9_65F4);
+    }
+
+    #[test]
+    fn shared_mask_has_about_one_percent_painted() {
+        let m = edt_bench_mask().unwrap();
+        let painted = m.data().iter().filter(|&&b| b).count();
+        // 9309 is what bench_edt_compare.py's numpy version of the recipe paints.
+        assert_eq!(painted, 9309);
+    }
+}
