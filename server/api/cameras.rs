@@ -1,0 +1,310 @@
+//! `POST/GET /api/cameras`: a camera's size, calibration, work plane, pose and zones.
+
+use super::auth::{Principal, Role};
+use super::error::{ApiError, ApiResult};
+use super::extract::JsonBody;
+use super::{AppState, items, parse_id, rfc3339};
+use crate::store::{self, cameras::CameraRow};
+use axum::Json;
+use axum::extract::{Path, State};
+use axum::http::StatusCode;
+use goalsmith_core::camera::{Intrinsics, Pose, WorkPlane};
+use goalsmith_core::goal::{Xy, check_zone};
+use serde::{Deserialize, Serialize};
+use serde_json::Value;
+
+/// Largest frame side accepted for a camera.
+pub const MAX_SIDE: u32 = 16384;
+
+/// The body of `POST /api/cameras`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CameraInput {
+    name: String,
+    width: u32,
+    height: u32,
+    /// Either `{fx, fy, cx, cy, distortion}` or ROS CameraInfo fields `{K, D, distortion_model}`.
+    #[serde(default)]
+    intrinsics: Option<Value>,
+    #[serde(default)]
+    work_plane: Option<WorkPlaneDoc>,
+    #[serde(default)]
+    pose_in_base: Option<PoseDoc>,
+    #[serde(default)]
+    safe_zone: Option<Vec<Xy>>,
+    #[serde(default)]
+    no_go_zones: Option<Vec<Vec<Xy>>>,
+}
+
+/// Intrinsics in goalsmith's own form.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct IntrinsicsDoc {
+    /// Focal length along x, pixels.
+    pub fx: f64,
+    /// Focal length along y, pixels.
+    pub fy: f64,
+    /// Principal point x, pixels.
+    pub cx: f64,
+    /// Principal point y, pixels.
+    pub cy: f64,
+    /// Brown–Conrady k1, k2, p1, p2, k3.
+    #[serde(default)]
+    pub distortion: [f64; 5],
+}
+
+/// The fields of a ROS CameraInfo message (REP 104) that carry the calibration.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct CameraInfoInput {
+    #[serde(alias = "k")]
+    #[serde(rename = "K")]
+    k: [f64; 9],
+    #[serde(alias = "d")]
+    #[serde(rename = "D", default)]
+    d: Vec<f64>,
+    #[serde(default = "plumb_bob")]
+    distortion_model: String,
+    #[serde(default)]
+    width: Option<u32>,
+    #[serde(default)]
+    height: Option<u32>,
+    // R and P are accepted and ignored: goalsmith works in the unrectified image.
+    #[serde(alias = "r", rename = "R", default)]
+    _r: Option<Vec<f64>>,
+    #[serde(alias = "p", rename = "P", default)]
+    _p: Option<Vec<f64>>,
+}
+
+fn plumb_bob() -> String {
+    "plumb_bob".into()
+}
+
+/// The work plane n·X = offset_m in camera coordinates (metres).
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct WorkPlaneDoc {
+    /// Plane normal (any length; stored normalised).
+    pub normal: [f64; 3],
+    /// Offset along the normal, metres.
+    pub offset_m: f64,
+}
+
+/// Camera to robot base: X_base = R·X_cam + t.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[serde(deny_unknown_fields)]
+pub struct PoseDoc {
+    /// 3×3 rotation, row-major.
+    pub rotation: [[f64; 3]; 3],
+    /// Translation, metres.
+    pub translation_m: [f64; 3],
+}
+
+/// The stored camera document (also the body served, plus id and times).
+#[derive(Debug, Clone, Deserialize, Serialize)]
+pub struct CameraDoc {
+    /// Display name.
+    pub name: String,
+    /// Frame width.
+    pub width: u32,
+    /// Frame height.
+    pub height: u32,
+    /// Intrinsics in goalsmith's form.
+    pub intrinsics: Option<IntrinsicsDoc>,
+    /// Work plane.
+    pub work_plane: Option<WorkPlaneDoc>,
+    /// Pose of the camera in the robot base frame.
+    pub pose_in_base: Option<PoseDoc>,
+    /// Safe zone polygon.
+    pub safe_zone: Option<Vec<Xy>>,
+    /// No-go zone polygons.
+    pub no_go_zones: Vec<Vec<Xy>>,
+}
+
+impl CameraDoc {
+    /// The checked intrinsics, if calibrated.
+    pub fn intrinsics(&self) -> Option<Intrinsics> {
+        self.intrinsics
+            .as_ref()
+            .and_then(|i| Intrinsics::new(i.fx, i.fy, i.cx, i.cy, i.distortion).ok())
+    }
+    /// The checked work plane, if given.
+    pub fn work_plane(&self) -> Option<WorkPlane> {
+        self.work_plane
+            .as_ref()
+            .and_then(|w| WorkPlane::new(w.normal, w.offset_m).ok())
+    }
+    /// The checked pose, if given.
+    pub fn pose(&self) -> Option<Pose> {
+        self.pose_in_base
+            .as_ref()
+            .and_then(|p| Pose::new(p.rotation, p.translation_m).ok())
+    }
+}
+
+fn parse_intrinsics(v: Value, width: u32, height: u32) -> ApiResult<IntrinsicsDoc> {
+    let direct = v.get("fx").is_some();
+    let intr = if direct {
+        let d: IntrinsicsDoc = serde_json::from_value(v)
+            .map_err(|e| ApiError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?;
+        Intrinsics::new(d.fx, d.fy, d.cx, d.cy, d.distortion)
+            .map_err(|e| ApiError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?
+    } else {
+        let ros: CameraInfoInput = serde_json::from_value(v).map_err(|e| {
+            ApiError::invalid(
+                "bad_intrinsics",
+                "intrinsics",
+                format!("give {{fx, fy, cx, cy, distortion}} or CameraInfo {{K, D, distortion_model}}: {e}"),
+            )
+        })?;
+        if ros.width.is_some_and(|w| w != width) || ros.height.is_some_and(|h| h != height) {
+            return Err(ApiError::invalid(
+                "bad_intrinsics",
+                "intrinsics",
+                "the CameraInfo width and height differ from the camera's",
+            ));
+        }
+        Intrinsics::from_camera_info(ros.k, &ros.d, &ros.distortion_model)
+            .map_err(|e| ApiError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?
+    };
+    Ok(IntrinsicsDoc {
+        fx: intr.fx(),
+        fy: intr.fy(),
+        cx: intr.cx(),
+        cy: intr.cy(),
+        distortion: intr.distortion(),
+    })
+}
+
+/// Checks a camera body into the stored document.
+pub fn check_camera(input: CameraInput) -> ApiResult<CameraDoc> {
+    let name = input.name.trim().to_string();
+    if name.is_empty() || name.chars().count() > 200 {
+        return Err(ApiError::invalid(
+            "bad_name",
+            "name",
+            "a camera needs a name of 1 to 200 characters",
+        ));
+    }
+    for (field, v) in [("width", input.width), ("height", input.height)] {
+        if v == 0 || v > MAX_SIDE {
+            return Err(ApiError::invalid(
+                "bad_size",
+                field,
+                format!("{field} must be between 1 and {MAX_SIDE} pixels"),
+            ));
+        }
+    }
+    let (w, h) = (input.width, input.height);
+    let intrinsics = input
+        .intrinsics
+        .map(|v| parse_intrinsics(v, w, h))
+        .transpose()?;
+    let work_plane = match input.work_plane {
+        Some(p) => {
+            let plane = WorkPlane::new(p.normal, p.offset_m)
+                .map_err(|e| ApiError::invalid("bad_work_plane", "work_plane", e.to_string()))?;
+            Some(WorkPlaneDoc {
+                normal: plane.normal(),
+                offset_m: plane.offset_m(),
+            })
+        }
+        None => None,
+    };
+    if let Some(p) = &input.pose_in_base {
+        Pose::new(p.rotation, p.translation_m)
+            .map_err(|e| ApiError::invalid("bad_pose", "pose_in_base", e.to_string()))?;
+    }
+    if let Some(z) = &input.safe_zone {
+        check_zone(w, h, z, "safe_zone")?;
+    }
+    let no_go_zones = input.no_go_zones.unwrap_or_default();
+    for (k, z) in no_go_zones.iter().enumerate() {
+        check_zone(w, h, z, &format!("no_go_zones[{k}]"))?;
+    }
+    Ok(CameraDoc {
+        name,
+        width: w,
+        height: h,
+        intrinsics,
+        work_plane,
+        pose_in_base: input.pose_in_base,
+        safe_zone: input.safe_zone,
+        no_go_zones,
+    })
+}
+
+/// The camera as served: the document, its id, time, and the calibration in CameraInfo form.
+pub fn camera_json(row: &CameraRow) -> ApiResult<Value> {
+    let doc = parse_doc(row)?;
+    let mut v = serde_json::to_value(&doc).map_err(|e| ApiError::Internal(e.to_string()))?;
+    v["id"] = Value::String(row.id.clone());
+    v["created_at"] = Value::String(rfc3339(row.created_at));
+    v["camera_info"] = match doc.intrinsics() {
+        Some(i) => serde_json::to_value(i.to_camera_info(doc.width, doc.height))
+            .map_err(|e| ApiError::Internal(e.to_string()))?,
+        None => Value::Null,
+    };
+    Ok(v)
+}
+
+/// Parses a stored camera document.
+pub fn parse_doc(row: &CameraRow) -> ApiResult<CameraDoc> {
+    serde_json::from_str(&row.document)
+        .map_err(|e| ApiError::Internal(format!("camera {} unreadable: {e}", row.id)))
+}
+
+/// Stores a checked camera for a team.
+pub async fn insert(store: &store::Store, team_id: &str, doc: &CameraDoc) -> ApiResult<CameraRow> {
+    let row = CameraRow {
+        id: uuid::Uuid::new_v4().to_string(),
+        team_id: team_id.to_string(),
+        name: doc.name.clone(),
+        width: i64::from(doc.width),
+        height: i64::from(doc.height),
+        document: serde_json::to_string(doc).map_err(|e| ApiError::Internal(e.to_string()))?,
+        created_at: store::now_ms(),
+    };
+    store::cameras::insert(store.pool(), &row).await?;
+    Ok(row)
+}
+
+/// `POST /api/cameras`.
+pub async fn create(
+    State(state): State<AppState>,
+    who: Principal,
+    JsonBody(input): JsonBody<CameraInput>,
+) -> ApiResult<(StatusCode, Json<Value>)> {
+    who.require(Role::Editor)?;
+    let doc = check_camera(input)?;
+    let row = insert(&state.store, &who.team_id, &doc).await?;
+    Ok((StatusCode::CREATED, Json(camera_json(&row)?)))
+}
+
+/// `GET /api/cameras`.
+pub async fn list(State(state): State<AppState>, who: Principal) -> ApiResult<Json<Value>> {
+    let rows = store::cameras::list(state.store.pool(), &who.team_id).await?;
+    let out = rows
+        .iter()
+        .map(camera_json)
+        .collect::<ApiResult<Vec<_>>>()?;
+    Ok(items(out))
+}
+
+/// `GET /api/cameras/{id}`.
+pub async fn get_one(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+) -> ApiResult<Json<Value>> {
+    let row = load(&state, &who, &id).await?;
+    Ok(Json(camera_json(&row)?))
+}
+
+/// A team's camera or 404.
+pub async fn load(state: &AppState, who: &Principal, id: &str) -> ApiResult<CameraRow> {
+    let id = parse_id(id, "camera")?;
+    store::cameras::get(state.store.pool(), &who.team_id, &id)
+        .await?
+        .ok_or_else(|| ApiError::NotFound(format!("no camera with id {id}")))
+}

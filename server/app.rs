@@ -1,0 +1,105 @@
+//! Building the application and running it: `app(state)` is separate from binding a port so tests
+//! and the binary share it.
+
+use crate::api::{self, AppState};
+use crate::config::ServeConfig;
+use crate::store::Store;
+use axum::Router;
+use axum::extract::MatchedPath;
+use axum::http::{HeaderName, Request};
+use std::sync::Arc;
+use std::time::Duration;
+use tokio::net::TcpListener;
+use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
+use tower_http::trace::TraceLayer;
+
+/// The whole application: API, pages and the layers around them.
+pub fn app(state: AppState) -> Router {
+    let request_id = HeaderName::from_static("x-request-id");
+    api::router(state.clone())
+        .with_state(state)
+        .layer(
+            TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
+                let route = req
+                    .extensions()
+                    .get::<MatchedPath>()
+                    .map(MatchedPath::as_str)
+                    .unwrap_or("-");
+                let id = req
+                    .headers()
+                    .get("x-request-id")
+                    .and_then(|v| v.to_str().ok())
+                    .unwrap_or("-");
+                tracing::info_span!("request", method = %req.method(), route, request_id = id)
+            }),
+        )
+        .layer(PropagateRequestIdLayer::new(request_id.clone()))
+        .layer(SetRequestIdLayer::new(request_id, MakeRequestUuid))
+}
+
+/// Connects to the database, runs migrations and (with `--demo`) loads the demo scenario.
+pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::error::Error>> {
+    if config.database_url.starts_with("sqlite:") {
+        std::fs::create_dir_all(&config.data_dir)?;
+    }
+    let store = Store::connect(&config.database_url).await?;
+    let state = AppState {
+        store,
+        limits: Arc::new(config.limits.clone()),
+    };
+    Ok(state)
+}
+
+/// Runs until SIGTERM or Ctrl-C, then stops accepting, finishes in-flight requests (up to 30 s)
+/// and returns.
+pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>> {
+    let state = prepare(&config).await?;
+    let listener = TcpListener::bind(&config.bind).await?;
+    let addr = listener.local_addr()?;
+    let announce = if config.demo {
+        crate::demo::load(&state, addr).await?
+    } else {
+        None
+    };
+    // The one line on stdout that scripts wait for; everything else goes to stderr.
+    println!("listening on http://{addr}");
+    if let Some(lines) = announce {
+        eprintln!("{lines}");
+    }
+    let store = state.store.clone();
+    let server = axum::serve(listener, app(state)).with_graceful_shutdown(shutdown_signal());
+    server.await?;
+    tracing::info!("stopped accepting; in-flight requests finished");
+    tokio::time::timeout(Duration::from_secs(5), store.close())
+        .await
+        .ok();
+    Ok(())
+}
+
+async fn shutdown_signal() {
+    let ctrl_c = async {
+        tokio::signal::ctrl_c().await.ok();
+    };
+    #[cfg(unix)]
+    let term = async {
+        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
+            Ok(mut s) => {
+                s.recv().await;
+            }
+            Err(_) => std::future::pending::<()>().await,
+        }
+    };
+    #[cfg(not(unix))]
+    let term = std::future::pending::<()>();
+    tokio::select! {
+        _ = ctrl_c => {},
+        _ = term => {},
+    }
+    tracing::info!("shutdown signal received");
+    // Bound the wait for in-flight requests.
+    tokio::spawn(async {
+        tokio::time::sleep(Duration::from_secs(30)).await;
+        tracing::warn!("in-flight requests did not finish within 30 s; exiting");
+        std::process::exit(0);
+    });
+}

@@ -1,0 +1,156 @@
+//! Command-line interface: `serve`, `token create`, and the tools for planners.
+
+use crate::api::auth::{self, Role};
+use crate::config::{Limits, ServeConfig, default_database_url};
+use crate::store::Store;
+use clap::{Parser, Subcommand, ValueEnum};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(Parser)]
+#[command(
+    name = "goalsmith",
+    version,
+    about = "Shared, revisioned goals for robot planners"
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(clap::Args, Clone)]
+struct DbArgs {
+    /// Database URL: sqlite://PATH or postgres://… (default sqlite://DATA_DIR/goalsmith.db)
+    #[arg(long, env = "GOALSMITH_DATABASE_URL")]
+    database: Option<String>,
+    /// Directory for the default SQLite database
+    #[arg(long, env = "GOALSMITH_DATA_DIR", default_value = "./goalsmith-data")]
+    data_dir: PathBuf,
+}
+
+impl DbArgs {
+    fn url(&self) -> String {
+        self.database
+            .clone()
+            .unwrap_or_else(|| default_database_url(&self.data_dir))
+    }
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Run the HTTP server
+    Serve {
+        /// Address to listen on; port 0 picks a free port
+        #[arg(long, env = "GOALSMITH_BIND", default_value = "127.0.0.1:8080")]
+        bind: String,
+        #[command(flatten)]
+        db: DbArgs,
+        /// Load the demo scenario (a greenhouse potting bench) into an empty database
+        #[arg(long)]
+        demo: bool,
+    },
+    /// Manage API tokens
+    Token {
+        #[command(subcommand)]
+        command: TokenCommand,
+    },
+}
+
+#[derive(Subcommand)]
+enum TokenCommand {
+    /// Create a token (and the team if missing); prints the token alone on stdout
+    Create {
+        /// Team name
+        #[arg(long)]
+        team: String,
+        /// Role of the token
+        #[arg(long, value_enum)]
+        role: RoleArg,
+        /// Who holds the token; recorded as the author of what it writes
+        #[arg(long)]
+        label: Option<String>,
+        #[command(flatten)]
+        db: DbArgs,
+    },
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum RoleArg {
+    Viewer,
+    Editor,
+    Owner,
+}
+
+impl From<RoleArg> for Role {
+    fn from(r: RoleArg) -> Self {
+        match r {
+            RoleArg::Viewer => Role::Viewer,
+            RoleArg::Editor => Role::Editor,
+            RoleArg::Owner => Role::Owner,
+        }
+    }
+}
+
+fn init_logs() {
+    use tracing_subscriber::EnvFilter;
+    let filter = EnvFilter::try_from_env("GOALSMITH_LOG")
+        .unwrap_or_else(|_| EnvFilter::new("info,sqlx=warn,tower_http=info"));
+    tracing_subscriber::fmt()
+        .with_env_filter(filter)
+        .with_writer(std::io::stderr)
+        .init();
+}
+
+fn runtime() -> Result<tokio::runtime::Runtime, std::io::Error> {
+    tokio::runtime::Builder::new_multi_thread()
+        .enable_all()
+        .build()
+}
+
+/// Entry point of the binary.
+pub fn main() -> ExitCode {
+    let cli = Cli::parse();
+    init_logs();
+    let result: Result<(), Box<dyn std::error::Error>> = match cli.command {
+        Command::Serve { bind, db, demo } => runtime().map_err(Into::into).and_then(|rt| {
+            rt.block_on(crate::app::serve(ServeConfig {
+                bind,
+                database_url: db.url(),
+                data_dir: db.data_dir.clone(),
+                demo,
+                limits: Limits::default(),
+            }))
+        }),
+        Command::Token {
+            command:
+                TokenCommand::Create {
+                    team,
+                    role,
+                    label,
+                    db,
+                },
+        } => runtime().map_err(Into::into).and_then(|rt| {
+            rt.block_on(async {
+                if db.database.is_none() {
+                    std::fs::create_dir_all(&db.data_dir)?;
+                }
+                let store = Store::connect(&db.url()).await?;
+                let role = Role::from(role);
+                let label = label.unwrap_or_else(|| format!("{} token", role.as_str()));
+                let token = auth::create_token(&store, team.trim(), role, &label)
+                    .await
+                    .map_err(|e| e.to_string())?;
+                println!("{token}");
+                store.close().await;
+                Ok(())
+            })
+        }),
+    };
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("goalsmith: {e}");
+            ExitCode::FAILURE
+        }
+    }
+}

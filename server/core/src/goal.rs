@@ -1,0 +1,920 @@
+//! The goal document: what arrives over the wire (unchecked) and the checked [`GoalSpec`]
+//! that only exists once every rule of the contract holds.
+//!
+//! Checking happens once, here; code downstream of a `GoalSpec` never re-validates.
+
+use crate::cost::{CostPoint, CostSettings, Metric, Mode, Steps, TargetShape};
+use crate::distance::Mask;
+use crate::geometry::{PixelPoint, Polygon};
+use crate::rigid::{self, RigidFit};
+use serde::{Deserialize, Serialize};
+use std::sync::Arc;
+
+/// Default weight of a term.
+pub const DEFAULT_WEIGHT: f64 = 1.0;
+/// Default tolerance radius (pixels) used for success and `hit` costs.
+pub const DEFAULT_TOLERANCE_PX: f64 = 5.0;
+/// Longest goal name accepted, in characters.
+pub const MAX_NAME_CHARS: usize = 200;
+/// Longest label or note accepted, in characters.
+pub const MAX_TEXT_CHARS: usize = 2000;
+/// Most terms in one goal.
+pub const MAX_TERMS: usize = 256;
+/// Most vertices in one polygon and sources in one rigid term.
+pub const MAX_VERTICES: usize = 1024;
+
+/// A pixel coordinate pair `[x, y]` as sent by clients.
+pub type Xy = [f64; 2];
+
+/// The goal body of `POST /api/goals` and `PUT /api/goals/{id}`, before any check.
+#[derive(Debug, Clone, Deserialize, Serialize)]
+#[cfg_attr(feature = "schema", derive(schemars::JsonSchema))]
+#[serde(deny_unknown_fields)]
+pub struct GoalDocument {
+    /// Human name of the goal.
+    pub name: String,
+    /// The frame the goal is drawn on.
+    pub frame_id: String,
+    /// The parts of the goal, in order; cost maps follow this order.
+    pub terms: Vec<TermDocument>,
+    /// How candidate futures are scored; defaults to euclidean, final step, expected cost.
+    #[serde(default)]
+    pub cost: Option<CostDocument>,
+    /// A short note saying why this revision was made.
+    #[serde(default)]
+    pub note: Option<String>,
+    /// Accept targets outside the camera's safe zone or inside a no-go zone; recorded.
+    #[serde(default)]
+    pub override_safety: bool,
+}
+
+/// One term of a goal document.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[cfg_attr(feature = "schema", derive(schemars::JsonSchema))]
+#[serde(tag = "kind", rename_all = "snake_case", deny_unknown_fields)]
+pub enum TermDocument {
+    /// A source pixel that should reach a target pixel.
+    Point {
+        /// Optional name shown to people.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        label: Option<String>,
+        /// Where the thing is now.
+        source: Xy,
+        /// Where it should end up.
+        target: Xy,
+        /// Weight in the total cost (≥ 0, default 1).
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        weight: Option<f64>,
+        /// Success radius in pixels (> 0, default 5).
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        tolerance_px: Option<f64>,
+    },
+    /// A source pixel that should end inside a polygon.
+    Region {
+        /// Optional name shown to people.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        label: Option<String>,
+        /// Where the thing is now.
+        source: Xy,
+        /// The closed target polygon (at least 3 vertices, not self-intersecting).
+        polygon: Vec<Xy>,
+        /// Weight in the total cost.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        weight: Option<f64>,
+        /// Success radius in pixels around the polygon.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        tolerance_px: Option<f64>,
+    },
+    /// A source pixel that should end inside a painted area.
+    Mask {
+        /// Optional name shown to people.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        label: Option<String>,
+        /// Where the thing is now.
+        source: Xy,
+        /// A PNG of the frame's size, base64; painted where luma ≥ 128 and alpha ≥ 128.
+        mask_png_base64: String,
+        /// Weight in the total cost.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        weight: Option<f64>,
+        /// Success radius in pixels around the painted area.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        tolerance_px: Option<f64>,
+    },
+    /// Several source points of one object that should reach their targets together.
+    Rigid {
+        /// Optional name shown to people.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        label: Option<String>,
+        /// Points on the object now (at least 2).
+        sources: Vec<Xy>,
+        /// Where each source should end up, in the same order.
+        targets: Vec<Xy>,
+        /// Fit a similarity (with scale) instead of a rigid transform.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        allow_scale: Option<bool>,
+        /// Weight of the whole term, split evenly over its points.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        weight: Option<f64>,
+        /// Success radius in pixels for each point.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        tolerance_px: Option<f64>,
+    },
+    /// A reward fitted from demonstrations.
+    Learned {
+        /// Optional name shown to people.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        label: Option<String>,
+        /// The reward fit this term uses.
+        reward_fit_id: String,
+        /// Where the thing is now.
+        source: Xy,
+        /// Weight in the total cost.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
+        weight: Option<f64>,
+    },
+}
+
+impl TermDocument {
+    /// The `kind` tag as it appears in JSON.
+    pub fn kind(&self) -> &'static str {
+        match self {
+            TermDocument::Point { .. } => "point",
+            TermDocument::Region { .. } => "region",
+            TermDocument::Mask { .. } => "mask",
+            TermDocument::Rigid { .. } => "rigid",
+            TermDocument::Learned { .. } => "learned",
+        }
+    }
+}
+
+/// Cost settings as sent by clients.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[cfg_attr(feature = "schema", derive(schemars::JsonSchema))]
+#[serde(deny_unknown_fields)]
+pub struct CostDocument {
+    /// `euclidean`, `squared` or `huber`.
+    #[serde(default = "default_metric")]
+    pub metric: MetricName,
+    /// Huber's δ in pixels; required for, and only allowed with, `huber`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub huber_delta_px: Option<f64>,
+    /// `final` (last step only) or `all` (sum over steps).
+    #[serde(default = "default_steps")]
+    pub steps: StepsName,
+    /// `expected` cost or `hit` (negative log probability of ending within tolerance).
+    #[serde(default = "default_mode")]
+    pub mode: ModeName,
+}
+
+fn default_metric() -> MetricName {
+    MetricName::Euclidean
+}
+fn default_steps() -> StepsName {
+    StepsName::Final
+}
+fn default_mode() -> ModeName {
+    ModeName::Expected
+}
+
+impl Default for CostDocument {
+    fn default() -> Self {
+        Self {
+            metric: MetricName::Euclidean,
+            huber_delta_px: None,
+            steps: StepsName::Final,
+            mode: ModeName::Expected,
+        }
+    }
+}
+
+/// Metric names of the contract.
+#[derive(Debug, Clone, Copy, Deserialize, Serialize, PartialEq, Eq)]
+#[cfg_attr(feature = "schema", derive(schemars::JsonSchema))]
+#[serde(rename_all = "snake_case")]
+pub enum MetricName {
+    /// m(d) = d.
+    Euclidean,
+    /// m(d) = d².
+    Squared,
+    /// Huber with δ = `huber_delta_px`.
+    Huber,
+}
+
+/// Step modes of the contract.
+#[derive(Debug, Clone, Copy, Deserialize, Serialize, PartialEq, Eq)]
+#[cfg_attr(feature = "schema", derive(schemars::JsonSchema))]
+#[serde(rename_all = "snake_case")]
+pub enum StepsName {
+    /// Only the last predicted step counts.
+    Final,
+    /// Every step counts.
+    All,
+}
+
+/// Cost modes of the contract.
+#[derive(Debug, Clone, Copy, Deserialize, Serialize, PartialEq, Eq)]
+#[cfg_attr(feature = "schema", derive(schemars::JsonSchema))]
+#[serde(rename_all = "snake_case")]
+pub enum ModeName {
+    /// Expected metric cost.
+    Expected,
+    /// −ln(ε + probability of ending within tolerance).
+    Hit,
+}
+
+/// A rule of the goal document that does not hold, with the JSON path of the offending field.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GoalError {
+    /// Machine-readable code, snake_case.
+    pub code: &'static str,
+    /// A sentence for a person.
+    pub message: String,
+    /// JSON path such as `terms[2].target`.
+    pub field: String,
+}
+
+impl GoalError {
+    fn new(code: &'static str, field: impl Into<String>, message: impl Into<String>) -> Self {
+        Self {
+            code,
+            message: message.into(),
+            field: field.into(),
+        }
+    }
+}
+
+impl std::fmt::Display for GoalError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "{}: {}", self.field, self.message)
+    }
+}
+
+impl std::error::Error for GoalError {}
+
+/// What the check needs to know about the frame and its camera.
+pub struct CheckContext<'a> {
+    /// Frame width in pixels.
+    pub width: u32,
+    /// Frame height in pixels.
+    pub height: u32,
+    /// Targets must lie inside this polygon when given.
+    pub safe_zone: Option<&'a Polygon>,
+    /// Targets must not lie inside any of these.
+    pub no_go_zones: &'a [Polygon],
+    /// Decodes a term's `mask_png_base64` into (width, height, painted flags).
+    pub decode_mask: &'a dyn Fn(&str) -> Result<(usize, usize, Vec<bool>), String>,
+    /// Whether a reward fit with this id exists for the team and frame.
+    pub reward_fit_exists: &'a dyn Fn(&str) -> bool,
+}
+
+/// A checked term: every coordinate finite and inside the frame, every shape valid.
+#[derive(Debug, Clone)]
+pub enum Term {
+    /// See [`TermDocument::Point`].
+    Point {
+        /// Source pixel.
+        source: PixelPoint,
+        /// Target pixel.
+        target: PixelPoint,
+    },
+    /// See [`TermDocument::Region`].
+    Region {
+        /// Source pixel.
+        source: PixelPoint,
+        /// Target polygon.
+        polygon: Polygon,
+    },
+    /// See [`TermDocument::Mask`].
+    Mask {
+        /// Source pixel.
+        source: PixelPoint,
+        /// Painted target area, of the frame's size.
+        mask: Arc<Mask>,
+    },
+    /// See [`TermDocument::Rigid`].
+    Rigid {
+        /// Source points.
+        sources: Vec<PixelPoint>,
+        /// Targets, one per source.
+        targets: Vec<PixelPoint>,
+        /// The fitted transform (reported; the cost uses per-source distances).
+        fit: RigidFit,
+    },
+    /// See [`TermDocument::Learned`].
+    Learned {
+        /// Source pixel.
+        source: PixelPoint,
+        /// The reward fit id.
+        reward_fit_id: String,
+    },
+}
+
+/// A checked term with its shared settings.
+#[derive(Debug, Clone)]
+pub struct CheckedTerm {
+    /// The geometry of the term.
+    pub term: Term,
+    /// Optional label.
+    pub label: Option<String>,
+    /// Weight ≥ 0 of the whole term.
+    pub weight: f64,
+    /// Tolerance radius > 0 in pixels.
+    pub tolerance_px: f64,
+}
+
+impl CheckedTerm {
+    /// The `kind` tag of the term.
+    pub fn term_kind(&self) -> &'static str {
+        match self.term {
+            Term::Point { .. } => "point",
+            Term::Region { .. } => "region",
+            Term::Mask { .. } => "mask",
+            Term::Rigid { .. } => "rigid",
+            Term::Learned { .. } => "learned",
+        }
+    }
+}
+
+/// The area centroid of a simple polygon (shoelace formula); `None` for zero area.
+pub fn polygon_centroid(polygon: &Polygon) -> Option<[f64; 2]> {
+    let v = polygon.vertices();
+    let (mut a, mut cx, mut cy) = (0.0, 0.0, 0.0);
+    for k in 0..v.len() {
+        let (p, q) = (v[k], v[(k + 1) % v.len()]);
+        let cross = p.x() * q.y() - q.x() * p.y();
+        a += cross;
+        cx += (p.x() + q.x()) * cross;
+        cy += (p.y() + q.y()) * cross;
+    }
+    if a.abs() < f64::EPSILON {
+        return None;
+    }
+    Some([cx / (3.0 * a), cy / (3.0 * a)])
+}
+
+/// A goal that satisfies every rule of the contract for its frame and camera.
+#[derive(Debug, Clone)]
+pub struct GoalSpec {
+    document: GoalDocument,
+    terms: Vec<CheckedTerm>,
+    settings: CostSettings,
+    width: u32,
+    height: u32,
+    warnings: Vec<String>,
+}
+
+fn check_text(value: &Option<String>, field: String) -> Result<(), GoalError> {
+    if let Some(s) = value
+        && s.chars().count() > MAX_TEXT_CHARS
+    {
+        return Err(GoalError::new(
+            "too_long",
+            field,
+            format!("at most {MAX_TEXT_CHARS} characters"),
+        ));
+    }
+    Ok(())
+}
+
+struct Frame {
+    width: u32,
+    height: u32,
+}
+
+impl Frame {
+    /// A point that must lie inside the frame: x in [−0.5, W − 0.5], y in [−0.5, H − 0.5].
+    fn point(&self, xy: Xy, field: &str) -> Result<PixelPoint, GoalError> {
+        let p = PixelPoint::new(xy[0], xy[1]).map_err(|_| {
+            GoalError::new("not_finite", field, "coordinates must be finite numbers")
+        })?;
+        let (w, h) = (f64::from(self.width), f64::from(self.height));
+        if !(-0.5..=w - 0.5).contains(&p.x()) || !(-0.5..=h - 0.5).contains(&p.y()) {
+            return Err(GoalError::new(
+                "outside_frame",
+                field,
+                format!(
+                    "[{}, {}] lies outside the {}×{} frame (x must be in [-0.5, {}], y in [-0.5, {}])",
+                    xy[0],
+                    xy[1],
+                    self.width,
+                    self.height,
+                    w - 0.5,
+                    h - 0.5
+                ),
+            ));
+        }
+        Ok(p)
+    }
+}
+
+fn check_weight(weight: Option<f64>, field: String) -> Result<f64, GoalError> {
+    let w = weight.unwrap_or(DEFAULT_WEIGHT);
+    if !w.is_finite() || w < 0.0 {
+        return Err(GoalError::new(
+            "bad_weight",
+            field,
+            "weight must be a finite number ≥ 0",
+        ));
+    }
+    Ok(w)
+}
+
+fn check_tolerance(tol: Option<f64>, field: String) -> Result<f64, GoalError> {
+    let t = tol.unwrap_or(DEFAULT_TOLERANCE_PX);
+    if !t.is_finite() || t <= 0.0 {
+        return Err(GoalError::new(
+            "bad_tolerance",
+            field,
+            "tolerance_px must be a finite number > 0",
+        ));
+    }
+    Ok(t)
+}
+
+fn check_polygon(frame: &Frame, vertices: &[Xy], field: &str) -> Result<Polygon, GoalError> {
+    if vertices.len() > MAX_VERTICES {
+        return Err(GoalError::new(
+            "too_many_vertices",
+            field,
+            format!("at most {MAX_VERTICES} vertices"),
+        ));
+    }
+    let points = vertices
+        .iter()
+        .enumerate()
+        .map(|(k, xy)| frame.point(*xy, &format!("{field}[{k}]")))
+        .collect::<Result<Vec<_>, _>>()?;
+    Polygon::new(points).map_err(|e| GoalError::new("bad_polygon", field, e.to_string()))
+}
+
+/// Checks a camera zone polygon (safe zone or no-go zone) given in frame pixels.
+pub fn check_zone(
+    width: u32,
+    height: u32,
+    vertices: &[Xy],
+    field: &str,
+) -> Result<Polygon, GoalError> {
+    check_polygon(&Frame { width, height }, vertices, field)
+}
+
+impl GoalSpec {
+    /// Checks a document against its frame and camera. The first failing rule is returned.
+    pub fn check(document: GoalDocument, ctx: &CheckContext<'_>) -> Result<Self, GoalError> {
+        let frame = Frame {
+            width: ctx.width,
+            height: ctx.height,
+        };
+        let name = document.name.trim();
+        if name.is_empty() {
+            return Err(GoalError::new("required", "name", "a goal needs a name"));
+        }
+        if name.chars().count() > MAX_NAME_CHARS {
+            return Err(GoalError::new(
+                "too_long",
+                "name",
+                format!("at most {MAX_NAME_CHARS} characters"),
+            ));
+        }
+        check_text(&document.note, "note".into())?;
+        if document.terms.is_empty() {
+            return Err(GoalError::new(
+                "required",
+                "terms",
+                "a goal needs at least one term",
+            ));
+        }
+        if document.terms.len() > MAX_TERMS {
+            return Err(GoalError::new(
+                "too_many_terms",
+                "terms",
+                format!("at most {MAX_TERMS} terms"),
+            ));
+        }
+        let settings = check_cost(document.cost.as_ref())?;
+
+        let mut terms = Vec::with_capacity(document.terms.len());
+        for (i, t) in document.terms.iter().enumerate() {
+            let f = |name: &str| format!("terms[{i}].{name}");
+            let (term, label, weight, tolerance) = match t {
+                TermDocument::Point {
+                    label,
+                    source,
+                    target,
+                    weight,
+                    tolerance_px,
+                } => (
+                    Term::Point {
+                        source: frame.point(*source, &f("source"))?,
+                        target: frame.point(*target, &f("target"))?,
+                    },
+                    label,
+                    *weight,
+                    *tolerance_px,
+                ),
+                TermDocument::Region {
+                    label,
+                    source,
+                    polygon,
+                    weight,
+                    tolerance_px,
+                } => (
+                    Term::Region {
+                        source: frame.point(*source, &f("source"))?,
+                        polygon: check_polygon(&frame, polygon, &f("polygon"))?,
+                    },
+                    label,
+                    *weight,
+                    *tolerance_px,
+                ),
+                TermDocument::Mask {
+                    label,
+                    source,
+                    mask_png_base64,
+                    weight,
+                    tolerance_px,
+                } => {
+                    let source = frame.point(*source, &f("source"))?;
+                    let (mw, mh, painted) = (ctx.decode_mask)(mask_png_base64)
+                        .map_err(|m| GoalError::new("bad_mask", f("mask_png_base64"), m))?;
+                    if mw != frame.width as usize || mh != frame.height as usize {
+                        return Err(GoalError::new(
+                            "bad_mask",
+                            f("mask_png_base64"),
+                            format!(
+                                "the mask is {mw}×{mh} but the frame is {}×{}",
+                                frame.width, frame.height
+                            ),
+                        ));
+                    }
+                    let mask = Mask::new(mw, mh, painted).map_err(|e| {
+                        GoalError::new("bad_mask", f("mask_png_base64"), e.to_string())
+                    })?;
+                    (
+                        Term::Mask {
+                            source,
+                            mask: Arc::new(mask),
+                        },
+                        label,
+                        *weight,
+                        *tolerance_px,
+                    )
+                }
+                TermDocument::Rigid {
+                    label,
+                    sources,
+                    targets,
+                    allow_scale,
+                    weight,
+                    tolerance_px,
+                } => {
+                    if sources.len() > MAX_VERTICES {
+                        return Err(GoalError::new(
+                            "too_many_points",
+                            f("sources"),
+                            format!("at most {MAX_VERTICES} points"),
+                        ));
+                    }
+                    let s = sources
+                        .iter()
+                        .enumerate()
+                        .map(|(k, xy)| frame.point(*xy, &f(&format!("sources[{k}]"))))
+                        .collect::<Result<Vec<_>, _>>()?;
+                    let tg = targets
+                        .iter()
+                        .enumerate()
+                        .map(|(k, xy)| frame.point(*xy, &f(&format!("targets[{k}]"))))
+                        .collect::<Result<Vec<_>, _>>()?;
+                    let field = if sources.len() != targets.len() {
+                        f("targets")
+                    } else {
+                        f("sources")
+                    };
+                    let fit = rigid::fit(sources, targets, allow_scale.unwrap_or(false))
+                        .map_err(|e| GoalError::new("bad_rigid", field, e.to_string()))?;
+                    (
+                        Term::Rigid {
+                            sources: s,
+                            targets: tg,
+                            fit,
+                        },
+                        label,
+                        *weight,
+                        *tolerance_px,
+                    )
+                }
+                TermDocument::Learned {
+                    label,
+                    reward_fit_id,
+                    source,
+                    weight,
+                } => {
+                    let source = frame.point(*source, &f("source"))?;
+                    if !(ctx.reward_fit_exists)(reward_fit_id) {
+                        return Err(GoalError::new(
+                            "not_found",
+                            f("reward_fit_id"),
+                            "no reward fit with this id on this goal's frame",
+                        ));
+                    }
+                    (
+                        Term::Learned {
+                            source,
+                            reward_fit_id: reward_fit_id.clone(),
+                        },
+                        label,
+                        *weight,
+                        None,
+                    )
+                }
+            };
+            check_text(label, f("label"))?;
+            terms.push(CheckedTerm {
+                term,
+                label: label.clone(),
+                weight: check_weight(weight, f("weight"))?,
+                tolerance_px: check_tolerance(tolerance, f("tolerance_px"))?,
+            });
+        }
+
+        let warnings = check_safety(&terms, ctx, document.override_safety)?;
+        Ok(Self {
+            width: ctx.width,
+            height: ctx.height,
+            document,
+            terms,
+            settings,
+            warnings,
+        })
+    }
+
+    /// The document as sent, with defaults filled in (weights, tolerances, cost, trimmed name),
+    /// which is what a revision stores and serves.
+    pub fn normalized_document(&self) -> GoalDocument {
+        let mut doc = self.document.clone();
+        doc.name = doc.name.trim().to_string();
+        doc.cost = Some(self.document.cost.clone().unwrap_or_default());
+        for (t, checked) in doc.terms.iter_mut().zip(&self.terms) {
+            match t {
+                TermDocument::Point {
+                    weight,
+                    tolerance_px,
+                    ..
+                }
+                | TermDocument::Region {
+                    weight,
+                    tolerance_px,
+                    ..
+                }
+                | TermDocument::Mask {
+                    weight,
+                    tolerance_px,
+                    ..
+                } => {
+                    *weight = Some(checked.weight);
+                    *tolerance_px = Some(checked.tolerance_px);
+                }
+                TermDocument::Rigid {
+                    weight,
+                    tolerance_px,
+                    allow_scale,
+                    ..
+                } => {
+                    *weight = Some(checked.weight);
+                    *tolerance_px = Some(checked.tolerance_px);
+                    *allow_scale = Some(allow_scale.unwrap_or(false));
+                }
+                TermDocument::Learned { weight, .. } => *weight = Some(checked.weight),
+            }
+        }
+        doc
+    }
+
+    /// The checked terms in order.
+    pub fn terms(&self) -> &[CheckedTerm] {
+        &self.terms
+    }
+
+    /// Checked cost settings.
+    pub fn settings(&self) -> &CostSettings {
+        &self.settings
+    }
+
+    /// Frame width and height.
+    pub fn frame_size(&self) -> (u32, u32) {
+        (self.width, self.height)
+    }
+
+    /// Safety warnings (only non-empty when `override_safety` was given).
+    pub fn warnings(&self) -> &[String] {
+        &self.warnings
+    }
+
+    /// Every source point over all terms in term order, with its term index.
+    /// A rigid term contributes one entry per source; P is the length of this list.
+    pub fn source_points(&self) -> Vec<SourcePoint> {
+        let mut out = Vec::new();
+        for (i, t) in self.terms.iter().enumerate() {
+            match &t.term {
+                Term::Point { source, .. }
+                | Term::Region { source, .. }
+                | Term::Mask { source, .. }
+                | Term::Learned { source, .. } => out.push(SourcePoint {
+                    term: i,
+                    source: *source,
+                    weight: t.weight,
+                    tolerance_px: t.tolerance_px,
+                }),
+                Term::Rigid { sources, .. } => {
+                    let w = t.weight / sources.len() as f64;
+                    out.extend(sources.iter().map(|s| SourcePoint {
+                        term: i,
+                        source: *s,
+                        weight: w,
+                        tolerance_px: t.tolerance_px,
+                    }));
+                }
+            }
+        }
+        out
+    }
+
+    /// The cost engine's view of this goal: one [`CostPoint`] per source point.
+    /// Learned terms have no distance-based cost yet and are refused here.
+    pub fn cost_points(&self) -> Result<Vec<CostPoint>, GoalError> {
+        let mut out = Vec::new();
+        for (i, t) in self.terms.iter().enumerate() {
+            let mut push = |target: TargetShape, weight: f64| {
+                out.push(CostPoint {
+                    target,
+                    weight,
+                    tolerance_px: t.tolerance_px,
+                })
+            };
+            match &t.term {
+                Term::Point { target, .. } => push(TargetShape::Point(*target), t.weight),
+                Term::Region { polygon, .. } => {
+                    push(TargetShape::Region(polygon.clone()), t.weight)
+                }
+                Term::Mask { mask, .. } => push(TargetShape::Mask(mask.clone()), t.weight),
+                Term::Rigid { targets, .. } => {
+                    let w = t.weight / targets.len() as f64;
+                    for target in targets {
+                        push(TargetShape::Point(*target), w);
+                    }
+                }
+                Term::Learned { .. } => {
+                    return Err(GoalError::new(
+                        "unsupported",
+                        format!("terms[{i}]"),
+                        "learned terms cannot be scored by the distance cost engine yet",
+                    ));
+                }
+            }
+        }
+        Ok(out)
+    }
+}
+
+/// One source point of a goal (rigid terms contribute several).
+#[derive(Debug, Clone, Copy)]
+pub struct SourcePoint {
+    /// Index of the term it belongs to.
+    pub term: usize,
+    /// The source pixel.
+    pub source: PixelPoint,
+    /// Its share of the term's weight.
+    pub weight: f64,
+    /// The term's tolerance.
+    pub tolerance_px: f64,
+}
+
+fn check_cost(doc: Option<&CostDocument>) -> Result<CostSettings, GoalError> {
+    let default = CostDocument::default();
+    let doc = doc.unwrap_or(&default);
+    let metric = match (doc.metric, doc.huber_delta_px) {
+        (MetricName::Huber, Some(d)) if d.is_finite() && d > 0.0 => Metric::Huber { delta_px: d },
+        (MetricName::Huber, Some(_)) => {
+            return Err(GoalError::new(
+                "bad_cost",
+                "cost.huber_delta_px",
+                "huber_delta_px must be a finite number > 0",
+            ));
+        }
+        (MetricName::Huber, None) => {
+            return Err(GoalError::new(
+                "required",
+                "cost.huber_delta_px",
+                "the huber metric needs huber_delta_px",
+            ));
+        }
+        (_, Some(_)) => {
+            return Err(GoalError::new(
+                "bad_cost",
+                "cost.huber_delta_px",
+                "huber_delta_px applies only to the huber metric",
+            ));
+        }
+        (MetricName::Euclidean, None) => Metric::Euclidean,
+        (MetricName::Squared, None) => Metric::Squared,
+    };
+    let steps = match doc.steps {
+        StepsName::Final => Steps::Final,
+        StepsName::All => Steps::All,
+    };
+    let mode = match doc.mode {
+        ModeName::Expected => Mode::Expected,
+        ModeName::Hit => Mode::Hit,
+    };
+    CostSettings::new(metric, steps, mode)
+        .map_err(|e| GoalError::new("bad_cost", "cost", e.to_string()))
+}
+
+/// Where each term wants things to go, for the safe-zone and no-go checks.
+fn target_locations(term: &Term) -> Vec<(String, [f64; 2])> {
+    match term {
+        Term::Point { target, .. } => vec![("target".into(), target.to_array())],
+        Term::Region { polygon, .. } => polygon
+            .vertices()
+            .iter()
+            .enumerate()
+            .map(|(k, v)| (format!("polygon[{k}]"), v.to_array()))
+            .collect(),
+        Term::Mask { mask, .. } => {
+            let mut out = Vec::new();
+            for j in 0..mask.height() {
+                for i in 0..mask.width() {
+                    if mask.is_inside(i, j) {
+                        out.push(("mask_png_base64".into(), [i as f64, j as f64]));
+                    }
+                }
+            }
+            out
+        }
+        Term::Rigid { targets, .. } => targets
+            .iter()
+            .enumerate()
+            .map(|(k, t)| (format!("targets[{k}]"), t.to_array()))
+            .collect(),
+        Term::Learned { .. } => Vec::new(),
+    }
+}
+
+fn check_safety(
+    terms: &[CheckedTerm],
+    ctx: &CheckContext<'_>,
+    override_safety: bool,
+) -> Result<Vec<String>, GoalError> {
+    let mut warnings = Vec::new();
+    for (i, t) in terms.iter().enumerate() {
+        let mut problem: Option<(&'static str, String, String)> = None;
+        for (field, [x, y]) in target_locations(&t.term) {
+            if let Some(zone) = ctx.safe_zone
+                && !zone.contains(x, y)
+            {
+                problem = Some((
+                    "outside_safe_zone",
+                    field,
+                    format!("the target at [{x}, {y}] lies outside the camera's safe zone"),
+                ));
+                break;
+            }
+            if let Some(k) = ctx.no_go_zones.iter().position(|z| z.contains(x, y)) {
+                problem = Some((
+                    "inside_no_go_zone",
+                    field,
+                    format!("the target at [{x}, {y}] lies inside no-go zone {k} of the camera"),
+                ));
+                break;
+            }
+        }
+        // A region that swallows a whole no-go zone has no vertex inside it; check the zone's
+        // vertices too.
+        if problem.is_none()
+            && let Term::Region { polygon, .. } = &t.term
+            && let Some(k) = ctx
+                .no_go_zones
+                .iter()
+                .position(|z| z.vertices().iter().any(|v| polygon.contains(v.x(), v.y())))
+        {
+            problem = Some((
+                "inside_no_go_zone",
+                "polygon".into(),
+                format!("the target region overlaps no-go zone {k} of the camera"),
+            ));
+        }
+        if let Some((code, field, message)) = problem {
+            let field = format!("terms[{i}].{field}");
+            if override_safety {
+                warnings.push(format!("{field}: {message} (safety override recorded)"));
+            } else {
+                return Err(GoalError::new(
+                    code,
+                    field,
+                    format!("{message}; send override_safety: true to accept it deliberately"),
+                ));
+            }
+        }
+    }
+    Ok(warnings)
+}

@@ -1,0 +1,19 @@
+//! goalsmith: the team's shared place for robot goals.
+//!
+//! The server keeps goals as immutable revisions with an exact distance-based cost (computed in
+//! the `goalsmith-core` crate), stores them in SQLite or PostgreSQL, and serves them to planners
+//! over HTTP. See README.md for use and DEVELOPERS.md for the layout.
+
+pub mod api;
+pub mod app;
+pub mod cli;
+pub mod config;
+pub mod demo;
+pub mod images;
+pub mod store;
+
+/// The caution carried by the README, every export and the editor.
+pub const SAFETY_CAUTION: &str = "Goals move real robots. Check every new goal in simulation or at \
+reduced speed first, keep an emergency stop within reach, respect the cell's safeguarding, and \
+follow ISO 10218, ISO/TS 15066, local rules and licensed practice. goalsmith defers to the robot's \
+safety-rated controller; it is not a safety function.";

@@ -1,0 +1,7 @@
+//! The `goalsmith` binary: see `goalsmith --help`.
+
+use std::process::ExitCode;
+
+fn main() -> ExitCode {
+    goalsmith::cli::main()
+}

@@ -1,0 +1,216 @@
+//! The authorisation matrix: each route × {no token, other team, viewer, editor, owner}.
+
+use crate::on_both_databases;
+use crate::support::*;
+use reqwest::{Method, StatusCode};
+use serde_json::json;
+
+#[derive(Clone, Copy)]
+enum Body {
+    None,
+    Camera,
+    Frame,
+    Goal,
+}
+
+async fn matrix(s: Server) {
+    let (editor, cam, frame) = camera_and_frame(&s, "potting", json!({})).await;
+    let viewer = s.token("potting", "viewer");
+    let owner = s.token("potting", "owner");
+    let other = s.token("seedlings", "owner");
+    let (st, rev) = s
+        .post(
+            "/api/goals",
+            Some(&editor),
+            &point_goal(&frame, "pot to mat"),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED);
+    let goal = rev["goal_id"].as_str().unwrap().to_string();
+
+    // Columns: no token, other team, viewer, editor, owner.
+    use StatusCode as S;
+    let (ok, created, unauth, forbidden, nf, invalid) = (
+        S::OK,
+        S::CREATED,
+        S::UNAUTHORIZED,
+        S::FORBIDDEN,
+        S::NOT_FOUND,
+        S::UNPROCESSABLE_ENTITY,
+    );
+    let table: Vec<(Method, String, Body, [StatusCode; 5])> = vec![
+        (
+            Method::GET,
+            "/healthz".into(),
+            Body::None,
+            [ok, ok, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            "/api/openapi.json".into(),
+            Body::None,
+            [ok, ok, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            "/api/schema/goal.json".into(),
+            Body::None,
+            [ok, ok, ok, ok, ok],
+        ),
+        (
+            Method::POST,
+            "/api/cameras".into(),
+            Body::Camera,
+            [unauth, created, forbidden, created, created],
+        ),
+        (
+            Method::GET,
+            "/api/cameras".into(),
+            Body::None,
+            [unauth, ok, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/cameras/{cam}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::POST,
+            format!("/api/cameras/{cam}/frames"),
+            Body::Frame,
+            [unauth, nf, forbidden, created, created],
+        ),
+        (
+            Method::GET,
+            format!("/api/cameras/{cam}/frames"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/frames/{frame}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/frames/{frame}/image"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        // Another team's frame id inside a body is a bad reference (422 on frame_id), not a 404.
+        (
+            Method::POST,
+            "/api/goals".into(),
+            Body::Goal,
+            [unauth, invalid, forbidden, created, created],
+        ),
+        (
+            Method::GET,
+            "/api/goals".into(),
+            Body::None,
+            [unauth, ok, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::PUT,
+            format!("/api/goals/{goal}"),
+            Body::Goal,
+            [unauth, nf, forbidden, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}/revisions"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}/revisions/1"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+    ];
+    let routes: Vec<(String, String)> = table
+        .iter()
+        .map(|(m, p, _, _)| {
+            (
+                m.to_string(),
+                p.replace(&cam, "{id}")
+                    .replace(&frame, "{id}")
+                    .replace(&goal, "{id}")
+                    .replace("/revisions/1", "/revisions/{n}"),
+            )
+        })
+        .collect();
+    for (m, p) in goalsmith::api::ROUTES {
+        assert!(
+            routes.contains(&((*m).to_string(), (*p).to_string())),
+            "route {m} {p} is missing from the authorisation matrix"
+        );
+    }
+
+    let who: [Option<&str>; 5] = [
+        None,
+        Some(&other),
+        Some(&viewer),
+        Some(&editor),
+        Some(&owner),
+    ];
+    let names = ["no token", "other team", "viewer", "editor", "owner"];
+    let mut seed = 100u8;
+    for (method, path, body, expected) in &table {
+        for (col, token) in who.iter().enumerate() {
+            let mut req = s.client.request(method.clone(), s.url(path));
+            if let Some(t) = token {
+                req = req.bearer_auth(t);
+            }
+            req = match body {
+                Body::None => req,
+                Body::Camera => req.json(&json!({"name": "side view", "width": 32, "height": 32})),
+                Body::Frame => {
+                    seed += 1;
+                    req.header("content-type", "image/png")
+                        .body(png(64, 48, seed))
+                }
+                Body::Goal => {
+                    if *method == Method::PUT {
+                        let resp = s
+                            .client
+                            .get(s.url(&format!("/api/goals/{goal}")))
+                            .bearer_auth(&editor)
+                            .send()
+                            .await
+                            .unwrap();
+                        req = req.header("if-match", etag(&resp).unwrap());
+                    }
+                    req.json(&point_goal(&frame, "pot to mat"))
+                }
+            };
+            let resp = req.send().await.unwrap();
+            let status = resp.status();
+            let text = resp.text().await.unwrap_or_default();
+            assert_eq!(
+                status, expected[col],
+                "{method} {path} as {}: {text}",
+                names[col]
+            );
+            if !status.is_success() {
+                let v: serde_json::Value = serde_json::from_str(&text)
+                    .unwrap_or_else(|_| panic!("error body is JSON: {text}"));
+                assert!(
+                    v["error"]["code"].is_string() && v["error"]["message"].is_string(),
+                    "{text}"
+                );
+            }
+        }
+    }
+}
+
+on_both_databases!(authorisation_matrix, matrix);

@@ -1,0 +1,494 @@
+//! Bad input: one row per validation rule, each a 422 (or 413/415) naming the field, and the
+//! server keeps serving after each.
+
+use crate::on_both_databases;
+use crate::support::*;
+use reqwest::StatusCode;
+use serde_json::{Value, json};
+
+fn goal_with(frame: &str, terms: Value) -> Value {
+    json!({"name": "bad", "frame_id": frame, "terms": terms})
+}
+
+async fn table_of_bad_goals(s: Server) {
+    // 64×48 camera with a safe zone leaving out the right edge and a no-go square.
+    let (editor, _cam, frame) = camera_and_frame(
+        &s,
+        "validation",
+        json!({
+            "safe_zone": [[0.0, 0.0], [56.0, 0.0], [56.0, 47.0], [0.0, 47.0]],
+            "no_go_zones": [[[20.0, 30.0], [30.0, 30.0], [30.0, 40.0], [20.0, 40.0]]]
+        }),
+    )
+    .await;
+    let p = |src: Value, tgt: Value| json!([{"kind": "point", "source": src, "target": tgt}]);
+    let region = |poly: Value| json!([{"kind": "region", "source": [5.0, 5.0], "polygon": poly}]);
+    let rows: Vec<(&str, Value, &str)> = vec![
+        (
+            "target right of the frame",
+            goal_with(&frame, p(json!([5.0, 5.0]), json!([63.6, 5.0]))),
+            "terms[0].target",
+        ),
+        (
+            "source above the frame",
+            goal_with(&frame, p(json!([5.0, -0.6]), json!([5.0, 5.0]))),
+            "terms[0].source",
+        ),
+        (
+            "polygon vertex below the frame",
+            goal_with(
+                &frame,
+                region(json!([[1.0, 1.0], [10.0, 1.0], [10.0, 48.0]])),
+            ),
+            "terms[0].polygon[2]",
+        ),
+        (
+            "polygon with two vertices",
+            goal_with(&frame, region(json!([[1.0, 1.0], [10.0, 1.0]]))),
+            "terms[0].polygon",
+        ),
+        (
+            "empty polygon",
+            goal_with(&frame, region(json!([]))),
+            "terms[0].polygon",
+        ),
+        (
+            "self-intersecting polygon",
+            goal_with(
+                &frame,
+                region(json!([[1.0, 1.0], [10.0, 10.0], [10.0, 1.0], [1.0, 10.0]])),
+            ),
+            "terms[0].polygon",
+        ),
+        (
+            "collinear polygon",
+            goal_with(&frame, region(json!([[1.0, 1.0], [5.0, 1.0], [9.0, 1.0]]))),
+            "terms[0].polygon",
+        ),
+        (
+            "negative weight",
+            goal_with(
+                &frame,
+                json!([{"kind": "point", "source": [1.0, 1.0], "target": [2.0, 2.0], "weight": -1.0}]),
+            ),
+            "terms[0].weight",
+        ),
+        (
+            "zero tolerance",
+            goal_with(
+                &frame,
+                json!([{"kind": "point", "source": [1.0, 1.0], "target": [2.0, 2.0], "tolerance_px": 0.0}]),
+            ),
+            "terms[0].tolerance_px",
+        ),
+        (
+            "target outside the safe zone",
+            goal_with(&frame, p(json!([5.0, 5.0]), json!([60.0, 5.0]))),
+            "terms[0].target",
+        ),
+        (
+            "target in a no-go zone",
+            goal_with(&frame, p(json!([5.0, 5.0]), json!([25.0, 35.0]))),
+            "terms[0].target",
+        ),
+        (
+            "region over a no-go zone",
+            goal_with(
+                &frame,
+                region(json!([
+                    [15.0, 25.0],
+                    [35.0, 25.0],
+                    [35.0, 45.0],
+                    [15.0, 45.0]
+                ])),
+            ),
+            "terms[0].polygon",
+        ),
+        (
+            "rigid with collinear sources",
+            goal_with(
+                &frame,
+                json!([{"kind": "rigid", "sources": [[1.0, 1.0], [2.0, 2.0], [3.0, 3.0]], "targets": [[5.0, 5.0], [6.0, 6.0], [7.0, 7.0]]}]),
+            ),
+            "terms[0].sources",
+        ),
+        (
+            "rigid with coincident sources",
+            goal_with(
+                &frame,
+                json!([{"kind": "rigid", "sources": [[1.0, 1.0], [1.0, 1.0]], "targets": [[5.0, 5.0], [6.0, 6.0]]}]),
+            ),
+            "terms[0].sources",
+        ),
+        (
+            "rigid with one point",
+            goal_with(
+                &frame,
+                json!([{"kind": "rigid", "sources": [[1.0, 1.0]], "targets": [[5.0, 5.0]]}]),
+            ),
+            "terms[0].sources",
+        ),
+        (
+            "rigid with unequal lists",
+            goal_with(
+                &frame,
+                json!([{"kind": "rigid", "sources": [[1.0, 1.0], [4.0, 1.0]], "targets": [[5.0, 5.0]]}]),
+            ),
+            "terms[0].targets",
+        ),
+        (
+            "mask that is not base64",
+            goal_with(
+                &frame,
+                json!([{"kind": "mask", "source": [1.0, 1.0], "mask_png_base64": "***"}]),
+            ),
+            "terms[0].mask_png_base64",
+        ),
+        (
+            "learned term with an unknown fit",
+            goal_with(
+                &frame,
+                json!([{"kind": "learned", "source": [1.0, 1.0], "reward_fit_id": "0f7c7b1e-0000-4000-8000-000000000000"}]),
+            ),
+            "terms[0].reward_fit_id",
+        ),
+        (
+            "unknown term kind",
+            goal_with(&frame, json!([{"kind": "spiral", "source": [1.0, 1.0]}])),
+            "terms[0]",
+        ),
+        (
+            "unknown field in a term",
+            goal_with(
+                &frame,
+                json!([{"kind": "point", "source": [1.0, 1.0], "target": [2.0, 2.0], "colour": "red"}]),
+            ),
+            "terms[0]",
+        ),
+        (
+            "unknown top-level field",
+            json!({"name": "x", "frame_id": frame, "terms": [], "priority": 3}),
+            "",
+        ),
+        ("no terms", goal_with(&frame, json!([])), "terms"),
+        (
+            "blank name",
+            json!({"name": "  ", "frame_id": frame, "terms": p(json!([1.0, 1.0]), json!([2.0, 2.0]))}),
+            "name",
+        ),
+        (
+            "unknown frame",
+            goal_with(
+                "7d4f1c2a-1111-4222-8333-444455556666",
+                p(json!([1.0, 1.0]), json!([2.0, 2.0])),
+            ),
+            "frame_id",
+        ),
+        (
+            "huber without delta",
+            json!({"name": "x", "frame_id": frame, "terms": p(json!([1.0, 1.0]), json!([2.0, 2.0])), "cost": {"metric": "huber", "steps": "final"}}),
+            "cost.huber_delta_px",
+        ),
+        (
+            "coordinate as a string",
+            goal_with(
+                &frame,
+                json!([{"kind": "point", "source": ["1", 1.0], "target": [2.0, 2.0]}]),
+            ),
+            "terms[0]",
+        ),
+    ];
+    for (what, body, field) in &rows {
+        let (st, err) = s.post("/api/goals", Some(&editor), body).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{what}: {err}");
+        assert!(err["error"]["code"].is_string(), "{what}: {err}");
+        assert!(
+            !err["error"]["message"].as_str().unwrap_or("").is_empty(),
+            "{what}: {err}"
+        );
+        if !field.is_empty() {
+            let got = err["error"]["field"].as_str().unwrap_or("");
+            assert!(
+                got.starts_with(field),
+                "{what}: field {got:?}, expected {field:?}: {err}"
+            );
+        }
+    }
+    // Numbers JSON cannot carry, and broken JSON.
+    for (what, raw) in [
+        (
+            "NaN literal",
+            r#"{"name":"x","frame_id":"f","terms":[{"kind":"point","source":[NaN,1],"target":[1,1]}]}"#,
+        ),
+        (
+            "infinite number",
+            r#"{"name":"x","frame_id":"f","terms":[{"kind":"point","source":[1e999,1],"target":[1,1]}]}"#,
+        ),
+        ("truncated JSON", r#"{"name":"x","frame_id":"#),
+    ] {
+        let resp = s
+            .client
+            .post(s.url("/api/goals"))
+            .bearer_auth(&editor)
+            .header("content-type", "application/json")
+            .body(raw)
+            .send()
+            .await
+            .unwrap();
+        let (st, err) = into_json(resp).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{what}: {err}");
+        assert_eq!(err["error"]["code"], "bad_json", "{what}: {err}");
+    }
+    // Wrong media type.
+    let resp = s
+        .client
+        .post(s.url("/api/goals"))
+        .bearer_auth(&editor)
+        .header("content-type", "text/plain")
+        .body("{}")
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(resp.status(), StatusCode::UNSUPPORTED_MEDIA_TYPE);
+    // None of this wrote anything.
+    let (_, goals) = s.get("/api/goals", Some(&editor)).await;
+    assert_eq!(goals["items"].as_array().unwrap().len(), 0);
+    let (st, _) = s.get("/healthz", None).await;
+    assert_eq!(st, StatusCode::OK);
+}
+
+on_both_databases!(every_validation_rule_is_a_422, table_of_bad_goals);
+
+async fn bad_cameras(s: Server) {
+    let editor = s.token("cams", "editor");
+    let rows: Vec<(Value, &str)> = vec![
+        (json!({"name": "c", "width": 0, "height": 10}), "width"),
+        (json!({"name": "c", "width": 10, "height": 20000}), "height"),
+        (json!({"name": "", "width": 10, "height": 10}), "name"),
+        (
+            json!({"name": "c", "width": 10, "height": 10, "intrinsics": {"fx": -1.0, "fy": 1.0, "cx": 5.0, "cy": 5.0}}),
+            "intrinsics",
+        ),
+        (
+            json!({"name": "c", "width": 10, "height": 10, "intrinsics": {"K": [1.0, 0.0], "D": []}}),
+            "intrinsics",
+        ),
+        (
+            json!({"name": "c", "width": 10, "height": 10, "work_plane": {"normal": [0.0, 0.0, 0.0], "offset_m": 1.0}}),
+            "work_plane",
+        ),
+        (
+            json!({"name": "c", "width": 10, "height": 10, "pose_in_base": {"rotation": [[2.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]], "translation_m": [0.0, 0.0, 0.0]}}),
+            "pose_in_base",
+        ),
+        (
+            json!({"name": "c", "width": 10, "height": 10, "safe_zone": [[0.0, 0.0], [20.0, 0.0], [5.0, 5.0]]}),
+            "safe_zone[1]",
+        ),
+        (
+            json!({"name": "c", "width": 10, "height": 10, "no_go_zones": [[[0.0, 0.0], [5.0, 5.0], [5.0, 0.0], [0.0, 5.0]]]}),
+            "no_go_zones[0]",
+        ),
+    ];
+    for (body, field) in rows {
+        let (st, err) = s.post("/api/cameras", Some(&editor), &body).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{body}: {err}");
+        let got = err["error"]["field"].as_str().unwrap_or("");
+        assert!(
+            got.starts_with(field),
+            "{body}: field {got:?}, expected {field}"
+        );
+    }
+    let (_, list) = s.get("/api/cameras", Some(&editor)).await;
+    assert_eq!(
+        list["items"].as_array().unwrap().len(),
+        0,
+        "nothing half-written"
+    );
+}
+
+on_both_databases!(bad_cameras_are_refused, bad_cameras);
+
+fn crc32(bytes: &[u8]) -> u32 {
+    // CRC-32/ISO-HDLC as PNG uses it (PNG specification, annex D), bitwise.
+    let mut crc = 0xFFFF_FFFFu32;
+    for &b in bytes {
+        crc ^= u32::from(b);
+        for _ in 0..8 {
+            crc = if crc & 1 != 0 {
+                (crc >> 1) ^ 0xEDB8_8320
+            } else {
+                crc >> 1
+            };
+        }
+    }
+    !crc
+}
+
+/// A PNG that is only a header claiming `w`×`h` RGBA pixels.
+fn png_header_only(w: u32, h: u32) -> Vec<u8> {
+    let mut out = vec![0x89, b'P', b'N', b'G', 0x0D, 0x0A, 0x1A, 0x0A];
+    let mut ihdr = b"IHDR".to_vec();
+    ihdr.extend_from_slice(&w.to_be_bytes());
+    ihdr.extend_from_slice(&h.to_be_bytes());
+    ihdr.extend_from_slice(&[8, 6, 0, 0, 0]);
+    out.extend_from_slice(&13u32.to_be_bytes());
+    out.extend_from_slice(&ihdr);
+    out.extend_from_slice(&crc32(&ihdr).to_be_bytes());
+    out
+}
+
+async fn hostile_uploads(s: Server) {
+    let (editor, cam, _frame) = camera_and_frame(&s, "uploads", json!({})).await;
+    let path = format!("/api/cameras/{cam}/frames");
+
+    // 30000×30000 claimed: refused from the header, before any pixel buffer (3.6 GB) exists.
+    let (st, err) = s
+        .post_bytes(
+            &path,
+            Some(&editor),
+            "image/png",
+            png_header_only(30000, 30000),
+        )
+        .await;
+    assert_eq!(st, StatusCode::PAYLOAD_TOO_LARGE, "{err}");
+    assert!(err["error"]["message"].as_str().unwrap().contains("30000"));
+
+    // A JPEG cut in half.
+    let mut jpeg = std::io::Cursor::new(Vec::new());
+    image::RgbImage::from_fn(64, 48, |x, y| image::Rgb([x as u8 * 4, y as u8 * 5, 90]))
+        .write_to(&mut jpeg, image::ImageFormat::Jpeg)
+        .unwrap();
+    let jpeg = jpeg.into_inner();
+    let (st, err) = s
+        .post_bytes(
+            &path,
+            Some(&editor),
+            "image/jpeg",
+            jpeg[..jpeg.len() / 2].to_vec(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+    assert_eq!(err["error"]["code"], "bad_image");
+    // The whole JPEG is fine.
+    let (st, _) = s.post_bytes(&path, Some(&editor), "image/jpeg", jpeg).await;
+    assert_eq!(st, StatusCode::CREATED);
+
+    // Wrong size for the camera, wrong media type, empty body.
+    let (st, err) = s
+        .post_bytes(&path, Some(&editor), "image/png", png(32, 32, 3))
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+    assert_eq!(err["error"]["code"], "wrong_size");
+    let (st, _) = s
+        .post_bytes(&path, Some(&editor), "image/gif", png(64, 48, 3))
+        .await;
+    assert_eq!(st, StatusCode::UNSUPPORTED_MEDIA_TYPE);
+    let (st, _) = s
+        .post_bytes(&path, Some(&editor), "image/png", vec![])
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY);
+
+    // Bodies over the configured limits: 16 MiB for JSON, 64 MiB for frames. The server may
+    // answer before the body is sent, so these go over a raw socket that reads the reply
+    // whatever happens to the upload.
+    let (st, body) = raw_post(
+        &s,
+        "/api/goals",
+        &editor,
+        "application/json",
+        (17 << 20) as usize,
+    )
+    .await;
+    assert_eq!(st, 413, "{body}");
+    assert!(body.contains("\"too_large\""), "{body}");
+    let (st, _) = raw_post(&s, &path, &editor, "image/png", (65 << 20) as usize).await;
+    assert_eq!(st, 413);
+    // Without a length up front (chunked), the limit still holds.
+    let stream = futures_util_stream(70 << 20);
+    let resp = s
+        .client
+        .post(s.url(&path))
+        .bearer_auth(&editor)
+        .header("content-type", "image/png")
+        .body(reqwest::Body::wrap_stream(stream))
+        .send()
+        .await;
+    if let Ok(resp) = resp {
+        assert_eq!(resp.status(), StatusCode::PAYLOAD_TOO_LARGE);
+    }
+
+    let (st, _) = s.get("/healthz", None).await;
+    assert_eq!(st, StatusCode::OK, "the server keeps serving");
+    let (_, frames) = s.get(&path, Some(&editor)).await;
+    assert_eq!(
+        frames["items"].as_array().unwrap().len(),
+        2,
+        "only the two good frames exist"
+    );
+}
+
+on_both_databases!(hostile_uploads_are_refused, hostile_uploads);
+
+/// POSTs `len` bytes over a plain socket and returns the status and body of the reply, even when
+/// the server answers (and closes) before the upload is complete.
+async fn raw_post(
+    s: &Server,
+    path: &str,
+    token: &str,
+    content_type: &str,
+    len: usize,
+) -> (u16, String) {
+    use std::io::{Read, Write};
+    let addr = s.base.trim_start_matches("http://").to_string();
+    let head = format!(
+        "POST {path} HTTP/1.1\r\nHost: {addr}\r\nAuthorization: Bearer {token}\r\nContent-Type: {content_type}\r\nContent-Length: {len}\r\nConnection: close\r\n\r\n"
+    );
+    tokio::task::spawn_blocking(move || {
+        let mut sock = std::net::TcpStream::connect(&addr).unwrap();
+        sock.set_read_timeout(Some(std::time::Duration::from_secs(30)))
+            .unwrap();
+        sock.write_all(head.as_bytes()).unwrap();
+        let chunk = vec![b' '; 1 << 20];
+        let mut sent = 0;
+        while sent < len {
+            let n = chunk.len().min(len - sent);
+            if sock.write_all(&chunk[..n]).is_err() {
+                break;
+            }
+            sent += n;
+        }
+        let mut reply = Vec::new();
+        let _ = sock.read_to_end(&mut reply);
+        let text = String::from_utf8_lossy(&reply).to_string();
+        let status = text
+            .split_whitespace()
+            .nth(1)
+            .and_then(|c| c.parse().ok())
+            .unwrap_or(0);
+        (status, text)
+    })
+    .await
+    .unwrap()
+}
+
+fn futures_util_stream(
+    total: usize,
+) -> impl futures_core::Stream<Item = Result<Vec<u8>, std::io::Error>> + Send + 'static {
+    struct Chunks(usize);
+    impl futures_core::Stream for Chunks {
+        type Item = Result<Vec<u8>, std::io::Error>;
+        fn poll_next(
+            mut self: std::pin::Pin<&mut Self>,
+            _: &mut std::task::Context<'_>,
+        ) -> std::task::Poll<Option<Self::Item>> {
+            if self.0 == 0 {
+                return std::task::Poll::Ready(None);
+            }
+            let n = self.0.min(1 << 20);
+            self.0 -= n;
+            std::task::Poll::Ready(Some(Ok(vec![0u8; n])))
+        }
+    }
+    Chunks(total)
+}

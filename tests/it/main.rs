@@ -1,0 +1,10 @@
+//! Integration tests: the real server on a random port, over HTTP, on SQLite and PostgreSQL.
+//! One test crate with modules keeps link time down.
+
+mod support;
+
+mod auth_matrix;
+mod bad_input;
+mod concurrency;
+mod restart;
+mod routes;

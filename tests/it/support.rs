@@ -1,0 +1,371 @@
+//! Test support: the real `goalsmith` binary on a random port against a fresh database.
+
+use reqwest::StatusCode;
+use serde_json::Value;
+use std::io::{BufRead, BufReader};
+use std::path::PathBuf;
+use std::process::{Child, Command, Stdio};
+use std::time::{Duration, Instant};
+
+/// Which database a test runs on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Db {
+    Sqlite,
+    Postgres,
+}
+
+/// When set (CI sets it), a missing service fails the test instead of skipping it.
+pub fn services_required() -> bool {
+    std::env::var("GOALSMITH_REQUIRE_SERVICES").is_ok_and(|v| v == "1")
+}
+
+/// A fresh, empty database of the given kind, or `None` (with a visible skip line) when
+/// PostgreSQL is not configured locally.
+pub struct TestDb {
+    pub url: String,
+    _dir: Option<tempfile::TempDir>,
+    pub data_dir: PathBuf,
+}
+
+pub async fn fresh_db(kind: Db, test: &str) -> Option<TestDb> {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let data_dir = dir.path().to_path_buf();
+    match kind {
+        Db::Sqlite => Some(TestDb {
+            url: format!(
+                "sqlite://{}?mode=rwc",
+                dir.path().join("goalsmith.db").display()
+            ),
+            data_dir,
+            _dir: Some(dir),
+        }),
+        Db::Postgres => {
+            let Ok(base) = std::env::var("GOALSMITH_TEST_POSTGRES_URL") else {
+                if services_required() {
+                    panic!(
+                        "GOALSMITH_TEST_POSTGRES_URL is not set but GOALSMITH_REQUIRE_SERVICES=1"
+                    );
+                }
+                eprintln!("SKIP {test} on postgres: GOALSMITH_TEST_POSTGRES_URL is not set");
+                return None;
+            };
+            use sqlx::Connection;
+            let mut conn = match sqlx::postgres::PgConnection::connect(&base).await {
+                Ok(c) => c,
+                Err(e) if !services_required() => {
+                    eprintln!("SKIP {test} on postgres: cannot connect to {base}: {e}");
+                    return None;
+                }
+                Err(e) => panic!("cannot connect to {base}: {e}"),
+            };
+            let name = format!("gs_{}", uuid::Uuid::new_v4().simple());
+            sqlx::query(sqlx::AssertSqlSafe(format!("CREATE DATABASE {name}")))
+                .execute(&mut conn)
+                .await
+                .expect("create test database");
+            conn.close().await.ok();
+            let url = replace_db_name(&base, &name);
+            Some(TestDb {
+                url,
+                data_dir,
+                _dir: Some(dir),
+            })
+        }
+    }
+}
+
+fn replace_db_name(url: &str, name: &str) -> String {
+    let (head, query) = match url.split_once('?') {
+        Some((h, q)) => (h, Some(q)),
+        None => (url, None),
+    };
+    let after_scheme = head.find("://").map(|i| i + 3).unwrap_or(0);
+    let base = match head[after_scheme..].find('/') {
+        Some(i) => &head[..after_scheme + i],
+        None => head,
+    };
+    match query {
+        Some(q) => format!("{base}/{name}?{q}"),
+        None => format!("{base}/{name}"),
+    }
+}
+
+pub fn bin() -> &'static str {
+    env!("CARGO_BIN_EXE_goalsmith")
+}
+
+/// A running server process; killed on drop.
+pub struct Server {
+    pub base: String,
+    pub child: Child,
+    pub db_url: String,
+    pub data_dir: PathBuf,
+    pub client: reqwest::Client,
+}
+
+impl Server {
+    pub fn start(db_url: &str, data_dir: &std::path::Path, extra: &[&str]) -> Server {
+        let mut child = Command::new(bin())
+            .args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
+            .arg("--data-dir")
+            .arg(data_dir)
+            .args(extra)
+            .env("GOALSMITH_LOG", "warn")
+            .stdout(Stdio::piped())
+            .stderr(Stdio::inherit())
+            .spawn()
+            .expect("spawn goalsmith serve");
+        let stdout = child.stdout.take().expect("stdout");
+        let mut line = String::new();
+        BufReader::new(stdout)
+            .read_line(&mut line)
+            .expect("read the listening line");
+        let base = line
+            .trim()
+            .strip_prefix("listening on ")
+            .unwrap_or_else(|| panic!("unexpected first stdout line {line:?}"))
+            .to_string();
+        Server {
+            base,
+            child,
+            db_url: db_url.to_string(),
+            data_dir: data_dir.to_path_buf(),
+            client: reqwest::Client::builder()
+                .timeout(Duration::from_secs(60))
+                .build()
+                .expect("client"),
+        }
+    }
+
+    pub fn url(&self, path: &str) -> String {
+        format!("{}{}", self.base, path)
+    }
+
+    /// A new API token through the real CLI.
+    pub fn token(&self, team: &str, role: &str) -> String {
+        token(&self.db_url, team, role)
+    }
+
+    pub async fn get(&self, path: &str, token: Option<&str>) -> (StatusCode, Value) {
+        let mut req = self.client.get(self.url(path));
+        if let Some(t) = token {
+            req = req.bearer_auth(t);
+        }
+        into_json(req.send().await.expect("GET")).await
+    }
+
+    pub async fn send_json(
+        &self,
+        method: reqwest::Method,
+        path: &str,
+        token: Option<&str>,
+        body: &Value,
+    ) -> (StatusCode, Value) {
+        let mut req = self.client.request(method, self.url(path)).json(body);
+        if let Some(t) = token {
+            req = req.bearer_auth(t);
+        }
+        into_json(req.send().await.expect("request")).await
+    }
+
+    pub async fn post(&self, path: &str, token: Option<&str>, body: &Value) -> (StatusCode, Value) {
+        self.send_json(reqwest::Method::POST, path, token, body)
+            .await
+    }
+
+    pub async fn post_bytes(
+        &self,
+        path: &str,
+        token: Option<&str>,
+        content_type: &str,
+        body: Vec<u8>,
+    ) -> (StatusCode, Value) {
+        let mut req = self
+            .client
+            .post(self.url(path))
+            .header("content-type", content_type)
+            .body(body);
+        if let Some(t) = token {
+            req = req.bearer_auth(t);
+        }
+        into_json(req.send().await.expect("POST bytes")).await
+    }
+
+    /// PUT with an If-Match header (or none).
+    pub async fn put_goal(
+        &self,
+        id: &str,
+        token: &str,
+        if_match: Option<&str>,
+        body: &Value,
+    ) -> (StatusCode, Value, Option<String>) {
+        let mut req = self
+            .client
+            .put(self.url(&format!("/api/goals/{id}")))
+            .bearer_auth(token)
+            .json(body);
+        if let Some(m) = if_match {
+            req = req.header("if-match", m);
+        }
+        let resp = req.send().await.expect("PUT");
+        let etag = etag(&resp);
+        let (s, v) = into_json(resp).await;
+        (s, v, etag)
+    }
+
+    pub fn kill(&mut self) {
+        self.child.kill().ok();
+        self.child.wait().ok();
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        self.kill();
+    }
+}
+
+pub fn etag(resp: &reqwest::Response) -> Option<String> {
+    resp.headers()
+        .get("etag")
+        .and_then(|v| v.to_str().ok())
+        .map(str::to_string)
+}
+
+pub async fn into_json(resp: reqwest::Response) -> (StatusCode, Value) {
+    let status = resp.status();
+    let bytes = resp.bytes().await.expect("body");
+    let v = if bytes.is_empty() {
+        Value::Null
+    } else {
+        serde_json::from_slice(&bytes)
+            .unwrap_or_else(|_| Value::String(String::from_utf8_lossy(&bytes).into()))
+    };
+    (status, v)
+}
+
+pub fn token(db_url: &str, team: &str, role: &str) -> String {
+    let out = Command::new(bin())
+        .args([
+            "token",
+            "create",
+            "--team",
+            team,
+            "--role",
+            role,
+            "--database",
+            db_url,
+        ])
+        .env("GOALSMITH_LOG", "warn")
+        .output()
+        .expect("run token create");
+    assert!(
+        out.status.success(),
+        "token create failed: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let s = String::from_utf8(out.stdout).expect("utf8");
+    let lines: Vec<&str> = s.lines().collect();
+    assert_eq!(lines.len(), 1, "token create prints the token alone: {s:?}");
+    lines[0].to_string()
+}
+
+/// Starts a server on a fresh database of `kind`; `None` when that database is not available.
+pub async fn server(kind: Db, test: &str) -> Option<(Server, TestDb)> {
+    let db = fresh_db(kind, test).await?;
+    let s = Server::start(&db.url, &db.data_dir, &[]);
+    Some((s, db))
+}
+
+/// Runs an async test body on SQLite and on PostgreSQL.
+#[macro_export]
+macro_rules! on_both_databases {
+    ($name:ident, $body:path) => {
+        mod $name {
+            use super::*;
+            #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            async fn sqlite() {
+                if let Some((s, _db)) =
+                    $crate::support::server($crate::support::Db::Sqlite, stringify!($name)).await
+                {
+                    $body(s).await;
+                }
+            }
+            #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+            async fn postgres() {
+                if let Some((s, _db)) =
+                    $crate::support::server($crate::support::Db::Postgres, stringify!($name)).await
+                {
+                    $body(s).await;
+                }
+            }
+        }
+    };
+}
+
+/// A PNG of `w`×`h` with a deterministic pattern.
+pub fn png(w: u32, h: u32, seed: u8) -> Vec<u8> {
+    let img = image::RgbImage::from_fn(w, h, |x, y| {
+        image::Rgb([
+            (x as u8).wrapping_mul(3).wrapping_add(seed),
+            (y as u8).wrapping_mul(5),
+            seed,
+        ])
+    });
+    let mut out = std::io::Cursor::new(Vec::new());
+    img.write_to(&mut out, image::ImageFormat::Png)
+        .expect("encode png");
+    out.into_inner()
+}
+
+/// Waits until `f` is true or panics after `secs`.
+pub async fn wait_until(secs: u64, mut f: impl FnMut() -> bool) {
+    let start = Instant::now();
+    while !f() {
+        assert!(
+            start.elapsed() < Duration::from_secs(secs),
+            "condition not reached in {secs}s"
+        );
+        tokio::time::sleep(Duration::from_millis(50)).await;
+    }
+}
+
+/// A team with a camera (64×48, zones optional) and a frame; returns (editor token, camera id,
+/// frame id).
+pub async fn camera_and_frame(
+    s: &Server,
+    team: &str,
+    camera_extra: Value,
+) -> (String, String, String) {
+    let editor = s.token(team, "editor");
+    let mut body = serde_json::json!({"name": "bench overhead", "width": 64, "height": 48});
+    if let (Some(b), Some(extra)) = (body.as_object_mut(), camera_extra.as_object()) {
+        for (k, v) in extra {
+            b.insert(k.clone(), v.clone());
+        }
+    }
+    let (st, cam) = s.post("/api/cameras", Some(&editor), &body).await;
+    assert_eq!(st, StatusCode::CREATED, "{cam}");
+    let cam_id = cam["id"].as_str().expect("camera id").to_string();
+    let (st, frame) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam_id}/frames"),
+            Some(&editor),
+            "image/png",
+            png(64, 48, 7),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{frame}");
+    let frame_id = frame["id"].as_str().expect("frame id").to_string();
+    (editor, cam_id, frame_id)
+}
+
+/// A small valid goal on `frame_id`.
+pub fn point_goal(frame_id: &str, name: &str) -> Value {
+    serde_json::json!({
+        "name": name,
+        "frame_id": frame_id,
+        "terms": [{"kind": "point", "label": "pot", "source": [10.0, 12.0], "target": [40.0, 30.0]}],
+        "note": "first try"
+    })
+}
