@@ -17,6 +17,8 @@ use tower_http::trace::TraceLayer;
 pub fn app(state: AppState) -> Router {
     let request_id = HeaderName::from_static("x-request-id");
     api::router(state.clone())
+        .merge(crate::pages::router())
+        .nest_service("/static", tower_http::services::ServeDir::new(static_dir()))
         .with_state(state)
         .layer(
             TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
@@ -35,6 +37,14 @@ pub fn app(state: AppState) -> Router {
         )
         .layer(PropagateRequestIdLayer::new(request_id.clone()))
         .layer(SetRequestIdLayer::new(request_id, MakeRequestUuid))
+}
+
+/// Where the JS and CSS live: `web/static` beside the binary's source tree, or
+/// `GOALSMITH_STATIC_DIR`.
+pub fn static_dir() -> std::path::PathBuf {
+    std::env::var_os("GOALSMITH_STATIC_DIR")
+        .map(Into::into)
+        .unwrap_or_else(|| std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("web/static"))
 }
 
 /// Connects to the database, runs migrations and (with `--demo`) loads the demo scenario.
@@ -56,11 +66,12 @@ pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>
     let state = prepare(&config).await?;
     let listener = TcpListener::bind(&config.bind).await?;
     let addr = listener.local_addr()?;
-    let announce = if config.demo {
-        crate::demo::load(&state, addr).await?
+    let demo_team = if config.demo {
+        crate::demo::load(&state).await?
     } else {
         None
     };
+    let announce = crate::pages::startup_link(&state, addr, demo_team.as_deref()).await?;
     // The one line on stdout that scripts wait for; everything else goes to stderr.
     println!("listening on http://{addr}");
     if let Some(lines) = announce {

@@ -10,6 +10,7 @@ pub mod cli;
 pub mod config;
 pub mod demo;
 pub mod images;
+pub mod pages;
 pub mod store;
 
 /// The caution carried by the README, every export and the editor.
