@@ -204,16 +204,16 @@ impl Rgba8Image {
                 }
             }
         }
-        if halo > 0.0 {
-            if let Some(mut p) = Patch::over(self, bounds.min, bounds.max) {
-                for c in &cells {
-                    p.max_box(
-                        [c[0] - halo, c[1] - halo],
-                        [c[0] + s + halo, c[1] + s + halo],
-                    );
-                }
-                self.blend_patch(&p, style.halo_color);
+        if halo > 0.0
+            && let Some(mut p) = Patch::over(self, bounds.min, bounds.max)
+        {
+            for c in &cells {
+                p.max_box(
+                    [c[0] - halo, c[1] - halo],
+                    [c[0] + s + halo, c[1] + s + halo],
+                );
             }
+            self.blend_patch(&p, style.halo_color);
         }
         if let Some(mut p) = Patch::over(self, bounds.min, bounds.max) {
             for c in &cells {

@@ -177,10 +177,10 @@ fn draw_item(img: &mut Rgba8Image, item: &OverlayItem, layer: Layer, s: &Sizes) 
                     img.stroke_polygon_dashed(polygon, *tolerance_px, s.dash, s.dash * 0.8, &pen);
                 }
                 img.stroke_polyline(polygon, true, &s.pen(palette::TARGET));
-                if let Some(c) = centroid(polygon) {
-                    if !point_in_polygon(polygon, *source) {
-                        arrow_between(img, *source, c, s.marker + 2.0, 0.0, s);
-                    }
+                if let Some(c) = centroid(polygon)
+                    && !point_in_polygon(polygon, *source)
+                {
+                    arrow_between(img, *source, c, s.marker + 2.0, 0.0, s);
                 }
             }
             Layer::Markers => img.draw_source_marker(*source, s.marker, &s.pen(palette::SOURCE)),
@@ -340,7 +340,7 @@ fn arrow_between(
     }
     let (dx, dy) = (b[0] - a[0], b[1] - a[1]);
     let len = dx.hypot(dy);
-    if !(len > gap_a + gap_b + s.head * 0.5) {
+    if len.is_nan() || len <= gap_a + gap_b + s.head * 0.5 {
         return;
     }
     let (ux, uy) = (dx / len, dy / len);

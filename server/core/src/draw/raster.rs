@@ -133,7 +133,7 @@ impl Patch {
         let range = |lo: f64, hi: f64, n: usize| {
             let a = (lo - 0.5).ceil().max(0.0);
             let b = (hi + 0.5).floor().min(n as f64 - 1.0);
-            (a <= b).then(|| (a as usize, b as usize))
+            (a <= b).then_some((a as usize, b as usize))
         };
         let (i0, i1) = range(min[0], max[0], width)?;
         let (j0, j1) = range(min[1], max[1], height)?;
@@ -178,7 +178,7 @@ impl Patch {
         let (lo, hi) = Patch::bounds(&[a, b], reach);
         let j_lo = (lo[1].ceil().max(self.y0 as f64)) as usize;
         let j_hi = hi[1].floor().min((self.y0 + self.h) as f64 - 1.0);
-        if !(j_hi >= j_lo as f64) {
+        if j_hi.is_nan() || j_hi < j_lo as f64 {
             return;
         }
         let dy = b[1] - a[1];
@@ -201,7 +201,7 @@ impl Patch {
             let x_hi = (xa.max(xb) + reach)
                 .floor()
                 .min((self.x0 + self.w) as f64 - 1.0);
-            if !(x_hi >= x_lo) {
+            if x_hi.is_nan() || x_lo.is_nan() || x_hi < x_lo {
                 continue;
             }
             let row = (j - self.y0) * self.w;
@@ -296,7 +296,7 @@ impl Patch {
                         FillRule::NonZero => winding != 0,
                     };
                     let (a, b) = (xs[n].0.max(lo), xs[n + 1].0.min(hi));
-                    if !inside || !(a < b) {
+                    if !inside || a.is_nan() || b.is_nan() || a >= b {
                         continue;
                     }
                     let first = ((a + 0.5).floor() as usize).saturating_sub(self.x0);
