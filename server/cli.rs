@@ -54,6 +54,52 @@ enum Command {
         #[command(subcommand)]
         command: TokenCommand,
     },
+    /// Score candidates against a bundle offline; prints the same JSON as the HTTP route
+    Cost {
+        /// A bundle.zip exported from a goal revision
+        #[arg(long)]
+        bundle: PathBuf,
+        /// JSON file {"points": [N][T][P][2]}
+        #[arg(long, conflicts_with = "maps", required_unless_present = "maps")]
+        points: Option<PathBuf>,
+        /// NPY file of float32/float16 probability maps (N, T, P, h, w) or points (N, T, P, 2)
+        #[arg(long)]
+        maps: Option<PathBuf>,
+    },
+    /// Run a built-in benchmark on synthetic data; one JSON object per line
+    Bench {
+        /// Which kernel
+        #[arg(value_enum)]
+        name: BenchName,
+        /// Print JSON lines (the only output format; accepted for scripts that pass it)
+        #[arg(long)]
+        json: bool,
+    },
+}
+
+#[derive(Clone, Copy, ValueEnum)]
+enum BenchName {
+    Cost,
+    Edt,
+}
+
+fn run_cost(
+    bundle: &std::path::Path,
+    points: Option<&std::path::Path>,
+    maps: Option<&std::path::Path>,
+) -> Result<(), Box<dyn std::error::Error>> {
+    let read = |p: &std::path::Path| std::fs::read(p).map_err(|e| format!("{}: {e}", p.display()));
+    let (goal, w, h) = crate::scoring::read_bundle(&read(bundle)?)?;
+    let spec = crate::scoring::spec_from_revision(&goal, w, h)?;
+    let model = crate::scoring::model(&spec)?;
+    let (content_type, body) = match (points, maps) {
+        (Some(p), _) => ("application/json", read(p)?),
+        (None, Some(m)) => ("application/x-npy", read(m)?),
+        (None, None) => return Err("give --points or --maps".into()),
+    };
+    let result = crate::scoring::evaluate(&model, content_type, &body, usize::MAX / 2)?;
+    println!("{}", crate::scoring::result_json(&result));
+    Ok(())
 }
 
 #[derive(Subcommand)]
@@ -145,6 +191,24 @@ pub fn main() -> ExitCode {
                 Ok(())
             })
         }),
+        Command::Cost {
+            bundle,
+            points,
+            maps,
+        } => run_cost(&bundle, points.as_deref(), maps.as_deref()),
+        Command::Bench { name, json: _ } => {
+            let name = match name {
+                BenchName::Cost => "cost",
+                BenchName::Edt => "edt",
+            };
+            goalsmith_core::bench::run(name)
+                .map(|rows| {
+                    for row in rows {
+                        println!("{}", row.to_json());
+                    }
+                })
+                .map_err(Into::into)
+        }
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

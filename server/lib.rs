@@ -11,6 +11,7 @@ pub mod config;
 pub mod demo;
 pub mod images;
 pub mod pages;
+pub mod scoring;
 pub mod store;
 
 /// The caution carried by the README, every export and the editor.

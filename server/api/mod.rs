@@ -6,6 +6,7 @@
 pub mod auth;
 pub mod cameras;
 pub mod error;
+pub mod export;
 pub mod extract;
 pub mod frames;
 pub mod goals;
@@ -48,6 +49,12 @@ pub const ROUTES: &[(&str, &str)] = &[
     ("PUT", "/api/goals/{id}"),
     ("GET", "/api/goals/{id}/revisions"),
     ("GET", "/api/goals/{id}/revisions/{n}"),
+    ("GET", "/api/goals/{id}/revisions/{n}/cost-maps.npy"),
+    ("POST", "/api/goals/{id}/revisions/{n}/cost"),
+    ("GET", "/api/goals/{id}/revisions/{n}/overlay.png"),
+    ("GET", "/api/goals/{id}/revisions/{n}/bundle.zip"),
+    ("POST", "/api/goals/{id}/revisions/{n}/outcomes"),
+    ("GET", "/api/goals/{id}/outcomes"),
 ];
 
 /// The API router; `app` adds pages, static files and the layers around everything.
@@ -64,6 +71,12 @@ pub fn router(state: AppState) -> Router<AppState> {
         .layer(DefaultBodyLimit::max(frame_limit))
         .layer(RequestBodyLimitLayer::new(frame_limit));
 
+    let cost_limit = limits.cost_body_bytes;
+    let scoring = Router::new()
+        .route("/api/goals/{id}/revisions/{n}/cost", post(export::cost))
+        .layer(DefaultBodyLimit::max(cost_limit))
+        .layer(RequestBodyLimitLayer::new(cost_limit));
+
     let json_routes = Router::new()
         .route("/api/cameras", post(cameras::create).get(cameras::list))
         .route("/api/cameras/{id}", get(cameras::get_one))
@@ -73,6 +86,23 @@ pub fn router(state: AppState) -> Router<AppState> {
         .route("/api/goals/{id}", get(goals::latest).put(goals::update))
         .route("/api/goals/{id}/revisions", get(goals::revisions))
         .route("/api/goals/{id}/revisions/{n}", get(goals::revision))
+        .route(
+            "/api/goals/{id}/revisions/{n}/cost-maps.npy",
+            get(export::cost_maps),
+        )
+        .route(
+            "/api/goals/{id}/revisions/{n}/overlay.png",
+            get(export::overlay),
+        )
+        .route(
+            "/api/goals/{id}/revisions/{n}/bundle.zip",
+            get(export::bundle),
+        )
+        .route(
+            "/api/goals/{id}/revisions/{n}/outcomes",
+            post(export::report_outcome),
+        )
+        .route("/api/goals/{id}/outcomes", get(export::outcomes))
         .layer(DefaultBodyLimit::max(json_limit))
         .layer(RequestBodyLimitLayer::new(json_limit));
 
@@ -81,6 +111,7 @@ pub fn router(state: AppState) -> Router<AppState> {
         .route("/api/openapi.json", get(openapi::document))
         .route("/api/schema/goal.json", get(openapi::goal_schema))
         .merge(uploads)
+        .merge(scoring)
         .merge(json_routes)
         .fallback(api_not_found)
         .layer(axum::middleware::map_response(contract_errors))

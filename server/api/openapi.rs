@@ -182,7 +182,9 @@ pub fn document_value() -> Value {
             "responses": responses,
         });
         if let Some(m) = media {
-            let schema = if *m == "application/json" && path.starts_with("/api/goals") {
+            let schema = if *m == "application/json"
+                && (*path == "/api/goals" || *path == "/api/goals/{id}")
+            {
                 json!({"$ref": "/api/schema/goal.json"})
             } else if *m == "application/json" {
                 json!({"type": "object"})

@@ -6,6 +6,7 @@
 pub mod cameras;
 pub mod frames;
 pub mod goals;
+pub mod outcomes;
 pub mod teams;
 
 use sqlx::any::{AnyPoolOptions, install_default_drivers};

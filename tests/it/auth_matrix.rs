@@ -11,6 +11,8 @@ enum Body {
     Camera,
     Frame,
     Goal,
+    Points,
+    Outcome,
 }
 
 async fn matrix(s: Server) {
@@ -136,6 +138,43 @@ async fn matrix(s: Server) {
             Body::None,
             [unauth, nf, ok, ok, ok],
         ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}/revisions/1/cost-maps.npy"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        // Scoring writes nothing, so viewers (planners with read-only tokens) may do it.
+        (
+            Method::POST,
+            format!("/api/goals/{goal}/revisions/1/cost"),
+            Body::Points,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}/revisions/1/overlay.png"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}/revisions/1/bundle.zip"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::POST,
+            format!("/api/goals/{goal}/revisions/1/outcomes"),
+            Body::Outcome,
+            [unauth, nf, forbidden, created, created],
+        ),
+        (
+            Method::GET,
+            format!("/api/goals/{goal}/outcomes"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
     ];
     let routes: Vec<(String, String)> = table
         .iter()
@@ -145,7 +184,7 @@ async fn matrix(s: Server) {
                 p.replace(&cam, "{id}")
                     .replace(&frame, "{id}")
                     .replace(&goal, "{id}")
-                    .replace("/revisions/1", "/revisions/{n}"),
+                    .replacen("/revisions/1", "/revisions/{n}", 1),
             )
         })
         .collect();
@@ -179,6 +218,8 @@ async fn matrix(s: Server) {
                     req.header("content-type", "image/png")
                         .body(png(64, 48, seed))
                 }
+                Body::Points => req.json(&json!({"points": [[[[20.0, 20.0]]]]})),
+                Body::Outcome => req.json(&json!({"final_points": [[40.0, 30.0]]})),
                 Body::Goal => {
                     if *method == Method::PUT {
                         let resp = s

@@ -405,18 +405,8 @@ async fn hostile_uploads(s: Server) {
     let (st, _) = raw_post(&s, &path, &editor, "image/png", (65 << 20) as usize).await;
     assert_eq!(st, 413);
     // Without a length up front (chunked), the limit still holds.
-    let stream = futures_util_stream(70 << 20);
-    let resp = s
-        .client
-        .post(s.url(&path))
-        .bearer_auth(&editor)
-        .header("content-type", "image/png")
-        .body(reqwest::Body::wrap_stream(stream))
-        .send()
-        .await;
-    if let Ok(resp) = resp {
-        assert_eq!(resp.status(), StatusCode::PAYLOAD_TOO_LARGE);
-    }
+    let (st, body) = raw_post_chunked(&s, &path, &editor, "image/png", (70 << 20) as usize).await;
+    assert_eq!(st, 413, "{body}");
 
     let (st, _) = s.get("/healthz", None).await;
     assert_eq!(st, StatusCode::OK, "the server keeps serving");
@@ -472,23 +462,45 @@ async fn raw_post(
     .unwrap()
 }
 
-fn futures_util_stream(
-    total: usize,
-) -> impl futures_core::Stream<Item = Result<Vec<u8>, std::io::Error>> + Send + 'static {
-    struct Chunks(usize);
-    impl futures_core::Stream for Chunks {
-        type Item = Result<Vec<u8>, std::io::Error>;
-        fn poll_next(
-            mut self: std::pin::Pin<&mut Self>,
-            _: &mut std::task::Context<'_>,
-        ) -> std::task::Poll<Option<Self::Item>> {
-            if self.0 == 0 {
-                return std::task::Poll::Ready(None);
+/// Like [`raw_post`] but with `Transfer-Encoding: chunked`, so the server cannot know the size
+/// up front and must stop reading at its limit.
+async fn raw_post_chunked(
+    s: &Server,
+    path: &str,
+    token: &str,
+    content_type: &str,
+    len: usize,
+) -> (u16, String) {
+    use std::io::{Read, Write};
+    let addr = s.base.trim_start_matches("http://").to_string();
+    let head = format!(
+        "POST {path} HTTP/1.1\r\nHost: {addr}\r\nAuthorization: Bearer {token}\r\nContent-Type: {content_type}\r\nTransfer-Encoding: chunked\r\nConnection: close\r\n\r\n"
+    );
+    tokio::task::spawn_blocking(move || {
+        let mut sock = std::net::TcpStream::connect(&addr).unwrap();
+        sock.set_read_timeout(Some(std::time::Duration::from_secs(30)))
+            .unwrap();
+        sock.write_all(head.as_bytes()).unwrap();
+        let chunk = vec![b' '; 1 << 20];
+        let mut sent = 0;
+        while sent < len {
+            let framed = [format!("{:x}\r\n", chunk.len()).as_bytes(), &chunk, b"\r\n"].concat();
+            if sock.write_all(&framed).is_err() {
+                break;
             }
-            let n = self.0.min(1 << 20);
-            self.0 -= n;
-            std::task::Poll::Ready(Some(Ok(vec![0u8; n])))
+            sent += chunk.len();
         }
-    }
-    Chunks(total)
+        let _ = sock.write_all(b"0\r\n\r\n");
+        let mut reply = Vec::new();
+        let _ = sock.read_to_end(&mut reply);
+        let text = String::from_utf8_lossy(&reply).to_string();
+        let status = text
+            .split_whitespace()
+            .nth(1)
+            .and_then(|c| c.parse().ok())
+            .unwrap_or(0);
+        (status, text)
+    })
+    .await
+    .unwrap()
 }

@@ -6,5 +6,6 @@ mod support;
 mod auth_matrix;
 mod bad_input;
 mod concurrency;
+mod export;
 mod restart;
 mod routes;

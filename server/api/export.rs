@@ -1,0 +1,380 @@
+//! What planners pull and push for one pinned revision: cost maps, batched costs, the overlay,
+//! the reproducible bundle, and outcomes.
+
+use super::auth::{Principal, Role};
+use super::cameras::{self, CameraDoc};
+use super::error::{ApiError, ApiResult};
+use super::extract::{JsonBody, media_type, read_body};
+use super::goals::{etag_of, if_none_match, load_revision, parse_revision};
+use super::{AppState, frames, rfc3339};
+use crate::scoring::{self, ScoreError};
+use crate::store::{self, goals::RevisionRow};
+use axum::Json;
+use axum::extract::{Path, Query, Request, State};
+use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use goalsmith_core::cost::CostModel;
+use goalsmith_core::goal::GoalSpec;
+use serde::Deserialize;
+use serde_json::{Value, json};
+use sha2::{Digest, Sha256};
+
+impl From<ScoreError> for ApiError {
+    fn from(e: ScoreError) -> Self {
+        match e {
+            ScoreError::Invalid {
+                code: "unsupported_media_type",
+                message,
+                ..
+            } => ApiError::UnsupportedMediaType(message),
+            ScoreError::Invalid {
+                code,
+                message,
+                field,
+            } => ApiError::Invalid {
+                code,
+                message,
+                field,
+            },
+            ScoreError::TooLarge(m) => ApiError::TooLarge(m),
+            ScoreError::Internal(m) => ApiError::Internal(m),
+        }
+    }
+}
+
+/// A pinned revision with everything needed to score or export it.
+pub struct Loaded {
+    /// The stored revision.
+    pub row: RevisionRow,
+    /// Its document.
+    pub doc: Value,
+    /// Its checked goal.
+    pub spec: GoalSpec,
+    /// Its cost model.
+    pub model: CostModel,
+    /// The frame it is drawn on.
+    pub frame: store::frames::FrameRow,
+    /// The camera of that frame.
+    pub camera: CameraDoc,
+    /// The camera as served.
+    pub camera_json: Value,
+}
+
+/// Loads revision `n` of a team's goal and rebuilds its cost model (off the async workers).
+pub async fn load(state: &AppState, who: &Principal, id: &str, n: &str) -> ApiResult<Loaded> {
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    let frame = frames::load(state, who, &row.frame_id).await?;
+    let camera_row = cameras::load(state, who, &frame.camera_id).await?;
+    let camera = cameras::parse_doc(&camera_row)?;
+    let camera_json = cameras::camera_json(&camera_row)?;
+    let doc: Value = serde_json::from_str(&row.document)
+        .map_err(|e| ApiError::Internal(format!("revision unreadable: {e}")))?;
+    let (w, h) = (camera.width, camera.height);
+    let doc2 = doc.clone();
+    let (spec, model) = tokio::task::spawn_blocking(move || {
+        let spec = scoring::spec_from_revision(&doc2, w, h)?;
+        let model = scoring::model(&spec)?;
+        Ok::<_, ScoreError>((spec, model))
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??;
+    Ok(Loaded {
+        row,
+        doc,
+        spec,
+        model,
+        frame,
+        camera,
+        camera_json,
+    })
+}
+
+fn binary(
+    content_type: &'static str,
+    filename: String,
+    bytes: Vec<u8>,
+    headers: &HeaderMap,
+) -> Response {
+    let etag = format!("\"{}\"", hex::encode(Sha256::digest(&bytes)));
+    if if_none_match(headers, &etag) {
+        return (StatusCode::NOT_MODIFIED, [(header::ETAG, etag)]).into_response();
+    }
+    let mut resp = (
+        [
+            (header::CONTENT_TYPE, HeaderValue::from_static(content_type)),
+            (
+                header::CACHE_CONTROL,
+                HeaderValue::from_static("private, max-age=31536000, immutable"),
+            ),
+        ],
+        bytes,
+    )
+        .into_response();
+    if let Ok(v) = HeaderValue::from_str(&etag) {
+        resp.headers_mut().insert(header::ETAG, v);
+    }
+    if let Ok(v) = HeaderValue::from_str(&format!("attachment; filename=\"{filename}\"")) {
+        resp.headers_mut().insert(header::CONTENT_DISPOSITION, v);
+    }
+    if let Ok(v) = HeaderValue::from_str(crate::SAFETY_CAUTION) {
+        resp.headers_mut().insert("x-goalsmith-caution", v);
+    }
+    resp
+}
+
+/// Query of `cost-maps.npy`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct MapSize {
+    width: Option<String>,
+    height: Option<String>,
+}
+
+fn parse_side(v: &Option<String>, field: &str) -> ApiResult<Option<usize>> {
+    v.as_deref()
+        .map(|s| {
+            s.parse::<usize>()
+                .ok()
+                .filter(|n| (1..=8192).contains(n))
+                .ok_or_else(|| {
+                    ApiError::invalid(
+                        "bad_map_size",
+                        field,
+                        format!("{field} must be a whole number from 1 to 8192"),
+                    )
+                })
+        })
+        .transpose()
+}
+
+/// `GET /api/goals/{id}/revisions/{n}/cost-maps.npy[?width=w&height=h]`: float32 (P, h, w).
+pub async fn cost_maps(
+    State(state): State<AppState>,
+    who: Principal,
+    Path((id, n)): Path<(String, String)>,
+    query: Result<Query<MapSize>, axum::extract::rejection::QueryRejection>,
+    headers: HeaderMap,
+) -> ApiResult<Response> {
+    let Query(size) = query.map_err(|e| ApiError::invalid_body("bad_query", e.body_text()))?;
+    let (w, h) = match (
+        parse_side(&size.width, "width")?,
+        parse_side(&size.height, "height")?,
+    ) {
+        (Some(w), Some(h)) => (Some(w), Some(h)),
+        (None, None) => (None, None),
+        _ => {
+            return Err(ApiError::invalid_body(
+                "bad_map_size",
+                "give both width and height, or neither for the frame's size",
+            ));
+        }
+    };
+    let l = load(&state, &who, &id, &n).await?;
+    let (fw, fh) = l.spec.frame_size();
+    let (w, h) = (w.unwrap_or(fw as usize), h.unwrap_or(fh as usize));
+    let rev = l.row.revision;
+    let bytes = tokio::task::spawn_blocking(move || scoring::cost_maps_npy(&l.model, w, h))
+        .await
+        .map_err(|e| ApiError::Internal(e.to_string()))??;
+    Ok(binary(
+        "application/x-npy",
+        format!("goal-{id}-r{rev}-cost-maps-{w}x{h}.npy"),
+        bytes,
+        &headers,
+    ))
+}
+
+/// `POST /api/goals/{id}/revisions/{n}/cost`: JSON points or an NPY body → costs.
+pub async fn cost(
+    State(state): State<AppState>,
+    who: Principal,
+    Path((id, n)): Path<(String, String)>,
+    req: Request,
+) -> ApiResult<Json<Value>> {
+    let content_type = media_type(&req).unwrap_or_default();
+    if !matches!(
+        content_type.as_str(),
+        "application/json" | "application/x-npy" | "application/octet-stream"
+    ) {
+        return Err(ApiError::UnsupportedMediaType(format!(
+            "send application/json {{\"points\": …}} or an application/x-npy body, not {content_type:?}"
+        )));
+    }
+    let l = load(&state, &who, &id, &n).await?;
+    let body = read_body(req, &state).await?;
+    let max = state.limits.cost_body_bytes;
+    let result =
+        tokio::task::spawn_blocking(move || scoring::evaluate(&l.model, &content_type, &body, max))
+            .await
+            .map_err(|e| ApiError::Internal(e.to_string()))??;
+    Ok(Json(scoring::result_json(&result)))
+}
+
+/// `GET /api/goals/{id}/revisions/{n}/overlay.png`.
+pub async fn overlay(
+    State(state): State<AppState>,
+    who: Principal,
+    Path((id, n)): Path<(String, String)>,
+    headers: HeaderMap,
+) -> ApiResult<Response> {
+    let l = load(&state, &who, &id, &n).await?;
+    let (_, bytes) = store::frames::image_bytes(state.store.pool(), &l.frame.sha256)
+        .await?
+        .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
+    let rev = l.row.revision;
+    let png = tokio::task::spawn_blocking(move || {
+        scoring::overlay_png(
+            &l.spec,
+            &bytes,
+            scoring::Zones {
+                safe: l.camera.safe_zone.as_deref(),
+                no_go: &l.camera.no_go_zones,
+            },
+        )
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??;
+    Ok(binary(
+        "image/png",
+        format!("goal-{id}-r{rev}-overlay.png"),
+        png,
+        &headers,
+    ))
+}
+
+/// `GET /api/goals/{id}/revisions/{n}/bundle.zip`: the same bytes for the same revision.
+pub async fn bundle(
+    State(state): State<AppState>,
+    who: Principal,
+    Path((id, n)): Path<(String, String)>,
+    headers: HeaderMap,
+) -> ApiResult<Response> {
+    let l = load(&state, &who, &id, &n).await?;
+    let (content_type, frame) = store::frames::image_bytes(state.store.pool(), &l.frame.sha256)
+        .await?
+        .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
+    let rev = l.row.revision;
+    let zip = tokio::task::spawn_blocking(move || {
+        let (w, h) = l.spec.frame_size();
+        let maps = scoring::cost_maps_npy(&l.model, w as usize, h as usize)?;
+        scoring::bundle_zip(&scoring::BundleParts {
+            goal_json: &l.row.document,
+            goal: &l.doc,
+            camera: &l.camera_json,
+            cost_maps_npy: &maps,
+            frame: &frame,
+            frame_ext: if content_type == "image/png" {
+                "png"
+            } else {
+                "jpg"
+            },
+            points: l.model.len(),
+            width: w,
+            height: h,
+        })
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??;
+    Ok(binary(
+        "application/zip",
+        format!("goal-{id}-r{rev}.zip"),
+        zip,
+        &headers,
+    ))
+}
+
+/// Body of `POST …/outcomes`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct OutcomeInput {
+    final_points: Vec<[f64; 2]>,
+    #[serde(default)]
+    note: Option<String>,
+}
+
+/// `POST /api/goals/{id}/revisions/{n}/outcomes` → 201 with success, residuals and cost.
+pub async fn report_outcome(
+    State(state): State<AppState>,
+    who: Principal,
+    Path((id, n)): Path<(String, String)>,
+    JsonBody(input): JsonBody<OutcomeInput>,
+) -> ApiResult<(StatusCode, Json<Value>)> {
+    who.require(Role::Editor)?;
+    let note = input.note.unwrap_or_default();
+    if note.chars().count() > 2000 {
+        return Err(ApiError::invalid(
+            "too_long",
+            "note",
+            "at most 2000 characters",
+        ));
+    }
+    let l = load(&state, &who, &id, &n).await?;
+    let result = scoring::outcome(&l.spec, &l.model, &input.final_points)?;
+    let row = store::outcomes::OutcomeRow {
+        id: uuid::Uuid::new_v4().to_string(),
+        goal_id: l.row.goal_id.clone(),
+        revision: l.row.revision,
+        final_points: serde_json::to_string(&input.final_points)
+            .map_err(|e| ApiError::Internal(e.to_string()))?,
+        per_point: result["per_point"].to_string(),
+        success: result["success"].as_bool().unwrap_or(false),
+        cost: result["cost"].as_f64().unwrap_or(f64::NAN),
+        mean_residual_px: result["mean_residual_px"].as_f64().unwrap_or(f64::NAN),
+        note,
+        author: who.author.clone(),
+        created_at: store::now_ms(),
+    };
+    store::outcomes::insert(state.store.pool(), &who.team_id, &row).await?;
+    Ok((StatusCode::CREATED, Json(outcome_json(&row))))
+}
+
+fn outcome_json(o: &store::outcomes::OutcomeRow) -> Value {
+    json!({
+        "id": o.id,
+        "goal_id": o.goal_id,
+        "revision": o.revision,
+        "success": o.success,
+        "per_point": serde_json::from_str::<Value>(&o.per_point).unwrap_or(Value::Null),
+        "final_points": serde_json::from_str::<Value>(&o.final_points).unwrap_or(Value::Null),
+        "cost": o.cost,
+        "mean_residual_px": o.mean_residual_px,
+        "note": o.note,
+        "author": o.author,
+        "created_at": rfc3339(o.created_at),
+    })
+}
+
+/// `GET /api/goals/{id}/outcomes` → every outcome and a success summary.
+pub async fn outcomes(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+) -> ApiResult<Json<Value>> {
+    let latest = load_revision(&state, &who, &id, None).await?;
+    let rows = store::outcomes::list(state.store.pool(), &who.team_id, &latest.goal_id).await?;
+    let trials = rows.len();
+    let successes = rows.iter().filter(|o| o.success).count();
+    let mean = if trials == 0 {
+        Value::Null
+    } else {
+        json!(rows.iter().map(|o| o.mean_residual_px).sum::<f64>() / trials as f64)
+    };
+    let mut per_revision = std::collections::BTreeMap::<i64, (usize, usize)>::new();
+    for o in &rows {
+        let e = per_revision.entry(o.revision).or_default();
+        e.0 += 1;
+        e.1 += usize::from(o.success);
+    }
+    Ok(Json(json!({
+        "outcomes": rows.iter().map(outcome_json).collect::<Vec<_>>(),
+        "summary": {
+            "trials": trials,
+            "successes": successes,
+            "success_rate": if trials == 0 { Value::Null } else { json!(successes as f64 / trials as f64) },
+            "mean_residual_px": mean,
+            "by_revision": per_revision.iter().map(|(r, (t, s))| json!({"revision": r, "trials": t, "successes": s})).collect::<Vec<_>>(),
+        },
+        "latest_revision": latest.revision,
+        "latest_etag": etag_of(&latest.document),
+    })))
+}

@@ -1,0 +1,512 @@
+//! Scoring and export of a stored revision, shared by the HTTP routes and the offline CLI
+//! (`goalsmith cost --bundle …`), so both give the same numbers from the same code.
+
+use crate::images;
+use goalsmith_core::cost::{CostModel, CostResult, MapBatch};
+use goalsmith_core::draw::{self, OverlayItem, Rgba8Image, ZoneKind};
+use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec, Term};
+use goalsmith_core::npy;
+use serde::Deserialize;
+use serde_json::{Value, json};
+use sha2::{Digest, Sha256};
+use std::io::{Cursor, Write};
+
+/// Version of the bundle layout; bumped on any incompatible change.
+pub const BUNDLE_FORMAT_VERSION: u32 = 1;
+
+/// Why scoring or exporting failed, in words for the caller.
+#[derive(Debug, thiserror::Error)]
+pub enum ScoreError {
+    /// The request breaks a rule (a 422), naming the field where one applies.
+    #[error("{message}")]
+    Invalid {
+        /// snake_case code.
+        code: &'static str,
+        /// For a person.
+        message: String,
+        /// Offending field.
+        field: Option<String>,
+    },
+    /// The request claims more data than is allowed (a 413).
+    #[error("{0}")]
+    TooLarge(String),
+    /// Stored data that should be readable is not.
+    #[error("{0}")]
+    Internal(String),
+}
+
+fn invalid(code: &'static str, field: Option<&str>, message: impl Into<String>) -> ScoreError {
+    ScoreError::Invalid {
+        code,
+        message: message.into(),
+        field: field.map(str::to_string),
+    }
+}
+
+/// Re-checks a stored revision document into a [`GoalSpec`] for a frame of `width` × `height`.
+/// Safety zones are not re-applied: they were checked (or overridden, and recorded) when the
+/// revision was written.
+pub fn spec_from_revision(doc: &Value, width: u32, height: u32) -> Result<GoalSpec, ScoreError> {
+    let goal = GoalDocument {
+        name: doc["name"].as_str().unwrap_or_default().to_string(),
+        frame_id: doc["frame_id"].as_str().unwrap_or_default().to_string(),
+        terms: serde_json::from_value(doc["terms"].clone())
+            .map_err(|e| ScoreError::Internal(format!("stored terms unreadable: {e}")))?,
+        cost: serde_json::from_value(doc["cost"].clone())
+            .map_err(|e| ScoreError::Internal(format!("stored cost unreadable: {e}")))?,
+        note: None,
+        override_safety: true,
+    };
+    let decode_mask = |b64: &str| images::decode_mask(b64, 16384, 1 << 30);
+    let no_fits = |_: &str| true;
+    GoalSpec::check(
+        goal,
+        &CheckContext {
+            width,
+            height,
+            safe_zone: None,
+            no_go_zones: &[],
+            decode_mask: &decode_mask,
+            reward_fit_exists: &no_fits,
+        },
+    )
+    .map_err(|e| ScoreError::Internal(format!("stored revision no longer checks: {e}")))
+}
+
+/// The cost model of a checked goal.
+pub fn model(spec: &GoalSpec) -> Result<CostModel, ScoreError> {
+    let points = spec.cost_points().map_err(|e| ScoreError::Invalid {
+        code: e.code,
+        message: e.message,
+        field: Some(e.field),
+    })?;
+    let (w, h) = spec.frame_size();
+    CostModel::new(w as usize, h as usize, points, *spec.settings())
+        .map_err(|e| ScoreError::Internal(e.to_string()))
+}
+
+/// The cost maps as an NPY file, float32 (P, h, w).
+pub fn cost_maps_npy(
+    model: &CostModel,
+    width: usize,
+    height: usize,
+) -> Result<Vec<u8>, ScoreError> {
+    let maps = model
+        .cost_maps(width, height)
+        .map_err(|e| invalid("bad_map_size", Some("width"), e.to_string()))?;
+    npy::write_f32(&[model.len(), height, width], &maps)
+        .map_err(|e| ScoreError::Internal(e.to_string()))
+}
+
+#[derive(Deserialize)]
+#[serde(deny_unknown_fields)]
+struct PointsBody {
+    points: Vec<Vec<Vec<[f64; 2]>>>,
+}
+
+/// Predicted points (N, T, P, 2) from JSON `{"points": …}`, flattened, with (N, T).
+pub fn points_from_json(body: &[u8], p: usize) -> Result<(Vec<f64>, usize, usize), ScoreError> {
+    let de = &mut serde_json::Deserializer::from_slice(body);
+    let parsed: PointsBody = serde_path_to_error::deserialize(de).map_err(|e| {
+        let path = e.path().to_string();
+        invalid("bad_json", Some(&path), e.into_inner().to_string())
+    })?;
+    let n = parsed.points.len();
+    let t = parsed.points.first().map_or(0, Vec::len);
+    if n == 0 || t == 0 {
+        return Err(invalid(
+            "bad_shape",
+            Some("points"),
+            "points must have shape (N, T, P, 2) with N ≥ 1 and T ≥ 1",
+        ));
+    }
+    let mut flat = Vec::with_capacity(n * t * p * 2);
+    for (i, cand) in parsed.points.iter().enumerate() {
+        if cand.len() != t {
+            return Err(invalid(
+                "bad_shape",
+                Some(&format!("points[{i}]")),
+                format!(
+                    "candidate {i} has {} steps, candidate 0 has {t}",
+                    cand.len()
+                ),
+            ));
+        }
+        for (k, step) in cand.iter().enumerate() {
+            if step.len() != p {
+                return Err(invalid(
+                    "bad_shape",
+                    Some(&format!("points[{i}][{k}]")),
+                    format!("this goal has P = {p} source points, got {}", step.len()),
+                ));
+            }
+            for xy in step {
+                flat.extend_from_slice(xy);
+            }
+        }
+    }
+    Ok((flat, n, t))
+}
+
+/// Scores a request body against a model: JSON points, or an NPY of float32/float16
+/// probability maps (N, T, P, h, w) — or of points (N, T, P, 2) as float32/float64.
+pub fn evaluate(
+    model: &CostModel,
+    content_type: &str,
+    body: &[u8],
+    max_bytes: usize,
+) -> Result<CostResult, ScoreError> {
+    let p = model.len();
+    let cost_err =
+        |e: goalsmith_core::cost::CostError| invalid("bad_prediction", None, e.to_string());
+    match content_type {
+        "application/json" => {
+            let (flat, n, t) = points_from_json(body, p)?;
+            model.evaluate_points(&flat, n, t).map_err(cost_err)
+        }
+        "application/x-npy" | "application/octet-stream" => {
+            let arr = npy::read(body, max_bytes).map_err(|e| match e {
+                npy::NpyError::TooLarge { .. } => ScoreError::TooLarge(e.to_string()),
+                other => invalid("bad_npy", None, other.to_string()),
+            })?;
+            let shape = arr.header.shape.clone();
+            match shape.as_slice() {
+                [n, t, pp, 2] if *pp == p => {
+                    let flat: Vec<f64> = match &arr.data {
+                        npy::NpyData::F64(v) => v.to_vec(),
+                        npy::NpyData::F32(v) => v.iter().map(|&x| f64::from(x)).collect(),
+                        npy::NpyData::F16(v) => v.iter().map(|x| x.to_f64()).collect(),
+                    };
+                    model.evaluate_points(&flat, *n, *t).map_err(cost_err)
+                }
+                [n, t, pp, h, w] if *pp == p => {
+                    let batch = match &arr.data {
+                        npy::NpyData::F32(v) => MapBatch::F32(v),
+                        npy::NpyData::F16(v) => MapBatch::F16(v),
+                        npy::NpyData::F64(_) => {
+                            return Err(invalid(
+                                "bad_npy",
+                                None,
+                                "probability maps must be float32 or float16, not float64",
+                            ));
+                        }
+                    };
+                    model.evaluate_maps(batch, *n, *t, *h, *w).map_err(cost_err)
+                }
+                other => Err(invalid(
+                    "bad_shape",
+                    None,
+                    format!(
+                        "this goal has P = {p} source points: send maps of shape (N, T, {p}, h, w) \
+                         or points of shape (N, T, {p}, 2), not {other:?}"
+                    ),
+                )),
+            }
+        }
+        other => Err(invalid(
+            "unsupported_media_type",
+            None,
+            format!("send application/json points or an application/x-npy body, not {other:?}"),
+        )),
+    }
+}
+
+/// The response body of a cost evaluation.
+pub fn result_json(r: &CostResult) -> Value {
+    json!({"costs": r.costs, "per_point": r.per_point, "best": r.best})
+}
+
+/// Residuals of final positions: per point the distance to its target shape and whether it is
+/// within tolerance; success when every point is; the goal's cost of those positions.
+pub fn outcome(
+    spec: &GoalSpec,
+    model: &CostModel,
+    final_points: &[[f64; 2]],
+) -> Result<Value, ScoreError> {
+    let p = model.len();
+    if final_points.len() != p {
+        return Err(invalid(
+            "bad_shape",
+            Some("final_points"),
+            format!(
+                "this revision has P = {p} source points, got {}",
+                final_points.len()
+            ),
+        ));
+    }
+    let sources = spec.source_points();
+    let mut per_point = Vec::with_capacity(p);
+    let mut flat = Vec::with_capacity(p * 2);
+    let mut all_within = true;
+    let mut sum = 0.0;
+    for (k, xy) in final_points.iter().enumerate() {
+        if !xy[0].is_finite() || !xy[1].is_finite() {
+            return Err(invalid(
+                "not_finite",
+                Some(&format!("final_points[{k}]")),
+                "coordinates must be finite numbers",
+            ));
+        }
+        let d = model
+            .distance(k, xy[0], xy[1])
+            .ok_or_else(|| ScoreError::Internal(format!("no point {k}")))?;
+        let tol = sources[k].tolerance_px;
+        let within = d <= tol;
+        all_within &= within;
+        sum += d;
+        per_point.push(json!({"index": k, "term": sources[k].term, "residual_px": d, "within_tolerance": within, "tolerance_px": tol}));
+        flat.extend_from_slice(xy);
+    }
+    let cost = model
+        .evaluate_points(&flat, 1, 1)
+        .map_err(|e| invalid("bad_prediction", Some("final_points"), e.to_string()))?;
+    Ok(json!({
+        "success": all_within,
+        "per_point": per_point,
+        "cost": cost.costs[0],
+        "mean_residual_px": sum / p as f64,
+    }))
+}
+
+/// Camera zones for the overlay.
+pub struct Zones<'a> {
+    /// Safe zone polygon.
+    pub safe: Option<&'a [[f64; 2]]>,
+    /// No-go polygons.
+    pub no_go: &'a [Vec<[f64; 2]>],
+}
+
+/// The frame with the goal drawn on it, as PNG.
+pub fn overlay_png(
+    spec: &GoalSpec,
+    frame_bytes: &[u8],
+    zones: Zones<'_>,
+) -> Result<Vec<u8>, ScoreError> {
+    let frame = image::load_from_memory(frame_bytes)
+        .map_err(|e| ScoreError::Internal(format!("stored frame unreadable: {e}")))?
+        .to_rgba8();
+    let (w, h) = frame.dimensions();
+    let canvas = Rgba8Image::from_rgba(w as usize, h as usize, frame.into_raw())
+        .map_err(|e| ScoreError::Internal(e.to_string()))?;
+    let mut items = Vec::new();
+    if let Some(z) = zones.safe {
+        items.push(OverlayItem::Zone {
+            polygon: z.to_vec(),
+            kind: ZoneKind::Safe,
+            label: String::new(),
+        });
+    }
+    for (k, z) in zones.no_go.iter().enumerate() {
+        items.push(OverlayItem::Zone {
+            polygon: z.clone(),
+            kind: ZoneKind::NoGo,
+            label: format!("no-go {}", k + 1),
+        });
+    }
+    for (i, t) in spec.terms().iter().enumerate() {
+        let label = match &t.label {
+            Some(l) if !l.is_empty() => format!("{} {}", i + 1, l),
+            _ => format!("{}", i + 1),
+        };
+        items.push(match &t.term {
+            Term::Point { source, target } => OverlayItem::PointMove {
+                source: source.to_array(),
+                target: target.to_array(),
+                tolerance_px: t.tolerance_px,
+                label,
+            },
+            Term::Region { source, polygon } => OverlayItem::Region {
+                source: source.to_array(),
+                polygon: polygon.vertices().iter().map(|v| v.to_array()).collect(),
+                tolerance_px: t.tolerance_px,
+                label,
+            },
+            Term::Mask { source, mask } => OverlayItem::Mask {
+                source: source.to_array(),
+                width: mask.width(),
+                height: mask.height(),
+                mask: mask.data().to_vec(),
+                label,
+            },
+            Term::Rigid {
+                sources,
+                targets,
+                fit,
+            } => OverlayItem::RigidMove {
+                sources: sources.iter().map(|s| s.to_array()).collect(),
+                targets: targets.iter().map(|s| s.to_array()).collect(),
+                fitted: sources
+                    .iter()
+                    .map(|s| {
+                        let [x, y] = s.to_array();
+                        let r = fit.rotation;
+                        [
+                            fit.scale * (r[0][0] * x + r[0][1] * y) + fit.translation[0],
+                            fit.scale * (r[1][0] * x + r[1][1] * y) + fit.translation[1],
+                        ]
+                    })
+                    .collect(),
+                label,
+            },
+            Term::Learned { source, .. } => OverlayItem::PointMove {
+                source: source.to_array(),
+                target: source.to_array(),
+                tolerance_px: 0.0,
+                label,
+            },
+        });
+    }
+    let drawn = draw::render_overlay(&canvas, &items);
+    let img = image::RgbaImage::from_raw(w, h, drawn.into_raw())
+        .ok_or_else(|| ScoreError::Internal("overlay size changed".into()))?;
+    let mut out = Cursor::new(Vec::new());
+    img.write_to(&mut out, image::ImageFormat::Png)
+        .map_err(|e| ScoreError::Internal(e.to_string()))?;
+    Ok(out.into_inner())
+}
+
+/// What goes into a bundle.
+pub struct BundleParts<'a> {
+    /// The exact revision document bytes.
+    pub goal_json: &'a str,
+    /// The parsed revision document.
+    pub goal: &'a Value,
+    /// The camera document as served (intrinsics in both forms, plane, pose, zones).
+    pub camera: &'a Value,
+    /// Full-size cost maps NPY.
+    pub cost_maps_npy: &'a [u8],
+    /// The stored frame bytes.
+    pub frame: &'a [u8],
+    /// `png` or `jpg`.
+    pub frame_ext: &'a str,
+    /// Number of source points P and the frame size, for the manifest.
+    pub points: usize,
+    /// Frame width.
+    pub width: u32,
+    /// Frame height.
+    pub height: u32,
+}
+
+fn readme(parts: &BundleParts<'_>) -> String {
+    format!(
+        "goalsmith goal bundle (format {BUNDLE_FORMAT_VERSION})\n\n\
+         CAUTION: {caution}\n\n\
+         goal.json       the revision document exactly as the server serves it\n\
+         cost-maps.npy   float32, C order, shape (P, H, W) = ({p}, {h}, {w}); entry [p, j, i] is the\n\
+         \x20               cost of source point p being at pixel centre (x = i, y = j)\n\
+         frame.{ext}       the camera frame the goal is drawn on\n\
+         camera.json     the camera: intrinsics (also as ROS CameraInfo), work plane, pose, zones\n\
+         manifest.json   SHA-256 of every other file, format version, this caution\n\n\
+         Pixel coordinates are [x, y], x right, y down, the centre of the top-left pixel at (0, 0).\n\
+         Source points are numbered over all terms in term order (goal.json derived.points);\n\
+         a rigid term contributes one point per source.\n\
+         Score offline with: goalsmith cost --bundle THIS.zip --points P.json | --maps M.npy\n",
+        caution = crate::SAFETY_CAUTION,
+        p = parts.points,
+        h = parts.height,
+        w = parts.width,
+        ext = parts.frame_ext,
+    )
+}
+
+/// A ZIP of the revision that is byte-for-byte the same every time: fixed entry order, fixed
+/// timestamps (1980-01-01, the ZIP epoch), fixed permissions, deterministic deflate.
+pub fn bundle_zip(parts: &BundleParts<'_>) -> Result<Vec<u8>, ScoreError> {
+    let frame_name = format!("frame.{}", parts.frame_ext);
+    let camera = crate::api::goals::canonical_json(parts.camera);
+    let readme = readme(parts);
+    let files: Vec<(&str, &[u8])> = vec![
+        ("goal.json", parts.goal_json.as_bytes()),
+        ("cost-maps.npy", parts.cost_maps_npy),
+        (frame_name.as_str(), parts.frame),
+        ("camera.json", camera.as_bytes()),
+        ("README.txt", readme.as_bytes()),
+    ];
+    let mut hashes = serde_json::Map::new();
+    for (name, bytes) in &files {
+        hashes.insert(
+            (*name).to_string(),
+            json!(hex::encode(Sha256::digest(bytes))),
+        );
+    }
+    let manifest = json!({
+        "format": "goalsmith-bundle",
+        "format_version": BUNDLE_FORMAT_VERSION,
+        "goal_id": parts.goal["goal_id"],
+        "revision": parts.goal["revision"],
+        "spec_sha256": parts.goal["sha256"],
+        "created_at": parts.goal["created_at"],
+        "frame": {"file": frame_name, "width": parts.width, "height": parts.height},
+        "cost_maps": {"file": "cost-maps.npy", "dtype": "float32", "shape": [parts.points, parts.height, parts.width]},
+        "files": hashes,
+        "caution": crate::SAFETY_CAUTION,
+    });
+    let manifest =
+        serde_json::to_string_pretty(&manifest).map_err(|e| ScoreError::Internal(e.to_string()))?;
+
+    let mut zip = zip::ZipWriter::new(Cursor::new(Vec::new()));
+    let options = zip::write::SimpleFileOptions::default()
+        .compression_method(zip::CompressionMethod::Deflated)
+        .compression_level(Some(6))
+        .last_modified_time(zip::DateTime::default())
+        .unix_permissions(0o644);
+    let zerr = |e: zip::result::ZipError| ScoreError::Internal(format!("zip: {e}"));
+    for (name, bytes) in files
+        .iter()
+        .chain(std::iter::once(&("manifest.json", manifest.as_bytes())))
+    {
+        // Frames are already compressed; storing them avoids work and keeps the bundle stable.
+        let opts = if name.starts_with("frame.") {
+            options
+                .compression_method(zip::CompressionMethod::Stored)
+                .compression_level(None)
+        } else {
+            options
+        };
+        zip.start_file(*name, opts).map_err(zerr)?;
+        zip.write_all(bytes)
+            .map_err(|e| ScoreError::Internal(format!("zip: {e}")))?;
+    }
+    Ok(zip.finish().map_err(zerr)?.into_inner())
+}
+
+/// Reads a bundle back: (revision document, frame width, frame height).
+pub fn read_bundle(bytes: &[u8]) -> Result<(Value, u32, u32), ScoreError> {
+    let mut archive = zip::ZipArchive::new(Cursor::new(bytes))
+        .map_err(|e| invalid("bad_bundle", None, format!("not a goalsmith bundle: {e}")))?;
+    let mut read = |name: &str| -> Result<Vec<u8>, ScoreError> {
+        let mut f = archive
+            .by_name(name)
+            .map_err(|_| invalid("bad_bundle", None, format!("the bundle has no {name}")))?;
+        let mut out = Vec::new();
+        std::io::Read::read_to_end(&mut f, &mut out)
+            .map_err(|e| invalid("bad_bundle", None, e.to_string()))?;
+        Ok(out)
+    };
+    let manifest: Value = serde_json::from_slice(&read("manifest.json")?)
+        .map_err(|e| invalid("bad_bundle", None, format!("manifest.json: {e}")))?;
+    let goal_bytes = read("goal.json")?;
+    let want = manifest["files"]["goal.json"].as_str().unwrap_or_default();
+    if hex::encode(Sha256::digest(&goal_bytes)) != want {
+        return Err(invalid(
+            "bad_bundle",
+            None,
+            "goal.json does not match its SHA-256 in manifest.json",
+        ));
+    }
+    let goal: Value = serde_json::from_slice(&goal_bytes)
+        .map_err(|e| invalid("bad_bundle", None, format!("goal.json: {e}")))?;
+    let dim = |k: &str| {
+        manifest["frame"][k]
+            .as_u64()
+            .and_then(|v| u32::try_from(v).ok())
+            .ok_or_else(|| {
+                invalid(
+                    "bad_bundle",
+                    None,
+                    format!("manifest.json has no frame {k}"),
+                )
+            })
+    };
+    Ok((goal, dim("width")?, dim("height")?))
+}
