@@ -10,7 +10,9 @@ Distances are from every pixel centre to the nearest painted pixel centre.
   scipy.ndimage.distance_transform_edt(~painted)      -- distance of nonzero to nearest zero
   cv2.distanceTransform(~painted, DIST_L2, DIST_MASK_PRECISE)
 
-Prints one JSON line per library: {"bench": ..., "median_ms": ..., "params": {...}}.
+Prints one JSON line per library: {"bench": ..., "median_ms": ..., "min_ms": ...,
+"cpu_median_ms": ..., "params": {...}}; cpu_median_ms counts only this process's CPU time,
+the fairer figure on a shared, busy machine.
 Run: tests/reference/.venv/bin/python tests/reference/bench_edt_compare.py
 """
 
