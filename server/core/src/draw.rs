@@ -14,6 +14,28 @@
 //! shape with any NaN or infinite coordinate is skipped.
 //!
 //! No image codec lives here; turning an [`Rgba8Image`] into a PNG is the caller's business.
+//!
+//! ```
+//! use goalsmith_core::draw::{Color, OverlayItem, Pen, Rgba8Image, render_overlay};
+//!
+//! let mut img = Rgba8Image::new(64, 48, Color::rgb(20, 20, 20)).unwrap();
+//! // Width 2 centred on y = 10 spans y 9..11: row 10 (y 9.5..10.5) is covered fully and
+//! // rows 9 and 11 by half, because pixel centres sit on whole coordinates.
+//! img.stroke_segment([4.0, 10.0], [60.0, 10.0], &Pen::new(2.0, Color::rgb(255, 255, 255)));
+//! assert_eq!(img.pixel(30, 10), Some(Color::rgb(255, 255, 255)));
+//! assert_eq!(img.pixel(30, 9).map(|c| c.r), Some(138)); // (255 + 20) / 2, rounded
+//! assert_eq!(img.pixel(30, 8), Some(Color::rgb(20, 20, 20)));
+//!
+//! let goal = [OverlayItem::PointMove {
+//!     source: [10.0, 30.0],
+//!     target: [50.0, 30.0],
+//!     tolerance_px: 5.0,
+//!     label: "1".into(),
+//! }];
+//! let overlay = render_overlay(&img, &goal);
+//! assert_eq!((overlay.width(), overlay.height()), (64, 48));
+//! assert_ne!(overlay, img);
+//! ```
 
 mod font;
 mod image;
