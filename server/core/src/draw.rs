@@ -43,6 +43,7 @@ mod noise;
 mod outline;
 mod overlay;
 pub mod palette;
+mod primitives;
 mod raster;
 pub mod scene;
 
@@ -51,4 +52,5 @@ pub use font::{
 };
 pub use image::{Color, DrawError, Rgba8Image};
 pub use overlay::{OverlayItem, ZoneKind, render_overlay};
-pub use raster::{FillRule, Pen};
+pub use primitives::Pen;
+pub use raster::FillRule;

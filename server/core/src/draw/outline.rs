@@ -1,7 +1,8 @@
 //! Dashed polygon outlines grown outward: the tolerance band of a region term.
 
 use super::image::Rgba8Image;
-use super::raster::{FillRule, Patch, Pen, band_coverage, finite};
+use super::primitives::Pen;
+use super::raster::{FillRule, Patch, band_coverage, finite};
 
 /// Arc-length bookkeeping for the outline of a polygon grown by `offset`: straight parts
 /// follow the edges, and each convex corner adds a circular arc of radius `offset`.

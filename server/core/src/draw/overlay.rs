@@ -3,7 +3,8 @@
 use super::font::{TextStyle, text_size};
 use super::image::{Color, Rgba8Image};
 use super::palette;
-use super::raster::{FillRule, Pen, finite};
+use super::primitives::Pen;
+use super::raster::{FillRule, finite};
 
 /// What a zone means for the planner.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
