@@ -82,11 +82,13 @@ pub async fn store_frame(
         state.store.pool(),
         team_id,
         &camera.id,
-        &sha,
-        stored_type,
-        i64::from(w),
-        i64::from(h),
-        &bytes,
+        &store::frames::NewImage {
+            sha256: &sha,
+            content_type: stored_type,
+            width: i64::from(w),
+            height: i64::from(h),
+            bytes: &bytes,
+        },
     )
     .await?)
 }

@@ -34,18 +34,35 @@ fn from_row(r: &AnyRow) -> FrameRow {
     }
 }
 
+/// A decoded, checked image about to become a frame.
+pub struct NewImage<'a> {
+    /// SHA-256 of `bytes`, lowercase hex.
+    pub sha256: &'a str,
+    /// `image/png` or `image/jpeg`.
+    pub content_type: &'a str,
+    /// Width in pixels.
+    pub width: i64,
+    /// Height in pixels.
+    pub height: i64,
+    /// The encoded image as uploaded.
+    pub bytes: &'a [u8],
+}
+
 /// Stores the image (if new) and a frame for it on the camera; returns the frame and whether it
 /// was new. Uploading the same bytes to the same camera again returns the existing frame.
 pub async fn insert(
     pool: &AnyPool,
     team_id: &str,
     camera_id: &str,
-    sha256: &str,
-    content_type: &str,
-    width: i64,
-    height: i64,
-    bytes: &[u8],
+    image: &NewImage<'_>,
 ) -> Result<(FrameRow, bool)> {
+    let NewImage {
+        sha256,
+        content_type,
+        width,
+        height,
+        bytes,
+    } = *image;
     let mut tx = pool.begin().await?;
     let now = now_ms();
     sqlx::query(

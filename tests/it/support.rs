@@ -5,7 +5,7 @@ use serde_json::Value;
 use std::io::{BufRead, BufReader};
 use std::path::PathBuf;
 use std::process::{Child, Command, Stdio};
-use std::time::{Duration, Instant};
+use std::time::Duration;
 
 /// Which database a test runs on.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -316,18 +316,6 @@ pub fn png(w: u32, h: u32, seed: u8) -> Vec<u8> {
     img.write_to(&mut out, image::ImageFormat::Png)
         .expect("encode png");
     out.into_inner()
-}
-
-/// Waits until `f` is true or panics after `secs`.
-pub async fn wait_until(secs: u64, mut f: impl FnMut() -> bool) {
-    let start = Instant::now();
-    while !f() {
-        assert!(
-            start.elapsed() < Duration::from_secs(secs),
-            "condition not reached in {secs}s"
-        );
-        tokio::time::sleep(Duration::from_millis(50)).await;
-    }
 }
 
 /// A team with a camera (64×48, zones optional) and a frame; returns (editor token, camera id,

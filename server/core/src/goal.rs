@@ -252,6 +252,9 @@ impl std::fmt::Display for GoalError {
 
 impl std::error::Error for GoalError {}
 
+/// Decodes a term's `mask_png_base64` into (width, height, painted flags), or says why not.
+pub type MaskDecoder<'a> = &'a dyn Fn(&str) -> Result<(usize, usize, Vec<bool>), String>;
+
 /// What the check needs to know about the frame and its camera.
 pub struct CheckContext<'a> {
     /// Frame width in pixels.
@@ -263,7 +266,7 @@ pub struct CheckContext<'a> {
     /// Targets must not lie inside any of these.
     pub no_go_zones: &'a [Polygon],
     /// Decodes a term's `mask_png_base64` into (width, height, painted flags).
-    pub decode_mask: &'a dyn Fn(&str) -> Result<(usize, usize, Vec<bool>), String>,
+    pub decode_mask: MaskDecoder<'a>,
     /// Whether a reward fit with this id exists for the team and frame.
     pub reward_fit_exists: &'a dyn Fn(&str) -> bool,
 }
