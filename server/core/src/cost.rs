@@ -633,7 +633,7 @@ const LANES: usize = 16;
 /// (NaN in `a` shows up as a NaN sum, so the caller checks sum finite and min ≥ 0).
 #[inline(always)]
 fn dot_min_f32(a: &[f32], b: &[f32]) -> (f64, f32) {
-    let mut total = 0.0f64;
+    let mut total = [0.0f64; LANES];
     let mut mn = [f32::INFINITY; LANES];
     for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
         let mut acc = [0.0f32; LANES];
@@ -649,9 +649,14 @@ fn dot_min_f32(a: &[f32], b: &[f32]) -> (f64, f32) {
             acc[0] += x * y;
             mn[0] = if *x < mn[0] { *x } else { mn[0] };
         }
-        total += acc.iter().map(|&v| f64::from(v)).sum::<f64>();
+        for l in 0..LANES {
+            total[l] += f64::from(acc[l]);
+        }
     }
-    (total, mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)))
+    (
+        total.iter().sum(),
+        mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)),
+    )
 }
 
 /// As [`dot_min_f32`] for float16 `a`, converted block by block into a stack buffer.
