@@ -409,41 +409,47 @@ fn readme(parts: &BundleParts<'_>) -> String {
     )
 }
 
-/// A ZIP of the revision that is byte-for-byte the same every time: fixed entry order, fixed
-/// timestamps (1980-01-01, the ZIP epoch), fixed permissions, deterministic deflate.
-pub fn bundle_zip(parts: &BundleParts<'_>) -> Result<Vec<u8>, ScoreError> {
-    let frame_name = format!("frame.{}", parts.frame_ext);
-    let camera = crate::api::goals::canonical_json(parts.camera);
-    let readme = readme(parts);
-    let files: Vec<(&str, &[u8])> = vec![
-        ("goal.json", parts.goal_json.as_bytes()),
-        ("cost-maps.npy", parts.cost_maps_npy),
-        (frame_name.as_str(), parts.frame),
-        ("camera.json", camera.as_bytes()),
-        ("README.txt", readme.as_bytes()),
-    ];
+/// The files of one revision's bundle (without the manifest), in bundle order.
+pub fn revision_files(parts: &BundleParts<'_>) -> Vec<(String, Vec<u8>)> {
+    vec![
+        ("goal.json".into(), parts.goal_json.as_bytes().to_vec()),
+        ("cost-maps.npy".into(), parts.cost_maps_npy.to_vec()),
+        (format!("frame.{}", parts.frame_ext), parts.frame.to_vec()),
+        ("camera.json".into(), crate::api::goals::canonical_json(parts.camera).into_bytes()),
+        ("README.txt".into(), readme(parts).into_bytes()),
+    ]
+}
+
+/// SHA-256 of each file, by name.
+pub fn file_hashes(files: &[(String, Vec<u8>)]) -> Value {
     let mut hashes = serde_json::Map::new();
-    for (name, bytes) in &files {
-        hashes.insert(
-            (*name).to_string(),
-            json!(hex::encode(Sha256::digest(bytes))),
-        );
+    for (name, bytes) in files {
+        hashes.insert(name.clone(), json!(hex::encode(Sha256::digest(bytes))));
     }
-    let manifest = json!({
+    Value::Object(hashes)
+}
+
+/// The manifest of one revision's bundle.
+pub fn revision_manifest(parts: &BundleParts<'_>, files: &[(String, Vec<u8>)]) -> Value {
+    json!({
         "format": "goalsmith-bundle",
         "format_version": BUNDLE_FORMAT_VERSION,
         "goal_id": parts.goal["goal_id"],
         "revision": parts.goal["revision"],
+        "name": parts.goal["name"],
         "spec_sha256": parts.goal["sha256"],
         "created_at": parts.goal["created_at"],
-        "frame": {"file": frame_name, "width": parts.width, "height": parts.height},
+        "frame": {"file": format!("frame.{}", parts.frame_ext), "width": parts.width, "height": parts.height},
         "cost_maps": {"file": "cost-maps.npy", "dtype": "float32", "shape": [parts.points, parts.height, parts.width]},
-        "files": hashes,
+        "files": file_hashes(files),
         "caution": crate::SAFETY_CAUTION,
-    });
-    let manifest =
-        serde_json::to_string_pretty(&manifest).map_err(|e| ScoreError::Internal(e.to_string()))?;
+    })
+}
 
+/// A ZIP that is byte-for-byte the same for the same files: given entry order, fixed
+/// timestamps (1980-01-01, the ZIP epoch), fixed permissions, deterministic deflate; images,
+/// already compressed, are stored.
+pub fn zip_files(files: &[(String, Vec<u8>)]) -> Result<Vec<u8>, ScoreError> {
     let mut zip = zip::ZipWriter::new(Cursor::new(Vec::new()));
     let options = zip::write::SimpleFileOptions::default()
         .compression_method(zip::CompressionMethod::Deflated)
@@ -451,23 +457,65 @@ pub fn bundle_zip(parts: &BundleParts<'_>) -> Result<Vec<u8>, ScoreError> {
         .last_modified_time(zip::DateTime::default())
         .unix_permissions(0o644);
     let zerr = |e: zip::result::ZipError| ScoreError::Internal(format!("zip: {e}"));
-    for (name, bytes) in files
-        .iter()
-        .chain(std::iter::once(&("manifest.json", manifest.as_bytes())))
-    {
-        // Frames are already compressed; storing them avoids work and keeps the bundle stable.
-        let opts = if name.starts_with("frame.") {
+    for (name, bytes) in files {
+        let stored = name.ends_with(".png") || name.ends_with(".jpg");
+        let opts = if stored {
             options
                 .compression_method(zip::CompressionMethod::Stored)
                 .compression_level(None)
         } else {
             options
         };
-        zip.start_file(*name, opts).map_err(zerr)?;
+        zip.start_file(name.as_str(), opts).map_err(zerr)?;
         zip.write_all(bytes)
             .map_err(|e| ScoreError::Internal(format!("zip: {e}")))?;
     }
     Ok(zip.finish().map_err(zerr)?.into_inner())
+}
+
+fn pretty(v: &Value) -> Result<Vec<u8>, ScoreError> {
+    serde_json::to_vec_pretty(v).map_err(|e| ScoreError::Internal(e.to_string()))
+}
+
+/// One revision's bundle: its files and `manifest.json`, reproducible byte for byte.
+pub fn bundle_zip(parts: &BundleParts<'_>) -> Result<Vec<u8>, ScoreError> {
+    let mut files = revision_files(parts);
+    let manifest = revision_manifest(parts, &files);
+    files.push(("manifest.json".into(), pretty(&manifest)?));
+    zip_files(&files)
+}
+
+/// A goal set's bundle: each item's revision files under `NN-<goal id>/` (in set order, each
+/// with its own manifest) and a top-level `manifest.json` listing items and every file's hash.
+pub fn goal_set_zip(set: &Value, items: &[BundleParts<'_>]) -> Result<Vec<u8>, ScoreError> {
+    let mut all = Vec::new();
+    let mut listed = Vec::new();
+    for (k, parts) in items.iter().enumerate() {
+        let dir = format!("{:02}-{}", k + 1, parts.goal["goal_id"].as_str().unwrap_or("goal"));
+        let mut files = revision_files(parts);
+        let manifest = revision_manifest(parts, &files);
+        files.push(("manifest.json".into(), pretty(&manifest)?));
+        listed.push(json!({
+            "position": k + 1,
+            "folder": dir,
+            "goal_id": parts.goal["goal_id"],
+            "revision": parts.goal["revision"],
+            "name": parts.goal["name"],
+        }));
+        all.extend(files.into_iter().map(|(n, b)| (format!("{dir}/{n}"), b)));
+    }
+    let manifest = json!({
+        "format": "goalsmith-goal-set-bundle",
+        "format_version": BUNDLE_FORMAT_VERSION,
+        "goal_set_id": set["id"],
+        "name": set["name"],
+        "version": set["version"],
+        "items": listed,
+        "files": file_hashes(&all),
+        "caution": crate::SAFETY_CAUTION,
+    });
+    all.push(("manifest.json".into(), pretty(&manifest)?));
+    zip_files(&all)
 }
 
 /// Reads a bundle back: (revision document, frame width, frame height).

@@ -241,11 +241,68 @@ pub fn camera_json(row: &CameraRow) -> ApiResult<Value> {
     v["id"] = Value::String(row.id.clone());
     v["created_at"] = Value::String(rfc3339(row.created_at));
     v["camera_info"] = match doc.intrinsics() {
-        Some(i) => serde_json::to_value(i.to_camera_info(doc.width, doc.height))
-            .map_err(|e| ApiError::Internal(e.to_string()))?,
+        Some(i) => camera_info_json(&i, doc.width, doc.height),
         None => Value::Null,
     };
     Ok(v)
+}
+
+/// Intrinsics as the fields of a ROS CameraInfo message (REP 104 names: K, D, R, P).
+pub fn camera_info_json(i: &Intrinsics, width: u32, height: u32) -> Value {
+    let ci = i.to_camera_info(width, height);
+    serde_json::json!({
+        "width": ci.width,
+        "height": ci.height,
+        "distortion_model": ci.distortion_model,
+        "D": ci.d,
+        "K": ci.k,
+        "R": ci.r,
+        "P": ci.p,
+    })
+}
+
+/// Query of `GET /api/cameras/{id}/intrinsics`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ResizeQuery {
+    width: Option<u32>,
+    height: Option<u32>,
+}
+
+/// `GET /api/cameras/{id}/intrinsics[?width=w&height=h]`: the intrinsics for frames resized to
+/// w × h (fx, cx scaled by w/W; fy, cy by h/H; pixel centres kept at integers), in both forms.
+pub async fn intrinsics(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+    query: Result<axum::extract::Query<ResizeQuery>, axum::extract::rejection::QueryRejection>,
+) -> ApiResult<Json<Value>> {
+    let axum::extract::Query(q) =
+        query.map_err(|e| ApiError::invalid_body("bad_query", e.body_text()))?;
+    let row = load(&state, &who, &id).await?;
+    let doc = parse_doc(&row)?;
+    let intr = doc.intrinsics().ok_or_else(|| {
+        ApiError::NotFound(format!("camera {:?} has no intrinsics", doc.name))
+    })?;
+    let (w, h) = (q.width.unwrap_or(doc.width), q.height.unwrap_or(doc.height));
+    if w == 0 || h == 0 || w > MAX_SIDE || h > MAX_SIDE {
+        return Err(ApiError::invalid("bad_size", "width", format!("width and height must be between 1 and {MAX_SIDE}")));
+    }
+    let scaled = intr
+        .scaled(f64::from(w) / f64::from(doc.width), f64::from(h) / f64::from(doc.height))
+        .map_err(|e| ApiError::invalid("bad_size", "width", e.to_string()))?;
+    Ok(Json(serde_json::json!({
+        "width": w,
+        "height": h,
+        "intrinsics": IntrinsicsDoc {
+            fx: scaled.fx(),
+            fy: scaled.fy(),
+            cx: scaled.cx(),
+            cy: scaled.cy(),
+            distortion: scaled.distortion(),
+        },
+        "camera_info": camera_info_json(&scaled, w, h),
+    })))
 }
 
 /// Parses a stored camera document.

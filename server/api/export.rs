@@ -89,7 +89,8 @@ pub async fn load(state: &AppState, who: &Principal, id: &str, n: &str) -> ApiRe
     })
 }
 
-fn binary(
+/// A binary download with a strong ETag (SHA-256 of the bytes), a file name and the caution.
+pub fn binary(
     content_type: &'static str,
     filename: String,
     bytes: Vec<u8>,

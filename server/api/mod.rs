@@ -9,6 +9,7 @@ pub mod error;
 pub mod export;
 pub mod extract;
 pub mod frames;
+pub mod goal_sets;
 pub mod goals;
 pub mod openapi;
 
@@ -39,6 +40,7 @@ pub const ROUTES: &[(&str, &str)] = &[
     ("POST", "/api/cameras"),
     ("GET", "/api/cameras"),
     ("GET", "/api/cameras/{id}"),
+    ("GET", "/api/cameras/{id}/intrinsics"),
     ("POST", "/api/cameras/{id}/frames"),
     ("GET", "/api/cameras/{id}/frames"),
     ("GET", "/api/frames/{id}"),
@@ -55,6 +57,11 @@ pub const ROUTES: &[(&str, &str)] = &[
     ("GET", "/api/goals/{id}/revisions/{n}/bundle.zip"),
     ("POST", "/api/goals/{id}/revisions/{n}/outcomes"),
     ("GET", "/api/goals/{id}/outcomes"),
+    ("POST", "/api/goal-sets"),
+    ("GET", "/api/goal-sets"),
+    ("GET", "/api/goal-sets/{id}"),
+    ("PUT", "/api/goal-sets/{id}"),
+    ("GET", "/api/goal-sets/{id}/bundle.zip"),
 ];
 
 /// The API router; `app` adds pages, static files and the layers around everything.
@@ -80,6 +87,7 @@ pub fn router(state: AppState) -> Router<AppState> {
     let json_routes = Router::new()
         .route("/api/cameras", post(cameras::create).get(cameras::list))
         .route("/api/cameras/{id}", get(cameras::get_one))
+        .route("/api/cameras/{id}/intrinsics", get(cameras::intrinsics))
         .route("/api/frames/{id}", get(frames::get_one))
         .route("/api/frames/{id}/image", get(frames::image))
         .route("/api/goals", post(goals::create).get(goals::list))
@@ -103,6 +111,9 @@ pub fn router(state: AppState) -> Router<AppState> {
             post(export::report_outcome),
         )
         .route("/api/goals/{id}/outcomes", get(export::outcomes))
+        .route("/api/goal-sets", post(goal_sets::create).get(goal_sets::list))
+        .route("/api/goal-sets/{id}", get(goal_sets::get_one).put(goal_sets::update))
+        .route("/api/goal-sets/{id}/bundle.zip", get(goal_sets::bundle))
         .layer(DefaultBodyLimit::max(json_limit))
         .layer(RequestBodyLimitLayer::new(json_limit));
 

@@ -5,6 +5,7 @@
 
 pub mod cameras;
 pub mod frames;
+pub mod goal_sets;
 pub mod goals;
 pub mod outcomes;
 pub mod teams;

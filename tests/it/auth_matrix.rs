@@ -13,10 +13,15 @@ enum Body {
     Goal,
     Points,
     Outcome,
+    Set,
 }
 
 async fn matrix(s: Server) {
-    let (editor, cam, frame) = camera_and_frame(&s, "potting", json!({})).await;
+    let (editor, cam, frame) = camera_and_frame(
+        &s,
+        "potting",
+        json!({"intrinsics": {"fx": 50.0, "fy": 50.0, "cx": 31.5, "cy": 23.5}}),
+    ).await;
     let viewer = s.token("potting", "viewer");
     let owner = s.token("potting", "owner");
     let other = s.token("seedlings", "owner");
@@ -29,6 +34,11 @@ async fn matrix(s: Server) {
         .await;
     assert_eq!(st, StatusCode::CREATED);
     let goal = rev["goal_id"].as_str().unwrap().to_string();
+    let (st, set) = s
+        .post("/api/goal-sets", Some(&editor), &json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}))
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{set}");
+    let set = set["id"].as_str().unwrap().to_string();
 
     // Columns: no token, other team, viewer, editor, owner.
     use StatusCode as S;
@@ -175,6 +185,12 @@ async fn matrix(s: Server) {
             Body::None,
             [unauth, nf, ok, ok, ok],
         ),
+        (Method::GET, format!("/api/cameras/{cam}/intrinsics"), Body::None, [unauth, nf, ok, ok, ok]),
+        (Method::POST, "/api/goal-sets".into(), Body::Set, [unauth, invalid, forbidden, created, created]),
+        (Method::GET, "/api/goal-sets".into(), Body::None, [unauth, ok, ok, ok, ok]),
+        (Method::GET, format!("/api/goal-sets/{set}"), Body::None, [unauth, nf, ok, ok, ok]),
+        (Method::PUT, format!("/api/goal-sets/{set}"), Body::Set, [unauth, nf, forbidden, ok, ok]),
+        (Method::GET, format!("/api/goal-sets/{set}/bundle.zip"), Body::None, [unauth, nf, ok, ok, ok]),
     ];
     let routes: Vec<(String, String)> = table
         .iter()
@@ -184,6 +200,7 @@ async fn matrix(s: Server) {
                 p.replace(&cam, "{id}")
                     .replace(&frame, "{id}")
                     .replace(&goal, "{id}")
+                    .replace(&set, "{id}")
                     .replacen("/revisions/1", "/revisions/{n}", 1),
             )
         })
@@ -217,6 +234,13 @@ async fn matrix(s: Server) {
                     seed += 1;
                     req.header("content-type", "image/png")
                         .body(png(64, 48, seed))
+                }
+                Body::Set => {
+                    if *method == Method::PUT {
+                        let resp = s.client.get(s.url(&format!("/api/goal-sets/{set}"))).bearer_auth(&editor).send().await.unwrap();
+                        req = req.header("if-match", etag(&resp).unwrap());
+                    }
+                    req.json(&json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}))
                 }
                 Body::Points => req.json(&json!({"points": [[[[20.0, 20.0]]]]})),
                 Body::Outcome => req.json(&json!({"final_points": [[40.0, 30.0]]})),

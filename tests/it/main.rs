@@ -7,5 +7,6 @@ mod auth_matrix;
 mod bad_input;
 mod concurrency;
 mod export;
+mod goal_sets;
 mod restart;
 mod routes;

@@ -1,0 +1,231 @@
+//! Goal sets: named, ordered lists of goals pinned at revisions, exported as one bundle.
+
+use super::auth::{Principal, Role};
+use super::error::{ApiError, ApiResult};
+use super::export;
+use super::extract::JsonBody;
+use super::goals::{canonical_json, etag_of, if_none_match, load_revision};
+use super::{AppState, items, parse_id, rfc3339};
+use crate::scoring;
+use crate::store::{self, goal_sets::GoalSetRow};
+use axum::extract::{Path, State};
+use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use serde::Deserialize;
+use serde_json::{Value, json};
+
+/// Most items in one set.
+pub const MAX_ITEMS: usize = 500;
+
+/// Body of `POST /api/goal-sets` and `PUT /api/goal-sets/{id}`.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GoalSetInput {
+    name: String,
+    items: Vec<ItemInput>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ItemInput {
+    goal_id: String,
+    revision: i64,
+}
+
+/// Checks the body: a name, 1..=500 items, each an existing revision of a team goal.
+async fn check(state: &AppState, who: &Principal, input: GoalSetInput) -> ApiResult<(String, Vec<Value>)> {
+    let name = input.name.trim().to_string();
+    if name.is_empty() || name.chars().count() > 200 {
+        return Err(ApiError::invalid("bad_name", "name", "a goal set needs a name of 1 to 200 characters"));
+    }
+    if input.items.is_empty() || input.items.len() > MAX_ITEMS {
+        return Err(ApiError::invalid("bad_items", "items", format!("a goal set holds 1 to {MAX_ITEMS} items")));
+    }
+    let mut out = Vec::with_capacity(input.items.len());
+    for (k, item) in input.items.iter().enumerate() {
+        if item.revision < 1 {
+            return Err(ApiError::invalid("bad_revision", format!("items[{k}].revision"), "revisions start at 1"));
+        }
+        let rev = match load_revision(state, who, &item.goal_id, Some(item.revision)).await {
+            Ok(r) => r,
+            Err(ApiError::NotFound(m)) => {
+                let field = if load_revision(state, who, &item.goal_id, None).await.is_ok() {
+                    format!("items[{k}].revision")
+                } else {
+                    format!("items[{k}].goal_id")
+                };
+                return Err(ApiError::invalid("unknown_revision", field, m));
+            }
+            Err(e) => return Err(e),
+        };
+        out.push(json!({"goal_id": rev.goal_id, "revision": rev.revision, "name": rev.name, "sha256": rev.sha256}));
+    }
+    Ok((name, out))
+}
+
+fn document(id: &str, name: &str, version: i64, items: &[Value], author: &str, created: i64, updated: i64) -> String {
+    canonical_json(&json!({
+        "id": id,
+        "name": name,
+        "version": version,
+        "items": items,
+        "author": author,
+        "created_at": rfc3339(created),
+        "updated_at": rfc3339(updated),
+    }))
+}
+
+fn respond(status: StatusCode, row: &GoalSetRow) -> Response {
+    let mut resp = (
+        status,
+        [(header::CONTENT_TYPE, HeaderValue::from_static("application/json"))],
+        row.document.clone(),
+    )
+        .into_response();
+    if let Ok(v) = HeaderValue::from_str(&etag_of(&row.document)) {
+        resp.headers_mut().insert(header::ETAG, v);
+    }
+    resp
+}
+
+async fn load(state: &AppState, who: &Principal, id: &str) -> ApiResult<GoalSetRow> {
+    let id = parse_id(id, "goal set")?;
+    store::goal_sets::get(state.store.pool(), &who.team_id, &id)
+        .await?
+        .ok_or_else(|| ApiError::NotFound(format!("no goal set with id {id}")))
+}
+
+/// `POST /api/goal-sets`.
+pub async fn create(
+    State(state): State<AppState>,
+    who: Principal,
+    JsonBody(input): JsonBody<GoalSetInput>,
+) -> ApiResult<Response> {
+    who.require(Role::Editor)?;
+    let (name, items) = check(&state, &who, input).await?;
+    let id = uuid::Uuid::new_v4().to_string();
+    let now = store::now_ms();
+    let row = GoalSetRow {
+        document: document(&id, &name, 1, &items, &who.author, now, now),
+        id,
+        name,
+        version: 1,
+        created_at: now,
+        updated_at: now,
+    };
+    store::goal_sets::insert(state.store.pool(), &who.team_id, &row).await?;
+    Ok(respond(StatusCode::CREATED, &row))
+}
+
+/// `GET /api/goal-sets`.
+pub async fn list(State(state): State<AppState>, who: Principal) -> ApiResult<axum::Json<Value>> {
+    let rows = store::goal_sets::list(state.store.pool(), &who.team_id).await?;
+    let docs = rows
+        .iter()
+        .map(|r| serde_json::from_str::<Value>(&r.document).map_err(|e| ApiError::Internal(e.to_string())))
+        .collect::<ApiResult<Vec<_>>>()?;
+    Ok(items(docs))
+}
+
+/// `GET /api/goal-sets/{id}`.
+pub async fn get_one(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+    headers: HeaderMap,
+) -> ApiResult<Response> {
+    let row = load(&state, &who, &id).await?;
+    let etag = etag_of(&row.document);
+    if if_none_match(&headers, &etag) {
+        return Ok((StatusCode::NOT_MODIFIED, [(header::ETAG, etag)]).into_response());
+    }
+    Ok(respond(StatusCode::OK, &row))
+}
+
+/// `PUT /api/goal-sets/{id}` with `If-Match` (428 without, 412 when stale).
+pub async fn update(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+    headers: HeaderMap,
+    JsonBody(input): JsonBody<GoalSetInput>,
+) -> ApiResult<Response> {
+    who.require(Role::Editor)?;
+    let current = load(&state, &who, &id).await?;
+    let Some(if_match) = headers.get(header::IF_MATCH) else {
+        return Err(ApiError::PreconditionRequired);
+    };
+    let tag = etag_of(&current.document);
+    if !if_match.to_str().unwrap_or("").split(',').map(str::trim).any(|t| t == "*" || t == tag) {
+        return Err(ApiError::PreconditionFailed(format!(
+            "the goal set changed since you loaded it (it is at version {}); reload it and apply your change again",
+            current.version
+        )));
+    }
+    let (name, items) = check(&state, &who, input).await?;
+    let now = store::now_ms();
+    let row = GoalSetRow {
+        id: current.id.clone(),
+        document: document(&current.id, &name, current.version + 1, &items, &who.author, current.created_at, now),
+        name,
+        version: current.version + 1,
+        created_at: current.created_at,
+        updated_at: now,
+    };
+    if !store::goal_sets::update(state.store.pool(), &who.team_id, current.version, &row).await? {
+        return Err(ApiError::PreconditionFailed(
+            "someone saved the goal set at the same moment; reload it and apply your change again".into(),
+        ));
+    }
+    Ok(respond(StatusCode::OK, &row))
+}
+
+/// `GET /api/goal-sets/{id}/bundle.zip`: every pinned revision's bundle in one ZIP, in order.
+pub async fn bundle(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+    headers: HeaderMap,
+) -> ApiResult<Response> {
+    let row = load(&state, &who, &id).await?;
+    let set: Value = serde_json::from_str(&row.document).map_err(|e| ApiError::Internal(e.to_string()))?;
+    let mut loaded = Vec::new();
+    for item in set["items"].as_array().into_iter().flatten() {
+        let goal = item["goal_id"].as_str().unwrap_or_default();
+        let n = item["revision"].to_string();
+        let l = export::load(&state, &who, goal, &n).await?;
+        let (content_type, frame) = store::frames::image_bytes(state.store.pool(), &l.frame.sha256)
+            .await?
+            .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
+        loaded.push((l, content_type, frame));
+    }
+    let zip = tokio::task::spawn_blocking(move || {
+        let mut maps = Vec::new();
+        for (l, _, _) in &loaded {
+            let (w, h) = l.spec.frame_size();
+            maps.push(scoring::cost_maps_npy(&l.model, w as usize, h as usize)?);
+        }
+        let parts: Vec<scoring::BundleParts<'_>> = loaded
+            .iter()
+            .zip(&maps)
+            .map(|((l, ct, frame), m)| {
+                let (w, h) = l.spec.frame_size();
+                scoring::BundleParts {
+                    goal_json: &l.row.document,
+                    goal: &l.doc,
+                    camera: &l.camera_json,
+                    cost_maps_npy: m,
+                    frame,
+                    frame_ext: if ct == "image/png" { "png" } else { "jpg" },
+                    points: l.model.len(),
+                    width: w,
+                    height: h,
+                }
+            })
+            .collect();
+        scoring::goal_set_zip(&set, &parts)
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??;
+    Ok(export::binary("application/zip", format!("goal-set-{id}-v{}.zip", row.version), zip, &headers))
+}
