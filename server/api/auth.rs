@@ -1,7 +1,7 @@
 //! Who is asking: API tokens (robots, planners) and, from the pages, session cookies.
 //!
 //! Tokens are 32 random bytes shown once; only their SHA-256 is stored, so a leaked database does
-//! not leak credentials.
+//! not leak credentials. Session cookies follow the same rule (see `store::accounts`).
 
 use super::AppState;
 use super::error::ApiError;
@@ -100,6 +100,71 @@ pub async fn create_token(
     Ok(token)
 }
 
+/// Name of the session cookie set by the sign-in page.
+pub const SESSION_COOKIE: &str = "gs_session";
+/// Header carrying the session's CSRF token on cookie-authenticated `fetch` writes.
+pub const CSRF_HEADER: &str = "x-csrf-token";
+
+/// The browser session behind a cookie-authenticated request, left in the request extensions by
+/// [`Principal`] extraction so pages can show who is signed in.
+#[derive(Debug, Clone)]
+pub struct SessionAuth(pub store::accounts::SessionInfo);
+
+/// The value of cookie `name` in the request's `Cookie` headers.
+pub fn cookie<'a>(headers: &'a axum::http::HeaderMap, name: &str) -> Option<&'a str> {
+    headers
+        .get_all(header::COOKIE)
+        .iter()
+        .filter_map(|v| v.to_str().ok())
+        .flat_map(|v| v.split(';'))
+        .filter_map(|pair| pair.trim().split_once('='))
+        .find(|(k, _)| *k == name)
+        .map(|(_, v)| v.trim())
+}
+
+/// Compares two secrets in time independent of where they differ.
+pub fn same_secret(a: &str, b: &str) -> bool {
+    let (a, b) = (a.as_bytes(), b.as_bytes());
+    if a.len() != b.len() {
+        return false;
+    }
+    a.iter().zip(b).fold(0u8, |acc, (x, y)| acc | (x ^ y)) == 0
+}
+
+/// Methods that change nothing and so need no CSRF token.
+pub fn is_safe_method(m: &axum::http::Method) -> bool {
+    matches!(
+        *m,
+        axum::http::Method::GET | axum::http::Method::HEAD | axum::http::Method::OPTIONS
+    )
+}
+
+/// Looks up the session of a request's cookie, if it has a live one.
+pub async fn session_of(
+    headers: &axum::http::HeaderMap,
+    state: &AppState,
+) -> Result<Option<store::accounts::SessionInfo>, ApiError> {
+    let Some(value) = cookie(headers, SESSION_COOKIE) else {
+        return Ok(None);
+    };
+    Ok(store::accounts::find_session(state.store.pool(), &hash_token(value)).await?)
+}
+
+/// The principal a session acts as.
+pub fn session_principal(info: &store::accounts::SessionInfo) -> Result<Principal, ApiError> {
+    let role = Role::parse(&info.role).ok_or_else(|| {
+        ApiError::Internal(format!(
+            "membership of {} has role {:?}",
+            info.person_id, info.role
+        ))
+    })?;
+    Ok(Principal {
+        team_id: info.team_id.clone(),
+        role,
+        author: info.display_name.clone(),
+    })
+}
+
 impl FromRequestParts<AppState> for Principal {
     type Rejection = ApiError;
 
@@ -111,7 +176,7 @@ impl FromRequestParts<AppState> for Principal {
             return Ok(p.clone());
         }
         let Some(value) = parts.headers.get(header::AUTHORIZATION) else {
-            return Err(ApiError::Unauthorized);
+            return from_session(parts, state).await;
         };
         let value = value.to_str().map_err(|_| ApiError::Unauthorized)?;
         let token = value
@@ -133,4 +198,32 @@ impl FromRequestParts<AppState> for Principal {
         parts.extensions.insert(principal.clone());
         Ok(principal)
     }
+}
+
+/// The browser's way in: the session cookie. A cookie is sent by the browser on its own, so any
+/// state-changing request made with it must also prove it came from our own page by echoing the
+/// session's CSRF token in `X-CSRF-Token` (SameSite=Strict is the first fence, this the second).
+/// Bearer tokens are never sent implicitly and need no such proof.
+async fn from_session(parts: &mut Parts, state: &AppState) -> Result<Principal, ApiError> {
+    let info = session_of(&parts.headers, state)
+        .await?
+        .ok_or(ApiError::Unauthorized)?;
+    if !is_safe_method(&parts.method) {
+        let sent = parts
+            .headers
+            .get(CSRF_HEADER)
+            .and_then(|v| v.to_str().ok())
+            .unwrap_or("");
+        if !same_secret(sent, &info.csrf_token) {
+            return Err(ApiError::Forbidden(
+                "this request carries the browser's session cookie but not its CSRF token \
+                 (X-CSRF-Token); reload the page and try again"
+                    .into(),
+            ));
+        }
+    }
+    let principal = session_principal(&info)?;
+    parts.extensions.insert(principal.clone());
+    parts.extensions.insert(SessionAuth(info));
+    Ok(principal)
 }

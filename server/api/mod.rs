@@ -62,6 +62,7 @@ pub const ROUTES: &[(&str, &str)] = &[
     ("GET", "/api/goal-sets/{id}"),
     ("PUT", "/api/goal-sets/{id}"),
     ("GET", "/api/goal-sets/{id}/bundle.zip"),
+    ("POST", "/api/preview/cost-map.png"),
 ];
 
 /// The API router; `app` adds pages, static files and the layers around everything.
@@ -185,8 +186,12 @@ async fn healthz(State(state): State<AppState>) -> Response {
     }
 }
 
-async fn api_not_found() -> error::ApiError {
-    error::ApiError::NotFound("no such route".into())
+async fn api_not_found(uri: axum::http::Uri) -> Response {
+    // Paths outside /api belong to people: they get a readable page, not JSON.
+    if !uri.path().starts_with("/api/") && uri.path() != "/healthz" {
+        return crate::pages::not_found_page();
+    }
+    error::ApiError::NotFound("no such route".into()).into_response()
 }
 
 /// Lists are always `{"items": [...]}`.

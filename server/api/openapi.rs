@@ -133,6 +133,7 @@ const OPERATIONS: &[(&str, &str, &str, Option<&str>, &str)] = &[
     ("get", "/api/goal-sets/{id}", "One goal set (ETag for If-Match)", None, "200"),
     ("put", "/api/goal-sets/{id}", "Save a goal set; needs If-Match (428 without, 412 when stale)", Some("application/json"), "200"),
     ("get", "/api/goal-sets/{id}/bundle.zip", "Every pinned revision's bundle in one reproducible ZIP, in set order", None, "200"),
+    ("post", "/api/preview/cost-map.png", "Cost map of one source point of an unsaved goal {goal, point, max_side?} as a translucent heat PNG (the editor's live preview); 422 with field when the goal would be refused", Some("application/json"), "200"),
     ("get", "/api/cameras/{id}/intrinsics", "Intrinsics (both forms) for frames resized to ?width=&height= (fx, cx by the horizontal factor; fy, cy by the vertical)", None, "200"),
 ];
 

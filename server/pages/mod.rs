@@ -1,22 +1,180 @@
-//! Server-rendered pages for people: sign-in, team home, the goal editor, history, goal sets.
+//! Server-rendered pages for people: sign-in, team home, the goal editor, history, goal sets,
+//! members and tokens.
+//!
+//! Every page is one askama struct rendered through [`render::render`]; forms post and redirect
+//! (post/redirect/get) with a one-shot flash message; state-changing forms carry the session's
+//! CSRF token, checked by [`session::CsrfForm`]. The editor and other widgets are small ES modules
+//! under `web/static/` that talk to the JSON API with the session cookie and `X-CSRF-Token`.
+
+pub mod account;
+pub mod compare;
+pub mod error;
+pub mod goals;
+pub mod home;
+pub mod preview;
+pub mod render;
+pub mod session;
+pub mod sets;
+pub mod team;
 
 use crate::api::AppState;
+use crate::api::auth::hash_token;
+use crate::store;
 use axum::Router;
+use axum::extract::DefaultBodyLimit;
+use axum::http::{StatusCode, header};
+use axum::response::{IntoResponse, Response};
+use axum::routing::{get, post};
 use std::net::SocketAddr;
+use tower_http::limit::RequestBodyLimitLayer;
+
+/// How long the start-up sign-in link stays valid.
+const STARTUP_LINK_HOURS: i64 = 24;
 
 /// The page routes (merged beside the API by `app`).
 pub fn router() -> Router<AppState> {
+    // Frame uploads from the no-script form take the same limit as the API's upload route; the
+    // limit is read per request from the state, so it is applied in the handler's extractor.
+    let uploads = Router::new()
+        .route("/cameras/{id}/frames", post(home::upload_frame))
+        .layer(DefaultBodyLimit::disable());
+    let forms = Router::new()
+        .route("/signin", get(account::signin_form).post(account::signin))
+        .route("/signout", post(account::signout))
+        .route(
+            "/welcome/{token}",
+            get(account::welcome_form).post(account::welcome),
+        )
+        .route("/account", get(account::account))
+        .route("/account/password", post(account::change_password))
+        .route("/account/team", post(account::switch_team))
+        .route("/", get(home::home))
+        .route("/cameras", post(home::create_camera))
+        .route("/goals/new", get(goals::new_goal))
+        .route("/goals/{id}", get(goals::editor))
+        .route("/goals/{id}/history", get(goals::history))
+        .route("/goals/{id}/compare", get(goals::compare))
+        .route("/goals/{id}/restore", post(goals::restore))
+        .route("/goal-sets", get(sets::list).post(sets::create))
+        .route("/goal-sets/{id}", get(sets::show).post(sets::update))
+        .route("/team", get(team::team))
+        .route("/team/name", post(team::rename))
+        .route("/team/invites", post(team::invite))
+        .route("/team/invites/{id}/withdraw", post(team::withdraw_invite))
+        .route("/team/members/{id}/role", post(team::set_role))
+        .route("/team/members/{id}/remove", post(team::remove_member))
+        .route("/team/tokens", post(team::create_token))
+        .route("/team/tokens/{id}/revoke", post(team::revoke_token))
+        .layer(DefaultBodyLimit::max(1 << 20))
+        .layer(RequestBodyLimitLayer::new(1 << 20));
+    let preview = Router::new()
+        .route(preview::ROUTE, post(preview::cost_map_png))
+        .layer(DefaultBodyLimit::max(16 << 20))
+        .layer(RequestBodyLimitLayer::new(16 << 20));
     Router::new()
+        .merge(uploads)
+        .merge(forms)
+        .layer(axum::middleware::map_response(readable_errors))
+        .merge(preview)
+}
+
+/// The HTML 404 for paths that are not pages; the API's fallback calls it for non-`/api` paths.
+pub fn not_found_page() -> Response {
+    error::PageError::NotFound("There is no page at this address.".into()).into_response()
+}
+
+/// Layers and the router answer some errors with an empty or plain-text body (405, a body over
+/// the limit, a malformed path). A person should see a page instead.
+async fn readable_errors(resp: Response) -> Response {
+    let status = resp.status();
+    if !(status.is_client_error() || status.is_server_error()) {
+        return resp;
+    }
+    let is_html = resp
+        .headers()
+        .get(header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .is_some_and(|v| v.starts_with("text/html"));
+    if is_html {
+        return resp;
+    }
+    let message = match status {
+        StatusCode::PAYLOAD_TOO_LARGE => {
+            "What you sent is larger than this page accepts.".to_string()
+        }
+        StatusCode::METHOD_NOT_ALLOWED => "This address does not take that kind of request.".into(),
+        StatusCode::NOT_FOUND => "There is no page at this address.".into(),
+        _ => "The request could not be handled.".into(),
+    };
+    let err = match status {
+        StatusCode::PAYLOAD_TOO_LARGE => error::PageError::TooLarge(message),
+        StatusCode::NOT_FOUND => error::PageError::NotFound(message),
+        StatusCode::FORBIDDEN => error::PageError::Forbidden(message),
+        s => error::PageError::Api(s, message),
+    };
+    let mut out = err.into_response();
+    if let Some(allow) = resp.headers().get(header::ALLOW) {
+        out.headers_mut().insert(header::ALLOW, allow.clone());
+    }
+    out
 }
 
 /// What to print at start-up for a person to sign in: a one-time link for the first owner of an
 /// empty database, or of the demo team (`demo_team`) after `--demo`. `None` when people already
 /// have accounts.
+///
+/// While nobody has an account, every start replaces the previous link (only the newest works),
+/// so a lost terminal is fixed by restarting.
 pub async fn startup_link(
     state: &AppState,
     addr: SocketAddr,
     demo_team: Option<&str>,
 ) -> Result<Option<String>, Box<dyn std::error::Error>> {
-    let _ = (state, addr, demo_team);
-    Ok(None)
+    let pool = state.store.pool();
+    if store::accounts::count_people(pool).await? > 0 {
+        return Ok(None);
+    }
+    let team = match demo_team {
+        Some(name) => {
+            let t = store::teams::get_or_create_team(pool, name).await?;
+            (t.id, t.name)
+        }
+        None => match store::accounts::first_team(pool).await? {
+            Some(t) => t,
+            None => {
+                let t = store::teams::get_or_create_team(pool, "my team").await?;
+                (t.id, t.name)
+            }
+        },
+    };
+    store::accounts::delete_startup_invites(pool).await?;
+    let secret = session::random_secret().map_err(|e| format!("{e:?}"))?;
+    store::accounts::create_invite(
+        pool,
+        &store::accounts::NewInvite {
+            team_id: &team.0,
+            token_hash: &hash_token(&secret),
+            role: "owner",
+            kind: "startup",
+            note: "first owner",
+            created_by: "start-up",
+            expires_at: store::now_ms() + STARTUP_LINK_HOURS * 3600 * 1000,
+        },
+    )
+    .await?;
+    // A server bound to all interfaces is still reachable on loopback; print an address a
+    // browser on the same machine can open.
+    let host = if addr.ip().is_unspecified() {
+        match addr {
+            SocketAddr::V4(_) => format!("127.0.0.1:{}", addr.port()),
+            SocketAddr::V6(_) => format!("[::1]:{}", addr.port()),
+        }
+    } else {
+        addr.to_string()
+    };
+    Ok(Some(format!(
+        "sign in as the first owner of team {:?}: http://{host}/welcome/{secret}\n\
+         (one-time link, valid {STARTUP_LINK_HOURS} h; a restart prints a new one while no account exists)",
+        team.1
+    )))
 }

@@ -3,6 +3,7 @@
 //! This is the only module that writes SQL. Functions are small, per aggregate, and take an
 //! executor or a transaction; they store and load, and compute nothing.
 
+pub mod accounts;
 pub mod cameras;
 pub mod frames;
 pub mod goal_sets;

@@ -14,6 +14,7 @@ enum Body {
     Points,
     Outcome,
     Set,
+    Preview,
 }
 
 async fn matrix(s: Server) {
@@ -191,6 +192,8 @@ async fn matrix(s: Server) {
         (Method::GET, format!("/api/goal-sets/{set}"), Body::None, [unauth, nf, ok, ok, ok]),
         (Method::PUT, format!("/api/goal-sets/{set}"), Body::Set, [unauth, nf, forbidden, ok, ok]),
         (Method::GET, format!("/api/goal-sets/{set}/bundle.zip"), Body::None, [unauth, nf, ok, ok, ok]),
+        // The editor's live cost preview writes nothing, so viewers may use it.
+        (Method::POST, "/api/preview/cost-map.png".into(), Body::Preview, [unauth, invalid, ok, ok, ok]),
     ];
     let routes: Vec<(String, String)> = table
         .iter()
@@ -242,6 +245,7 @@ async fn matrix(s: Server) {
                     }
                     req.json(&json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}))
                 }
+                Body::Preview => req.json(&json!({"goal": point_goal(&frame, "pot to mat"), "point": 0})),
                 Body::Points => req.json(&json!({"points": [[[[20.0, 20.0]]]]})),
                 Body::Outcome => req.json(&json!({"final_points": [[40.0, 30.0]]})),
                 Body::Goal => {

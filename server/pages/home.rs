@@ -1,0 +1,443 @@
+//! The team home: cameras, recent frames, goals with their status, goal sets; search by name;
+//! new cameras and frame uploads.
+
+use super::error::PageError;
+use super::render::{Chrome, ok, page, redirect_flash, when};
+use super::session::{CsrfForm, Signed};
+use crate::api::auth::{Role, same_secret};
+use crate::api::{AppState, cameras, frames};
+use crate::store;
+use askama::Template;
+use axum::extract::{Path, Query, Request, State};
+use axum::http::{HeaderMap, header};
+use axum::response::Response;
+use serde::Deserialize;
+use serde_json::{Value, json};
+use std::collections::HashMap;
+
+pub(super) struct CameraCard {
+    pub id: String,
+    pub name: String,
+    pub size: String,
+    pub frames: usize,
+    pub zones: String,
+}
+
+pub(super) struct FrameCard {
+    pub id: String,
+    pub camera: String,
+    pub when: String,
+    pub goals: usize,
+    pub fresh: bool,
+}
+
+pub(super) struct GoalRow {
+    pub id: String,
+    pub name: String,
+    pub revision: i64,
+    pub author: String,
+    pub when: String,
+    pub status: String,
+    pub status_class: &'static str,
+}
+
+pub(super) struct SetRow {
+    pub id: String,
+    pub name: String,
+    pub items: usize,
+    pub when: String,
+}
+
+#[derive(Template)]
+#[template(path = "home.html")]
+struct HomePage {
+    chrome: Chrome,
+    q: String,
+    cameras: Vec<CameraCard>,
+    frames: Vec<FrameCard>,
+    goals: Vec<GoalRow>,
+    sets: Vec<SetRow>,
+    can_edit: bool,
+    uploaded: bool,
+    frame_limit_mb: usize,
+}
+
+page!(HomePage);
+
+#[derive(Deserialize)]
+pub(super) struct HomeQuery {
+    #[serde(default)]
+    q: Option<String>,
+    #[serde(default)]
+    uploaded: Option<String>,
+}
+
+fn matches(q: &str, name: &str) -> bool {
+    q.is_empty() || name.to_lowercase().contains(q)
+}
+
+/// The status of a goal from its reported outcomes, in words.
+pub(super) fn outcome_status(rows: &[store::outcomes::OutcomeRow]) -> (String, &'static str) {
+    if rows.is_empty() {
+        return ("not tried yet".into(), "untried");
+    }
+    let reached = rows.iter().filter(|o| o.success).count();
+    let class = if reached == rows.len() {
+        "reached"
+    } else if reached == 0 {
+        "missed"
+    } else {
+        "mixed"
+    };
+    (format!("reached {reached} of {} tries", rows.len()), class)
+}
+
+/// `GET /`.
+pub(super) async fn home(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    signed: Signed,
+    Query(query): Query<HomeQuery>,
+) -> Result<Response, PageError> {
+    let pool = state.store.pool();
+    let team = &signed.who.team_id;
+    let q = query.q.unwrap_or_default().trim().to_lowercase();
+    let camera_rows = store::cameras::list(pool, team).await?;
+    let frame_rows = store::frames::list(pool, team, None).await?;
+    let goal_rows = store::goals::list(pool, team).await?;
+    let mut frames_per_camera: HashMap<&str, usize> = HashMap::new();
+    for f in &frame_rows {
+        *frames_per_camera.entry(f.camera_id.as_str()).or_default() += 1;
+    }
+    let mut goals_per_frame: HashMap<&str, usize> = HashMap::new();
+    for g in &goal_rows {
+        *goals_per_frame.entry(g.frame_id.as_str()).or_default() += 1;
+    }
+    let camera_names: HashMap<&str, &str> = camera_rows
+        .iter()
+        .map(|c| (c.id.as_str(), c.name.as_str()))
+        .collect();
+    let cameras = camera_rows
+        .iter()
+        .filter(|c| matches(&q, &c.name))
+        .map(|c| {
+            let doc = cameras::parse_doc(c).ok();
+            let zones = match &doc {
+                Some(d) => {
+                    let mut parts = Vec::new();
+                    if d.safe_zone.is_some() {
+                        parts.push("safe zone".to_string());
+                    }
+                    if !d.no_go_zones.is_empty() {
+                        parts.push(format!("{} no-go zone(s)", d.no_go_zones.len()));
+                    }
+                    if d.intrinsics.is_some() {
+                        parts.push("calibrated".into());
+                    }
+                    parts.join(", ")
+                }
+                None => String::new(),
+            };
+            CameraCard {
+                id: c.id.clone(),
+                name: c.name.clone(),
+                size: format!("{}×{}", c.width, c.height),
+                frames: frames_per_camera.get(c.id.as_str()).copied().unwrap_or(0),
+                zones,
+            }
+        })
+        .collect();
+    let fresh = query.uploaded.unwrap_or_default();
+    let frames = frame_rows
+        .iter()
+        .filter(|f| {
+            matches(
+                &q,
+                camera_names
+                    .get(f.camera_id.as_str())
+                    .copied()
+                    .unwrap_or(""),
+            )
+        })
+        .take(12)
+        .map(|f| FrameCard {
+            id: f.id.clone(),
+            camera: camera_names
+                .get(f.camera_id.as_str())
+                .copied()
+                .unwrap_or("?")
+                .to_string(),
+            when: when(f.created_at),
+            goals: goals_per_frame.get(f.id.as_str()).copied().unwrap_or(0),
+            fresh: f.id == fresh,
+        })
+        .collect();
+    let mut goals = Vec::new();
+    for g in goal_rows.iter().filter(|g| matches(&q, &g.name)) {
+        let outcomes = store::outcomes::list(pool, team, &g.id).await?;
+        let (status, status_class) = outcome_status(&outcomes);
+        goals.push(GoalRow {
+            id: g.id.clone(),
+            name: g.name.clone(),
+            revision: g.revision,
+            author: g.author.clone(),
+            when: when(g.updated_at),
+            status,
+            status_class,
+        });
+    }
+    let sets = super::sets::summaries(&state, team)
+        .await?
+        .into_iter()
+        .filter(|s| matches(&q, &s.name))
+        .collect();
+    let page = HomePage {
+        chrome: Chrome::signed(&state, &signed, &headers, "home").await,
+        q,
+        cameras,
+        frames,
+        goals,
+        sets,
+        can_edit: signed.can_edit(),
+        uploaded: !fresh.is_empty(),
+        frame_limit_mb: state.limits.frame_upload_bytes >> 20,
+    };
+    Ok(ok(&page))
+}
+
+#[derive(Deserialize)]
+pub(super) struct CameraForm {
+    name: String,
+    width: String,
+    height: String,
+    #[serde(default)]
+    safe_zone: String,
+    #[serde(default)]
+    no_go_zones: String,
+}
+
+/// `POST /cameras`: a camera from the home page's small form; zones as JSON point lists.
+pub(super) async fn create_camera(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    CsrfForm { signed, form }: CsrfForm<CameraForm>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Editor)?;
+    let fail = |m: String| Ok(redirect_flash("/#new-camera", &m, true, &headers));
+    let (Ok(width), Ok(height)) = (
+        form.width.trim().parse::<u32>(),
+        form.height.trim().parse::<u32>(),
+    ) else {
+        return fail("Width and height must be whole numbers of pixels.".into());
+    };
+    let mut body = json!({"name": form.name, "width": width, "height": height});
+    for (key, text) in [
+        ("safe_zone", &form.safe_zone),
+        ("no_go_zones", &form.no_go_zones),
+    ] {
+        if text.trim().is_empty() {
+            continue;
+        }
+        match serde_json::from_str::<Value>(text) {
+            Ok(v) => body[key] = v,
+            Err(e) => {
+                return fail(format!(
+                    "The {} is not a JSON list of [x, y] points: {e}",
+                    key.replace('_', " ")
+                ));
+            }
+        }
+    }
+    let input: cameras::CameraInput = match serde_json::from_value(body) {
+        Ok(i) => i,
+        Err(e) => return fail(format!("The camera could not be read: {e}")),
+    };
+    let doc = match cameras::check_camera(input) {
+        Ok(d) => d,
+        Err(e) => {
+            let field = e.field().map(|f| format!(" ({f})")).unwrap_or_default();
+            return fail(format!("The camera was not added{field}: {e}"));
+        }
+    };
+    let row = cameras::insert(&state.store, &signed.who.team_id, &doc).await?;
+    Ok(redirect_flash(
+        "/",
+        &format!(
+            "Camera {} added. Upload a frame to it to start a goal.",
+            row.name
+        ),
+        false,
+        &headers,
+    ))
+}
+
+/// `POST /cameras/{id}/frames` from the no-script form (`multipart/form-data` with fields `csrf`
+/// and `frame`). Scripted pages upload straight to the API instead.
+pub(super) async fn upload_frame(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    signed: Signed,
+    Path(id): Path<String>,
+    req: Request,
+) -> Result<Response, PageError> {
+    let limit = state.limits.frame_upload_bytes;
+    // Refuse by the declared length before reading anything.
+    let declared = headers
+        .get(header::CONTENT_LENGTH)
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.parse::<usize>().ok());
+    let too_large = || {
+        PageError::TooLarge(format!(
+            "The file is larger than the {} MiB a frame may have.",
+            limit >> 20
+        ))
+    };
+    if declared.is_some_and(|n| n > limit + 64 * 1024) {
+        return Err(too_large());
+    }
+    let boundary = crate::api::extract::media_type(&req)
+        .filter(|m| m == "multipart/form-data")
+        .and_then(|_| multipart_boundary(&headers))
+        .ok_or_else(|| {
+            PageError::UnsupportedMediaType("send the upload form (multipart/form-data)".into())
+        })?;
+    let body = axum::body::to_bytes(req.into_body(), limit + 64 * 1024)
+        .await
+        .map_err(|_| too_large())?;
+    let parts = parse_multipart(&body, &boundary)
+        .ok_or_else(|| PageError::BadRequest("the upload form could not be read".into()))?;
+    let csrf = parts
+        .iter()
+        .find(|p| p.name == "csrf")
+        .map(|p| String::from_utf8_lossy(p.data).into_owned())
+        .unwrap_or_default();
+    if !same_secret(&csrf, &signed.info.csrf_token) {
+        return Err(PageError::Forbidden(
+            "this form did not carry the page's security token; reload the page and send it again"
+                .into(),
+        ));
+    }
+    signed.require(Role::Editor)?;
+    let file = parts
+        .iter()
+        .find(|p| p.name == "frame" && !p.data.is_empty())
+        .ok_or_else(|| PageError::BadRequest("choose an image file to upload".into()))?;
+    let camera = cameras::load(&state, &signed.who, &id).await?;
+    let content_type = match file.content_type.as_deref() {
+        Some("image/png") => "image/png",
+        Some("image/jpeg" | "image/jpg") => "image/jpeg",
+        _ if file.data.starts_with(b"\x89PNG") => "image/png",
+        _ if file.data.starts_with(&[0xFF, 0xD8]) => "image/jpeg",
+        _ => {
+            return Err(PageError::UnsupportedMediaType(
+                "frames are PNG or JPEG images".into(),
+            ));
+        }
+    };
+    match frames::store_frame(
+        &state,
+        &signed.who.team_id,
+        &camera,
+        content_type,
+        file.data.to_vec(),
+    )
+    .await
+    {
+        Ok((frame, _)) => Ok(redirect_flash(
+            &format!("/?uploaded={}", frame.id),
+            &format!("Frame uploaded to {}.", camera.name),
+            false,
+            &headers,
+        )),
+        Err(e @ crate::api::error::ApiError::Invalid { .. }) => Ok(redirect_flash(
+            "/",
+            &format!("The frame was not stored: {e}"),
+            true,
+            &headers,
+        )),
+        Err(e) => Err(e.into()),
+    }
+}
+
+fn multipart_boundary(headers: &HeaderMap) -> Option<String> {
+    let ct = headers.get(header::CONTENT_TYPE)?.to_str().ok()?;
+    ct.split(';').skip(1).find_map(|p| {
+        let (k, v) = p.trim().split_once('=')?;
+        (k.trim().eq_ignore_ascii_case("boundary"))
+            .then(|| v.trim().trim_matches('"').to_string())
+            .filter(|b| !b.is_empty() && b.len() <= 200)
+    })
+}
+
+struct Part<'a> {
+    name: String,
+    content_type: Option<String>,
+    data: &'a [u8],
+}
+
+fn find(hay: &[u8], needle: &[u8], from: usize) -> Option<usize> {
+    if needle.is_empty() || hay.len() < needle.len() {
+        return None;
+    }
+    (from..=hay.len() - needle.len()).find(|&i| &hay[i..i + needle.len()] == needle)
+}
+
+/// A small `multipart/form-data` reader for the one upload form: enough for text fields and one
+/// file, refusing anything malformed rather than guessing.
+fn parse_multipart<'a>(body: &'a [u8], boundary: &str) -> Option<Vec<Part<'a>>> {
+    let delim = format!("--{boundary}");
+    let delim = delim.as_bytes();
+    let mut pos = find(body, delim, 0)? + delim.len();
+    let mut parts = Vec::new();
+    loop {
+        if body.get(pos..pos + 2)? == b"--" {
+            return Some(parts);
+        }
+        pos = find(body, b"\r\n", pos)? + 2;
+        let head_end = find(body, b"\r\n\r\n", pos)?;
+        let head = std::str::from_utf8(&body[pos..head_end]).ok()?;
+        let data_start = head_end + 4;
+        let next = find(body, &[b"\r\n", delim].concat(), data_start)?;
+        let mut name = None;
+        let mut content_type = None;
+        for line in head.split("\r\n") {
+            let (k, v) = line.split_once(':')?;
+            if k.trim().eq_ignore_ascii_case("content-disposition") {
+                name = v.split(';').find_map(|p| {
+                    let (k, v) = p.trim().split_once('=')?;
+                    (k == "name").then(|| v.trim_matches('"').to_string())
+                });
+            } else if k.trim().eq_ignore_ascii_case("content-type") {
+                content_type = Some(v.trim().to_ascii_lowercase());
+            }
+        }
+        parts.push(Part {
+            name: name?,
+            content_type,
+            data: &body[data_start..next],
+        });
+        pos = next + 2 + delim.len();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn multipart_fields_and_file() {
+        let body = b"--XyZ\r\nContent-Disposition: form-data; name=\"csrf\"\r\n\r\nabc\r\n--XyZ\r\nContent-Disposition: form-data; name=\"frame\"; filename=\"a.png\"\r\nContent-Type: image/png\r\n\r\n\x89PNG\r\n--x\r\n--XyZ--\r\n";
+        let parts = parse_multipart(body, "XyZ").expect("parses");
+        assert_eq!(parts.len(), 2);
+        assert_eq!(parts[0].name, "csrf");
+        assert_eq!(parts[0].data, b"abc");
+        assert_eq!(parts[1].content_type.as_deref(), Some("image/png"));
+        assert_eq!(parts[1].data, b"\x89PNG\r\n--x");
+        assert!(parse_multipart(b"--XyZ\r\nbroken", "XyZ").is_none());
+    }
+
+    #[test]
+    fn status_words() {
+        assert_eq!(outcome_status(&[]).1, "untried");
+    }
+}

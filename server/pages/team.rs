@@ -1,0 +1,382 @@
+//! Members and tokens: owners invite people with a role, change roles, remove members, create and
+//! revoke API tokens for robots and planners, and rename the team. Others see who is in the team.
+
+use super::error::PageError;
+use super::render::{Chrome, ok, page, redirect_flash, render, when};
+use super::session::{CsrfForm, Signed, random_secret};
+use crate::api::AppState;
+use crate::api::auth::{self, Role, hash_token};
+use crate::store;
+use askama::Template;
+use axum::extract::{Path, State};
+use axum::http::{HeaderMap, StatusCode};
+use axum::response::Response;
+use serde::Deserialize;
+
+/// How long an invite link stays valid.
+const INVITE_DAYS: i64 = 7;
+
+struct MemberLine {
+    person_id: String,
+    login: String,
+    display_name: String,
+    role: String,
+    joined: String,
+    is_me: bool,
+}
+
+struct InviteLine {
+    id: String,
+    role: String,
+    note: String,
+    by: String,
+    expires: String,
+}
+
+struct TokenLine {
+    id: String,
+    label: String,
+    role: String,
+    created: String,
+    revoked: Option<String>,
+}
+
+#[derive(Template)]
+#[template(path = "team.html")]
+struct TeamPage {
+    chrome: Chrome,
+    members: Vec<MemberLine>,
+    invites: Vec<InviteLine>,
+    tokens: Vec<TokenLine>,
+    is_owner: bool,
+    roles: [&'static str; 3],
+}
+
+/// Shown once, right after it is made: an invite link or an API token.
+#[derive(Template)]
+#[template(path = "secret.html")]
+struct SecretPage {
+    chrome: Chrome,
+    heading: String,
+    what: String,
+    secret: String,
+    advice: String,
+}
+
+page!(TeamPage, SecretPage);
+
+/// `GET /team`.
+pub(super) async fn team(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    signed: Signed,
+) -> Result<Response, PageError> {
+    let pool = state.store.pool();
+    let team = &signed.who.team_id;
+    let members = store::accounts::list_members(pool, team)
+        .await?
+        .into_iter()
+        .map(|m| MemberLine {
+            is_me: m.person_id == signed.info.person_id,
+            person_id: m.person_id,
+            login: m.login,
+            display_name: m.display_name,
+            role: m.role,
+            joined: when(m.joined_at),
+        })
+        .collect();
+    let (invites, tokens) = if signed.is_owner() {
+        let invites = store::accounts::pending_invites(pool, team)
+            .await?
+            .into_iter()
+            .map(|i| InviteLine {
+                id: i.id,
+                role: i.role,
+                note: i.note,
+                by: i.created_by,
+                expires: when(i.expires_at),
+            })
+            .collect();
+        let tokens = store::accounts::list_tokens(pool, team)
+            .await?
+            .into_iter()
+            .map(|t| TokenLine {
+                id: t.id,
+                label: t.label,
+                role: t.role,
+                created: when(t.created_at),
+                revoked: t.revoked_at.map(when),
+            })
+            .collect();
+        (invites, tokens)
+    } else {
+        (Vec::new(), Vec::new())
+    };
+    let page = TeamPage {
+        chrome: Chrome::signed(&state, &signed, &headers, "team").await,
+        members,
+        invites,
+        tokens,
+        is_owner: signed.is_owner(),
+        roles: ["viewer", "editor", "owner"],
+    };
+    Ok(ok(&page))
+}
+
+fn parse_role(raw: &str) -> Result<Role, PageError> {
+    Role::parse(raw).ok_or_else(|| PageError::BadRequest(format!("{raw:?} is not a role")))
+}
+
+fn host_of(headers: &HeaderMap) -> String {
+    let host = headers
+        .get(axum::http::header::HOST)
+        .and_then(|v| v.to_str().ok())
+        .filter(|h| {
+            h.chars()
+                .all(|c| c.is_ascii_alphanumeric() || matches!(c, '.' | '-' | ':' | '[' | ']'))
+        })
+        .unwrap_or("localhost");
+    let scheme = if super::session::over_tls(headers) {
+        "https"
+    } else {
+        "http"
+    };
+    format!("{scheme}://{host}")
+}
+
+#[derive(Deserialize)]
+pub(super) struct InviteForm {
+    role: String,
+    #[serde(default)]
+    note: String,
+}
+
+/// `POST /team/invites`: a one-time link, shown once.
+pub(super) async fn invite(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    CsrfForm { signed, form }: CsrfForm<InviteForm>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let role = parse_role(&form.role)?;
+    let note: String = form.note.trim().chars().take(200).collect();
+    let secret = random_secret()?;
+    store::accounts::create_invite(
+        state.store.pool(),
+        &store::accounts::NewInvite {
+            team_id: &signed.who.team_id,
+            token_hash: &hash_token(&secret),
+            role: role.as_str(),
+            kind: "invite",
+            note: &note,
+            created_by: &signed.info.display_name,
+            expires_at: store::now_ms() + INVITE_DAYS * 24 * 3600 * 1000,
+        },
+    )
+    .await?;
+    let page = SecretPage {
+        chrome: Chrome::signed(&state, &signed, &headers, "team").await,
+        heading: "Invitation link".into(),
+        what: format!(
+            "Send this link to {} privately. It makes them a {} of {} and works once, for {INVITE_DAYS} days.",
+            if note.is_empty() { "the new member".to_string() } else { note.clone() },
+            role.as_str(),
+            signed.info.team_name
+        ),
+        secret: format!("{}/welcome/{secret}", host_of(&headers)),
+        advice: "This page is the only time the link is shown. You can withdraw it on the members page until it is used.".into(),
+    };
+    Ok(render(StatusCode::CREATED, &page))
+}
+
+/// `POST /team/invites/{id}/withdraw`.
+pub(super) async fn withdraw_invite(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    Path(id): Path<String>,
+    CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let done = store::accounts::revoke_invite(state.store.pool(), &signed.who.team_id, &id).await?;
+    Ok(if done {
+        redirect_flash("/team", "Invitation withdrawn.", false, &headers)
+    } else {
+        redirect_flash(
+            "/team",
+            "That invitation was already used or withdrawn.",
+            true,
+            &headers,
+        )
+    })
+}
+
+#[derive(Deserialize)]
+pub(super) struct RoleForm {
+    role: String,
+}
+
+/// `POST /team/members/{id}/role`.
+pub(super) async fn set_role(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    Path(person): Path<String>,
+    CsrfForm { signed, form }: CsrfForm<RoleForm>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let role = parse_role(&form.role)?;
+    let done = store::accounts::set_role(
+        state.store.pool(),
+        &signed.who.team_id,
+        &person,
+        role.as_str(),
+    )
+    .await?;
+    Ok(if done {
+        redirect_flash(
+            "/team",
+            &format!("Role changed to {}.", role.as_str()),
+            false,
+            &headers,
+        )
+    } else {
+        redirect_flash(
+            "/team",
+            "The role was not changed: a team keeps at least one owner.",
+            true,
+            &headers,
+        )
+    })
+}
+
+/// `POST /team/members/{id}/remove`: also ends their sessions in this team at once.
+pub(super) async fn remove_member(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    Path(person): Path<String>,
+    CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let done =
+        store::accounts::remove_member(state.store.pool(), &signed.who.team_id, &person).await?;
+    Ok(if done {
+        redirect_flash("/team", "Member removed.", false, &headers)
+    } else {
+        redirect_flash(
+            "/team",
+            "Nobody was removed: a team keeps at least one owner.",
+            true,
+            &headers,
+        )
+    })
+}
+
+#[derive(Deserialize)]
+pub(super) struct TokenForm {
+    label: String,
+    role: String,
+}
+
+/// `POST /team/tokens`: a new API token, shown once.
+pub(super) async fn create_token(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    CsrfForm { signed, form }: CsrfForm<TokenForm>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let role = parse_role(&form.role)?;
+    let label = form.label.trim().to_string();
+    if label.is_empty() || label.chars().count() > 100 || label.chars().any(char::is_control) {
+        return Ok(redirect_flash(
+            "/team#tokens",
+            "A token needs a label of 1 to 100 characters saying which robot or planner holds it.",
+            true,
+            &headers,
+        ));
+    }
+    let token =
+        auth::new_token().map_err(|e| PageError::internal(format!("no randomness: {e}")))?;
+    store::teams::insert_token(
+        state.store.pool(),
+        &signed.who.team_id,
+        &hash_token(&token),
+        role.as_str(),
+        &label,
+    )
+    .await?;
+    let page = SecretPage {
+        chrome: Chrome::signed(&state, &signed, &headers, "team").await,
+        heading: "New API token".into(),
+        what: format!(
+            "Token “{label}” acts as a {} of {}. Send it as Authorization: Bearer TOKEN.",
+            role.as_str(),
+            signed.info.team_name
+        ),
+        secret: token,
+        advice: "Copy it now: only its hash is stored, so this page is the only time it is shown. Revoke it on the members page when the robot or planner no longer needs it.".into(),
+    };
+    Ok(render(StatusCode::CREATED, &page))
+}
+
+/// `POST /team/tokens/{id}/revoke`.
+pub(super) async fn revoke_token(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    Path(id): Path<String>,
+    CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let done = store::accounts::revoke_token(state.store.pool(), &signed.who.team_id, &id).await?;
+    Ok(if done {
+        redirect_flash(
+            "/team#tokens",
+            "Token revoked; it stops working at once.",
+            false,
+            &headers,
+        )
+    } else {
+        redirect_flash(
+            "/team#tokens",
+            "That token was already revoked.",
+            true,
+            &headers,
+        )
+    })
+}
+
+#[derive(Deserialize)]
+pub(super) struct RenameForm {
+    name: String,
+}
+
+/// `POST /team/name`.
+pub(super) async fn rename(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    CsrfForm { signed, form }: CsrfForm<RenameForm>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let name = form.name.trim().to_string();
+    if name.is_empty() || name.chars().count() > 100 || name.chars().any(char::is_control) {
+        return Ok(redirect_flash(
+            "/team",
+            "A team name needs 1 to 100 characters.",
+            true,
+            &headers,
+        ));
+    }
+    match store::accounts::rename_team(state.store.pool(), &signed.who.team_id, &name).await {
+        Ok(()) => Ok(redirect_flash(
+            "/team",
+            &format!("The team is now called {name}."),
+            false,
+            &headers,
+        )),
+        Err(store::StoreError::Constraint(_)) => Ok(redirect_flash(
+            "/team",
+            "Another team already has that name.",
+            true,
+            &headers,
+        )),
+        Err(e) => Err(e.into()),
+    }
+}

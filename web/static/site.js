@@ -1,0 +1,78 @@
+// Small helpers shared by every page: frame uploads by drag-and-drop or file picker, and
+// selecting a once-shown secret for copying. Each widget owns its own elements.
+
+export function csrfToken() {
+  const m = document.querySelector('meta[name="csrf-token"]');
+  return m ? m.content : '';
+}
+
+/** A readable sentence from an API error response. */
+export async function apiErrorText(resp) {
+  try {
+    const body = await resp.json();
+    if (body && body.error && body.error.message) return body.error.message;
+  } catch (_) { /* not JSON */ }
+  return `the server answered ${resp.status}`;
+}
+
+function initUpload(form) {
+  const camera = form.dataset.uploadCamera;
+  const zone = form.querySelector('[data-dropzone]');
+  const input = form.querySelector('input[type=file]');
+  const status = form.querySelector('.upload-status');
+  const limit = Number(form.dataset.limitMb || 64) * 1024 * 1024;
+  const say = (text, error) => {
+    status.textContent = text;
+    status.classList.toggle('error', !!error);
+  };
+  async function send(file) {
+    if (!file) return;
+    if (!/^image\/(png|jpeg)$/.test(file.type)) {
+      say(`“${file.name}” is not a PNG or JPEG image.`, true);
+      return;
+    }
+    if (file.size > limit) {
+      say(`“${file.name}” is larger than the ${form.dataset.limitMb} MiB a frame may have.`, true);
+      return;
+    }
+    say(`Uploading ${file.name}…`);
+    const resp = await fetch(`/api/cameras/${camera}/frames`, {
+      method: 'POST',
+      headers: { 'Content-Type': file.type, 'X-CSRF-Token': csrfToken() },
+      body: file,
+      credentials: 'same-origin',
+    });
+    if (resp.ok) {
+      const frame = await resp.json();
+      say(resp.status === 201 ? 'Uploaded.' : 'This frame was already stored; showing it.');
+      window.location.assign(`/?uploaded=${encodeURIComponent(frame.id)}`);
+    } else {
+      say(`Not uploaded: ${await apiErrorText(resp)}`, true);
+    }
+  }
+  input.addEventListener('change', () => send(input.files[0]));
+  form.addEventListener('submit', (e) => {
+    e.preventDefault();
+    send(input.files[0]);
+  });
+  zone.addEventListener('dragover', (e) => {
+    e.preventDefault();
+    zone.classList.add('over');
+  });
+  zone.addEventListener('dragleave', () => zone.classList.remove('over'));
+  zone.addEventListener('drop', (e) => {
+    e.preventDefault();
+    zone.classList.remove('over');
+    send(e.dataTransfer.files[0]);
+  });
+}
+
+function init() {
+  document.querySelectorAll('form[data-upload-camera]').forEach(initUpload);
+  document.querySelectorAll('[data-select-all]').forEach((el) => {
+    el.addEventListener('focus', () => el.select());
+  });
+}
+
+if (document.readyState === 'loading') document.addEventListener('DOMContentLoaded', init);
+else init();
