@@ -9,4 +9,5 @@ mod concurrency;
 mod export;
 mod goal_sets;
 mod restart;
+mod pages;
 mod routes;

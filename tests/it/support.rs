@@ -357,3 +357,55 @@ pub fn point_goal(frame_id: &str, name: &str) -> Value {
         "note": "first try"
     })
 }
+
+/// Starts the server like [`Server::start`] and also returns the one-time sign-in link it prints
+/// on stderr at start-up (other stderr lines are passed through).
+pub fn start_with_link(db_url: &str, data_dir: &std::path::Path, extra: &[&str]) -> (Server, String) {
+    let mut child = Command::new(bin())
+        .args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
+        .arg("--data-dir")
+        .arg(data_dir)
+        .args(extra)
+        .env("GOALSMITH_LOG", "warn")
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("spawn goalsmith serve");
+    let stderr = child.stderr.take().expect("stderr");
+    let (tx, rx) = std::sync::mpsc::channel::<String>();
+    std::thread::spawn(move || {
+        for line in BufReader::new(stderr).lines().map_while(Result::ok) {
+            if let Some(i) = line.find("http://")
+                && line.contains("/welcome/")
+            {
+                let url = line[i..].split_whitespace().next().unwrap_or("").to_string();
+                tx.send(url).ok();
+            }
+            eprintln!("{line}");
+        }
+    });
+    let stdout = child.stdout.take().expect("stdout");
+    let mut line = String::new();
+    BufReader::new(stdout)
+        .read_line(&mut line)
+        .expect("read the listening line");
+    let base = line
+        .trim()
+        .strip_prefix("listening on ")
+        .unwrap_or_else(|| panic!("unexpected first stdout line {line:?}"))
+        .to_string();
+    let link = rx
+        .recv_timeout(Duration::from_secs(30))
+        .expect("the server prints a sign-in link on an empty database");
+    let server = Server {
+        base,
+        child,
+        db_url: db_url.to_string(),
+        data_dir: data_dir.to_path_buf(),
+        client: reqwest::Client::builder()
+            .timeout(Duration::from_secs(60))
+            .build()
+            .expect("client"),
+    };
+    (server, link)
+}
