@@ -5,6 +5,7 @@ mod support;
 
 mod auth_matrix;
 mod bad_input;
+mod browser;
 mod concurrency;
 mod export;
 mod goal_sets;

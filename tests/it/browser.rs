@@ -1,0 +1,422 @@
+//! End to end in headless Chromium, driven through chromedriver, against the real server on a
+//! random port: sign-in, frame upload, clicking goals on the canvas at known positions (checked
+//! through the API at 1× and after zooming), an area, an object move from three points,
+//! revision 2, a conflicting second session, restoring revision 1, and a viewer without edit
+//! controls whose forged writes are refused. Screenshots go to `target/screenshots/`.
+//!
+//! Gated like PostgreSQL: without chromium and chromedriver the test prints a SKIP line, unless
+//! GOALSMITH_REQUIRE_SERVICES=1 (CI), where it fails.
+
+use crate::support::*;
+use serde_json::{Value, json};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+use std::time::{Duration, Instant};
+use thirtyfour::prelude::*;
+use thirtyfour::{ChromiumLikeCapabilities, DesiredCapabilities, Key};
+
+const CHROMIUM: &str = "/usr/bin/chromium";
+const CHROMEDRIVER: &str = "/usr/bin/chromedriver";
+
+/// A chromedriver process on a free port; killed on drop.
+struct Driver {
+    child: Child,
+    url: String,
+}
+
+impl Drop for Driver {
+    fn drop(&mut self) {
+        self.child.kill().ok();
+        self.child.wait().ok();
+    }
+}
+
+fn chromedriver(test: &str) -> Option<Driver> {
+    if !Path::new(CHROMIUM).exists() || !Path::new(CHROMEDRIVER).exists() {
+        if services_required() {
+            panic!("{CHROMIUM} or {CHROMEDRIVER} missing but GOALSMITH_REQUIRE_SERVICES=1");
+        }
+        eprintln!("SKIP {test}: chromium not installed (apt-get install chromium chromium-driver)");
+        return None;
+    }
+    let port = std::net::TcpListener::bind("127.0.0.1:0")
+        .and_then(|l| l.local_addr())
+        .expect("free port")
+        .port();
+    let child = Command::new(CHROMEDRIVER)
+        .arg(format!("--port={port}"))
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .expect("start chromedriver");
+    let driver = Driver {
+        child,
+        url: format!("http://127.0.0.1:{port}"),
+    };
+    let start = Instant::now();
+    while std::net::TcpStream::connect(("127.0.0.1", port)).is_err() {
+        assert!(start.elapsed() < Duration::from_secs(20), "chromedriver did not listen");
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    Some(driver)
+}
+
+async fn browser(driver: &Driver, profile: &Path) -> WebDriver {
+    let mut caps = DesiredCapabilities::chrome();
+    caps.set_binary(CHROMIUM).unwrap();
+    for arg in [
+        "--headless=new",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-dev-shm-usage",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        "--window-size=1280,800",
+        "--force-device-scale-factor=1",
+    ] {
+        caps.add_arg(arg).unwrap();
+    }
+    caps.add_arg(&format!("--user-data-dir={}", profile.display()))
+        .unwrap();
+    WebDriver::new(driver.url.clone(), caps)
+        .await
+        .expect("browser session")
+}
+
+fn screenshots() -> PathBuf {
+    // target/debug/deps/it-… → target/screenshots
+    let exe = std::env::current_exe().expect("exe");
+    let target = exe
+        .ancestors()
+        .nth(3)
+        .map(Path::to_path_buf)
+        .unwrap_or_else(|| PathBuf::from("target"));
+    let dir = target.join("screenshots");
+    std::fs::create_dir_all(&dir).expect("screenshot folder");
+    dir
+}
+
+async fn js(d: &WebDriver, script: &str) -> Value {
+    d.execute(script, Vec::new())
+        .await
+        .unwrap_or_else(|e| panic!("script {script}: {e}"))
+        .json()
+        .clone()
+}
+
+async fn wait_js(d: &WebDriver, script: &str, what: &str) {
+    let start = Instant::now();
+    loop {
+        if js(d, script).await == json!(true) {
+            return;
+        }
+        assert!(start.elapsed() < Duration::from_secs(20), "timed out waiting for {what}");
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+}
+
+async fn fill(d: &WebDriver, css: &str, text: &str) {
+    let e = d.find(By::Css(css)).await.unwrap_or_else(|_| panic!("{css}"));
+    // Emptied by script rather than WebDriver's clear, which fires a change event of its own.
+    d.execute("arguments[0].value = '';", vec![e.to_json().unwrap()])
+        .await
+        .unwrap();
+    e.send_keys(text).await.unwrap();
+}
+
+async fn click(d: &WebDriver, css: &str) {
+    d.find(By::Css(css))
+        .await
+        .unwrap_or_else(|_| panic!("no {css}"))
+        .click()
+        .await
+        .unwrap_or_else(|e| panic!("click {css}: {e}"));
+}
+
+/// The editor's view: (zoom, pan x, pan y, canvas left, canvas top) in CSS px.
+async fn view(d: &WebDriver) -> [f64; 5] {
+    let v = js(
+        d,
+        "const v = window.goalEditor.view; const r = document.getElementById('stage-canvas').getBoundingClientRect(); return [v.z, v.px, v.py, r.left, r.top];",
+    )
+    .await;
+    let f = |i: usize| v[i].as_f64().expect("number");
+    [f(0), f(1), f(2), f(3), f(4)]
+}
+
+/// Clicks on the canvas over frame point (x, y); returns the frame point the click really hit
+/// (the pointer lands on whole viewport pixels), by the page's own convention
+/// x = (cx − px)/z − 0.5.
+async fn click_frame(d: &WebDriver, x: f64, y: f64) -> [f64; 2] {
+    let [z, px, py, left, top] = view(d).await;
+    let vx = (left + px + (x + 0.5) * z).round();
+    let vy = (top + py + (y + 0.5) * z).round();
+    d.action_chain()
+        .move_to(vx as i64, vy as i64)
+        .click()
+        .perform()
+        .await
+        .expect("click on canvas");
+    [(vx - left - px) / z - 0.5, (vy - top - py) / z - 0.5]
+}
+
+async fn key(d: &WebDriver, k: impl Into<thirtyfour::TypingData>) {
+    d.find(By::Id("stage-canvas"))
+        .await
+        .unwrap()
+        .send_keys(k)
+        .await
+        .unwrap();
+}
+
+async fn save(d: &WebDriver, note: &str, revision: i64) {
+    click(d, "#save").await;
+    fill(d, "#save-note", note).await;
+    click(d, "#save-confirm").await;
+    wait_js(
+        d,
+        &format!("return document.getElementById('editor').dataset.savedRevision === '{revision}';"),
+        &format!("revision {revision} saved"),
+    )
+    .await;
+}
+
+async fn sign_in(d: &WebDriver, base: &str, login: &str, password: &str) {
+    d.goto(format!("{base}/signin")).await.unwrap();
+    fill(d, "#login", login).await;
+    fill(d, "#password", password).await;
+    click(d, "form[action='/signin'] button[type=submit]").await;
+    wait_js(d, "return location.pathname === '/' && !!document.querySelector('.who');", "home after sign-in").await;
+}
+
+fn close(a: [f64; 2], b: &Value, tol: f64) -> bool {
+    (a[0] - b[0].as_f64().unwrap()).abs() <= tol && (a[1] - b[1].as_f64().unwrap()).abs() <= tol
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn editor_end_to_end() {
+    let Some(driver) = chromedriver("editor_end_to_end") else {
+        return;
+    };
+    let db = fresh_db(Db::Sqlite, "editor_end_to_end").await.expect("sqlite");
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+    let shots = screenshots();
+    let work = tempfile::tempdir().unwrap();
+    let a = browser(&driver, &work.path().join("a")).await;
+
+    // The first owner signs up through the start-up link, signs out, and signs in again.
+    a.goto(&link).await.unwrap();
+    fill(&a, "#display_name", "Ada Lovelace").await;
+    fill(&a, "#login", "ada").await;
+    fill(&a, "#password", "potting bench 1").await;
+    fill(&a, "#password_again", "potting bench 1").await;
+    click(&a, "form.stack button.primary").await;
+    wait_js(&a, "return location.pathname === '/';", "home").await;
+    click(&a, "form[action='/signout'] button").await;
+    wait_js(&a, "return location.pathname === '/signin';", "signed out").await;
+    sign_in(&a, &s.base, "ada", "potting bench 1").await;
+    let api = s.token("my team", "editor");
+
+    // A camera with a no-go zone, then a frame uploaded through the file picker.
+    click(&a, "#new-camera summary").await;
+    fill(&a, "#cam-name", "bench overhead").await;
+    fill(&a, "#cam-w", "320").await;
+    fill(&a, "#cam-h", "240").await;
+    fill(&a, "#cam-nogo", "[[[270, 10], [310, 10], [310, 50], [270, 50]]]").await;
+    click(&a, "#new-camera button.primary").await;
+    wait_js(&a, "return !!document.querySelector('input[type=file]');", "camera added").await;
+    let frame_png = work.path().join("bench.png");
+    std::fs::write(&frame_png, png(320, 240, 40)).unwrap();
+    a.find(By::Css("input[type=file]"))
+        .await
+        .unwrap()
+        .send_keys(frame_png.display().to_string())
+        .await
+        .unwrap();
+    wait_js(&a, "return !!document.querySelector('.frame-card.fresh');", "frame uploaded").await;
+    click(&a, ".frame-card.fresh a.new-goal").await;
+    wait_js(&a, "return document.getElementById('editor')?.dataset.ready === '1';", "editor ready").await;
+
+    // A point goal clicked at 1×: source and target land on the clicked pixels.
+    click(&a, "[data-view=one]").await;
+    assert_eq!(view(&a).await[0], 1.0);
+    click(&a, "[data-tool=point]").await;
+    let src1 = click_frame(&a, 40.0, 50.0).await;
+    let dst1 = click_frame(&a, 120.0, 80.0).await;
+    // And one after zooming in twice (4×) with the buttons.
+    click(&a, "[data-view=in]").await;
+    click(&a, "[data-view=in]").await;
+    assert_eq!(view(&a).await[0], 4.0);
+    let src2 = click_frame(&a, 150.0, 100.0).await;
+    let dst2 = click_frame(&a, 190.0, 150.0).await;
+    fill(&a, "#goal-name", "pot to mat").await;
+    save(&a, "two points", 1).await;
+    let (st, goals) = s.get("/api/goals", Some(&api)).await;
+    assert_eq!(st.as_u16(), 200);
+    let goal_id = goals["items"][0]["id"].as_str().unwrap().to_string();
+    let (_, rev1) = s.get(&format!("/api/goals/{goal_id}/revisions/1"), Some(&api)).await;
+    let t = &rev1["terms"];
+    // Exactly the page's mapping of where the pointer landed, and within half a pixel of the
+    // pixel aimed at.
+    assert!(close(src1, &t[0]["source"], 1e-3), "{src1:?} vs {}", t[0]["source"]);
+    assert!(close(dst1, &t[0]["target"], 1e-3), "{dst1:?} vs {}", t[0]["target"]);
+    assert!(close([40.0, 50.0], &t[0]["source"], 0.5), "{}", t[0]["source"]);
+    assert!(close([120.0, 80.0], &t[0]["target"], 0.5), "{}", t[0]["target"]);
+    assert!(close(src2, &t[1]["source"], 1e-3) && close(dst2, &t[1]["target"], 1e-3), "{t}");
+    assert!(close([150.0, 100.0], &t[1]["source"], 0.5 / 4.0 + 1e-9), "{}", t[1]["source"]);
+    assert!(close([190.0, 150.0], &t[1]["target"], 0.5 / 4.0 + 1e-9), "{}", t[1]["target"]);
+
+    // An area, then an object move from three points; a label and a weight edited; revision 2.
+    click(&a, "[data-view=fit]").await;
+    click(&a, "[data-tool=region]").await;
+    click_frame(&a, 60.0, 150.0).await;
+    for (x, y) in [(200.0, 160.0), (250.0, 160.0), (250.0, 210.0), (200.0, 210.0)] {
+        click_frame(&a, x, y).await;
+    }
+    key(&a, Key::Enter).await;
+    click(&a, "[data-tool=rigid]").await;
+    for (x, y) in [(30.0, 200.0), (50.0, 200.0), (40.0, 220.0)] {
+        click_frame(&a, x, y).await;
+    }
+    key(&a, Key::Enter).await;
+    for (x, y) in [(100.0, 190.0), (120.0, 190.0), (110.0, 210.0)] {
+        click_frame(&a, x, y).await;
+    }
+    fill(&a, "#term-0-label", "pot").await;
+    a.find(By::Id("term-0-label")).await.unwrap().send_keys(Key::Tab).await.unwrap();
+    fill(&a, "#term-1-weight", "2").await;
+    a.find(By::Id("term-1-weight")).await.unwrap().send_keys(Key::Tab).await.unwrap();
+    // Select the area's source so its cost heat shows in the screenshot.
+    click(&a, ".term[data-index='2'] .term-pick").await;
+    tokio::time::sleep(Duration::from_millis(900)).await;
+    a.screenshot(&shots.join("editor.png")).await.unwrap();
+    save(&a, "area and object move", 2).await;
+    let (_, rev2) = s.get(&format!("/api/goals/{goal_id}/revisions/2"), Some(&api)).await;
+    let kinds: Vec<&str> = rev2["terms"].as_array().unwrap().iter().map(|t| t["kind"].as_str().unwrap()).collect();
+    assert_eq!(kinds, ["point", "point", "region", "rigid"], "{rev2}");
+    assert_eq!(rev2["terms"][0]["label"], "pot");
+    assert_eq!(rev2["terms"][1]["weight"], 2.0);
+    assert_eq!(rev2["terms"][2]["polygon"].as_array().unwrap().len(), 4);
+    assert_eq!(rev2["terms"][3]["sources"].as_array().unwrap().len(), 3);
+    assert_eq!(rev2["terms"][3]["targets"].as_array().unwrap().len(), 3);
+    assert!(rev2["derived"]["rigid"][0]["translation"].is_array(), "{rev2}");
+
+    // Arrow keys nudge the selected point: 1 px, Shift 0.1 px.
+    click(&a, ".term[data-index='0'] .term-pick").await;
+    let before = js(&a, "return window.goalEditor.state.terms[0].source;").await;
+    key(&a, Key::Right).await;
+    key(&a, Key::Shift + Key::Down).await;
+    let after = js(&a, "return window.goalEditor.state.terms[0].source;").await;
+    let dx = after[0].as_f64().unwrap() - before[0].as_f64().unwrap();
+    let dy = after[1].as_f64().unwrap() - before[1].as_f64().unwrap();
+    assert!((dx - 1.0).abs() < 1e-9 && (dy - 0.1).abs() < 1e-9, "{before} → {after}");
+
+    // A second browser session on the same goal; the first saves revision 3 meanwhile.
+    let b = browser(&driver, &work.path().join("b")).await;
+    sign_in(&b, &s.base, "ada", "potting bench 1").await;
+    b.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
+    wait_js(&b, "return document.getElementById('editor')?.dataset.ready === '1';", "second editor").await;
+    save(&a, "nudged the pot", 3).await;
+    fill(&b, "#term-1-weight", "3").await;
+    b.find(By::Id("term-1-weight")).await.unwrap().send_keys(Key::Tab).await.unwrap();
+    click(&b, "#save").await;
+    fill(&b, "#save-note", "heavier second point").await;
+    click(&b, "#save-confirm").await;
+    wait_js(&b, "return !document.getElementById('conflict').hidden;", "conflict message").await;
+    let text = b.find(By::Id("conflict-text")).await.unwrap().text().await.unwrap();
+    assert!(text.contains("changed since you loaded it") && text.contains("revision 3"), "{text}");
+    b.screenshot(&shots.join("editor-conflict.png")).await.unwrap();
+    // Keep my change on top of the latest, and save again: revision 4.
+    click(&b, "#conflict-keep").await;
+    wait_js(&b, "return document.getElementById('save-dialog').open;", "save dialog again").await;
+    click(&b, "#save-confirm").await;
+    wait_js(&b, "return document.getElementById('editor').dataset.savedRevision === '4';", "revision 4").await;
+    let (_, rev4) = s.get(&format!("/api/goals/{goal_id}"), Some(&api)).await;
+    assert_eq!(rev4["revision"], 4);
+    assert_eq!(rev4["terms"][1]["weight"], 3.0);
+
+    // History: restore revision 1 as revision 5.
+    a.goto(format!("{}/goals/{goal_id}/history", s.base)).await.unwrap();
+    a.screenshot(&shots.join("history.png")).await.unwrap();
+    click(&a, "li[data-revision='1'] form.restore button").await;
+    wait_js(&a, "return !!document.querySelector('.flash') && document.querySelector('.flash').textContent.includes('restored');", "restored").await;
+    let (_, latest) = s.get(&format!("/api/goals/{goal_id}"), Some(&api)).await;
+    assert_eq!(latest["revision"], 5);
+    assert_eq!(latest["terms"], rev1["terms"]);
+    a.goto(format!("{}/goals/{goal_id}/compare?a=2&b=5", s.base)).await.unwrap();
+    tokio::time::sleep(Duration::from_millis(500)).await;
+    a.screenshot(&shots.join("compare.png")).await.unwrap();
+
+    // A goal named like a script renders as text.
+    let (st, _) = s.post("/api/goals", Some(&api), &json!({
+        "name": "<script>alert(1)</script>", "frame_id": latest["frame_id"],
+        "terms": [{"kind": "point", "source": [5.0, 5.0], "target": [9.0, 9.0]}]
+    })).await;
+    assert_eq!(st.as_u16(), 201);
+    a.goto(&s.base).await.unwrap();
+    let names: Vec<String> = {
+        let mut v = Vec::new();
+        for e in a.find_all(By::Css("a.goal-link")).await.unwrap() {
+            v.push(e.text().await.unwrap());
+        }
+        v
+    };
+    assert!(names.iter().any(|n| n == "<script>alert(1)</script>"), "{names:?}");
+    assert!(a.get_alert_text().await.is_err(), "no script ran");
+    a.screenshot(&shots.join("home.png")).await.unwrap();
+
+    // The owner invites a viewer; in the second browser they join and see no edit controls.
+    a.goto(format!("{}/team", s.base)).await.unwrap();
+    fill(&a, "#invite-note", "Rosa").await;
+    a.find(By::Css("#invite-role option[value=viewer]")).await.unwrap().click().await.unwrap();
+    click(&a, "form[action='/team/invites'] button").await;
+    let invite = a.find(By::Id("secret-value")).await.unwrap().value().await.unwrap().unwrap();
+    click(&b, "form[action='/signout'] button").await;
+    wait_js(&b, "return location.pathname === '/signin';", "second browser signed out").await;
+    b.goto(&invite).await.unwrap();
+    fill(&b, "#display_name", "Rosa").await;
+    fill(&b, "#login", "rosa").await;
+    fill(&b, "#password", "tomato seedling").await;
+    fill(&b, "#password_again", "tomato seedling").await;
+    click(&b, "form.stack button.primary").await;
+    wait_js(&b, "return location.pathname === '/';", "viewer home").await;
+    assert!(b.find_all(By::Css("a.new-goal")).await.unwrap().is_empty(), "viewers get no new-goal links");
+    b.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
+    wait_js(&b, "return document.getElementById('editor')?.dataset.ready === '1';", "viewer editor").await;
+    assert!(b.find_all(By::Css("[data-tool]")).await.unwrap().is_empty(), "no tools for a viewer");
+    assert!(b.find_all(By::Id("save")).await.unwrap().is_empty(), "no save for a viewer");
+    // Forged writes from the viewer's page: with the CSRF token the role refuses, without it
+    // the CSRF check refuses.
+    let statuses = b
+        .execute_async(
+            r#"const done = arguments[arguments.length - 1];
+            const token = document.querySelector('meta[name="csrf-token"]').content;
+            const body = JSON.stringify({name: 'forged', frame_id: 'x', terms: []});
+            Promise.all([
+              fetch('/api/goals', {method: 'POST', headers: {'Content-Type': 'application/json', 'X-CSRF-Token': token}, body}),
+              fetch('/api/goals', {method: 'POST', headers: {'Content-Type': 'application/json'}, body}),
+              fetch('/goals/GOAL/restore', {method: 'POST', headers: {'Content-Type': 'application/x-www-form-urlencoded'}, body: 'revision=1&etag=x&csrf=' + token}),
+            ]).then(rs => done(rs.map(r => r.status)));"#
+                .replace("GOAL", &goal_id),
+            Vec::new(),
+        )
+        .await
+        .unwrap()
+        .json()
+        .clone();
+    assert_eq!(statuses, json!([403, 403, 403]));
+
+    // Tablet size: the sheet moves under the frame.
+    a.set_window_rect(0, 0, 820, 1180).await.unwrap();
+    a.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
+    wait_js(&a, "return document.getElementById('editor')?.dataset.ready === '1';", "tablet editor").await;
+    a.screenshot(&shots.join("editor-tablet.png")).await.unwrap();
+    let overflow = js(&a, "return document.documentElement.scrollWidth > window.innerWidth + 1;").await;
+    assert_eq!(overflow, json!(false), "no sideways scrolling at tablet size");
+
+    b.quit().await.ok();
+    a.quit().await.ok();
+}
