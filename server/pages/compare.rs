@@ -190,10 +190,10 @@ pub fn diff(a: &Value, b: &Value) -> Vec<Change> {
         });
     }
     let pairs = pair(ta, tb);
-    for j in 0..tb.len() {
+    for (j, tj) in tb.iter().enumerate() {
         match pairs.iter().find(|p| p.1 == j) {
             Some(&(i, _)) => {
-                let (lines, moved) = term_changes(&ta[i], &tb[j]);
+                let (lines, moved) = term_changes(&ta[i], tj);
                 let kind = if lines.is_empty() {
                     "same"
                 } else if moved {
@@ -202,15 +202,15 @@ pub fn diff(a: &Value, b: &Value) -> Vec<Change> {
                     "changed"
                 };
                 let text = if lines.is_empty() {
-                    format!("{}: unchanged", name(j, &tb[j]))
+                    format!("{}: unchanged", name(j, tj))
                 } else {
-                    format!("{}: {}", name(j, &tb[j]), lines.join("; "))
+                    format!("{}: {}", name(j, tj), lines.join("; "))
                 };
                 out.push(Change { kind, text });
             }
             None => out.push(Change {
                 kind: "added",
-                text: format!("{} added", name(j, &tb[j])),
+                text: format!("{} added", name(j, tj)),
             }),
         }
     }

@@ -71,8 +71,8 @@ pub fn heat(t: f64, within_tolerance: bool) -> [u8; 4] {
     };
     let f = (t - lo.0) / (hi.0 - lo.0);
     let mut out = [0u8; 4];
-    for k in 0..4 {
-        out[k] = (lo.1[k] + (hi.1[k] - lo.1[k]) * f).round() as u8;
+    for (k, v) in out.iter_mut().enumerate() {
+        *v = (lo.1[k] + (hi.1[k] - lo.1[k]) * f).round() as u8;
     }
     out
 }

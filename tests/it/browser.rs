@@ -55,7 +55,10 @@ fn chromedriver(test: &str) -> Option<Driver> {
     };
     let start = Instant::now();
     while std::net::TcpStream::connect(("127.0.0.1", port)).is_err() {
-        assert!(start.elapsed() < Duration::from_secs(20), "chromedriver did not listen");
+        assert!(
+            start.elapsed() < Duration::from_secs(20),
+            "chromedriver did not listen"
+        );
         std::thread::sleep(Duration::from_millis(50));
     }
     Some(driver)
@@ -113,13 +116,19 @@ async fn wait_js(d: &WebDriver, script: &str, what: &str) {
         if js(d, script).await == json!(true) {
             return;
         }
-        assert!(start.elapsed() < Duration::from_secs(20), "timed out waiting for {what}");
+        assert!(
+            start.elapsed() < Duration::from_secs(20),
+            "timed out waiting for {what}"
+        );
         tokio::time::sleep(Duration::from_millis(100)).await;
     }
 }
 
 async fn fill(d: &WebDriver, css: &str, text: &str) {
-    let e = d.find(By::Css(css)).await.unwrap_or_else(|_| panic!("{css}"));
+    let e = d
+        .find(By::Css(css))
+        .await
+        .unwrap_or_else(|_| panic!("{css}"));
     // Emptied by script rather than WebDriver's clear, which fires a change event of its own.
     d.execute("arguments[0].value = '';", vec![e.to_json().unwrap()])
         .await
@@ -178,7 +187,9 @@ async fn save(d: &WebDriver, note: &str, revision: i64) {
     click(d, "#save-confirm").await;
     wait_js(
         d,
-        &format!("return document.getElementById('editor').dataset.savedRevision === '{revision}';"),
+        &format!(
+            "return document.getElementById('editor').dataset.savedRevision === '{revision}';"
+        ),
         &format!("revision {revision} saved"),
     )
     .await;
@@ -189,7 +200,12 @@ async fn sign_in(d: &WebDriver, base: &str, login: &str, password: &str) {
     fill(d, "#login", login).await;
     fill(d, "#password", password).await;
     click(d, "form[action='/signin'] button[type=submit]").await;
-    wait_js(d, "return location.pathname === '/' && !!document.querySelector('.who');", "home after sign-in").await;
+    wait_js(
+        d,
+        "return location.pathname === '/' && !!document.querySelector('.who');",
+        "home after sign-in",
+    )
+    .await;
 }
 
 fn close(a: [f64; 2], b: &Value, tol: f64) -> bool {
@@ -201,7 +217,9 @@ async fn editor_end_to_end() {
     let Some(driver) = chromedriver("editor_end_to_end") else {
         return;
     };
-    let db = fresh_db(Db::Sqlite, "editor_end_to_end").await.expect("sqlite");
+    let db = fresh_db(Db::Sqlite, "editor_end_to_end")
+        .await
+        .expect("sqlite");
     let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
     let shots = screenshots();
     let work = tempfile::tempdir().unwrap();
@@ -225,9 +243,19 @@ async fn editor_end_to_end() {
     fill(&a, "#cam-name", "bench overhead").await;
     fill(&a, "#cam-w", "320").await;
     fill(&a, "#cam-h", "240").await;
-    fill(&a, "#cam-nogo", "[[[270, 10], [310, 10], [310, 50], [270, 50]]]").await;
+    fill(
+        &a,
+        "#cam-nogo",
+        "[[[270, 10], [310, 10], [310, 50], [270, 50]]]",
+    )
+    .await;
     click(&a, "#new-camera button.primary").await;
-    wait_js(&a, "return !!document.querySelector('input[type=file]');", "camera added").await;
+    wait_js(
+        &a,
+        "return !!document.querySelector('input[type=file]');",
+        "camera added",
+    )
+    .await;
     let frame_png = work.path().join("bench.png");
     std::fs::write(&frame_png, png(320, 240, 40)).unwrap();
     a.find(By::Css("input[type=file]"))
@@ -236,9 +264,19 @@ async fn editor_end_to_end() {
         .send_keys(frame_png.display().to_string())
         .await
         .unwrap();
-    wait_js(&a, "return !!document.querySelector('.frame-card.fresh');", "frame uploaded").await;
+    wait_js(
+        &a,
+        "return !!document.querySelector('.frame-card.fresh');",
+        "frame uploaded",
+    )
+    .await;
     click(&a, ".frame-card.fresh a.new-goal").await;
-    wait_js(&a, "return document.getElementById('editor')?.dataset.ready === '1';", "editor ready").await;
+    wait_js(
+        &a,
+        "return document.getElementById('editor')?.dataset.ready === '1';",
+        "editor ready",
+    )
+    .await;
 
     // A point goal clicked at 1×: source and target land on the clicked pixels.
     click(&a, "[data-view=one]").await;
@@ -257,23 +295,57 @@ async fn editor_end_to_end() {
     let (st, goals) = s.get("/api/goals", Some(&api)).await;
     assert_eq!(st.as_u16(), 200);
     let goal_id = goals["items"][0]["id"].as_str().unwrap().to_string();
-    let (_, rev1) = s.get(&format!("/api/goals/{goal_id}/revisions/1"), Some(&api)).await;
+    let (_, rev1) = s
+        .get(&format!("/api/goals/{goal_id}/revisions/1"), Some(&api))
+        .await;
     let t = &rev1["terms"];
     // Exactly the page's mapping of where the pointer landed, and within half a pixel of the
     // pixel aimed at.
-    assert!(close(src1, &t[0]["source"], 1e-3), "{src1:?} vs {}", t[0]["source"]);
-    assert!(close(dst1, &t[0]["target"], 1e-3), "{dst1:?} vs {}", t[0]["target"]);
-    assert!(close([40.0, 50.0], &t[0]["source"], 0.5), "{}", t[0]["source"]);
-    assert!(close([120.0, 80.0], &t[0]["target"], 0.5), "{}", t[0]["target"]);
-    assert!(close(src2, &t[1]["source"], 1e-3) && close(dst2, &t[1]["target"], 1e-3), "{t}");
-    assert!(close([150.0, 100.0], &t[1]["source"], 0.5 / 4.0 + 1e-9), "{}", t[1]["source"]);
-    assert!(close([190.0, 150.0], &t[1]["target"], 0.5 / 4.0 + 1e-9), "{}", t[1]["target"]);
+    assert!(
+        close(src1, &t[0]["source"], 1e-3),
+        "{src1:?} vs {}",
+        t[0]["source"]
+    );
+    assert!(
+        close(dst1, &t[0]["target"], 1e-3),
+        "{dst1:?} vs {}",
+        t[0]["target"]
+    );
+    assert!(
+        close([40.0, 50.0], &t[0]["source"], 0.5),
+        "{}",
+        t[0]["source"]
+    );
+    assert!(
+        close([120.0, 80.0], &t[0]["target"], 0.5),
+        "{}",
+        t[0]["target"]
+    );
+    assert!(
+        close(src2, &t[1]["source"], 1e-3) && close(dst2, &t[1]["target"], 1e-3),
+        "{t}"
+    );
+    assert!(
+        close([150.0, 100.0], &t[1]["source"], 0.5 / 4.0 + 1e-9),
+        "{}",
+        t[1]["source"]
+    );
+    assert!(
+        close([190.0, 150.0], &t[1]["target"], 0.5 / 4.0 + 1e-9),
+        "{}",
+        t[1]["target"]
+    );
 
     // An area, then an object move from three points; a label and a weight edited; revision 2.
     click(&a, "[data-view=fit]").await;
     click(&a, "[data-tool=region]").await;
     click_frame(&a, 60.0, 150.0).await;
-    for (x, y) in [(200.0, 160.0), (250.0, 160.0), (250.0, 210.0), (200.0, 210.0)] {
+    for (x, y) in [
+        (200.0, 160.0),
+        (250.0, 160.0),
+        (250.0, 210.0),
+        (200.0, 210.0),
+    ] {
         click_frame(&a, x, y).await;
     }
     key(&a, Key::Enter).await;
@@ -286,23 +358,43 @@ async fn editor_end_to_end() {
         click_frame(&a, x, y).await;
     }
     fill(&a, "#term-0-label", "pot").await;
-    a.find(By::Id("term-0-label")).await.unwrap().send_keys(Key::Tab).await.unwrap();
+    a.find(By::Id("term-0-label"))
+        .await
+        .unwrap()
+        .send_keys(Key::Tab)
+        .await
+        .unwrap();
     fill(&a, "#term-1-weight", "2").await;
-    a.find(By::Id("term-1-weight")).await.unwrap().send_keys(Key::Tab).await.unwrap();
+    a.find(By::Id("term-1-weight"))
+        .await
+        .unwrap()
+        .send_keys(Key::Tab)
+        .await
+        .unwrap();
     // Select the area's source so its cost heat shows in the screenshot.
     click(&a, ".term[data-index='2'] .term-pick").await;
     tokio::time::sleep(Duration::from_millis(900)).await;
     a.screenshot(&shots.join("editor.png")).await.unwrap();
     save(&a, "area and object move", 2).await;
-    let (_, rev2) = s.get(&format!("/api/goals/{goal_id}/revisions/2"), Some(&api)).await;
-    let kinds: Vec<&str> = rev2["terms"].as_array().unwrap().iter().map(|t| t["kind"].as_str().unwrap()).collect();
+    let (_, rev2) = s
+        .get(&format!("/api/goals/{goal_id}/revisions/2"), Some(&api))
+        .await;
+    let kinds: Vec<&str> = rev2["terms"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|t| t["kind"].as_str().unwrap())
+        .collect();
     assert_eq!(kinds, ["point", "point", "region", "rigid"], "{rev2}");
     assert_eq!(rev2["terms"][0]["label"], "pot");
     assert_eq!(rev2["terms"][1]["weight"], 2.0);
     assert_eq!(rev2["terms"][2]["polygon"].as_array().unwrap().len(), 4);
     assert_eq!(rev2["terms"][3]["sources"].as_array().unwrap().len(), 3);
     assert_eq!(rev2["terms"][3]["targets"].as_array().unwrap().len(), 3);
-    assert!(rev2["derived"]["rigid"][0]["translation"].is_array(), "{rev2}");
+    assert!(
+        rev2["derived"]["rigid"][0]["translation"].is_array(),
+        "{rev2}"
+    );
 
     // Arrow keys nudge the selected point: 1 px, Shift 0.1 px.
     click(&a, ".term[data-index='0'] .term-pick").await;
@@ -312,49 +404,98 @@ async fn editor_end_to_end() {
     let after = js(&a, "return window.goalEditor.state.terms[0].source;").await;
     let dx = after[0].as_f64().unwrap() - before[0].as_f64().unwrap();
     let dy = after[1].as_f64().unwrap() - before[1].as_f64().unwrap();
-    assert!((dx - 1.0).abs() < 1e-9 && (dy - 0.1).abs() < 1e-9, "{before} → {after}");
+    assert!(
+        (dx - 1.0).abs() < 1e-9 && (dy - 0.1).abs() < 1e-9,
+        "{before} → {after}"
+    );
 
     // A second browser session on the same goal; the first saves revision 3 meanwhile.
     let b = browser(&driver, &work.path().join("b")).await;
     sign_in(&b, &s.base, "ada", "potting bench 1").await;
     b.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
-    wait_js(&b, "return document.getElementById('editor')?.dataset.ready === '1';", "second editor").await;
+    wait_js(
+        &b,
+        "return document.getElementById('editor')?.dataset.ready === '1';",
+        "second editor",
+    )
+    .await;
     save(&a, "nudged the pot", 3).await;
     fill(&b, "#term-1-weight", "3").await;
-    b.find(By::Id("term-1-weight")).await.unwrap().send_keys(Key::Tab).await.unwrap();
+    b.find(By::Id("term-1-weight"))
+        .await
+        .unwrap()
+        .send_keys(Key::Tab)
+        .await
+        .unwrap();
     click(&b, "#save").await;
     fill(&b, "#save-note", "heavier second point").await;
     click(&b, "#save-confirm").await;
-    wait_js(&b, "return !document.getElementById('conflict').hidden;", "conflict message").await;
-    let text = b.find(By::Id("conflict-text")).await.unwrap().text().await.unwrap();
-    assert!(text.contains("changed since you loaded it") && text.contains("revision 3"), "{text}");
-    b.screenshot(&shots.join("editor-conflict.png")).await.unwrap();
+    wait_js(
+        &b,
+        "return !document.getElementById('conflict').hidden;",
+        "conflict message",
+    )
+    .await;
+    let text = b
+        .find(By::Id("conflict-text"))
+        .await
+        .unwrap()
+        .text()
+        .await
+        .unwrap();
+    assert!(
+        text.contains("changed since you loaded it") && text.contains("revision 3"),
+        "{text}"
+    );
+    b.screenshot(&shots.join("editor-conflict.png"))
+        .await
+        .unwrap();
     // Keep my change on top of the latest, and save again: revision 4.
     click(&b, "#conflict-keep").await;
-    wait_js(&b, "return document.getElementById('save-dialog').open;", "save dialog again").await;
+    wait_js(
+        &b,
+        "return document.getElementById('save-dialog').open;",
+        "save dialog again",
+    )
+    .await;
     click(&b, "#save-confirm").await;
-    wait_js(&b, "return document.getElementById('editor').dataset.savedRevision === '4';", "revision 4").await;
+    wait_js(
+        &b,
+        "return document.getElementById('editor').dataset.savedRevision === '4';",
+        "revision 4",
+    )
+    .await;
     let (_, rev4) = s.get(&format!("/api/goals/{goal_id}"), Some(&api)).await;
     assert_eq!(rev4["revision"], 4);
     assert_eq!(rev4["terms"][1]["weight"], 3.0);
 
     // History: restore revision 1 as revision 5.
-    a.goto(format!("{}/goals/{goal_id}/history", s.base)).await.unwrap();
+    a.goto(format!("{}/goals/{goal_id}/history", s.base))
+        .await
+        .unwrap();
     a.screenshot(&shots.join("history.png")).await.unwrap();
     click(&a, "li[data-revision='1'] form.restore button").await;
     wait_js(&a, "return !!document.querySelector('.flash') && document.querySelector('.flash').textContent.includes('restored');", "restored").await;
     let (_, latest) = s.get(&format!("/api/goals/{goal_id}"), Some(&api)).await;
     assert_eq!(latest["revision"], 5);
     assert_eq!(latest["terms"], rev1["terms"]);
-    a.goto(format!("{}/goals/{goal_id}/compare?a=2&b=5", s.base)).await.unwrap();
+    a.goto(format!("{}/goals/{goal_id}/compare?a=2&b=5", s.base))
+        .await
+        .unwrap();
     tokio::time::sleep(Duration::from_millis(500)).await;
     a.screenshot(&shots.join("compare.png")).await.unwrap();
 
     // A goal named like a script renders as text.
-    let (st, _) = s.post("/api/goals", Some(&api), &json!({
-        "name": "<script>alert(1)</script>", "frame_id": latest["frame_id"],
-        "terms": [{"kind": "point", "source": [5.0, 5.0], "target": [9.0, 9.0]}]
-    })).await;
+    let (st, _) = s
+        .post(
+            "/api/goals",
+            Some(&api),
+            &json!({
+                "name": "<script>alert(1)</script>", "frame_id": latest["frame_id"],
+                "terms": [{"kind": "point", "source": [5.0, 5.0], "target": [9.0, 9.0]}]
+            }),
+        )
+        .await;
     assert_eq!(st.as_u16(), 201);
     a.goto(&s.base).await.unwrap();
     let names: Vec<String> = {
@@ -364,18 +505,38 @@ async fn editor_end_to_end() {
         }
         v
     };
-    assert!(names.iter().any(|n| n == "<script>alert(1)</script>"), "{names:?}");
+    assert!(
+        names.iter().any(|n| n == "<script>alert(1)</script>"),
+        "{names:?}"
+    );
     assert!(a.get_alert_text().await.is_err(), "no script ran");
     a.screenshot(&shots.join("home.png")).await.unwrap();
 
     // The owner invites a viewer; in the second browser they join and see no edit controls.
     a.goto(format!("{}/team", s.base)).await.unwrap();
     fill(&a, "#invite-note", "Rosa").await;
-    a.find(By::Css("#invite-role option[value=viewer]")).await.unwrap().click().await.unwrap();
+    a.find(By::Css("#invite-role option[value=viewer]"))
+        .await
+        .unwrap()
+        .click()
+        .await
+        .unwrap();
     click(&a, "form[action='/team/invites'] button").await;
-    let invite = a.find(By::Id("secret-value")).await.unwrap().value().await.unwrap().unwrap();
+    let invite = a
+        .find(By::Id("secret-value"))
+        .await
+        .unwrap()
+        .value()
+        .await
+        .unwrap()
+        .unwrap();
     click(&b, "form[action='/signout'] button").await;
-    wait_js(&b, "return location.pathname === '/signin';", "second browser signed out").await;
+    wait_js(
+        &b,
+        "return location.pathname === '/signin';",
+        "second browser signed out",
+    )
+    .await;
     b.goto(&invite).await.unwrap();
     fill(&b, "#display_name", "Rosa").await;
     fill(&b, "#login", "rosa").await;
@@ -383,11 +544,25 @@ async fn editor_end_to_end() {
     fill(&b, "#password_again", "tomato seedling").await;
     click(&b, "form.stack button.primary").await;
     wait_js(&b, "return location.pathname === '/';", "viewer home").await;
-    assert!(b.find_all(By::Css("a.new-goal")).await.unwrap().is_empty(), "viewers get no new-goal links");
+    assert!(
+        b.find_all(By::Css("a.new-goal")).await.unwrap().is_empty(),
+        "viewers get no new-goal links"
+    );
     b.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
-    wait_js(&b, "return document.getElementById('editor')?.dataset.ready === '1';", "viewer editor").await;
-    assert!(b.find_all(By::Css("[data-tool]")).await.unwrap().is_empty(), "no tools for a viewer");
-    assert!(b.find_all(By::Id("save")).await.unwrap().is_empty(), "no save for a viewer");
+    wait_js(
+        &b,
+        "return document.getElementById('editor')?.dataset.ready === '1';",
+        "viewer editor",
+    )
+    .await;
+    assert!(
+        b.find_all(By::Css("[data-tool]")).await.unwrap().is_empty(),
+        "no tools for a viewer"
+    );
+    assert!(
+        b.find_all(By::Id("save")).await.unwrap().is_empty(),
+        "no save for a viewer"
+    );
     // Forged writes from the viewer's page: with the CSRF token the role refuses, without it
     // the CSRF check refuses.
     let statuses = b
@@ -412,10 +587,25 @@ async fn editor_end_to_end() {
     // Tablet size: the sheet moves under the frame.
     a.set_window_rect(0, 0, 820, 1180).await.unwrap();
     a.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
-    wait_js(&a, "return document.getElementById('editor')?.dataset.ready === '1';", "tablet editor").await;
-    a.screenshot(&shots.join("editor-tablet.png")).await.unwrap();
-    let overflow = js(&a, "return document.documentElement.scrollWidth > window.innerWidth + 1;").await;
-    assert_eq!(overflow, json!(false), "no sideways scrolling at tablet size");
+    wait_js(
+        &a,
+        "return document.getElementById('editor')?.dataset.ready === '1';",
+        "tablet editor",
+    )
+    .await;
+    a.screenshot(&shots.join("editor-tablet.png"))
+        .await
+        .unwrap();
+    let overflow = js(
+        &a,
+        "return document.documentElement.scrollWidth > window.innerWidth + 1;",
+    )
+    .await;
+    assert_eq!(
+        overflow,
+        json!(false),
+        "no sideways scrolling at tablet size"
+    );
 
     b.quit().await.ok();
     a.quit().await.ok();

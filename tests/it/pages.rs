@@ -109,7 +109,13 @@ impl Person {
     }
 
     /// A JSON API call with the session cookie and (when `csrf`) the page's CSRF token.
-    pub async fn api(&mut self, method: Method, path: &str, body: &Value, csrf: Option<&str>) -> Page {
+    pub async fn api(
+        &mut self,
+        method: Method,
+        path: &str,
+        body: &Value,
+        csrf: Option<&str>,
+    ) -> Page {
         let mut req = self.client.request(method, self.url(path)).json(body);
         if let Some(t) = csrf {
             req = req.header("x-csrf-token", t);
@@ -133,7 +139,13 @@ pub fn csrf_in(html: &str) -> String {
 }
 
 /// Accepts an invite link as a new person; returns them signed in, with the page's CSRF token.
-pub async fn join(base: &str, link: &str, login: &str, name: &str, password: &str) -> (Person, String) {
+pub async fn join(
+    base: &str,
+    link: &str,
+    login: &str,
+    name: &str,
+    password: &str,
+) -> (Person, String) {
     let mut p = Person::new(base);
     let page = p.get(link).await;
     assert_eq!(page.status, StatusCode::OK, "{}", page.body);
@@ -176,10 +188,23 @@ async fn accounts(kind: Db) {
     // A form posted without the cookie-bound token is refused with a readable page.
     let mut stranger = Person::new(&s.base);
     let refused = stranger
-        .post_form(&link, &[("csrf", "nope"), ("display_name", "X"), ("login", "x"), ("password", "0123456789"), ("password_again", "0123456789")])
+        .post_form(
+            &link,
+            &[
+                ("csrf", "nope"),
+                ("display_name", "X"),
+                ("login", "x"),
+                ("password", "0123456789"),
+                ("password_again", "0123456789"),
+            ],
+        )
         .await;
     assert_eq!(refused.status, StatusCode::FORBIDDEN);
-    assert!(refused.content_type.starts_with("text/html"), "{}", refused.content_type);
+    assert!(
+        refused.content_type.starts_with("text/html"),
+        "{}",
+        refused.content_type
+    );
 
     let (mut owner, csrf) = join(&s.base, &link, "ada", "Ada", "correct horse 1").await;
     let session_cookie = owner
@@ -189,16 +214,33 @@ async fn accounts(kind: Db) {
         .expect("session cookie")
         .clone();
     assert!(session_cookie.contains("HttpOnly"), "{session_cookie}");
-    assert!(session_cookie.contains("SameSite=Strict"), "{session_cookie}");
-    assert!(!session_cookie.contains("Secure"), "plain HTTP: {session_cookie}");
+    assert!(
+        session_cookie.contains("SameSite=Strict"),
+        "{session_cookie}"
+    );
+    assert!(
+        !session_cookie.contains("Secure"),
+        "plain HTTP: {session_cookie}"
+    );
     // The start-up link works once.
-    assert_eq!(Person::new(&s.base).get(&link).await.status, StatusCode::NOT_FOUND);
+    assert_eq!(
+        Person::new(&s.base).get(&link).await.status,
+        StatusCode::NOT_FOUND
+    );
 
     // Signing in again behind a TLS proxy gives a Secure cookie; a wrong password does not sign in.
     let mut again = Person::new(&s.base);
     let form = csrf_in(&again.get("/signin?next=/team").await.body);
     let wrong = again
-        .post_form("/signin", &[("csrf", &form), ("login", "ada"), ("password", "wrong"), ("next", "/team")])
+        .post_form(
+            "/signin",
+            &[
+                ("csrf", &form),
+                ("login", "ada"),
+                ("password", "wrong"),
+                ("next", "/team"),
+            ],
+        )
         .await;
     assert_eq!(wrong.status, StatusCode::SEE_OTHER);
     assert!(wrong.location.unwrap_or_default().starts_with("/signin"));
@@ -208,27 +250,60 @@ async fn accounts(kind: Db) {
         .post(again.url("/signin"))
         .header("content-type", "application/x-www-form-urlencoded")
         .header("x-forwarded-proto", "https")
-        .body(serde_urlencoded::to_string([("csrf", form.as_str()), ("login", "ADA"), ("password", "correct horse 1"), ("next", "/team")]).unwrap());
+        .body(
+            serde_urlencoded::to_string([
+                ("csrf", form.as_str()),
+                ("login", "ADA"),
+                ("password", "correct horse 1"),
+                ("next", "/team"),
+            ])
+            .unwrap(),
+        );
     let ok = again.send(req).await;
     assert_eq!(ok.location.as_deref(), Some("/team"));
-    assert!(again.set_cookies.iter().any(|c| c.starts_with("gs_session=") && c.contains("; Secure")));
+    assert!(
+        again
+            .set_cookies
+            .iter()
+            .any(|c| c.starts_with("gs_session=") && c.contains("; Secure"))
+    );
     // A crafted next= cannot send a person elsewhere.
     let form = csrf_in(&Person::new(&s.base).get("/signin").await.body);
     let mut third = Person::new(&s.base);
     third.cookies.insert("gs_form".into(), form.clone());
     let away = third
-        .post_form("/signin", &[("csrf", &form), ("login", "ada"), ("password", "correct horse 1"), ("next", "//evil.example")])
+        .post_form(
+            "/signin",
+            &[
+                ("csrf", &form),
+                ("login", "ada"),
+                ("password", "correct horse 1"),
+                ("next", "//evil.example"),
+            ],
+        )
         .await;
     assert_eq!(away.location.as_deref(), Some("/"));
 
     // Cookie-authenticated API writes need the CSRF header; reads do not.
-    assert_eq!(owner.api(Method::GET, "/api/cameras", &json!(null), None).await.status, StatusCode::OK);
+    assert_eq!(
+        owner
+            .api(Method::GET, "/api/cameras", &json!(null), None)
+            .await
+            .status,
+        StatusCode::OK
+    );
     let cam_body = json!({"name": "bench overhead", "width": 64, "height": 48, "no_go_zones": [[[50, 0], [63, 0], [63, 12]]]});
-    let no_csrf = owner.api(Method::POST, "/api/cameras", &cam_body, None).await;
+    let no_csrf = owner
+        .api(Method::POST, "/api/cameras", &cam_body, None)
+        .await;
     assert_eq!(no_csrf.status, StatusCode::FORBIDDEN, "{}", no_csrf.body);
-    let bad_csrf = owner.api(Method::POST, "/api/cameras", &cam_body, Some("0000")).await;
+    let bad_csrf = owner
+        .api(Method::POST, "/api/cameras", &cam_body, Some("0000"))
+        .await;
     assert_eq!(bad_csrf.status, StatusCode::FORBIDDEN);
-    let cam = owner.api(Method::POST, "/api/cameras", &cam_body, Some(&csrf)).await;
+    let cam = owner
+        .api(Method::POST, "/api/cameras", &cam_body, Some(&csrf))
+        .await;
     assert_eq!(cam.status, StatusCode::CREATED, "{}", cam.body);
     let cam: Value = serde_json::from_str(&cam.body).unwrap();
     let cam_id = cam["id"].as_str().unwrap().to_string();
@@ -245,26 +320,58 @@ async fn accounts(kind: Db) {
 
     // Every user string is escaped.
     let evil = "<script>alert(1)</script>";
-    let goal = owner.api(Method::POST, "/api/goals", &point_goal(&frame_id, evil), Some(&csrf)).await;
+    let goal = owner
+        .api(
+            Method::POST,
+            "/api/goals",
+            &point_goal(&frame_id, evil),
+            Some(&csrf),
+        )
+        .await;
     assert_eq!(goal.status, StatusCode::CREATED, "{}", goal.body);
     let goal: Value = serde_json::from_str(&goal.body).unwrap();
     let goal_id = goal["goal_id"].as_str().unwrap().to_string();
-    for path in ["/".to_string(), format!("/goals/{goal_id}"), format!("/goals/{goal_id}/history"), format!("/goals/{goal_id}/compare?a=1&b=1"), "/?q=script".to_string()] {
+    for path in [
+        "/".to_string(),
+        format!("/goals/{goal_id}"),
+        format!("/goals/{goal_id}/history"),
+        format!("/goals/{goal_id}/compare?a=1&b=1"),
+        "/?q=script".to_string(),
+    ] {
         let page = owner.get(&path).await;
         assert_eq!(page.status, StatusCode::OK, "{path}: {}", page.body);
-        assert!(!page.body.contains(evil), "{path} carries the name unescaped");
-        assert!(page.body.contains("&lt;script&gt;alert(1)&lt;/script&gt;") || page.body.contains("&#60;script&#62;alert(1)&#60;/script&#62;"), "{path} lacks the escaped name");
+        assert!(
+            !page.body.contains(evil),
+            "{path} carries the name unescaped"
+        );
+        assert!(
+            page.body.contains("&lt;script&gt;alert(1)&lt;/script&gt;")
+                || page
+                    .body
+                    .contains("&#60;script&#62;alert(1)&#60;/script&#62;"),
+            "{path} lacks the escaped name"
+        );
     }
 
     // Readable error pages with proper status codes.
     for (path, status) in [
         ("/no/such/page".to_string(), StatusCode::NOT_FOUND),
-        (format!("/goals/{}", uuid::Uuid::new_v4()), StatusCode::NOT_FOUND),
-        ("/goals/not-an-id/history".to_string(), StatusCode::NOT_FOUND),
+        (
+            format!("/goals/{}", uuid::Uuid::new_v4()),
+            StatusCode::NOT_FOUND,
+        ),
+        (
+            "/goals/not-an-id/history".to_string(),
+            StatusCode::NOT_FOUND,
+        ),
     ] {
         let page = owner.get(&path).await;
         assert_eq!(page.status, status, "{path}");
-        assert!(page.content_type.starts_with("text/html"), "{path}: {}", page.content_type);
+        assert!(
+            page.content_type.starts_with("text/html"),
+            "{path}: {}",
+            page.content_type
+        );
         assert!(page.body.contains("<h1>"), "{path}");
     }
     // 413 on a too-large frame upload, refused by its declared length before the body is read.
@@ -278,10 +385,18 @@ async fn accounts(kind: Db) {
         );
         tcp.write_all(head.as_bytes()).await.unwrap();
         let mut buf = Vec::new();
-        tokio::time::timeout(std::time::Duration::from_secs(20), tcp.read_to_end(&mut buf)).await.ok();
+        tokio::time::timeout(
+            std::time::Duration::from_secs(20),
+            tcp.read_to_end(&mut buf),
+        )
+        .await
+        .ok();
         let text = String::from_utf8_lossy(&buf);
         assert!(text.starts_with("HTTP/1.1 413"), "{text}");
-        assert!(text.contains("text/html") && text.contains("Too large"), "{text}");
+        assert!(
+            text.contains("text/html") && text.contains("Too large"),
+            "{text}"
+        );
     }
 
     // The no-script upload form works and needs its token.
@@ -293,7 +408,10 @@ async fn accounts(kind: Db) {
     let req = owner
         .client
         .post(owner.url(&format!("/cameras/{cam_id}/frames")))
-        .header("content-type", format!("multipart/form-data; boundary={boundary}"))
+        .header(
+            "content-type",
+            format!("multipart/form-data; boundary={boundary}"),
+        )
         .body(mp);
     let up = owner.send(req).await;
     assert_eq!(up.status, StatusCode::SEE_OTHER, "{}", up.body);
@@ -302,22 +420,53 @@ async fn accounts(kind: Db) {
     // Owners invite a viewer; the viewer reads but cannot write, by page or API.
     let team = owner.get("/team").await;
     let team_csrf = csrf_in(&team.body);
-    let invite = owner.post_form("/team/invites", &[("csrf", &team_csrf), ("role", "viewer"), ("note", "Rosa")]).await;
+    let invite = owner
+        .post_form(
+            "/team/invites",
+            &[("csrf", &team_csrf), ("role", "viewer"), ("note", "Rosa")],
+        )
+        .await;
     assert_eq!(invite.status, StatusCode::CREATED, "{}", invite.body);
     let viewer_link = link_in(&invite.body);
     let (mut viewer, vcsrf) = join(&s.base, &viewer_link, "rosa", "Rosa", "tomato seedling").await;
     let editor_page = viewer.get(&format!("/goals/{goal_id}")).await;
     assert_eq!(editor_page.status, StatusCode::OK);
-    assert!(!editor_page.body.contains("data-tool="), "a viewer sees no tools");
-    assert!(!editor_page.body.contains("id=\"save\""), "a viewer sees no save button");
-    let forged = viewer.api(Method::POST, "/api/goals", &point_goal(&frame_id, "mine"), Some(&vcsrf)).await;
+    assert!(
+        !editor_page.body.contains("data-tool="),
+        "a viewer sees no tools"
+    );
+    assert!(
+        !editor_page.body.contains("id=\"save\""),
+        "a viewer sees no save button"
+    );
+    let forged = viewer
+        .api(
+            Method::POST,
+            "/api/goals",
+            &point_goal(&frame_id, "mine"),
+            Some(&vcsrf),
+        )
+        .await;
     assert_eq!(forged.status, StatusCode::FORBIDDEN, "{}", forged.body);
-    let forged = viewer.post_form(&format!("/goals/{goal_id}/restore"), &[("csrf", &vcsrf), ("revision", "1"), ("etag", "\"x\"")]).await;
+    let forged = viewer
+        .post_form(
+            &format!("/goals/{goal_id}/restore"),
+            &[("csrf", &vcsrf), ("revision", "1"), ("etag", "\"x\"")],
+        )
+        .await;
     assert_eq!(forged.status, StatusCode::FORBIDDEN);
     assert!(forged.content_type.starts_with("text/html"));
-    let forged = viewer.post_form("/team/tokens", &[("csrf", &vcsrf), ("label", "mine"), ("role", "owner")]).await;
+    let forged = viewer
+        .post_form(
+            "/team/tokens",
+            &[("csrf", &vcsrf), ("label", "mine"), ("role", "owner")],
+        )
+        .await;
     assert_eq!(forged.status, StatusCode::FORBIDDEN);
-    assert!(!viewer.get("/team").await.body.contains("/team/tokens"), "viewers see no token controls");
+    assert!(
+        !viewer.get("/team").await.body.contains("/team/tokens"),
+        "viewers see no token controls"
+    );
 
     // Owners change roles at once, and keep at least one owner.
     let members = owner.get("/team").await.body;
@@ -326,24 +475,61 @@ async fn accounts(kind: Db) {
         let j = members[i..].find("/team/members/").unwrap() + i + "/team/members/".len();
         members[j..j + 36].to_string()
     };
-    let r = owner.post_form(&format!("/team/members/{rosa_id}/role"), &[("csrf", &team_csrf), ("role", "editor")]).await;
+    let r = owner
+        .post_form(
+            &format!("/team/members/{rosa_id}/role"),
+            &[("csrf", &team_csrf), ("role", "editor")],
+        )
+        .await;
     assert_eq!(r.status, StatusCode::SEE_OTHER);
-    let cam2 = viewer.api(Method::POST, "/api/cameras", &json!({"name": "side", "width": 32, "height": 32}), Some(&vcsrf)).await;
-    assert_eq!(cam2.status, StatusCode::CREATED, "an editor now: {}", cam2.body);
+    let cam2 = viewer
+        .api(
+            Method::POST,
+            "/api/cameras",
+            &json!({"name": "side", "width": 32, "height": 32}),
+            Some(&vcsrf),
+        )
+        .await;
+    assert_eq!(
+        cam2.status,
+        StatusCode::CREATED,
+        "an editor now: {}",
+        cam2.body
+    );
     let ada_id = {
         let i = members.find("data-login=\"ada\"").unwrap();
         let j = members[i..].find("/team/members/").unwrap() + i + "/team/members/".len();
         members[j..j + 36].to_string()
     };
-    owner.post_form(&format!("/team/members/{ada_id}/role"), &[("csrf", &team_csrf), ("role", "viewer")]).await;
-    assert!(owner.get("/team").await.body.contains("/team/tokens"), "the last owner stays owner");
+    owner
+        .post_form(
+            &format!("/team/members/{ada_id}/role"),
+            &[("csrf", &team_csrf), ("role", "viewer")],
+        )
+        .await;
+    assert!(
+        owner.get("/team").await.body.contains("/team/tokens"),
+        "the last owner stays owner"
+    );
 
     // Tokens: shown once, work as Bearer, stop working when revoked.
-    let made = owner.post_form("/team/tokens", &[("csrf", &team_csrf), ("label", "arm-2 planner"), ("role", "viewer")]).await;
+    let made = owner
+        .post_form(
+            "/team/tokens",
+            &[
+                ("csrf", &team_csrf),
+                ("label", "arm-2 planner"),
+                ("role", "viewer"),
+            ],
+        )
+        .await;
     assert_eq!(made.status, StatusCode::CREATED);
     let token: String = {
         let i = made.body.find("gs_").unwrap();
-        made.body[i..].chars().take_while(|c| c.is_ascii_alphanumeric() || *c == '_').collect()
+        made.body[i..]
+            .chars()
+            .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+            .collect()
     };
     assert_eq!(s.get("/api/goals", Some(&token)).await.0, StatusCode::OK);
     let team_page = owner.get("/team").await.body;
@@ -351,25 +537,70 @@ async fn accounts(kind: Db) {
     let i = team_page.find("/revoke").unwrap();
     let revoke = &team_page[team_page[..i].rfind("/team/tokens/").unwrap()..i + "/revoke".len()];
     owner.post_form(revoke, &[("csrf", &team_csrf)]).await;
-    assert_eq!(s.get("/api/goals", Some(&token)).await.0, StatusCode::UNAUTHORIZED);
+    assert_eq!(
+        s.get("/api/goals", Some(&token)).await.0,
+        StatusCode::UNAUTHORIZED
+    );
 
     // Removing a member ends their session at once.
-    owner.post_form(&format!("/team/members/{rosa_id}/remove"), &[("csrf", &team_csrf)]).await;
+    owner
+        .post_form(
+            &format!("/team/members/{rosa_id}/remove"),
+            &[("csrf", &team_csrf)],
+        )
+        .await;
     let gone = viewer.get("/").await;
     assert_eq!(gone.status, StatusCode::SEE_OTHER);
-    assert_eq!(viewer.api(Method::GET, "/api/goals", &json!(null), None).await.status, StatusCode::UNAUTHORIZED);
+    assert_eq!(
+        viewer
+            .api(Method::GET, "/api/goals", &json!(null), None)
+            .await
+            .status,
+        StatusCode::UNAUTHORIZED
+    );
 
     // Password change: needs the current one; ends the other sessions.
     let acc = owner.get("/account").await;
     let acsrf = csrf_in(&acc.body);
-    let bad = owner.post_form("/account/password", &[("csrf", &acsrf), ("current", "nope"), ("password", "a new longer one"), ("password_again", "a new longer one")]).await;
+    let bad = owner
+        .post_form(
+            "/account/password",
+            &[
+                ("csrf", &acsrf),
+                ("current", "nope"),
+                ("password", "a new longer one"),
+                ("password_again", "a new longer one"),
+            ],
+        )
+        .await;
     assert_eq!(bad.status, StatusCode::SEE_OTHER);
-    owner.post_form("/account/password", &[("csrf", &acsrf), ("current", "correct horse 1"), ("password", "a new longer one"), ("password_again", "a new longer one")]).await;
-    assert_eq!(again.get("/").await.status, StatusCode::SEE_OTHER, "the other session ended");
-    assert_eq!(owner.get("/").await.status, StatusCode::OK, "this session goes on");
+    owner
+        .post_form(
+            "/account/password",
+            &[
+                ("csrf", &acsrf),
+                ("current", "correct horse 1"),
+                ("password", "a new longer one"),
+                ("password_again", "a new longer one"),
+            ],
+        )
+        .await;
+    assert_eq!(
+        again.get("/").await.status,
+        StatusCode::SEE_OTHER,
+        "the other session ended"
+    );
+    assert_eq!(
+        owner.get("/").await.status,
+        StatusCode::OK,
+        "this session goes on"
+    );
 
     // Sign out without the token is refused; with it the session ends.
-    assert_eq!(owner.post_form("/signout", &[("csrf", "x")]).await.status, StatusCode::FORBIDDEN);
+    assert_eq!(
+        owner.post_form("/signout", &[("csrf", "x")]).await.status,
+        StatusCode::FORBIDDEN
+    );
     let out = owner.post_form("/signout", &[("csrf", &acsrf)]).await;
     assert_eq!(out.status, StatusCode::SEE_OTHER);
     assert_eq!(owner.get("/").await.status, StatusCode::SEE_OTHER);
@@ -386,7 +617,11 @@ async fn startup_link_replaced(kind: Db) {
     let path = |l: &str| l[l.find("/welcome/").unwrap()..].to_string();
     let (first, second) = (path(&first), path(&second));
     let mut p = Person::new(&s.base);
-    assert_eq!(p.get(&first).await.status, StatusCode::NOT_FOUND, "an older start-up link stops working");
+    assert_eq!(
+        p.get(&first).await.status,
+        StatusCode::NOT_FOUND,
+        "an older start-up link stops working"
+    );
     assert_eq!(p.get(&second).await.status, StatusCode::OK);
     assert_eq!(p.get("/").await.location.as_deref(), Some("/signin?next=/"));
 }
@@ -395,7 +630,12 @@ async fn preview_and_sets(kind: Db) {
     let Some((s, _db)) = server(kind, "pages_preview").await else {
         return;
     };
-    let (editor, _cam, frame) = camera_and_frame(&s, "potting", json!({"no_go_zones": [[[50, 0], [63, 0], [63, 12]]]})).await;
+    let (editor, _cam, frame) = camera_and_frame(
+        &s,
+        "potting",
+        json!({"no_go_zones": [[[50, 0], [63, 0], [63, 12]]]}),
+    )
+    .await;
     let goal = point_goal(&frame, "pot to mat");
     let resp = s
         .client
@@ -407,17 +647,31 @@ async fn preview_and_sets(kind: Db) {
         .unwrap();
     assert_eq!(resp.status(), StatusCode::OK);
     assert_eq!(resp.headers()["content-type"], "image/png");
-    let img = image::load_from_memory(&resp.bytes().await.unwrap()).unwrap().to_rgba8();
+    let img = image::load_from_memory(&resp.bytes().await.unwrap())
+        .unwrap()
+        .to_rgba8();
     assert_eq!(img.dimensions(), (64, 48));
     // The target (40, 30) is within tolerance; a far corner is not.
     assert_eq!(img.get_pixel(40, 30).0, [255, 246, 170, 200]);
     assert_ne!(img.get_pixel(0, 0).0, [255, 246, 170, 200]);
     let mut refused = goal.clone();
     refused["terms"][0]["target"] = json!([60.0, 2.0]);
-    let (st, err) = s.post("/api/preview/cost-map.png", Some(&editor), &json!({"goal": refused, "point": 0})).await;
+    let (st, err) = s
+        .post(
+            "/api/preview/cost-map.png",
+            Some(&editor),
+            &json!({"goal": refused, "point": 0}),
+        )
+        .await;
     assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY);
     assert_eq!(err["error"]["field"], "terms[0].target");
-    let (st, _) = s.post("/api/preview/cost-map.png", Some(&editor), &json!({"goal": goal, "point": 3})).await;
+    let (st, _) = s
+        .post(
+            "/api/preview/cost-map.png",
+            Some(&editor),
+            &json!({"goal": goal, "point": 3}),
+        )
+        .await;
     assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY);
 }
 
@@ -437,5 +691,8 @@ macro_rules! both {
 }
 
 both!(accounts_sessions_roles_tokens_errors, accounts);
-both!(startup_link_is_replaced_at_each_start, startup_link_replaced);
+both!(
+    startup_link_is_replaced_at_each_start,
+    startup_link_replaced
+);
 both!(cost_preview_route, preview_and_sets);
