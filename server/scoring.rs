@@ -415,7 +415,10 @@ pub fn revision_files(parts: &BundleParts<'_>) -> Vec<(String, Vec<u8>)> {
         ("goal.json".into(), parts.goal_json.as_bytes().to_vec()),
         ("cost-maps.npy".into(), parts.cost_maps_npy.to_vec()),
         (format!("frame.{}", parts.frame_ext), parts.frame.to_vec()),
-        ("camera.json".into(), crate::api::goals::canonical_json(parts.camera).into_bytes()),
+        (
+            "camera.json".into(),
+            crate::api::goals::canonical_json(parts.camera).into_bytes(),
+        ),
         ("README.txt".into(), readme(parts).into_bytes()),
     ]
 }
@@ -491,7 +494,11 @@ pub fn goal_set_zip(set: &Value, items: &[BundleParts<'_>]) -> Result<Vec<u8>, S
     let mut all = Vec::new();
     let mut listed = Vec::new();
     for (k, parts) in items.iter().enumerate() {
-        let dir = format!("{:02}-{}", k + 1, parts.goal["goal_id"].as_str().unwrap_or("goal"));
+        let dir = format!(
+            "{:02}-{}",
+            k + 1,
+            parts.goal["goal_id"].as_str().unwrap_or("goal")
+        );
         let mut files = revision_files(parts);
         let manifest = revision_manifest(parts, &files);
         files.push(("manifest.json".into(), pretty(&manifest)?));

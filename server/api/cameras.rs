@@ -281,15 +281,22 @@ pub async fn intrinsics(
         query.map_err(|e| ApiError::invalid_body("bad_query", e.body_text()))?;
     let row = load(&state, &who, &id).await?;
     let doc = parse_doc(&row)?;
-    let intr = doc.intrinsics().ok_or_else(|| {
-        ApiError::NotFound(format!("camera {:?} has no intrinsics", doc.name))
-    })?;
+    let intr = doc
+        .intrinsics()
+        .ok_or_else(|| ApiError::NotFound(format!("camera {:?} has no intrinsics", doc.name)))?;
     let (w, h) = (q.width.unwrap_or(doc.width), q.height.unwrap_or(doc.height));
     if w == 0 || h == 0 || w > MAX_SIDE || h > MAX_SIDE {
-        return Err(ApiError::invalid("bad_size", "width", format!("width and height must be between 1 and {MAX_SIDE}")));
+        return Err(ApiError::invalid(
+            "bad_size",
+            "width",
+            format!("width and height must be between 1 and {MAX_SIDE}"),
+        ));
     }
     let scaled = intr
-        .scaled(f64::from(w) / f64::from(doc.width), f64::from(h) / f64::from(doc.height))
+        .scaled(
+            f64::from(w) / f64::from(doc.width),
+            f64::from(h) / f64::from(doc.height),
+        )
         .map_err(|e| ApiError::invalid("bad_size", "width", e.to_string()))?;
     Ok(Json(serde_json::json!({
         "width": w,

@@ -33,18 +33,34 @@ struct ItemInput {
 }
 
 /// Checks the body: a name, 1..=500 items, each an existing revision of a team goal.
-async fn check(state: &AppState, who: &Principal, input: GoalSetInput) -> ApiResult<(String, Vec<Value>)> {
+async fn check(
+    state: &AppState,
+    who: &Principal,
+    input: GoalSetInput,
+) -> ApiResult<(String, Vec<Value>)> {
     let name = input.name.trim().to_string();
     if name.is_empty() || name.chars().count() > 200 {
-        return Err(ApiError::invalid("bad_name", "name", "a goal set needs a name of 1 to 200 characters"));
+        return Err(ApiError::invalid(
+            "bad_name",
+            "name",
+            "a goal set needs a name of 1 to 200 characters",
+        ));
     }
     if input.items.is_empty() || input.items.len() > MAX_ITEMS {
-        return Err(ApiError::invalid("bad_items", "items", format!("a goal set holds 1 to {MAX_ITEMS} items")));
+        return Err(ApiError::invalid(
+            "bad_items",
+            "items",
+            format!("a goal set holds 1 to {MAX_ITEMS} items"),
+        ));
     }
     let mut out = Vec::with_capacity(input.items.len());
     for (k, item) in input.items.iter().enumerate() {
         if item.revision < 1 {
-            return Err(ApiError::invalid("bad_revision", format!("items[{k}].revision"), "revisions start at 1"));
+            return Err(ApiError::invalid(
+                "bad_revision",
+                format!("items[{k}].revision"),
+                "revisions start at 1",
+            ));
         }
         let rev = match load_revision(state, who, &item.goal_id, Some(item.revision)).await {
             Ok(r) => r,
@@ -63,7 +79,15 @@ async fn check(state: &AppState, who: &Principal, input: GoalSetInput) -> ApiRes
     Ok((name, out))
 }
 
-fn document(id: &str, name: &str, version: i64, items: &[Value], author: &str, created: i64, updated: i64) -> String {
+fn document(
+    id: &str,
+    name: &str,
+    version: i64,
+    items: &[Value],
+    author: &str,
+    created: i64,
+    updated: i64,
+) -> String {
     canonical_json(&json!({
         "id": id,
         "name": name,
@@ -78,7 +102,10 @@ fn document(id: &str, name: &str, version: i64, items: &[Value], author: &str, c
 fn respond(status: StatusCode, row: &GoalSetRow) -> Response {
     let mut resp = (
         status,
-        [(header::CONTENT_TYPE, HeaderValue::from_static("application/json"))],
+        [(
+            header::CONTENT_TYPE,
+            HeaderValue::from_static("application/json"),
+        )],
         row.document.clone(),
     )
         .into_response();
@@ -122,7 +149,10 @@ pub async fn list(State(state): State<AppState>, who: Principal) -> ApiResult<ax
     let rows = store::goal_sets::list(state.store.pool(), &who.team_id).await?;
     let docs = rows
         .iter()
-        .map(|r| serde_json::from_str::<Value>(&r.document).map_err(|e| ApiError::Internal(e.to_string())))
+        .map(|r| {
+            serde_json::from_str::<Value>(&r.document)
+                .map_err(|e| ApiError::Internal(e.to_string()))
+        })
         .collect::<ApiResult<Vec<_>>>()?;
     Ok(items(docs))
 }
@@ -156,7 +186,13 @@ pub async fn update(
         return Err(ApiError::PreconditionRequired);
     };
     let tag = etag_of(&current.document);
-    if !if_match.to_str().unwrap_or("").split(',').map(str::trim).any(|t| t == "*" || t == tag) {
+    if !if_match
+        .to_str()
+        .unwrap_or("")
+        .split(',')
+        .map(str::trim)
+        .any(|t| t == "*" || t == tag)
+    {
         return Err(ApiError::PreconditionFailed(format!(
             "the goal set changed since you loaded it (it is at version {}); reload it and apply your change again",
             current.version
@@ -166,7 +202,15 @@ pub async fn update(
     let now = store::now_ms();
     let row = GoalSetRow {
         id: current.id.clone(),
-        document: document(&current.id, &name, current.version + 1, &items, &who.author, current.created_at, now),
+        document: document(
+            &current.id,
+            &name,
+            current.version + 1,
+            &items,
+            &who.author,
+            current.created_at,
+            now,
+        ),
         name,
         version: current.version + 1,
         created_at: current.created_at,
@@ -174,7 +218,8 @@ pub async fn update(
     };
     if !store::goal_sets::update(state.store.pool(), &who.team_id, current.version, &row).await? {
         return Err(ApiError::PreconditionFailed(
-            "someone saved the goal set at the same moment; reload it and apply your change again".into(),
+            "someone saved the goal set at the same moment; reload it and apply your change again"
+                .into(),
         ));
     }
     Ok(respond(StatusCode::OK, &row))
@@ -188,7 +233,8 @@ pub async fn bundle(
     headers: HeaderMap,
 ) -> ApiResult<Response> {
     let row = load(&state, &who, &id).await?;
-    let set: Value = serde_json::from_str(&row.document).map_err(|e| ApiError::Internal(e.to_string()))?;
+    let set: Value =
+        serde_json::from_str(&row.document).map_err(|e| ApiError::Internal(e.to_string()))?;
     let mut loaded = Vec::new();
     for item in set["items"].as_array().into_iter().flatten() {
         let goal = item["goal_id"].as_str().unwrap_or_default();
@@ -227,5 +273,10 @@ pub async fn bundle(
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
-    Ok(export::binary("application/zip", format!("goal-set-{id}-v{}.zip", row.version), zip, &headers))
+    Ok(export::binary(
+        "application/zip",
+        format!("goal-set-{id}-v{}.zip", row.version),
+        zip,
+        &headers,
+    ))
 }

@@ -112,8 +112,14 @@ pub fn router(state: AppState) -> Router<AppState> {
             post(export::report_outcome),
         )
         .route("/api/goals/{id}/outcomes", get(export::outcomes))
-        .route("/api/goal-sets", post(goal_sets::create).get(goal_sets::list))
-        .route("/api/goal-sets/{id}", get(goal_sets::get_one).put(goal_sets::update))
+        .route(
+            "/api/goal-sets",
+            post(goal_sets::create).get(goal_sets::list),
+        )
+        .route(
+            "/api/goal-sets/{id}",
+            get(goal_sets::get_one).put(goal_sets::update),
+        )
         .route("/api/goal-sets/{id}/bundle.zip", get(goal_sets::bundle))
         .layer(DefaultBodyLimit::max(json_limit))
         .layer(RequestBodyLimitLayer::new(json_limit));

@@ -122,19 +122,97 @@ const OPERATIONS: &[(&str, &str, &str, Option<&str>, &str)] = &[
         None,
         "200",
     ),
-    ("get", "/api/goals/{id}/revisions/{n}/cost-maps.npy", "Cost maps, float32 NPY of shape (P, H, W); ?width=&height= evaluates exactly at another size", None, "200"),
-    ("post", "/api/goals/{id}/revisions/{n}/cost", "Score candidates: JSON {points: [N][T][P][2]}, or an NPY body of float32/float16 maps (N, T, P, h, w) or points (N, T, P, 2)", Some("application/json"), "200"),
-    ("get", "/api/goals/{id}/revisions/{n}/overlay.png", "The frame with the goal drawn on it", None, "200"),
-    ("get", "/api/goals/{id}/revisions/{n}/bundle.zip", "Reproducible bundle: goal.json, cost-maps.npy, frame, camera.json, README.txt, manifest.json", None, "200"),
-    ("post", "/api/goals/{id}/revisions/{n}/outcomes", "Report final source positions of a trial; 201 with success, residuals and cost", Some("application/json"), "201"),
-    ("get", "/api/goals/{id}/outcomes", "All outcomes of a goal with a success summary", None, "200"),
-    ("post", "/api/goal-sets", "Create a goal set: {name, items: [{goal_id, revision}]}", Some("application/json"), "201"),
-    ("get", "/api/goal-sets", "List goal sets, most recently saved first", None, "200"),
-    ("get", "/api/goal-sets/{id}", "One goal set (ETag for If-Match)", None, "200"),
-    ("put", "/api/goal-sets/{id}", "Save a goal set; needs If-Match (428 without, 412 when stale)", Some("application/json"), "200"),
-    ("get", "/api/goal-sets/{id}/bundle.zip", "Every pinned revision's bundle in one reproducible ZIP, in set order", None, "200"),
-    ("post", "/api/preview/cost-map.png", "Cost map of one source point of an unsaved goal {goal, point, max_side?} as a translucent heat PNG (the editor's live preview); 422 with field when the goal would be refused", Some("application/json"), "200"),
-    ("get", "/api/cameras/{id}/intrinsics", "Intrinsics (both forms) for frames resized to ?width=&height= (fx, cx by the horizontal factor; fy, cy by the vertical)", None, "200"),
+    (
+        "get",
+        "/api/goals/{id}/revisions/{n}/cost-maps.npy",
+        "Cost maps, float32 NPY of shape (P, H, W); ?width=&height= evaluates exactly at another size",
+        None,
+        "200",
+    ),
+    (
+        "post",
+        "/api/goals/{id}/revisions/{n}/cost",
+        "Score candidates: JSON {points: [N][T][P][2]}, or an NPY body of float32/float16 maps (N, T, P, h, w) or points (N, T, P, 2)",
+        Some("application/json"),
+        "200",
+    ),
+    (
+        "get",
+        "/api/goals/{id}/revisions/{n}/overlay.png",
+        "The frame with the goal drawn on it",
+        None,
+        "200",
+    ),
+    (
+        "get",
+        "/api/goals/{id}/revisions/{n}/bundle.zip",
+        "Reproducible bundle: goal.json, cost-maps.npy, frame, camera.json, README.txt, manifest.json",
+        None,
+        "200",
+    ),
+    (
+        "post",
+        "/api/goals/{id}/revisions/{n}/outcomes",
+        "Report final source positions of a trial; 201 with success, residuals and cost",
+        Some("application/json"),
+        "201",
+    ),
+    (
+        "get",
+        "/api/goals/{id}/outcomes",
+        "All outcomes of a goal with a success summary",
+        None,
+        "200",
+    ),
+    (
+        "post",
+        "/api/goal-sets",
+        "Create a goal set: {name, items: [{goal_id, revision}]}",
+        Some("application/json"),
+        "201",
+    ),
+    (
+        "get",
+        "/api/goal-sets",
+        "List goal sets, most recently saved first",
+        None,
+        "200",
+    ),
+    (
+        "get",
+        "/api/goal-sets/{id}",
+        "One goal set (ETag for If-Match)",
+        None,
+        "200",
+    ),
+    (
+        "put",
+        "/api/goal-sets/{id}",
+        "Save a goal set; needs If-Match (428 without, 412 when stale)",
+        Some("application/json"),
+        "200",
+    ),
+    (
+        "get",
+        "/api/goal-sets/{id}/bundle.zip",
+        "Every pinned revision's bundle in one reproducible ZIP, in set order",
+        None,
+        "200",
+    ),
+    (
+        "post",
+        "/api/preview/cost-map.png",
+        "Cost map of one source point of an unsaved goal {goal, point, max_side?} as a translucent heat PNG (the editor's live preview); 422 with field when the goal would be refused",
+        Some("application/json"),
+        "200",
+    ),
+    (
+        "get",
+        "/api/cameras/{id}/intrinsics",
+        "Intrinsics (both forms) for frames resized to ?width=&height= (fx, cx by the horizontal factor; fy, cy by the vertical)",
+        None,
+        "200",
+    ),
 ];
 
 fn error_response(description: &str) -> Value {
@@ -213,7 +291,10 @@ pub fn document_value() -> Value {
                 );
             }
             if path.ends_with("/cost") {
-                content.insert("application/x-npy".into(), json!({"schema": {"type": "string", "format": "binary"}}));
+                content.insert(
+                    "application/x-npy".into(),
+                    json!({"schema": {"type": "string", "format": "binary"}}),
+                );
             }
             op["requestBody"] = json!({"required": true, "content": content});
         }

@@ -51,7 +51,12 @@ pub async fn insert(pool: &AnyPool, team_id: &str, row: &GoalSetRow) -> Result<(
 }
 
 /// Replaces a set if its version is still `expected`; false (nothing written) otherwise.
-pub async fn update(pool: &AnyPool, team_id: &str, expected: i64, row: &GoalSetRow) -> Result<bool> {
+pub async fn update(
+    pool: &AnyPool,
+    team_id: &str,
+    expected: i64,
+    row: &GoalSetRow,
+) -> Result<bool> {
     let n = sqlx::query(
         "UPDATE goal_sets SET name = $1, version = $2, document = $3, updated_at = $4 \
          WHERE id = $5 AND team_id = $6 AND version = $7",

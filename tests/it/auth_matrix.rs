@@ -22,7 +22,8 @@ async fn matrix(s: Server) {
         &s,
         "potting",
         json!({"intrinsics": {"fx": 50.0, "fy": 50.0, "cx": 31.5, "cy": 23.5}}),
-    ).await;
+    )
+    .await;
     let viewer = s.token("potting", "viewer");
     let owner = s.token("potting", "owner");
     let other = s.token("seedlings", "owner");
@@ -36,7 +37,11 @@ async fn matrix(s: Server) {
     assert_eq!(st, StatusCode::CREATED);
     let goal = rev["goal_id"].as_str().unwrap().to_string();
     let (st, set) = s
-        .post("/api/goal-sets", Some(&editor), &json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}))
+        .post(
+            "/api/goal-sets",
+            Some(&editor),
+            &json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}),
+        )
         .await;
     assert_eq!(st, StatusCode::CREATED, "{set}");
     let set = set["id"].as_str().unwrap().to_string();
@@ -186,14 +191,49 @@ async fn matrix(s: Server) {
             Body::None,
             [unauth, nf, ok, ok, ok],
         ),
-        (Method::GET, format!("/api/cameras/{cam}/intrinsics"), Body::None, [unauth, nf, ok, ok, ok]),
-        (Method::POST, "/api/goal-sets".into(), Body::Set, [unauth, invalid, forbidden, created, created]),
-        (Method::GET, "/api/goal-sets".into(), Body::None, [unauth, ok, ok, ok, ok]),
-        (Method::GET, format!("/api/goal-sets/{set}"), Body::None, [unauth, nf, ok, ok, ok]),
-        (Method::PUT, format!("/api/goal-sets/{set}"), Body::Set, [unauth, nf, forbidden, ok, ok]),
-        (Method::GET, format!("/api/goal-sets/{set}/bundle.zip"), Body::None, [unauth, nf, ok, ok, ok]),
+        (
+            Method::GET,
+            format!("/api/cameras/{cam}/intrinsics"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::POST,
+            "/api/goal-sets".into(),
+            Body::Set,
+            [unauth, invalid, forbidden, created, created],
+        ),
+        (
+            Method::GET,
+            "/api/goal-sets".into(),
+            Body::None,
+            [unauth, ok, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goal-sets/{set}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::PUT,
+            format!("/api/goal-sets/{set}"),
+            Body::Set,
+            [unauth, nf, forbidden, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/goal-sets/{set}/bundle.zip"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
         // The editor's live cost preview writes nothing, so viewers may use it.
-        (Method::POST, "/api/preview/cost-map.png".into(), Body::Preview, [unauth, invalid, ok, ok, ok]),
+        (
+            Method::POST,
+            "/api/preview/cost-map.png".into(),
+            Body::Preview,
+            [unauth, invalid, ok, ok, ok],
+        ),
     ];
     let routes: Vec<(String, String)> = table
         .iter()
@@ -240,12 +280,20 @@ async fn matrix(s: Server) {
                 }
                 Body::Set => {
                     if *method == Method::PUT {
-                        let resp = s.client.get(s.url(&format!("/api/goal-sets/{set}"))).bearer_auth(&editor).send().await.unwrap();
+                        let resp = s
+                            .client
+                            .get(s.url(&format!("/api/goal-sets/{set}")))
+                            .bearer_auth(&editor)
+                            .send()
+                            .await
+                            .unwrap();
                         req = req.header("if-match", etag(&resp).unwrap());
                     }
                     req.json(&json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}))
                 }
-                Body::Preview => req.json(&json!({"goal": point_goal(&frame, "pot to mat"), "point": 0})),
+                Body::Preview => {
+                    req.json(&json!({"goal": point_goal(&frame, "pot to mat"), "point": 0}))
+                }
                 Body::Points => req.json(&json!({"points": [[[[20.0, 20.0]]]]})),
                 Body::Outcome => req.json(&json!({"final_points": [[40.0, 30.0]]})),
                 Body::Goal => {

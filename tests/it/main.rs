@@ -9,6 +9,6 @@ mod browser;
 mod concurrency;
 mod export;
 mod goal_sets;
-mod restart;
 mod pages;
+mod restart;
 mod routes;

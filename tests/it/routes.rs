@@ -49,7 +49,15 @@ async fn cameras_frames_goals(s: Server) {
     let cam_id = cam["id"].as_str().unwrap().to_string();
 
     // Intrinsics for frames resized to 32×24 (factor ½): fx' = fx/2, cx' = (cx + 0.5)/2 − 0.5.
-    let (st, small) = s.get(&format!("/api/cameras/{}/intrinsics?width=32&height=24", cam["id"].as_str().unwrap()), Some(&viewer)).await;
+    let (st, small) = s
+        .get(
+            &format!(
+                "/api/cameras/{}/intrinsics?width=32&height=24",
+                cam["id"].as_str().unwrap()
+            ),
+            Some(&viewer),
+        )
+        .await;
     assert_eq!(st, StatusCode::OK, "{small}");
     assert_eq!(small["intrinsics"]["fx"], 25.0);
     assert_eq!(small["intrinsics"]["cx"], 15.5);

@@ -360,7 +360,11 @@ pub fn point_goal(frame_id: &str, name: &str) -> Value {
 
 /// Starts the server like [`Server::start`] and also returns the one-time sign-in link it prints
 /// on stderr at start-up (other stderr lines are passed through).
-pub fn start_with_link(db_url: &str, data_dir: &std::path::Path, extra: &[&str]) -> (Server, String) {
+pub fn start_with_link(
+    db_url: &str,
+    data_dir: &std::path::Path,
+    extra: &[&str],
+) -> (Server, String) {
     let mut child = Command::new(bin())
         .args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
         .arg("--data-dir")
@@ -378,7 +382,11 @@ pub fn start_with_link(db_url: &str, data_dir: &std::path::Path, extra: &[&str])
             if let Some(i) = line.find("http://")
                 && line.contains("/welcome/")
             {
-                let url = line[i..].split_whitespace().next().unwrap_or("").to_string();
+                let url = line[i..]
+                    .split_whitespace()
+                    .next()
+                    .unwrap_or("")
+                    .to_string();
                 tx.send(url).ok();
             }
             eprintln!("{line}");
