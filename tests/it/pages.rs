@@ -675,6 +675,115 @@ async fn preview_and_sets(kind: Db) {
     assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY);
 }
 
+fn field_in(html: &str, name: &str) -> String {
+    let pat = format!("name=\"{name}\" value=\"");
+    let i = html.find(&pat).unwrap_or_else(|| panic!("no field {name}")) + pat.len();
+    let raw: String = html[i..].chars().take_while(|c| *c != '"').collect();
+    raw.replace("&#34;", "\"").replace("&quot;", "\"")
+}
+
+async fn goal_set_pages(kind: Db) {
+    let Some(db) = fresh_db(kind, "pages_goal_sets").await else {
+        return;
+    };
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+    let (mut owner, _) = join(&s.base, &link, "ada", "Ada", "correct horse 1").await;
+    let (api, _cam, frame) = camera_and_frame(&s, "my team", json!({})).await;
+    let mut ids = Vec::new();
+    for name in ["pot to mat", "tray to bench"] {
+        let (st, rev) = s
+            .post("/api/goals", Some(&api), &point_goal(&frame, name))
+            .await;
+        assert_eq!(st, StatusCode::CREATED);
+        ids.push(rev["goal_id"].as_str().unwrap().to_string());
+    }
+    let page = owner.get("/goal-sets").await;
+    let csrf = csrf_in(&page.body);
+    let made = owner
+        .post_form(
+            "/goal-sets",
+            &[
+                ("csrf", &csrf),
+                ("name", "morning suite"),
+                ("goal", &ids[0]),
+                ("goal", &ids[1]),
+            ],
+        )
+        .await;
+    assert_eq!(made.status, StatusCode::SEE_OTHER, "{}", made.body);
+    let here = made.location.unwrap();
+    let set_id = here.trim_start_matches("/goal-sets/").to_string();
+    let page = owner.get(&here).await;
+    assert!(page.body.contains("pot to mat") && page.body.contains("tray to bench"));
+    assert!(
+        page.body
+            .contains(&format!("/api/goal-sets/{set_id}/bundle.zip"))
+    );
+    assert!(
+        page.body.contains("Before a robot uses this"),
+        "the caution sits by the download"
+    );
+    let old_tag = field_in(&page.body, "etag");
+    let moved = owner
+        .post_form(
+            &here,
+            &[("csrf", &csrf), ("etag", &old_tag), ("action", "down:0")],
+        )
+        .await;
+    assert_eq!(moved.status, StatusCode::SEE_OTHER);
+    let (_, set) = s.get(&format!("/api/goal-sets/{set_id}"), Some(&api)).await;
+    assert_eq!(set["items"][0]["goal_id"], ids[1].as_str(), "{set}");
+    // A newer revision of a goal, then every pin updated.
+    let (_, latest) = s.get(&format!("/api/goals/{}", ids[0]), Some(&api)).await;
+    let resp = s
+        .client
+        .get(s.url(&format!("/api/goals/{}", ids[0])))
+        .bearer_auth(&api)
+        .send()
+        .await
+        .unwrap();
+    let tag = etag(&resp).unwrap();
+    let (st, _, _) = s
+        .put_goal(
+            &ids[0],
+            &api,
+            Some(&tag),
+            &point_goal(&frame, latest["name"].as_str().unwrap()),
+        )
+        .await;
+    assert_eq!(st, StatusCode::OK);
+    let page = owner.get(&here).await;
+    assert!(
+        page.body.contains("latest is 2"),
+        "the outdated pin is marked"
+    );
+    let fresh = field_in(&page.body, "etag");
+    owner
+        .post_form(
+            &here,
+            &[("csrf", &csrf), ("etag", &fresh), ("action", "pin-all")],
+        )
+        .await;
+    let (_, set) = s.get(&format!("/api/goal-sets/{set_id}"), Some(&api)).await;
+    assert_eq!(set["items"][1]["revision"], 2, "{set}");
+    // A stale form changes nothing and says why.
+    let stale = owner
+        .post_form(
+            &here,
+            &[("csrf", &csrf), ("etag", &old_tag), ("action", "remove:0")],
+        )
+        .await;
+    assert_eq!(stale.status, StatusCode::SEE_OTHER);
+    let page = owner.get(&here).await;
+    assert!(
+        page.body.contains("changed since you loaded it"),
+        "{}",
+        page.body
+    );
+    let (_, after) = s.get(&format!("/api/goal-sets/{set_id}"), Some(&api)).await;
+    assert_eq!(after["items"].as_array().unwrap().len(), 2);
+}
+
 macro_rules! both {
     ($name:ident, $body:ident) => {
         mod $name {
@@ -696,3 +805,4 @@ both!(
     startup_link_replaced
 );
 both!(cost_preview_route, preview_and_sets);
+both!(goal_set_pages_create_reorder_pin, goal_set_pages);
