@@ -7,7 +7,8 @@
 //! `cost` times the map kernel (N=200, T=10, P=2 at 64×64 and 128×128, steps `all`, float32
 //! and float16, on one thread and on all cores), the point kernel (N=10000, T=10, P=4) and,
 //! as the yardstick for a memory-bound kernel, one thread summing a 512 MiB float32 buffer
-//! (`memory_read`). Map rows carry `gb_per_s` (bytes of maps read per second) and
+//! (`memory_read`, with the same wide registers and prefetching as the kernel, so the ratio
+//! compares like with like). Map rows carry `gb_per_s` (bytes of maps read per second) and
 //! `memory_ratio` = their `gb_per_s` ÷ the 512 MiB `memory_read` rate. A second `memory_read`
 //! row over 64 MiB shows the rate when the data fits in the last-level cache, which on
 //! machines with a large cache is the fairer yardstick for the 64×64 batch (65 MB).
@@ -164,23 +165,11 @@ fn pool(threads: usize) -> Result<rayon::ThreadPool, String> {
         .map_err(|e| format!("cannot start a thread pool: {e}"))
 }
 
-/// Sum of a float32 buffer in 16 independent lanes: a pure streaming read.
-fn sum_f32(data: &[f32]) -> f32 {
-    let mut acc = [0.0f32; 16];
-    let mut chunks = data.chunks_exact(16);
-    for c in &mut chunks {
-        for l in 0..16 {
-            acc[l] += c[l];
-        }
-    }
-    acc.iter().sum::<f32>() + chunks.remainder().iter().sum::<f32>()
-}
-
 fn memory_read_row(bytes: usize) -> BenchRow {
     let mut rng = SplitMix64(7);
     let buf: Vec<f32> = (0..bytes / 4).map(|_| rng.next_f64() as f32).collect();
     let ms = median_ms(5, Duration::from_secs(2), || {
-        black_box(sum_f32(black_box(&buf)));
+        black_box(crate::cost::streaming_sum(black_box(&buf)));
     });
     BenchRow {
         bench: "memory_read".into(),
