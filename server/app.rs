@@ -56,6 +56,7 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
     let state = AppState {
         store,
         limits: Arc::new(config.limits.clone()),
+        models: Arc::default(),
     };
     Ok(state)
 }

@@ -42,22 +42,63 @@ impl From<ScoreError> for ApiError {
     }
 }
 
+/// Checked goals and their cost models by (goal id, revision). A planner in a control loop
+/// scores the same revision many times a second; rebuilding the model (mask decoding and
+/// indexing included) each time would dominate small requests. Revisions are immutable, so an
+/// entry never goes stale; the cache only bounds its size.
+#[derive(Default)]
+pub struct ModelCache {
+    entries: std::sync::Mutex<
+        std::collections::HashMap<(String, i64), std::sync::Arc<(GoalSpec, CostModel)>>,
+    >,
+}
+
+/// Most revisions kept in the [`ModelCache`].
+const MODEL_CACHE_ENTRIES: usize = 64;
+
+impl ModelCache {
+    fn get(&self, key: &(String, i64)) -> Option<std::sync::Arc<(GoalSpec, CostModel)>> {
+        self.entries.lock().ok()?.get(key).cloned()
+    }
+
+    fn put(&self, key: (String, i64), value: std::sync::Arc<(GoalSpec, CostModel)>) {
+        if let Ok(mut m) = self.entries.lock() {
+            if m.len() >= MODEL_CACHE_ENTRIES && !m.contains_key(&key) {
+                // Any entry will do: they are cheap to rebuild and never wrong.
+                if let Some(k) = m.keys().next().cloned() {
+                    m.remove(&k);
+                }
+            }
+            m.insert(key, value);
+        }
+    }
+}
+
 /// A pinned revision with everything needed to score or export it.
 pub struct Loaded {
     /// The stored revision.
     pub row: RevisionRow,
     /// Its document.
     pub doc: Value,
-    /// Its checked goal.
-    pub spec: GoalSpec,
-    /// Its cost model.
-    pub model: CostModel,
+    /// Its checked goal and cost model (shared with the cache).
+    pub checked: std::sync::Arc<(GoalSpec, CostModel)>,
     /// The frame it is drawn on.
     pub frame: store::frames::FrameRow,
     /// The camera of that frame.
     pub camera: CameraDoc,
     /// The camera as served.
     pub camera_json: Value,
+}
+
+impl Loaded {
+    /// The checked goal.
+    pub fn spec(&self) -> &GoalSpec {
+        &self.checked.0
+    }
+    /// The cost model.
+    pub fn model(&self) -> &CostModel {
+        &self.checked.1
+    }
 }
 
 /// Loads revision `n` of a team's goal and rebuilds its cost model (off the async workers).
@@ -69,20 +110,27 @@ pub async fn load(state: &AppState, who: &Principal, id: &str, n: &str) -> ApiRe
     let camera_json = cameras::camera_json(&camera_row)?;
     let doc: Value = serde_json::from_str(&row.document)
         .map_err(|e| ApiError::Internal(format!("revision unreadable: {e}")))?;
-    let (w, h) = (camera.width, camera.height);
-    let doc2 = doc.clone();
-    let (spec, model) = tokio::task::spawn_blocking(move || {
-        let spec = scoring::spec_from_revision(&doc2, w, h)?;
-        let model = scoring::model(&spec)?;
-        Ok::<_, ScoreError>((spec, model))
-    })
-    .await
-    .map_err(|e| ApiError::Internal(e.to_string()))??;
+    let key = (row.goal_id.clone(), row.revision);
+    let checked = match state.models.get(&key) {
+        Some(c) => c,
+        None => {
+            let (w, h) = (camera.width, camera.height);
+            let doc2 = doc.clone();
+            let built = tokio::task::spawn_blocking(move || {
+                let spec = scoring::spec_from_revision(&doc2, w, h)?;
+                let model = scoring::model(&spec)?;
+                Ok::<_, ScoreError>(std::sync::Arc::new((spec, model)))
+            })
+            .await
+            .map_err(|e| ApiError::Internal(e.to_string()))??;
+            state.models.put(key, built.clone());
+            built
+        }
+    };
     Ok(Loaded {
         row,
         doc,
-        spec,
-        model,
+        checked,
         frame,
         camera,
         camera_json,
@@ -171,10 +219,10 @@ pub async fn cost_maps(
         }
     };
     let l = load(&state, &who, &id, &n).await?;
-    let (fw, fh) = l.spec.frame_size();
+    let (fw, fh) = l.spec().frame_size();
     let (w, h) = (w.unwrap_or(fw as usize), h.unwrap_or(fh as usize));
     let rev = l.row.revision;
-    let bytes = tokio::task::spawn_blocking(move || scoring::cost_maps_npy(&l.model, w, h))
+    let bytes = tokio::task::spawn_blocking(move || scoring::cost_maps_npy(l.model(), w, h))
         .await
         .map_err(|e| ApiError::Internal(e.to_string()))??;
     Ok(binary(
@@ -204,10 +252,11 @@ pub async fn cost(
     let l = load(&state, &who, &id, &n).await?;
     let body = read_body(req, &state).await?;
     let max = state.limits.cost_body_bytes;
-    let result =
-        tokio::task::spawn_blocking(move || scoring::evaluate(&l.model, &content_type, &body, max))
-            .await
-            .map_err(|e| ApiError::Internal(e.to_string()))??;
+    let result = tokio::task::spawn_blocking(move || {
+        scoring::evaluate(l.model(), &content_type, &body, max)
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??;
     Ok(Json(scoring::result_json(&result)))
 }
 
@@ -225,7 +274,7 @@ pub async fn overlay(
     let rev = l.row.revision;
     let png = tokio::task::spawn_blocking(move || {
         scoring::overlay_png(
-            &l.spec,
+            l.spec(),
             &bytes,
             scoring::Zones {
                 safe: l.camera.safe_zone.as_deref(),
@@ -256,8 +305,8 @@ pub async fn bundle(
         .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
     let rev = l.row.revision;
     let zip = tokio::task::spawn_blocking(move || {
-        let (w, h) = l.spec.frame_size();
-        let maps = scoring::cost_maps_npy(&l.model, w as usize, h as usize)?;
+        let (w, h) = l.spec().frame_size();
+        let maps = scoring::cost_maps_npy(l.model(), w as usize, h as usize)?;
         scoring::bundle_zip(&scoring::BundleParts {
             goal_json: &l.row.document,
             goal: &l.doc,
@@ -269,7 +318,7 @@ pub async fn bundle(
             } else {
                 "jpg"
             },
-            points: l.model.len(),
+            points: l.model().len(),
             width: w,
             height: h,
         })
@@ -310,7 +359,7 @@ pub async fn report_outcome(
         ));
     }
     let l = load(&state, &who, &id, &n).await?;
-    let result = scoring::outcome(&l.spec, &l.model, &input.final_points)?;
+    let result = scoring::outcome(l.spec(), l.model(), &input.final_points)?;
     let row = store::outcomes::OutcomeRow {
         id: uuid::Uuid::new_v4().to_string(),
         goal_id: l.row.goal_id.clone(),

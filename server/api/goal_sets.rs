@@ -248,14 +248,14 @@ pub async fn bundle(
     let zip = tokio::task::spawn_blocking(move || {
         let mut maps = Vec::new();
         for (l, _, _) in &loaded {
-            let (w, h) = l.spec.frame_size();
-            maps.push(scoring::cost_maps_npy(&l.model, w as usize, h as usize)?);
+            let (w, h) = l.spec().frame_size();
+            maps.push(scoring::cost_maps_npy(l.model(), w as usize, h as usize)?);
         }
         let parts: Vec<scoring::BundleParts<'_>> = loaded
             .iter()
             .zip(&maps)
             .map(|((l, ct, frame), m)| {
-                let (w, h) = l.spec.frame_size();
+                let (w, h) = l.spec().frame_size();
                 scoring::BundleParts {
                     goal_json: &l.row.document,
                     goal: &l.doc,
@@ -263,7 +263,7 @@ pub async fn bundle(
                     cost_maps_npy: m,
                     frame,
                     frame_ext: if ct == "image/png" { "png" } else { "jpg" },
-                    points: l.model.len(),
+                    points: l.model().len(),
                     width: w,
                     height: h,
                 }

@@ -30,6 +30,8 @@ pub struct AppState {
     pub store: Store,
     /// Body and image limits.
     pub limits: Arc<Limits>,
+    /// Checked goals and cost models of recently scored revisions (revisions never change).
+    pub models: Arc<export::ModelCache>,
 }
 
 /// Every API route with its methods, for the OpenAPI document and the authorisation tests.
