@@ -690,6 +690,23 @@ fn dot_min_f32_portable(a: &[f32], b: &[f32]) -> (f64, f32) {
     dot_min_f32::<true>(a, b)
 }
 
+/// A kernel's result for one map: Σ a·b and the minimum of `a`.
+type SumMin = (f64, f32);
+
+/// Maps of one point scored in one call of a kernel; see [`PreparedMaps::run`].
+const GROUP: usize = 4;
+
+/// A one-map kernel applied map by map, for [`PreparedMaps::run`].
+fn each<T>(
+    dot: impl Fn(&[T], &[f32]) -> (f64, f32) + Sync,
+) -> impl Fn(&[&[T]], &[f32], &mut [SumMin]) + Sync {
+    move |a, b, out| {
+        for (x, o) in a.iter().zip(out.iter_mut()) {
+            *o = dot(x, b);
+        }
+    }
+}
+
 /// As [`dot_min_f32`] for float16 `a`, converted block by block into a stack buffer.
 #[inline(always)]
 fn dot_min_f16(a: &[f16], b: &[f32]) -> (f64, f32) {
@@ -745,16 +762,110 @@ pub(crate) fn streaming_sum(data: &[f32]) -> f32 {
 /// operations are the same, only wider registers carry them (and float16 → float32 is exact).
 #[cfg(target_arch = "x86_64")]
 mod x86 {
-    use super::{BLOCK, LANES, PREFETCH_BYTES, dot_min_f32, prefetch};
+    use super::{BLOCK, LANES, PREFETCH_BYTES, prefetch};
     use half::f16;
     use std::arch::x86_64::{
         _mm_loadu_si128, _mm256_add_ps, _mm256_cvtph_ps, _mm256_loadu_ps, _mm256_min_ps,
-        _mm256_mul_ps, _mm256_setzero_ps, _mm256_storeu_ps,
+        _mm256_mul_ps, _mm256_set1_ps, _mm256_setzero_ps, _mm256_storeu_ps,
     };
 
+    /// [`super::dot_min_f32`] for `G` maps against the same cost map `b` in one pass, so each
+    /// load of `b` serves `G` maps and `G` independent streams keep the memory busy. Per map
+    /// the lanes, their order and the float32 operations are those of the portable kernel
+    /// (two 8-wide registers of the 16 lanes, a separate multiply and add, the remainder in
+    /// lane 0, lane totals in float64 every [`BLOCK`] values), so each result is bit-identical
+    /// to `dot_min_f32(a[g], b)`. Every `a[g]` must have the length of `b`.
     #[target_feature(enable = "avx2")]
-    pub(super) fn dot_min_f32_avx2(a: &[f32], b: &[f32]) -> (f64, f32) {
-        dot_min_f32::<true>(a, b)
+    pub(super) fn dot_min_f32_group<const G: usize>(a: [&[f32]; G], b: &[f32]) -> [(f64, f32); G] {
+        let len = b.len();
+        assert!(
+            a.iter().all(|x| x.len() == len),
+            "maps and cost map differ in length"
+        );
+        let mut total = [[0.0f64; LANES]; G];
+        let mut m = [_mm256_set1_ps(f32::INFINITY); G];
+        let mut start = 0;
+        while start < len {
+            let block = (len - start).min(BLOCK);
+            let full = block - block % LANES;
+            let mut acc = [[_mm256_setzero_ps(); 2]; G];
+            let mut k = start;
+            while k < start + full {
+                // SAFETY (loads): k + 16 ≤ len, and every `a[g]` and `b` hold `len` floats; the
+                // intrinsics accept unaligned pointers; this function enables AVX and AVX2.
+                let (y0, y1) = unsafe {
+                    (
+                        _mm256_loadu_ps(b.as_ptr().add(k)),
+                        _mm256_loadu_ps(b.as_ptr().add(k + 8)),
+                    )
+                };
+                for g in 0..G {
+                    let base = a[g].as_ptr();
+                    prefetch(base.cast::<u8>().wrapping_add(k * 4 + PREFETCH_BYTES));
+                    let (x0, x1) = unsafe {
+                        (
+                            _mm256_loadu_ps(base.add(k)),
+                            _mm256_loadu_ps(base.add(k + 8)),
+                        )
+                    };
+                    acc[g][0] = _mm256_add_ps(acc[g][0], _mm256_mul_ps(x0, y0));
+                    acc[g][1] = _mm256_add_ps(acc[g][1], _mm256_mul_ps(x1, y1));
+                    // min(x, m) = x < m ? x : m, as the portable lanes; the minimum's value
+                    // does not depend on the order the lanes are folded in.
+                    m[g] = _mm256_min_ps(_mm256_min_ps(x0, x1), m[g]);
+                }
+                k += LANES;
+            }
+            for g in 0..G {
+                let mut lanes = [0.0f32; LANES];
+                let mut mn = [f32::INFINITY; 8];
+                // SAFETY: both arrays hold at least the 8 floats each store writes.
+                unsafe {
+                    _mm256_storeu_ps(lanes.as_mut_ptr(), acc[g][0]);
+                    _mm256_storeu_ps(lanes.as_mut_ptr().add(8), acc[g][1]);
+                    _mm256_storeu_ps(mn.as_mut_ptr(), m[g]);
+                }
+                let tail = start + full..start + block;
+                for (x, y) in a[g][tail.clone()].iter().zip(&b[tail]) {
+                    lanes[0] += x * y;
+                    mn[0] = if *x < mn[0] { *x } else { mn[0] };
+                }
+                // SAFETY: `mn` holds 8 floats.
+                m[g] = unsafe { _mm256_loadu_ps(mn.as_ptr()) };
+                for l in 0..LANES {
+                    total[g][l] += f64::from(lanes[l]);
+                }
+            }
+            start += block;
+        }
+        std::array::from_fn(|g| {
+            let mut mn = [f32::INFINITY; 8];
+            // SAFETY: `mn` holds 8 floats.
+            unsafe { _mm256_storeu_ps(mn.as_mut_ptr(), m[g]) };
+            (
+                total[g].iter().sum(),
+                mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)),
+            )
+        })
+    }
+
+    /// [`dot_min_f32_group`] for up to [`super::GROUP`] maps, results into `out`.
+    ///
+    /// # Safety
+    /// The CPU must support AVX2.
+    #[target_feature(enable = "avx2")]
+    pub(super) unsafe fn dot_min_f32_avx2(a: &[&[f32]], b: &[f32], out: &mut [(f64, f32)]) {
+        match *a {
+            [a0] => out[..1].copy_from_slice(&dot_min_f32_group([a0], b)),
+            [a0, a1] => out[..2].copy_from_slice(&dot_min_f32_group([a0, a1], b)),
+            [a0, a1, a2] => out[..3].copy_from_slice(&dot_min_f32_group([a0, a1, a2], b)),
+            [a0, a1, a2, a3] => out[..4].copy_from_slice(&dot_min_f32_group([a0, a1, a2, a3], b)),
+            _ => {
+                for (x, o) in a.iter().zip(out.iter_mut()) {
+                    *o = dot_min_f32_group([*x], b)[0];
+                }
+            }
+        }
     }
 
     /// [`super::dot_min_f16`] with the conversion fused into the loop: the same 16 lanes (two
@@ -861,12 +972,14 @@ impl PreparedMaps {
                 #[cfg(target_arch = "x86_64")]
                 if std::arch::is_x86_feature_detected!("avx2") {
                     // SAFETY: the CPU has AVX2 (checked just above).
-                    let dot = |a: &[f32], b: &[f32]| unsafe { x86::dot_min_f32_avx2(a, b) };
+                    let dot = |a: &[&[f32]], b: &[f32], out: &mut [(f64, f32)]| unsafe {
+                        x86::dot_min_f32_avx2(a, b, out)
+                    };
                     return self
                         .run(v, &mut per, t, steps, parallel, dot)
                         .and_then(|()| finish(per, np));
                 }
-                self.run(v, &mut per, t, steps, parallel, dot_min_f32_portable)
+                self.run(v, &mut per, t, steps, parallel, each(dot_min_f32_portable))
             }
             MapBatch::F16(v) => {
                 #[cfg(target_arch = "x86_64")]
@@ -876,16 +989,19 @@ impl PreparedMaps {
                     // SAFETY: the CPU has AVX2 and F16C (checked just above).
                     let dot = |a: &[f16], b: &[f32]| unsafe { x86::dot_min_f16_avx2(a, b) };
                     return self
-                        .run(v, &mut per, t, steps, parallel, dot)
+                        .run(v, &mut per, t, steps, parallel, each(dot))
                         .and_then(|()| finish(per, np));
                 }
-                self.run(v, &mut per, t, steps, parallel, dot_min_f16)
+                self.run(v, &mut per, t, steps, parallel, each(dot_min_f16))
             }
         };
         result?;
         finish(per, np)
     }
 
+    /// Adds each candidate's weighted per-point costs into `per`. `dot` scores up to
+    /// [`GROUP`] maps of one point (several steps) against that point's kernel map in one call,
+    /// so a wide kernel can share the kernel map's loads between them.
     fn run<T: Sync>(
         &self,
         maps: &[T],
@@ -893,27 +1009,49 @@ impl PreparedMaps {
         t: usize,
         steps: std::ops::Range<usize>,
         parallel: bool,
-        dot: impl Fn(&[T], &[f32]) -> (f64, f32) + Sync,
+        dot: impl Fn(&[&[T]], &[f32], &mut [SumMin]) + Sync,
     ) -> Result<(), CostError> {
         let np = self.points();
         let plane = self.width * self.height;
         let stride = t * np * plane;
+        let at = |s: usize, p: usize| (s * np + p) * plane..(s * np + p + 1) * plane;
+        let good = |(sum, min): (f64, f32)| sum.is_finite() && min >= 0.0;
         let score = |cand: &[T], out: &mut [f64]| -> Result<(), (usize, usize)> {
-            for s in steps.clone() {
-                let slab = &cand[s * np * plane..(s + 1) * np * plane];
+            let mut first = steps.start;
+            while first < steps.end {
+                let count = (steps.end - first).min(GROUP);
+                let group = first..first + count;
                 for (p, acc) in out.iter_mut().enumerate() {
-                    let (sum, min) = dot(
-                        &slab[p * plane..(p + 1) * plane],
-                        &self.kernel[p * plane..(p + 1) * plane],
-                    );
-                    if !(sum.is_finite() && min >= 0.0) {
-                        return Err((s, p));
+                    let kernel = &self.kernel[p * plane..(p + 1) * plane];
+                    let mut slices: [&[T]; GROUP] = [&[]; GROUP];
+                    for (slot, s) in slices.iter_mut().zip(group.clone()) {
+                        *slot = &cand[at(s, p)];
                     }
-                    *acc += match self.settings.mode {
-                        Mode::Expected => sum,
-                        Mode::Hit => hit_cost(sum),
-                    };
+                    let mut res = [(0.0, 0.0); GROUP];
+                    dot(&slices[..count], kernel, &mut res[..count]);
+                    if !res[..count].iter().all(|&r| good(r)) {
+                        // Name the first bad map in (step, point) order, as a one-map pass
+                        // would: later points of earlier steps in this group are unread yet.
+                        for s in group.clone() {
+                            for q in 0..np {
+                                let mut one = [(0.0, 0.0)];
+                                let k = &self.kernel[q * plane..(q + 1) * plane];
+                                dot(&[&cand[at(s, q)]], k, &mut one);
+                                if !good(one[0]) {
+                                    return Err((s, q));
+                                }
+                            }
+                        }
+                        return Err((first, p));
+                    }
+                    for &(sum, _) in &res[..count] {
+                        *acc += match self.settings.mode {
+                            Mode::Expected => sum,
+                            Mode::Hit => hit_cost(sum),
+                        };
+                    }
                 }
+                first += count;
             }
             for (acc, w) in out.iter_mut().zip(&self.weights) {
                 *acc *= w;
@@ -1330,8 +1468,17 @@ mod tests {
             let b: Vec<f32> = (0..len).map(|_| next() * 100.0).collect();
             let a16: Vec<f16> = a.iter().map(|&v| f16::from_f32(v * 1e3)).collect();
             // SAFETY: both features were detected above.
-            let (wide, wide16) = unsafe { (x86::dot_min_f32_avx2(&a, &b), x86::dot_min_f16_avx2(&a16, &b)) };
-            prop_assert_eq!(wide, dot_min_f32::<false>(&a, &b));
+            let wide16 = unsafe { x86::dot_min_f16_avx2(&a16, &b) };
+            // Groups of one to four maps (the others are shifted copies of `a`).
+            let rot: Vec<Vec<f32>> = (0..4).map(|r| { let mut v = a.clone(); if len > 0 { v.rotate_left(r * 7 % len); } v }).collect();
+            for g in 1..=5 {
+                let group: Vec<&[f32]> = (0..g).map(|r| rot[r % 4].as_slice()).collect();
+                let mut out = vec![(0.0, 0.0); g];
+                unsafe { x86::dot_min_f32_avx2(&group, &b, &mut out) };
+                for (r, got) in out.iter().enumerate() {
+                    prop_assert_eq!(*got, dot_min_f32::<false>(&rot[r % 4], &b));
+                }
+            }
             prop_assert_eq!(wide16, dot_min_f16(&a16, &b));
         }
 
@@ -1502,6 +1649,49 @@ mod tests {
                 candidate: 0,
                 step: 0,
                 point: 0
+            })
+        );
+    }
+
+    #[test]
+    fn grouped_steps_sum_in_step_order_and_report_the_first_bad_map() {
+        // T = 7: groups of four and three steps per point in the wide kernel.
+        let (n, t, np, w, h) = (3usize, 7usize, 4usize, 9usize, 5usize);
+        let plane = w * h;
+        let prepared = mixed_model(Steps::All, Mode::Expected)
+            .prepare_maps(w, h)
+            .unwrap();
+        let mut s = 11u64;
+        let mut maps: Vec<f32> = (0..n * t * np * plane)
+            .map(|_| {
+                s = s.wrapping_mul(6364136223846793005).wrapping_add(1);
+                (s >> 40) as f32 / (1u64 << 24) as f32
+            })
+            .collect();
+        let res = prepared.evaluate(MapBatch::F32(&maps), n, t).unwrap();
+        let kernel = prepared.kernel_maps();
+        for c in 0..n {
+            for p in 0..np {
+                let mut want = 0.0;
+                for st in 0..t {
+                    let off = ((c * t + st) * np + p) * plane;
+                    let k = &kernel[p * plane..(p + 1) * plane];
+                    want += dot_min_f32::<false>(&maps[off..off + plane], k).0;
+                }
+                assert_eq!(res.per_point[c][p], want * prepared.weights[p]);
+            }
+        }
+        // Step 2 of point 0 and step 1 of point 3 are bad: (1, 3) comes first.
+        let at = |c: usize, st: usize, p: usize| ((c * t + st) * np + p) * plane + 3;
+        maps[at(1, 2, 0)] = -1.0;
+        maps[at(1, 1, 3)] = f32::NAN;
+        let err = prepared.evaluate(MapBatch::F32(&maps), n, t);
+        assert_eq!(
+            err,
+            Err(CostError::BadProbability {
+                candidate: 1,
+                step: 1,
+                point: 3
             })
         );
     }

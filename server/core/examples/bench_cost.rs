@@ -1,0 +1,78 @@
+//! Times the map cost kernel: `bench_cost` prints every `goalsmith_core::bench::run("cost")`
+//! row; `bench_cost quick` times only the float32 map kernel on one thread (N=200, T=10, P=2 at
+//! 64×64 and 128×128), interleaving the sizes for a few rounds.
+//! Run: `cargo run -p goalsmith-core --release --example bench_cost [quick]`.
+
+use goalsmith_core::cost::TargetShape;
+use goalsmith_core::cost::{CostModel, CostPoint, CostSettings, MapBatch, Metric, Mode, Steps};
+use goalsmith_core::geometry::PixelPoint;
+use std::time::Instant;
+
+fn main() -> Result<(), String> {
+    if std::env::args().nth(1).as_deref() != Some("quick") {
+        for row in goalsmith_core::bench::run("cost")? {
+            println!("{}", row.to_json());
+        }
+        return Ok(());
+    }
+    let pt = |x, y| PixelPoint::new(x, y).map_err(|e| e.to_string());
+    let points = vec![
+        CostPoint {
+            target: TargetShape::Point(pt(412.5, 300.25)?),
+            weight: 1.0,
+            tolerance_px: 5.0,
+        },
+        CostPoint {
+            target: TargetShape::Point(pt(1100.0, 620.0)?),
+            weight: 0.5,
+            tolerance_px: 5.0,
+        },
+    ];
+    let settings = CostSettings::new(Metric::Euclidean, Steps::All, Mode::Expected)
+        .map_err(|e| e.to_string())?;
+    let model = CostModel::new(1280, 720, points, settings).map_err(|e| e.to_string())?;
+    let (n, t, p) = (200usize, 10usize, 2usize);
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .map_err(|e| e.to_string())?;
+    let mut s = 12345u64;
+    let data: Vec<(usize, Vec<f32>, _)> = [64usize, 128]
+        .iter()
+        .map(|&side| {
+            let len = n * t * p * side * side;
+            let scale = 2.0 / (side * side) as f32;
+            let v: Vec<f32> = (0..len)
+                .map(|_| {
+                    s = s
+                        .wrapping_mul(6364136223846793005)
+                        .wrapping_add(1442695040888963407);
+                    (s >> 40) as f32 / (1u64 << 24) as f32 * scale
+                })
+                .collect();
+            (side, v, model.prepare_maps(side, side).unwrap())
+        })
+        .collect();
+    for round in 0..3 {
+        for (side, v, prep) in &data {
+            let mut times: Vec<f64> = pool.install(|| {
+                (0..25)
+                    .map(|_| {
+                        let t0 = Instant::now();
+                        std::hint::black_box(prep.evaluate(MapBatch::F32(v), n, t).unwrap());
+                        t0.elapsed().as_secs_f64() * 1e3
+                    })
+                    .collect()
+            });
+            times.sort_by(f64::total_cmp);
+            let ms = times[times.len() / 2];
+            let bytes = (v.len() * 4) as f64;
+            println!(
+                "round {round} {side}x{side} f32 1 thread: median {ms:.3} ms (min {:.3}), {:.2} GB/s",
+                times[0],
+                bytes / (ms * 1e-3) / 1e9
+            );
+        }
+    }
+    Ok(())
+}
