@@ -91,6 +91,44 @@ pub struct Loaded {
 }
 
 impl Loaded {
+    /// The stored frame image: (content type, bytes).
+    pub async fn frame_image(&self, state: &AppState) -> ApiResult<(String, Vec<u8>)> {
+        store::frames::image_bytes(state.store.pool(), &self.frame.sha256)
+            .await?
+            .ok_or_else(|| ApiError::Internal(format!("image of frame {} missing", self.frame.id)))
+    }
+
+    /// The full-size cost maps as NPY (CPU work: call it off the async workers).
+    pub fn full_size_maps(&self) -> Result<Vec<u8>, ScoreError> {
+        let (w, h) = self.spec().frame_size();
+        scoring::cost_maps_npy(self.model(), w as usize, h as usize)
+    }
+
+    /// What the bundle of this revision is made of.
+    pub fn bundle_parts<'a>(
+        &'a self,
+        content_type: &str,
+        frame: &'a [u8],
+        maps: &'a [u8],
+    ) -> scoring::BundleParts<'a> {
+        let (width, height) = self.spec().frame_size();
+        scoring::BundleParts {
+            goal_json: &self.row.document,
+            goal: &self.doc,
+            camera: &self.camera_json,
+            cost_maps_npy: maps,
+            frame,
+            frame_ext: if content_type == "image/png" {
+                "png"
+            } else {
+                "jpg"
+            },
+            points: self.model().len(),
+            width,
+            height,
+        }
+    }
+
     /// The checked goal.
     pub fn spec(&self) -> &GoalSpec {
         &self.checked.0
@@ -268,9 +306,7 @@ pub async fn overlay(
     headers: HeaderMap,
 ) -> ApiResult<Response> {
     let l = load(&state, &who, &id, &n).await?;
-    let (_, bytes) = store::frames::image_bytes(state.store.pool(), &l.frame.sha256)
-        .await?
-        .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
+    let (_, bytes) = l.frame_image(&state).await?;
     let rev = l.row.revision;
     let png = tokio::task::spawn_blocking(move || {
         scoring::overlay_png(
@@ -300,28 +336,11 @@ pub async fn bundle(
     headers: HeaderMap,
 ) -> ApiResult<Response> {
     let l = load(&state, &who, &id, &n).await?;
-    let (content_type, frame) = store::frames::image_bytes(state.store.pool(), &l.frame.sha256)
-        .await?
-        .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
+    let (content_type, frame) = l.frame_image(&state).await?;
     let rev = l.row.revision;
     let zip = tokio::task::spawn_blocking(move || {
-        let (w, h) = l.spec().frame_size();
-        let maps = scoring::cost_maps_npy(l.model(), w as usize, h as usize)?;
-        scoring::bundle_zip(&scoring::BundleParts {
-            goal_json: &l.row.document,
-            goal: &l.doc,
-            camera: &l.camera_json,
-            cost_maps_npy: &maps,
-            frame: &frame,
-            frame_ext: if content_type == "image/png" {
-                "png"
-            } else {
-                "jpg"
-            },
-            points: l.model().len(),
-            width: w,
-            height: h,
-        })
+        let maps = l.full_size_maps()?;
+        scoring::bundle_zip(&l.bundle_parts(&content_type, &frame, &maps))
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;

@@ -4,7 +4,7 @@ use super::auth::{Principal, Role};
 use super::error::{ApiError, ApiResult};
 use super::export;
 use super::extract::JsonBody;
-use super::goals::{canonical_json, etag_of, if_none_match, load_revision};
+use super::goals::{canonical_json, etag_of, if_match, if_none_match, load_revision};
 use super::{AppState, items, parse_id, rfc3339};
 use crate::scoring;
 use crate::store::{self, goal_sets::GoalSetRow};
@@ -182,17 +182,7 @@ pub async fn update(
 ) -> ApiResult<Response> {
     who.require(Role::Editor)?;
     let current = load(&state, &who, &id).await?;
-    let Some(if_match) = headers.get(header::IF_MATCH) else {
-        return Err(ApiError::PreconditionRequired);
-    };
-    let tag = etag_of(&current.document);
-    if !if_match
-        .to_str()
-        .unwrap_or("")
-        .split(',')
-        .map(str::trim)
-        .any(|t| t == "*" || t == tag)
-    {
+    if !if_match(&headers, &etag_of(&current.document))? {
         return Err(ApiError::PreconditionFailed(format!(
             "the goal set changed since you loaded it (it is at version {}); reload it and apply your change again",
             current.version
@@ -240,34 +230,18 @@ pub async fn bundle(
         let goal = item["goal_id"].as_str().unwrap_or_default();
         let n = item["revision"].to_string();
         let l = export::load(&state, &who, goal, &n).await?;
-        let (content_type, frame) = store::frames::image_bytes(state.store.pool(), &l.frame.sha256)
-            .await?
-            .ok_or_else(|| ApiError::Internal("frame image missing".into()))?;
+        let (content_type, frame) = l.frame_image(&state).await?;
         loaded.push((l, content_type, frame));
     }
     let zip = tokio::task::spawn_blocking(move || {
-        let mut maps = Vec::new();
-        for (l, _, _) in &loaded {
-            let (w, h) = l.spec().frame_size();
-            maps.push(scoring::cost_maps_npy(l.model(), w as usize, h as usize)?);
-        }
+        let maps = loaded
+            .iter()
+            .map(|(l, _, _)| l.full_size_maps())
+            .collect::<Result<Vec<_>, _>>()?;
         let parts: Vec<scoring::BundleParts<'_>> = loaded
             .iter()
             .zip(&maps)
-            .map(|((l, ct, frame), m)| {
-                let (w, h) = l.spec().frame_size();
-                scoring::BundleParts {
-                    goal_json: &l.row.document,
-                    goal: &l.doc,
-                    camera: &l.camera_json,
-                    cost_maps_npy: m,
-                    frame,
-                    frame_ext: if ct == "image/png" { "png" } else { "jpg" },
-                    points: l.model().len(),
-                    width: w,
-                    height: h,
-                }
-            })
+            .map(|((l, ct, frame), m)| l.bundle_parts(ct, frame, m))
             .collect();
         scoring::goal_set_zip(&set, &parts)
     })

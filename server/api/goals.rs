@@ -59,6 +59,20 @@ pub fn etag_of(document: &str) -> String {
     format!("\"{}\"", hex::encode(Sha256::digest(document.as_bytes())))
 }
 
+/// Whether `If-Match` holds for the current `etag` (strong comparison, `*` matches anything);
+/// 428 when the header is missing.
+pub fn if_match(headers: &HeaderMap, etag: &str) -> ApiResult<bool> {
+    let Some(value) = headers.get(header::IF_MATCH) else {
+        return Err(ApiError::PreconditionRequired);
+    };
+    Ok(value
+        .to_str()
+        .unwrap_or("")
+        .split(',')
+        .map(str::trim)
+        .any(|t| t == "*" || t == etag))
+}
+
 /// Whether `If-None-Match` matches `etag` (so a 304 can be sent).
 pub fn if_none_match(headers: &HeaderMap, etag: &str) -> bool {
     headers
@@ -311,16 +325,7 @@ pub async fn update(
 ) -> ApiResult<Response> {
     who.require(Role::Editor)?;
     let latest = load_revision(&state, &who, &id, None).await?;
-    let Some(if_match) = headers.get(header::IF_MATCH) else {
-        return Err(ApiError::PreconditionRequired);
-    };
-    let if_match = if_match.to_str().unwrap_or("");
-    let current = etag_of(&latest.document);
-    let matches = if_match
-        .split(',')
-        .map(str::trim)
-        .any(|t| t == "*" || t == current);
-    if !matches {
+    if !if_match(&headers, &etag_of(&latest.document))? {
         return Err(stale(&latest));
     }
     let (spec, camera) = check_document(&state, &who, doc).await?;

@@ -392,20 +392,21 @@ async fn hostile_uploads(s: Server) {
     // Bodies over the configured limits: 16 MiB for JSON, 64 MiB for frames. The server may
     // answer before the body is sent, so these go over a raw socket that reads the reply
     // whatever happens to the upload.
-    let (st, body) = raw_post(
+    let (st, body) = raw_upload(
         &s,
         "/api/goals",
         &editor,
         "application/json",
         (17 << 20) as usize,
+        false,
     )
     .await;
     assert_eq!(st, 413, "{body}");
     assert!(body.contains("\"too_large\""), "{body}");
-    let (st, _) = raw_post(&s, &path, &editor, "image/png", (65 << 20) as usize).await;
+    let (st, _) = raw_upload(&s, &path, &editor, "image/png", (65 << 20) as usize, false).await;
     assert_eq!(st, 413);
     // Without a length up front (chunked), the limit still holds.
-    let (st, body) = raw_post_chunked(&s, &path, &editor, "image/png", (70 << 20) as usize).await;
+    let (st, body) = raw_upload(&s, &path, &editor, "image/png", (70 << 20) as usize, true).await;
     assert_eq!(st, 413, "{body}");
 
     let (st, _) = s.get("/healthz", None).await;
@@ -421,18 +422,26 @@ async fn hostile_uploads(s: Server) {
 on_both_databases!(hostile_uploads_are_refused, hostile_uploads);
 
 /// POSTs `len` bytes over a plain socket and returns the status and body of the reply, even when
-/// the server answers (and closes) before the upload is complete.
-async fn raw_post(
+/// the server answers (and closes) before the upload is complete. With `chunked`, the body goes
+/// with `Transfer-Encoding: chunked`, so the server cannot know the size up front and must stop
+/// reading at its limit.
+async fn raw_upload(
     s: &Server,
     path: &str,
     token: &str,
     content_type: &str,
     len: usize,
+    chunked: bool,
 ) -> (u16, String) {
     use std::io::{Read, Write};
     let addr = s.base.trim_start_matches("http://").to_string();
+    let length = if chunked {
+        "Transfer-Encoding: chunked".to_string()
+    } else {
+        format!("Content-Length: {len}")
+    };
     let head = format!(
-        "POST {path} HTTP/1.1\r\nHost: {addr}\r\nAuthorization: Bearer {token}\r\nContent-Type: {content_type}\r\nContent-Length: {len}\r\nConnection: close\r\n\r\n"
+        "POST {path} HTTP/1.1\r\nHost: {addr}\r\nAuthorization: Bearer {token}\r\nContent-Type: {content_type}\r\n{length}\r\nConnection: close\r\n\r\n"
     );
     tokio::task::spawn_blocking(move || {
         let mut sock = std::net::TcpStream::connect(&addr).unwrap();
@@ -443,54 +452,19 @@ async fn raw_post(
         let mut sent = 0;
         while sent < len {
             let n = chunk.len().min(len - sent);
-            if sock.write_all(&chunk[..n]).is_err() {
+            let piece = if chunked {
+                [format!("{n:x}\r\n").as_bytes(), &chunk[..n], b"\r\n"].concat()
+            } else {
+                chunk[..n].to_vec()
+            };
+            if sock.write_all(&piece).is_err() {
                 break;
             }
             sent += n;
         }
-        let mut reply = Vec::new();
-        let _ = sock.read_to_end(&mut reply);
-        let text = String::from_utf8_lossy(&reply).to_string();
-        let status = text
-            .split_whitespace()
-            .nth(1)
-            .and_then(|c| c.parse().ok())
-            .unwrap_or(0);
-        (status, text)
-    })
-    .await
-    .unwrap()
-}
-
-/// Like [`raw_post`] but with `Transfer-Encoding: chunked`, so the server cannot know the size
-/// up front and must stop reading at its limit.
-async fn raw_post_chunked(
-    s: &Server,
-    path: &str,
-    token: &str,
-    content_type: &str,
-    len: usize,
-) -> (u16, String) {
-    use std::io::{Read, Write};
-    let addr = s.base.trim_start_matches("http://").to_string();
-    let head = format!(
-        "POST {path} HTTP/1.1\r\nHost: {addr}\r\nAuthorization: Bearer {token}\r\nContent-Type: {content_type}\r\nTransfer-Encoding: chunked\r\nConnection: close\r\n\r\n"
-    );
-    tokio::task::spawn_blocking(move || {
-        let mut sock = std::net::TcpStream::connect(&addr).unwrap();
-        sock.set_read_timeout(Some(std::time::Duration::from_secs(30)))
-            .unwrap();
-        sock.write_all(head.as_bytes()).unwrap();
-        let chunk = vec![b' '; 1 << 20];
-        let mut sent = 0;
-        while sent < len {
-            let framed = [format!("{:x}\r\n", chunk.len()).as_bytes(), &chunk, b"\r\n"].concat();
-            if sock.write_all(&framed).is_err() {
-                break;
-            }
-            sent += chunk.len();
+        if chunked {
+            let _ = sock.write_all(b"0\r\n\r\n");
         }
-        let _ = sock.write_all(b"0\r\n\r\n");
         let mut reply = Vec::new();
         let _ = sock.read_to_end(&mut reply);
         let text = String::from_utf8_lossy(&reply).to_string();
