@@ -11,7 +11,10 @@
 //! compares like with like). Map rows carry `gb_per_s` (bytes of maps read per second) and
 //! `memory_ratio` = their `gb_per_s` ÷ the 512 MiB `memory_read` rate. A second `memory_read`
 //! row over 64 MiB shows the rate when the data fits in the last-level cache, which on
-//! machines with a large cache is the fairer yardstick for the 64×64 batch (65 MB).
+//! machines with a large cache is the fairer yardstick for the 64×64 batch (65 MB). Every
+//! repeat re-reads the same batch (as `tests/reference/bench_cost_compare.py` does for numpy),
+//! so on a machine whose last-level cache is near the 128×128 float32 batch's 262 MB part of
+//! it stays cached between repeats and its `memory_ratio` can exceed 1.
 //!
 //! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is
 //! shared with `tests/reference/bench_edt_compare.py`: pixel k (row-major) is painted when
