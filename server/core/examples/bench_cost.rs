@@ -1,6 +1,8 @@
 //! Times the map cost kernel: `bench_cost` prints every `goalsmith_core::bench::run("cost")`
 //! row; `bench_cost quick` times only the float32 map kernel on one thread (N=200, T=10, P=2 at
-//! 64×64 and 128×128), interleaving the sizes for a few rounds.
+//! 64×64 and 128×128), interleaving the sizes for a few rounds; `bench_cost cold` alternates
+//! two 128×128 batches (524 MB in all, more than a 300 MiB last-level cache) so that every
+//! run reads its maps from memory.
 //! Run: `cargo run -p goalsmith-core --release --example bench_cost [quick]`.
 
 use goalsmith_core::cost::TargetShape;
@@ -8,8 +10,72 @@ use goalsmith_core::cost::{CostModel, CostPoint, CostSettings, MapBatch, Metric,
 use goalsmith_core::geometry::PixelPoint;
 use std::time::Instant;
 
+fn model() -> Result<CostModel, String> {
+    let pt = |x, y| PixelPoint::new(x, y).map_err(|e| e.to_string());
+    let points = vec![
+        CostPoint {
+            target: TargetShape::Point(pt(412.5, 300.25)?),
+            weight: 1.0,
+            tolerance_px: 5.0,
+        },
+        CostPoint {
+            target: TargetShape::Point(pt(1100.0, 620.0)?),
+            weight: 0.5,
+            tolerance_px: 5.0,
+        },
+    ];
+    let settings = CostSettings::new(Metric::Euclidean, Steps::All, Mode::Expected)
+        .map_err(|e| e.to_string())?;
+    CostModel::new(1280, 720, points, settings).map_err(|e| e.to_string())
+}
+
+fn cold() -> Result<(), String> {
+    let (n, t, p, side) = (200usize, 10usize, 2usize, 128usize);
+    let prep = model()?
+        .prepare_maps(side, side)
+        .map_err(|e| e.to_string())?;
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .map_err(|e| e.to_string())?;
+    let len = n * t * p * side * side;
+    let mut s = 777u64;
+    let batches: Vec<Vec<f32>> = (0..2)
+        .map(|_| {
+            (0..len)
+                .map(|_| {
+                    s = s
+                        .wrapping_mul(6364136223846793005)
+                        .wrapping_add(1442695040888963407);
+                    (s >> 40) as f32 / (1u64 << 24) as f32 * 2.0 / (side * side) as f32
+                })
+                .collect()
+        })
+        .collect();
+    let mut times: Vec<f64> = pool.install(|| {
+        (0..40)
+            .map(|k| {
+                let t0 = Instant::now();
+                std::hint::black_box(prep.evaluate(MapBatch::F32(&batches[k % 2]), n, t).ok());
+                t0.elapsed().as_secs_f64() * 1e3
+            })
+            .collect()
+    });
+    times.sort_by(f64::total_cmp);
+    let ms = times[times.len() / 2];
+    println!(
+        "cold 128x128 f32 1 thread: median {ms:.3} ms, {:.2} GB/s",
+        (len * 4) as f64 / (ms * 1e-3) / 1e9
+    );
+    Ok(())
+}
+
 fn main() -> Result<(), String> {
-    if std::env::args().nth(1).as_deref() != Some("quick") {
+    let arg = std::env::args().nth(1);
+    if arg.as_deref() == Some("cold") {
+        return cold();
+    }
+    if arg.as_deref() != Some("quick") {
         for row in goalsmith_core::bench::run("cost")? {
             println!("{}", row.to_json());
         }

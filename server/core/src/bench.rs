@@ -7,14 +7,15 @@
 //! `cost` times the map kernel (N=200, T=10, P=2 at 64×64 and 128×128, steps `all`, float32
 //! and float16, on one thread and on all cores), the point kernel (N=10000, T=10, P=4) and,
 //! as the yardstick for a memory-bound kernel, one thread summing a 512 MiB float32 buffer
-//! (`memory_read`, with the same wide registers and prefetching as the kernel, so the ratio
-//! compares like with like). Map rows carry `gb_per_s` (bytes of maps read per second) and
-//! `memory_ratio` = their `gb_per_s` ÷ the 512 MiB `memory_read` rate. A second `memory_read`
-//! row over 64 MiB shows the rate when the data fits in the last-level cache, which on
-//! machines with a large cache is the fairer yardstick for the 64×64 batch (65 MB). Every
-//! repeat re-reads the same batch (as `tests/reference/bench_cost_compare.py` does for numpy),
-//! so on a machine whose last-level cache is near the 128×128 float32 batch's 262 MB part of
-//! it stays cached between repeats and its `memory_ratio` can exceed 1.
+//! (`memory_read`, read as four streams with the same wide registers and prefetching as the
+//! kernel, which also reads four maps at once, so the ratio compares like with like). Map rows
+//! carry `gb_per_s` (bytes of maps read per second) and `memory_ratio` = their `gb_per_s` ÷
+//! the 512 MiB `memory_read` rate. A second `memory_read` row over 64 MiB shows the rate when
+//! the data fits in the last-level cache, which on machines with a large cache is the fairer
+//! yardstick for the 64×64 batch (65 MB). Every repeat re-reads the same batch (as
+//! `tests/reference/bench_cost_compare.py` does for numpy), so with a last-level cache near
+//! the 128×128 float32 batch's 262 MB part of it may stay cached between repeats; the
+//! `bench_cost cold` example alternates two such batches to rule that out.
 //!
 //! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is
 //! shared with `tests/reference/bench_edt_compare.py`: pixel k (row-major) is painted when
