@@ -48,20 +48,21 @@ impl From<ScoreError> for ApiError {
 /// entry never goes stale; the cache only bounds its size.
 #[derive(Default)]
 pub struct ModelCache {
-    entries: std::sync::Mutex<
-        std::collections::HashMap<(String, i64), std::sync::Arc<(GoalSpec, CostModel)>>,
-    >,
+    entries: std::sync::Mutex<std::collections::HashMap<(String, i64), Checked>>,
 }
+
+/// A checked goal with its cost model, shared between the cache and requests.
+pub type Checked = std::sync::Arc<(GoalSpec, CostModel)>;
 
 /// Most revisions kept in the [`ModelCache`].
 const MODEL_CACHE_ENTRIES: usize = 64;
 
 impl ModelCache {
-    fn get(&self, key: &(String, i64)) -> Option<std::sync::Arc<(GoalSpec, CostModel)>> {
+    fn get(&self, key: &(String, i64)) -> Option<Checked> {
         self.entries.lock().ok()?.get(key).cloned()
     }
 
-    fn put(&self, key: (String, i64), value: std::sync::Arc<(GoalSpec, CostModel)>) {
+    fn put(&self, key: (String, i64), value: Checked) {
         if let Ok(mut m) = self.entries.lock() {
             if m.len() >= MODEL_CACHE_ENTRIES && !m.contains_key(&key) {
                 // Any entry will do: they are cheap to rebuild and never wrong.
@@ -81,7 +82,7 @@ pub struct Loaded {
     /// Its document.
     pub doc: Value,
     /// Its checked goal and cost model (shared with the cache).
-    pub checked: std::sync::Arc<(GoalSpec, CostModel)>,
+    pub checked: Checked,
     /// The frame it is drawn on.
     pub frame: store::frames::FrameRow,
     /// The camera of that frame.
