@@ -36,7 +36,9 @@ fn chromedriver(test: &str) -> Option<Driver> {
         if services_required() {
             panic!("{CHROMIUM} or {CHROMEDRIVER} missing but GOALSMITH_REQUIRE_SERVICES=1");
         }
-        eprintln!("SKIP {test}: chromium not installed (apt-get install chromium chromium-driver)");
+        crate::support::skip(&format!(
+            "SKIP {test}: chromium not installed (apt-get install chromium chromium-driver)"
+        ));
         return None;
     }
     let port = std::net::TcpListener::bind("127.0.0.1:0")

@@ -19,6 +19,13 @@ pub fn services_required() -> bool {
     std::env::var("GOALSMITH_REQUIRE_SERVICES").is_ok_and(|v| v == "1")
 }
 
+/// Prints a skip line that `cargo test` shows even for passing tests: the print macros are
+/// captured by the test harness, a direct write to the process's stderr is not.
+pub fn skip(line: &str) {
+    use std::io::Write;
+    let _ = writeln!(std::io::stderr().lock(), "{line}");
+}
+
 /// A fresh, empty database of the given kind, or `None` (with a visible skip line) when
 /// PostgreSQL is not configured locally.
 pub struct TestDb {
@@ -46,14 +53,18 @@ pub async fn fresh_db(kind: Db, test: &str) -> Option<TestDb> {
                         "GOALSMITH_TEST_POSTGRES_URL is not set but GOALSMITH_REQUIRE_SERVICES=1"
                     );
                 }
-                eprintln!("SKIP {test} on postgres: GOALSMITH_TEST_POSTGRES_URL is not set");
+                skip(&format!(
+                    "SKIP {test} on postgres: GOALSMITH_TEST_POSTGRES_URL is not set"
+                ));
                 return None;
             };
             use sqlx::Connection;
             let mut conn = match sqlx::postgres::PgConnection::connect(&base).await {
                 Ok(c) => c,
                 Err(e) if !services_required() => {
-                    eprintln!("SKIP {test} on postgres: cannot connect to {base}: {e}");
+                    skip(&format!(
+                        "SKIP {test} on postgres: cannot connect to {base}: {e}"
+                    ));
                     return None;
                 }
                 Err(e) => panic!("cannot connect to {base}: {e}"),
