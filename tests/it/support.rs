@@ -116,16 +116,26 @@ pub struct Server {
 
 impl Server {
     pub fn start(db_url: &str, data_dir: &std::path::Path, extra: &[&str]) -> Server {
-        let mut child = Command::new(bin())
+        let child = Self::spawn(db_url, data_dir, extra, Stdio::inherit());
+        Self::from_child(child, db_url, data_dir)
+    }
+
+    /// `goalsmith serve` on a free port, stdout piped for the listening line.
+    fn spawn(db_url: &str, data_dir: &std::path::Path, extra: &[&str], stderr: Stdio) -> Child {
+        Command::new(bin())
             .args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
             .arg("--data-dir")
             .arg(data_dir)
             .args(extra)
             .env("GOALSMITH_LOG", "warn")
             .stdout(Stdio::piped())
-            .stderr(Stdio::inherit())
+            .stderr(stderr)
             .spawn()
-            .expect("spawn goalsmith serve");
+            .expect("spawn goalsmith serve")
+    }
+
+    /// Waits for the one stdout line `listening on http://…` and wraps the process.
+    fn from_child(mut child: Child, db_url: &str, data_dir: &std::path::Path) -> Server {
         let stdout = child.stdout.take().expect("stdout");
         let mut line = String::new();
         BufReader::new(stdout)
@@ -376,16 +386,7 @@ pub fn start_with_link(
     data_dir: &std::path::Path,
     extra: &[&str],
 ) -> (Server, String) {
-    let mut child = Command::new(bin())
-        .args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
-        .arg("--data-dir")
-        .arg(data_dir)
-        .args(extra)
-        .env("GOALSMITH_LOG", "warn")
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .expect("spawn goalsmith serve");
+    let mut child = Server::spawn(db_url, data_dir, extra, Stdio::piped());
     let stderr = child.stderr.take().expect("stderr");
     let (tx, rx) = std::sync::mpsc::channel::<String>();
     std::thread::spawn(move || {
@@ -403,28 +404,9 @@ pub fn start_with_link(
             eprintln!("{line}");
         }
     });
-    let stdout = child.stdout.take().expect("stdout");
-    let mut line = String::new();
-    BufReader::new(stdout)
-        .read_line(&mut line)
-        .expect("read the listening line");
-    let base = line
-        .trim()
-        .strip_prefix("listening on ")
-        .unwrap_or_else(|| panic!("unexpected first stdout line {line:?}"))
-        .to_string();
+    let server = Server::from_child(child, db_url, data_dir);
     let link = rx
         .recv_timeout(Duration::from_secs(30))
         .expect("the server prints a sign-in link on an empty database");
-    let server = Server {
-        base,
-        child,
-        db_url: db_url.to_string(),
-        data_dir: data_dir.to_path_buf(),
-        client: reqwest::Client::builder()
-            .timeout(Duration::from_secs(60))
-            .build()
-            .expect("client"),
-    };
     (server, link)
 }
