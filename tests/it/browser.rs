@@ -126,9 +126,20 @@ async fn wait_js(d: &WebDriver, script: &str, what: &str) {
     }
 }
 
+/// The element once it exists: polls, since a page may still be loading after a click.
+async fn wait_for(d: &WebDriver, by: By) -> thirtyfour::WebElement {
+    d.query(by)
+        .wait(Duration::from_secs(20), Duration::from_millis(100))
+        .first()
+        .await
+        .unwrap_or_else(|e| panic!("element never appeared: {e}"))
+}
+
 async fn fill(d: &WebDriver, css: &str, text: &str) {
     let e = d
-        .find(By::Css(css))
+        .query(By::Css(css))
+        .wait(Duration::from_secs(20), Duration::from_millis(100))
+        .first()
         .await
         .unwrap_or_else(|_| panic!("{css}"));
     // Emptied by script rather than WebDriver's clear, which fires a change event of its own.
@@ -139,7 +150,9 @@ async fn fill(d: &WebDriver, css: &str, text: &str) {
 }
 
 async fn click(d: &WebDriver, css: &str) {
-    d.find(By::Css(css))
+    d.query(By::Css(css))
+        .wait(Duration::from_secs(20), Duration::from_millis(100))
+        .first()
         .await
         .unwrap_or_else(|_| panic!("no {css}"))
         .click()
@@ -524,10 +537,8 @@ async fn editor_end_to_end() {
         .await
         .unwrap();
     click(&a, "form[action='/team/invites'] button").await;
-    let invite = a
-        .find(By::Id("secret-value"))
+    let invite = wait_for(&a, By::Id("secret-value"))
         .await
-        .unwrap()
         .value()
         .await
         .unwrap()
