@@ -98,6 +98,8 @@ fn run_cost(
         (None, None) => return Err("give --points or --maps".into()),
     };
     let result = crate::scoring::evaluate(&model, content_type, &body, usize::MAX / 2)?;
+    // The result goes to stdout for scripts; the caution to stderr, where a person sees it.
+    eprintln!("goalsmith: {}", crate::SAFETY_CAUTION);
     println!("{}", crate::scoring::result_json(&result));
     Ok(())
 }
@@ -141,8 +143,13 @@ fn init_logs() {
     use tracing_subscriber::EnvFilter;
     let filter = EnvFilter::try_from_env("GOALSMITH_LOG")
         .unwrap_or_else(|_| EnvFilter::new("info,sqlx=warn,tower_http=info"));
+    use std::io::IsTerminal;
+    // Colour only for a person at a terminal: a log redirected to a file or a collector must be
+    // plain text (and NO_COLOR is honoured, as most command-line tools do).
+    let ansi = std::io::stderr().is_terminal() && std::env::var_os("NO_COLOR").is_none();
     tracing_subscriber::fmt()
         .with_env_filter(filter)
+        .with_ansi(ansi)
         .with_writer(std::io::stderr)
         .init();
 }
@@ -177,9 +184,6 @@ pub fn main() -> ExitCode {
                 },
         } => runtime().map_err(Into::into).and_then(|rt| {
             rt.block_on(async {
-                if db.database.is_none() {
-                    std::fs::create_dir_all(&db.data_dir)?;
-                }
                 let store = Store::connect(&db.url()).await?;
                 let role = Role::from(role);
                 let label = label.unwrap_or_else(|| format!("{} token", role.as_str()));

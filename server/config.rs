@@ -46,8 +46,5 @@ pub struct ServeConfig {
 
 /// The default database URL for a data directory.
 pub fn default_database_url(data_dir: &std::path::Path) -> String {
-    format!(
-        "sqlite://{}?mode=rwc",
-        data_dir.join("goalsmith.db").display()
-    )
+    format!("sqlite://{}", data_dir.join("goalsmith.db").display())
 }

@@ -19,3 +19,17 @@ pub const SAFETY_CAUTION: &str = "Goals move real robots. Check every new goal i
 reduced speed first, keep an emergency stop within reach, respect the cell's safeguarding, and \
 follow ISO 10218, ISO/TS 15066, local rules and licensed practice. goalsmith defers to the robot's \
 safety-rated controller; it is not a safety function.";
+
+#[cfg(test)]
+mod tests {
+    /// The caution travels as an HTTP header value and a PNG tEXt chunk (Latin-1): it must stay
+    /// printable ASCII.
+    #[test]
+    fn caution_is_printable_ascii() {
+        assert!(
+            super::SAFETY_CAUTION
+                .bytes()
+                .all(|b| (0x20..0x7f).contains(&b))
+        );
+    }
+}

@@ -357,12 +357,35 @@ pub fn overlay_png(
         });
     }
     let drawn = draw::render_overlay(&canvas, &items);
-    let img = image::RgbaImage::from_raw(w, h, drawn.into_raw())
-        .ok_or_else(|| ScoreError::Internal("overlay size changed".into()))?;
-    let mut out = Cursor::new(Vec::new());
-    img.write_to(&mut out, image::ImageFormat::Png)
-        .map_err(|e| ScoreError::Internal(e.to_string()))?;
-    Ok(out.into_inner())
+    encode_png_with_caution(w, h, &drawn.into_raw())
+}
+
+/// PNG keyword under which overlays carry the safety caution. `Warning` is one of the keywords
+/// the PNG specification registers for tEXt chunks ("warning of nature of content", PNG
+/// Specification, Third Edition, 11.3.3.2), so ordinary image tools show it.
+pub const PNG_CAUTION_KEYWORD: &str = "Warning";
+
+/// Encodes 8-bit RGBA pixels as a PNG that carries [`crate::SAFETY_CAUTION`] in a tEXt chunk
+/// (and `Software: goalsmith`), so a picture pasted into a chat still says what it is for.
+pub fn encode_png_with_caution(w: u32, h: u32, rgba: &[u8]) -> Result<Vec<u8>, ScoreError> {
+    let internal = |e: png::EncodingError| ScoreError::Internal(format!("png encoding: {e}"));
+    let mut out = Vec::new();
+    {
+        let mut enc = png::Encoder::new(&mut out, w, h);
+        enc.set_color(png::ColorType::Rgba);
+        enc.set_depth(png::BitDepth::Eight);
+        enc.add_text_chunk(
+            PNG_CAUTION_KEYWORD.to_string(),
+            crate::SAFETY_CAUTION.to_string(),
+        )
+        .map_err(internal)?;
+        enc.add_text_chunk("Software".to_string(), "goalsmith".to_string())
+            .map_err(internal)?;
+        let mut writer = enc.write_header().map_err(internal)?;
+        writer.write_image_data(rgba).map_err(internal)?;
+        writer.finish().map_err(internal)?;
+    }
+    Ok(out)
 }
 
 /// What goes into a bundle.

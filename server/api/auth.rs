@@ -8,6 +8,7 @@ use super::error::ApiError;
 use crate::store;
 use axum::extract::FromRequestParts;
 use axum::http::{header, request::Parts};
+use goalsmith_core::names::{self, NameKind};
 use sha2::{Digest, Sha256};
 
 /// A role, ordered by what it may do.
@@ -87,14 +88,32 @@ pub async fn create_token(
     role: Role,
     label: &str,
 ) -> Result<String, ApiError> {
-    let team = store::teams::get_or_create_team(store.pool(), team).await?;
+    let team = names::check(NameKind::Team, team)
+        .map_err(|e| ApiError::invalid(e.code(), "team", e.to_string()))?;
+    // Check the label before the team is created, so a refused token leaves nothing behind.
+    let label = names::check(NameKind::TokenLabel, label)
+        .map_err(|e| ApiError::invalid(e.code(), "label", e.to_string()))?;
+    let team = store::teams::get_or_create_team(store.pool(), &team).await?;
+    create_team_token(store, &team.id, role, &label).await
+}
+
+/// A new API token of an existing team; the label follows the token-label name rule.
+/// Returns the token (only its hash is stored).
+pub async fn create_team_token(
+    store: &store::Store,
+    team_id: &str,
+    role: Role,
+    label: &str,
+) -> Result<String, ApiError> {
+    let label = names::check(NameKind::TokenLabel, label)
+        .map_err(|e| ApiError::invalid(e.code(), "label", e.to_string()))?;
     let token = new_token().map_err(|e| ApiError::Internal(format!("no randomness: {e}")))?;
     store::teams::insert_token(
         store.pool(),
-        &team.id,
+        team_id,
         &hash_token(&token),
         role.as_str(),
-        label,
+        &label,
     )
     .await?;
     Ok(token)

@@ -10,6 +10,7 @@ use axum::extract::{Path, State};
 use axum::http::StatusCode;
 use goalsmith_core::camera::{Intrinsics, Pose, WorkPlane};
 use goalsmith_core::goal::{Xy, check_zone};
+use goalsmith_core::names::{self, NameKind};
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
@@ -178,14 +179,8 @@ fn parse_intrinsics(v: Value, width: u32, height: u32) -> ApiResult<IntrinsicsDo
 
 /// Checks a camera body into the stored document.
 pub fn check_camera(input: CameraInput) -> ApiResult<CameraDoc> {
-    let name = input.name.trim().to_string();
-    if name.is_empty() || name.chars().count() > 200 {
-        return Err(ApiError::invalid(
-            "bad_name",
-            "name",
-            "a camera needs a name of 1 to 200 characters",
-        ));
-    }
+    let name = names::check(NameKind::Camera, &input.name)
+        .map_err(|e| ApiError::invalid(e.code(), "name", e.to_string()))?;
     for (field, v) in [("width", input.width), ("height", input.height)] {
         if v == 0 || v > MAX_SIDE {
             return Err(ApiError::invalid(

@@ -143,6 +143,11 @@ impl Loaded {
 /// Loads revision `n` of a team's goal and rebuilds its cost model (off the async workers).
 pub async fn load(state: &AppState, who: &Principal, id: &str, n: &str) -> ApiResult<Loaded> {
     let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    load_row(state, who, row).await
+}
+
+/// [`load`] for a revision row already read (and authorised by its team).
+pub async fn load_row(state: &AppState, who: &Principal, row: RevisionRow) -> ApiResult<Loaded> {
     let frame = frames::load(state, who, &row.frame_id).await?;
     let camera_row = cameras::load(state, who, &frame.camera_id).await?;
     let camera = cameras::parse_doc(&camera_row)?;
@@ -184,6 +189,39 @@ pub fn binary(
     headers: &HeaderMap,
 ) -> Response {
     let etag = format!("\"{}\"", hex::encode(Sha256::digest(&bytes)));
+    binary_with_etag(content_type, filename, bytes, headers, etag)
+}
+
+/// The strong ETag of a bundle, known before it is built: the bytes of a bundle depend only on
+/// the revision document bytes (which name the frame; frames and cameras never change) and on
+/// the bundle format, so a hash of those two names the bundle exactly.
+pub fn bundle_etag(kind: &str, document: &str) -> String {
+    let mut h = Sha256::new();
+    h.update(format!(
+        "{kind} bundle format {}\n",
+        scoring::BUNDLE_FORMAT_VERSION
+    ));
+    h.update(document.as_bytes());
+    format!("\"{}\"", hex::encode(h.finalize()))
+}
+
+/// The answer to a conditional GET that matched: 304 with the ETag, nothing built.
+pub fn not_modified(etag: &str) -> Response {
+    let mut resp = StatusCode::NOT_MODIFIED.into_response();
+    if let Ok(v) = HeaderValue::from_str(etag) {
+        resp.headers_mut().insert(header::ETAG, v);
+    }
+    resp
+}
+
+/// [`binary`] with an ETag the caller derived.
+pub fn binary_with_etag(
+    content_type: &'static str,
+    filename: String,
+    bytes: Vec<u8>,
+    headers: &HeaderMap,
+    etag: String,
+) -> Response {
     if if_none_match(headers, &etag) {
         return (StatusCode::NOT_MODIFIED, [(header::ETAG, etag)]).into_response();
     }
@@ -205,7 +243,7 @@ pub fn binary(
         resp.headers_mut().insert(header::CONTENT_DISPOSITION, v);
     }
     if let Ok(v) = HeaderValue::from_str(crate::SAFETY_CAUTION) {
-        resp.headers_mut().insert("x-goalsmith-caution", v);
+        resp.headers_mut().insert(super::CAUTION_HEADER, v);
     }
     resp
 }
@@ -336,7 +374,12 @@ pub async fn bundle(
     Path((id, n)): Path<(String, String)>,
     headers: HeaderMap,
 ) -> ApiResult<Response> {
-    let l = load(&state, &who, &id, &n).await?;
+    let row = load_revision(&state, &who, &id, Some(parse_revision(&n)?)).await?;
+    let etag = bundle_etag("goal", &row.document);
+    if if_none_match(&headers, &etag) {
+        return Ok(not_modified(&etag));
+    }
+    let l = load_row(&state, &who, row).await?;
     let (content_type, frame) = l.frame_image(&state).await?;
     let rev = l.row.revision;
     let zip = tokio::task::spawn_blocking(move || {
@@ -345,11 +388,12 @@ pub async fn bundle(
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
-    Ok(binary(
+    Ok(binary_with_etag(
         "application/zip",
         format!("goal-{id}-r{rev}.zip"),
         zip,
         &headers,
+        etag,
     ))
 }
 

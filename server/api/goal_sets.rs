@@ -11,6 +11,7 @@ use crate::store::{self, goal_sets::GoalSetRow};
 use axum::extract::{Path, State};
 use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
+use goalsmith_core::names::{self, NameKind};
 use serde::Deserialize;
 use serde_json::{Value, json};
 
@@ -38,14 +39,8 @@ async fn check(
     who: &Principal,
     input: GoalSetInput,
 ) -> ApiResult<(String, Vec<Value>)> {
-    let name = input.name.trim().to_string();
-    if name.is_empty() || name.chars().count() > 200 {
-        return Err(ApiError::invalid(
-            "bad_name",
-            "name",
-            "a goal set needs a name of 1 to 200 characters",
-        ));
-    }
+    let name = names::check(NameKind::GoalSet, &input.name)
+        .map_err(|e| ApiError::invalid(e.code(), "name", e.to_string()))?;
     if input.items.is_empty() || input.items.len() > MAX_ITEMS {
         return Err(ApiError::invalid(
             "bad_items",
@@ -223,6 +218,11 @@ pub async fn bundle(
     headers: HeaderMap,
 ) -> ApiResult<Response> {
     let row = load(&state, &who, &id).await?;
+    // The set document pins every item at a revision, so it names the bundle exactly.
+    let etag = export::bundle_etag("goal set", &row.document);
+    if if_none_match(&headers, &etag) {
+        return Ok(export::not_modified(&etag));
+    }
     let set: Value =
         serde_json::from_str(&row.document).map_err(|e| ApiError::Internal(e.to_string()))?;
     let mut loaded = Vec::new();
@@ -247,10 +247,11 @@ pub async fn bundle(
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
-    Ok(export::binary(
+    Ok(export::binary_with_etag(
         "application/zip",
         format!("goal-set-{id}-v{}.zip", row.version),
         zip,
         &headers,
+        etag,
     ))
 }

@@ -370,9 +370,11 @@ pub async fn load_revision(
 }
 
 /// Parses the `{n}` of a revision path.
+/// Only canonical decimal numbers name a revision (`1`, not `01` or `+1`): one revision, one URL.
 pub fn parse_revision(n: &str) -> ApiResult<i64> {
-    n.parse::<i64>()
-        .ok()
+    Some(n)
+        .filter(|s| s.bytes().all(|b| b.is_ascii_digit()) && !s.starts_with('0'))
+        .and_then(|s| s.parse::<i64>().ok())
         .filter(|n| *n >= 1)
         .ok_or_else(|| ApiError::NotFound(format!("{n:?} is not a revision number")))
 }

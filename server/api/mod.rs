@@ -135,6 +135,28 @@ pub fn router(state: AppState) -> Router<AppState> {
         .merge(json_routes)
         .fallback(api_not_found)
         .layer(axum::middleware::map_response(contract_errors))
+        .layer(axum::middleware::from_fn(caution_header))
+}
+
+/// Response header that carries [`crate::SAFETY_CAUTION`] with every goal export.
+pub const CAUTION_HEADER: &str = "x-goalsmith-caution";
+
+/// Puts the caution on every successful response about goals and goal sets (revision
+/// documents, cost results, outcomes, maps, overlays, bundles), so whatever a planner or a
+/// script pulls carries it, not only the bundle.
+async fn caution_header(req: axum::extract::Request, next: axum::middleware::Next) -> Response {
+    let path = req.uri().path();
+    let applies = ["/api/goals", "/api/goal-sets", "/api/preview"]
+        .iter()
+        .any(|p| path.starts_with(p));
+    let mut resp = next.run(req).await;
+    if applies
+        && resp.status().is_success()
+        && let Ok(v) = axum::http::HeaderValue::from_str(crate::SAFETY_CAUTION)
+    {
+        resp.headers_mut().insert(CAUTION_HEADER, v);
+    }
+    resp
 }
 
 /// Layers and the router itself answer some errors in plain text (405, a body over the

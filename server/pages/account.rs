@@ -13,6 +13,7 @@ use askama::Template;
 use axum::extract::{Path, Query, State};
 use axum::http::{HeaderMap, HeaderValue};
 use axum::response::Response;
+use goalsmith_core::names::{self, NameKind};
 use serde::Deserialize;
 
 #[derive(Template)]
@@ -195,16 +196,9 @@ pub fn check_login(raw: &str) -> Result<String, &'static str> {
     Ok(login)
 }
 
-/// Display names: 1–100 characters without control characters.
-pub fn check_display_name(raw: &str) -> Result<String, &'static str> {
-    let name = raw.trim().to_string();
-    if name.is_empty() || name.chars().count() > 100 {
-        return Err("a name needs 1 to 100 characters");
-    }
-    if name.chars().any(char::is_control) {
-        return Err("a name cannot hold control characters");
-    }
-    Ok(name)
+/// Display names, by the one rule for people's names.
+pub fn check_display_name(raw: &str) -> Result<String, String> {
+    names::check(NameKind::Person, raw).map_err(|e| e.to_string())
 }
 
 /// A new password: long enough, typed the same twice.
@@ -247,7 +241,7 @@ pub(super) async fn welcome(
     } else {
         let display_name = match check_display_name(&form.display_name) {
             Ok(n) => n,
-            Err(m) => return fail(m),
+            Err(m) => return fail(&m),
         };
         let login = match check_login(&form.login) {
             Ok(l) => l,

@@ -51,32 +51,6 @@ pub fn preview_size(width: u32, height: u32, side: u32) -> (usize, usize) {
     (w, h)
 }
 
-/// Heat colour of a normalised cost t in [0, 1]: low cost glows warm and opaque, high cost
-/// fades to a cool translucent violet, so the place a point should go stands out on any frame.
-pub fn heat(t: f64, within_tolerance: bool) -> [u8; 4] {
-    let t = t.clamp(0.0, 1.0);
-    if within_tolerance {
-        return [255, 246, 170, 200];
-    }
-    // Three stops: amber (0), rose (0.5), deep violet (1).
-    let stops = [
-        (0.0, [250.0, 170.0, 40.0, 190.0]),
-        (0.5, [206.0, 62.0, 110.0, 140.0]),
-        (1.0, [50.0, 30.0, 110.0, 90.0]),
-    ];
-    let (lo, hi) = if t <= 0.5 {
-        (stops[0], stops[1])
-    } else {
-        (stops[1], stops[2])
-    };
-    let f = (t - lo.0) / (hi.0 - lo.0);
-    let mut out = [0u8; 4];
-    for (k, v) in out.iter_mut().enumerate() {
-        *v = (lo.1[k] + (hi.1[k] - lo.1[k]) * f).round() as u8;
-    }
-    out
-}
-
 /// The handler.
 pub async fn cost_map_png(
     State(state): State<AppState>,
@@ -112,7 +86,10 @@ pub async fn cost_map_png(
         let mut rgba = Vec::with_capacity(w * h * 4);
         for (c, dv) in cost.iter().zip(&d) {
             // A square root spreads the near range, where a person decides.
-            rgba.extend_from_slice(&heat((c / max).sqrt(), *dv <= tolerance));
+            rgba.extend_from_slice(&goalsmith_core::draw::palette::heat(
+                (c / max).sqrt(),
+                *dv <= tolerance,
+            ));
         }
         let img = image::RgbaImage::from_raw(w as u32, h as u32, rgba)
             .ok_or_else(|| "preview buffer size".to_string())?;
@@ -142,12 +119,5 @@ mod tests {
         assert_eq!(preview_size(64, 48, 320), (64, 48));
         assert_eq!(preview_size(1280, 720, 320), (320, 180));
         assert_eq!(preview_size(1, 5000, 320), (1, 320));
-    }
-
-    #[test]
-    fn ramp_ends() {
-        assert_eq!(heat(0.0, false)[3], 190);
-        assert_eq!(heat(1.0, false)[3], 90);
-        assert_eq!(heat(0.3, true), [255, 246, 170, 200]);
     }
 }

@@ -11,6 +11,7 @@ use askama::Template;
 use axum::extract::{Path, State};
 use axum::http::{HeaderMap, StatusCode};
 use axum::response::Response;
+use goalsmith_core::names::{self, NameKind};
 use serde::Deserialize;
 
 /// How long an invite link stays valid.
@@ -284,25 +285,18 @@ pub(super) async fn create_token(
 ) -> Result<Response, PageError> {
     signed.require(Role::Owner)?;
     let role = parse_role(&form.role)?;
-    let label = form.label.trim().to_string();
-    if label.is_empty() || label.chars().count() > 100 || label.chars().any(char::is_control) {
-        return Ok(redirect_flash(
-            "/team#tokens",
-            "A token needs a label of 1 to 100 characters saying which robot or planner holds it.",
-            true,
-            &headers,
-        ));
-    }
-    let token =
-        auth::new_token().map_err(|e| PageError::internal(format!("no randomness: {e}")))?;
-    store::teams::insert_token(
-        state.store.pool(),
-        &signed.who.team_id,
-        &hash_token(&token),
-        role.as_str(),
-        &label,
-    )
-    .await?;
+    let label = match names::check(NameKind::TokenLabel, &form.label) {
+        Ok(l) => l,
+        Err(e) => {
+            return Ok(redirect_flash(
+                "/team#tokens",
+                &format!("{e}, saying which robot or planner holds it."),
+                true,
+                &headers,
+            ));
+        }
+    };
+    let token = auth::create_team_token(&state.store, &signed.who.team_id, role, &label).await?;
     let page = SecretPage {
         chrome: Chrome::signed(&state, &signed, &headers, "team").await,
         heading: "New API token".into(),
@@ -355,15 +349,10 @@ pub(super) async fn rename(
     CsrfForm { signed, form }: CsrfForm<RenameForm>,
 ) -> Result<Response, PageError> {
     signed.require(Role::Owner)?;
-    let name = form.name.trim().to_string();
-    if name.is_empty() || name.chars().count() > 100 || name.chars().any(char::is_control) {
-        return Ok(redirect_flash(
-            "/team",
-            "A team name needs 1 to 100 characters.",
-            true,
-            &headers,
-        ));
-    }
+    let name = match names::check(NameKind::Team, &form.name) {
+        Ok(n) => n,
+        Err(e) => return Ok(redirect_flash("/team", &format!("{e}."), true, &headers)),
+    };
     match store::accounts::rename_team(state.store.pool(), &signed.who.team_id, &name).await {
         Ok(()) => Ok(redirect_flash(
             "/team",

@@ -262,10 +262,14 @@ pub async fn accept_invite(
         }
     };
     // Accepting an invite to a team one already belongs to adopts the invite's role: the owner
-    // who made it chose that role on purpose.
+    // who made it chose that role on purpose. The last owner keeps the owner role, though (a
+    // team must stay manageable), under the same team lock as role changes.
+    lock_team(&mut tx, &team_id).await?;
     sqlx::query(
         "INSERT INTO memberships (team_id, person_id, role, created_at) VALUES ($1, $2, $3, $4) \
-         ON CONFLICT (team_id, person_id) DO UPDATE SET role = excluded.role",
+         ON CONFLICT (team_id, person_id) DO UPDATE SET role = excluded.role \
+         WHERE memberships.role <> 'owner' OR excluded.role = 'owner' OR \
+               (SELECT COUNT(*) FROM memberships o WHERE o.team_id = $1 AND o.role = 'owner') > 1",
     )
     .bind(&team_id)
     .bind(&person_id)
@@ -319,9 +323,25 @@ pub async fn list_members(pool: &AnyPool, team_id: &str) -> Result<Vec<MemberRow
         .collect())
 }
 
+/// Takes the team's row lock for the rest of the transaction, so that changes which must keep
+/// at least one owner run one after another. Without it, two owners demoting each other at once
+/// on PostgreSQL (READ COMMITTED) would each count two owners and both succeed. The dummy
+/// UPDATE is portable: a row lock on PostgreSQL, the database write lock on SQLite. The
+/// statement after it gets a fresh snapshot, so it sees what the previous holder committed.
+async fn lock_team(tx: &mut sqlx::Transaction<'_, sqlx::Any>, team_id: &str) -> Result<()> {
+    sqlx::query("UPDATE teams SET name = name WHERE id = $1")
+        .bind(team_id)
+        .execute(&mut **tx)
+        .await
+        .map_err(classify)?;
+    Ok(())
+}
+
 /// Changes a member's role. Refuses (returns false) to take the owner role from the last owner,
 /// so a team can always be managed; also false when the person is not a member.
 pub async fn set_role(pool: &AnyPool, team_id: &str, person_id: &str, role: &str) -> Result<bool> {
+    let mut tx = pool.begin().await?;
+    lock_team(&mut tx, team_id).await?;
     let n = sqlx::query(
         "UPDATE memberships SET role = $1 WHERE team_id = $2 AND person_id = $3 \
          AND (role <> 'owner' OR $1 = 'owner' OR \
@@ -330,16 +350,18 @@ pub async fn set_role(pool: &AnyPool, team_id: &str, person_id: &str, role: &str
     .bind(role)
     .bind(team_id)
     .bind(person_id)
-    .execute(pool)
+    .execute(&mut *tx)
     .await
     .map_err(classify)?
     .rows_affected();
+    tx.commit().await?;
     Ok(n == 1)
 }
 
 /// Removes a member and ends their sessions in this team. Refuses (false) for the last owner.
 pub async fn remove_member(pool: &AnyPool, team_id: &str, person_id: &str) -> Result<bool> {
     let mut tx = pool.begin().await?;
+    lock_team(&mut tx, team_id).await?;
     let n = sqlx::query(
         "DELETE FROM memberships WHERE team_id = $1 AND person_id = $2 \
          AND (role <> 'owner' OR \

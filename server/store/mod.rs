@@ -66,6 +66,13 @@ impl Store {
     /// Connects, applies the SQLite pragmas on every connection, and runs the migrations.
     pub async fn connect(url: &str) -> Result<Self> {
         install_default_drivers();
+        let prepared;
+        let url = if url.starts_with("sqlite:") {
+            prepared = sqlite_url(url)?;
+            prepared.as_str()
+        } else {
+            url
+        };
         let backend = if url.starts_with("sqlite:") {
             Backend::Sqlite
         } else if url.starts_with("postgres:") || url.starts_with("postgresql:") {
@@ -122,10 +129,117 @@ impl Store {
     }
 }
 
+/// Turns every SQLite URL form a person types into one the driver opens and creates:
+/// `sqlite://PATH` and `sqlite:PATH`, with PATH relative (to the working directory) or absolute
+/// (`sqlite:///srv/goalsmith.db`). The driver alone opens only existing files unless the URL
+/// carries `mode=rwc`, and reads `sqlite://dir/x.db` with `dir` as a URL host, so the path is
+/// made absolute, percent-encoded, given `mode=rwc` unless the caller chose a mode, and its
+/// folder is created. `sqlite::memory:` is kept as it is.
+pub fn sqlite_url(url: &str) -> Result<String> {
+    let rest = url
+        .strip_prefix("sqlite://")
+        .or_else(|| url.strip_prefix("sqlite:"))
+        .unwrap_or(url);
+    let (path, query) = match rest.split_once('?') {
+        Some((p, q)) => (p, q),
+        None => (rest, ""),
+    };
+    if path.is_empty() || path == ":memory:" {
+        return Ok(url.to_string());
+    }
+    let config = |m: String| StoreError::Database(sqlx::Error::Configuration(m.into()));
+    let decoded = percent_encoding::percent_decode_str(path)
+        .decode_utf8()
+        .map_err(|e| config(format!("the database path in {url:?} is not UTF-8: {e}")))?;
+    let mut file = std::path::PathBuf::from(decoded.as_ref());
+    if file.is_relative() {
+        let cwd = std::env::current_dir()
+            .map_err(|e| config(format!("cannot resolve the relative path {path:?}: {e}")))?;
+        file = cwd.join(file);
+    }
+    if let Some(dir) = file.parent()
+        && !dir.as_os_str().is_empty()
+    {
+        std::fs::create_dir_all(dir).map_err(|e| {
+            config(format!(
+                "cannot create the folder {} for the database: {e}",
+                dir.display()
+            ))
+        })?;
+    }
+    let file = file
+        .to_str()
+        .ok_or_else(|| config(format!("the database path {} is not UTF-8", file.display())))?;
+    // Only the characters the driver's URL reading would take for syntax are encoded.
+    const SYNTAX: &percent_encoding::AsciiSet = &percent_encoding::CONTROLS
+        .add(b' ')
+        .add(b'%')
+        .add(b'?')
+        .add(b'#');
+    let mut out = format!(
+        "sqlite://{}",
+        percent_encoding::utf8_percent_encode(file, SYNTAX)
+    );
+    let has_mode = query
+        .split('&')
+        .any(|kv| kv.split('=').next() == Some("mode"));
+    let mut params: Vec<&str> = query.split('&').filter(|kv| !kv.is_empty()).collect();
+    if !has_mode {
+        params.insert(0, "mode=rwc");
+    }
+    if !params.is_empty() {
+        out.push('?');
+        out.push_str(&params.join("&"));
+    }
+    Ok(out)
+}
+
 /// Milliseconds since the Unix epoch, the storage form of every time.
 pub fn now_ms() -> i64 {
     let now = std::time::SystemTime::now()
         .duration_since(std::time::UNIX_EPOCH)
         .unwrap_or_default();
     i64::try_from(now.as_millis()).unwrap_or(i64::MAX)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::sqlite_url;
+
+    #[test]
+    fn sqlite_urls_become_absolute_and_creating() {
+        let cwd = std::env::current_dir().expect("cwd");
+        let tmp = std::env::temp_dir().join("gs url test");
+        let abs = tmp.join("a.db");
+        let abs_s = abs.to_str().expect("utf8");
+        let enc = abs_s.replace(' ', "%20");
+        assert_eq!(
+            sqlite_url(&format!("sqlite://{abs_s}")).expect("abs"),
+            format!("sqlite://{enc}?mode=rwc")
+        );
+        assert_eq!(
+            sqlite_url(&format!("sqlite:{abs_s}?mode=ro")).expect("abs, own mode"),
+            format!("sqlite://{enc}?mode=ro")
+        );
+        let rel = sqlite_url("sqlite://target/gs-url-test/x.db").expect("relative");
+        let want = cwd.join("target/gs-url-test/x.db");
+        assert_eq!(
+            rel,
+            format!("sqlite://{}?mode=rwc", want.display()).replace(' ', "%20")
+        );
+        assert!(want.parent().is_some_and(|d| d.is_dir()), "folder created");
+        assert_eq!(
+            sqlite_url("sqlite:target/gs-url-test/y.db?busy_timeout=5").expect("bare form"),
+            format!(
+                "sqlite://{}?mode=rwc&busy_timeout=5",
+                cwd.join("target/gs-url-test/y.db").display()
+            )
+            .replace(' ', "%20")
+        );
+        assert_eq!(
+            sqlite_url("sqlite::memory:").expect("memory"),
+            "sqlite::memory:"
+        );
+        std::fs::remove_dir_all(&tmp).ok();
+    }
 }

@@ -242,15 +242,15 @@ async fn editor_end_to_end() {
 
     // The first owner signs up through the start-up link, signs out, and signs in again.
     a.goto(&link).await.unwrap();
-    fill(&a, "#display_name", "Ada Lovelace").await;
-    fill(&a, "#login", "ada").await;
+    fill(&a, "#display_name", "Tamsin Greeve").await;
+    fill(&a, "#login", "tamsin").await;
     fill(&a, "#password", "potting bench 1").await;
     fill(&a, "#password_again", "potting bench 1").await;
     click(&a, "form.stack button.primary").await;
     wait_js(&a, "return location.pathname === '/';", "home").await;
     click(&a, "form[action='/signout'] button").await;
     wait_js(&a, "return location.pathname === '/signin';", "signed out").await;
-    sign_in(&a, &s.base, "ada", "potting bench 1").await;
+    sign_in(&a, &s.base, "tamsin", "potting bench 1").await;
     let api = s.token("my team", "editor");
 
     // A camera with a no-go zone, then a frame uploaded through the file picker.
@@ -426,7 +426,7 @@ async fn editor_end_to_end() {
 
     // A second browser session on the same goal; the first saves revision 3 meanwhile.
     let b = browser(&driver, &work.path().join("b")).await;
-    sign_in(&b, &s.base, "ada", "potting bench 1").await;
+    sign_in(&b, &s.base, "tamsin", "potting bench 1").await;
     b.goto(format!("{}/goals/{goal_id}", s.base)).await.unwrap();
     wait_js(
         &b,

@@ -11,4 +11,5 @@ mod export;
 mod goal_sets;
 mod pages;
 mod restart;
+mod review;
 mod routes;

@@ -206,7 +206,7 @@ async fn accounts(kind: Db) {
         refused.content_type
     );
 
-    let (mut owner, csrf) = join(&s.base, &link, "ada", "Ada", "correct horse 1").await;
+    let (mut owner, csrf) = join(&s.base, &link, "tamsin", "Tamsin", "repotting at dawn 7").await;
     let session_cookie = owner
         .set_cookies
         .iter()
@@ -236,7 +236,7 @@ async fn accounts(kind: Db) {
             "/signin",
             &[
                 ("csrf", &form),
-                ("login", "ada"),
+                ("login", "tamsin"),
                 ("password", "wrong"),
                 ("next", "/team"),
             ],
@@ -253,8 +253,8 @@ async fn accounts(kind: Db) {
         .body(
             serde_urlencoded::to_string([
                 ("csrf", form.as_str()),
-                ("login", "ADA"),
-                ("password", "correct horse 1"),
+                ("login", "TAMSIN"),
+                ("password", "repotting at dawn 7"),
                 ("next", "/team"),
             ])
             .unwrap(),
@@ -276,8 +276,8 @@ async fn accounts(kind: Db) {
             "/signin",
             &[
                 ("csrf", &form),
-                ("login", "ada"),
-                ("password", "correct horse 1"),
+                ("login", "tamsin"),
+                ("password", "repotting at dawn 7"),
                 ("next", "//evil.example"),
             ],
         )
@@ -496,14 +496,14 @@ async fn accounts(kind: Db) {
         "an editor now: {}",
         cam2.body
     );
-    let ada_id = {
-        let i = members.find("data-login=\"ada\"").unwrap();
+    let tamsin_id = {
+        let i = members.find("data-login=\"tamsin\"").unwrap();
         let j = members[i..].find("/team/members/").unwrap() + i + "/team/members/".len();
         members[j..j + 36].to_string()
     };
     owner
         .post_form(
-            &format!("/team/members/{ada_id}/role"),
+            &format!("/team/members/{tamsin_id}/role"),
             &[("csrf", &team_csrf), ("role", "viewer")],
         )
         .await;
@@ -579,7 +579,7 @@ async fn accounts(kind: Db) {
             "/account/password",
             &[
                 ("csrf", &acsrf),
-                ("current", "correct horse 1"),
+                ("current", "repotting at dawn 7"),
                 ("password", "a new longer one"),
                 ("password_again", "a new longer one"),
             ],
@@ -687,7 +687,7 @@ async fn goal_set_pages(kind: Db) {
         return;
     };
     let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
-    let (mut owner, _) = join(&s.base, &link, "ada", "Ada", "correct horse 1").await;
+    let (mut owner, _) = join(&s.base, &link, "tamsin", "Tamsin", "repotting at dawn 7").await;
     let (api, _cam, frame) = camera_and_frame(&s, "my team", json!({})).await;
     let mut ids = Vec::new();
     for name in ["pot to mat", "tray to bench"] {

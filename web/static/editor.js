@@ -40,7 +40,7 @@ const masks = new Map(); // term object → { paint: canvas (black/white), tint:
 let image = null;
 let cursor = null; // last pointer position in CSS px
 let drag = null;
-let spaceHeld = false;
+let erasing = false;
 let brush = 8;
 
 const $ = (id) => document.getElementById(id);
@@ -417,6 +417,25 @@ function renderList() {
     label.appendChild(lin);
     fields.append(label, numberField(t, 'weight', 'Weight', 1, i));
     if (t.kind !== 'learned') fields.append(numberField(t, 'tolerance_px', 'Tolerance px', 5, i));
+    if (t.targets && editable) {
+      // Turning an object's targets, for those who prefer buttons to the , and . keys.
+      const turns = document.createElement('div');
+      turns.className = 'turns';
+      for (const [text, deg, what] of [['⟲ 1°', -1, 'anticlockwise'], ['⟳ 1°', 1, 'clockwise']]) {
+        const b = document.createElement('button');
+        b.type = 'button';
+        b.className = 'small';
+        b.textContent = text;
+        b.dataset.turn = String(deg);
+        b.setAttribute('aria-label', `Turn the targets of term ${i + 1} by 1° ${what}`);
+        b.addEventListener('click', () => {
+          state.selected = { term: i, handle: ['targets', 0] };
+          rotateTargets(deg);
+        });
+        turns.appendChild(b);
+      }
+      fields.append(turns);
+    }
     const coords = document.createElement('div');
     coords.className = 'coords';
     coords.textContent = describe(t);
@@ -534,7 +553,7 @@ const HINTS = {
   inspect: 'Click a point to select it, drag to move it, arrow keys to nudge it. Drag the empty frame to pan.',
   point: 'Click where the thing is now (source), then where it should end up (target).',
   region: 'Click the source, then the corners of the target area; Enter or a click on the first corner closes it.',
-  mask: 'Click the source, then paint the target area (hold Alt to erase). Enter when done.',
+  mask: 'Click the source, then paint the target area (Erase in the bar, or E, switches to removing paint). Enter when done.',
   rigid: 'Click several points on one object, press Enter, then click where each should go, in the same order.',
 };
 
@@ -549,6 +568,7 @@ function setTool(tool) {
   document.querySelectorAll('[data-tool]').forEach((b) => b.setAttribute('aria-pressed', String(b.dataset.tool === tool)));
   const brushCtl = document.querySelector('.brush-size');
   if (brushCtl) brushCtl.hidden = tool !== 'mask';
+  if (tool !== 'mask') setErasing(false);
   hint(HINTS[tool]);
   draw();
 }
@@ -586,7 +606,7 @@ function onPointerDown(e) {
     select(hit.term, hit.handle);
     return;
   }
-  if (e.button === 1 || spaceHeld || !editable || (e.button === 0 && state.tool === 'inspect' && !hit)) {
+  if (e.button === 1 || !editable || (e.button === 0 && state.tool === 'inspect' && !hit)) {
     drag = { kind: 'pan', x: cx, y: cy, px: view.px, py: view.py };
     canvas.classList.add('panning');
     canvas.setPointerCapture(e.pointerId);
@@ -634,14 +654,14 @@ function onPointerDown(e) {
       const sel = state.selected && state.terms[state.selected.term];
       if (sel && sel.kind === 'mask' && state.pending && state.pending.kind === 'mask') {
         remember();
-        paintAt(sel, at[0], at[1], e.altKey);
-        drag = { kind: 'paint', term: sel, erase: e.altKey };
+        paintAt(sel, at[0], at[1], erasing);
+        drag = { kind: 'paint', term: sel, erase: erasing };
         canvas.setPointerCapture(e.pointerId);
         draw();
       } else {
         addTerm({ kind: 'mask', source: at, mask_png_base64: null, weight: 1, tolerance_px: 5 });
         state.pending = { kind: 'mask' };
-        hint('Now paint the target area (hold Alt to erase). Enter when done.');
+        hint('Now paint the target area (Erase or E switches to removing paint). Enter when done.');
       }
       break;
     }
@@ -737,7 +757,7 @@ function finishRigid() {
       return;
     }
     p.phase = 'targets';
-    hint('Now click where point 1 should go. (Enter again: targets start at the sources; drag them with Shift to move all, [ and ] to turn.)');
+    hint('Now click where point 1 should go. (Enter again: targets start at the sources; drag them with Shift to move all, , and . to turn.)');
     draw();
     return;
   }
@@ -828,26 +848,29 @@ function onKey(e) {
     S: () => setTool('inspect'),
     p: () => setTool('point'),
     P: () => setTool('point'),
-    a: () => setTool('region'),
-    A: () => setTool('region'),
-    b: () => setTool('mask'),
-    B: () => setTool('mask'),
-    o: () => setTool('rigid'),
-    O: () => setTool('rigid'),
-    '[': () => rotateTargets(e.shiftKey ? -0.1 : -1),
-    ']': () => rotateTargets(e.shiftKey ? 0.1 : 1),
-    '{': () => rotateTargets(-0.1),
-    '}': () => rotateTargets(0.1),
+    i: () => setTool('region'),
+    I: () => setTool('region'),
+    o: () => setTool('mask'),
+    O: () => setTool('mask'),
+    w: () => setTool('rigid'),
+    W: () => setTool('rigid'),
+    e: () => state.tool === 'mask' && setErasing(!erasing),
+    E: () => state.tool === 'mask' && setErasing(!erasing),
   };
-  const f = keys[e.key];
+  // Turning goes by the physical comma and full-stop keys, so Shift (finer steps) works on any
+  // keyboard layout, where Shift+, may type '<' or ';'.
+  const turn = { Comma: -1, Period: 1 }[e.code];
+  const f = turn ? () => rotateTargets(turn * (e.shiftKey ? 0.1 : 1)) : keys[e.key];
   if (f) {
     e.preventDefault();
     f();
   }
-  if (e.key === ' ') {
-    spaceHeld = true;
-    e.preventDefault();
-  }
+}
+
+function setErasing(on) {
+  erasing = on;
+  const b = $('paint-erase');
+  if (b) b.setAttribute('aria-pressed', String(on));
 }
 
 function toggleHeat() {
@@ -1131,7 +1154,8 @@ function start() {
   }, { passive: false });
   canvas.addEventListener('contextmenu', (e) => e.preventDefault());
   document.addEventListener('keydown', onKey);
-  document.addEventListener('keyup', (e) => { if (e.key === ' ') spaceHeld = false; });
+  const eraseBtn = $('paint-erase');
+  if (eraseBtn) eraseBtn.addEventListener('click', () => setErasing(!erasing));
   window.addEventListener('beforeunload', (e) => {
     if (state.dirty && editable) e.preventDefault();
   });

@@ -15,7 +15,7 @@ pub const DEFAULT_WEIGHT: f64 = 1.0;
 /// Default tolerance radius (pixels) used for success and `hit` costs.
 pub const DEFAULT_TOLERANCE_PX: f64 = 5.0;
 /// Longest goal name accepted, in characters.
-pub const MAX_NAME_CHARS: usize = 200;
+pub const MAX_NAME_CHARS: usize = crate::names::NameKind::Goal.max_chars();
 /// Longest label or note accepted, in characters.
 pub const MAX_TEXT_CHARS: usize = 2000;
 /// Most terms in one goal.
@@ -368,14 +368,25 @@ pub struct GoalSpec {
 }
 
 fn check_text(value: &Option<String>, field: String) -> Result<(), GoalError> {
-    if let Some(s) = value
-        && s.chars().count() > MAX_TEXT_CHARS
-    {
-        return Err(GoalError::new(
-            "too_long",
-            field,
-            format!("at most {MAX_TEXT_CHARS} characters"),
-        ));
+    if let Some(s) = value {
+        if s.chars().count() > MAX_TEXT_CHARS {
+            return Err(GoalError::new(
+                "too_long",
+                field,
+                format!("at most {MAX_TEXT_CHARS} characters"),
+            ));
+        }
+        // Line breaks and tabs are fine in notes; characters that reorder displayed text are not.
+        if let Some(c) = s.chars().find(|&c| crate::names::is_bidi_control(c)) {
+            return Err(GoalError::new(
+                "bad_character",
+                field,
+                format!(
+                    "cannot hold the bidirectional control U+{:04X}",
+                    u32::from(c)
+                ),
+            ));
+        }
     }
     Ok(())
 }
@@ -468,17 +479,8 @@ impl GoalSpec {
             width: ctx.width,
             height: ctx.height,
         };
-        let name = document.name.trim();
-        if name.is_empty() {
-            return Err(GoalError::new("required", "name", "a goal needs a name"));
-        }
-        if name.chars().count() > MAX_NAME_CHARS {
-            return Err(GoalError::new(
-                "too_long",
-                "name",
-                format!("at most {MAX_NAME_CHARS} characters"),
-            ));
-        }
+        crate::names::check(crate::names::NameKind::Goal, &document.name)
+            .map_err(|e| GoalError::new(e.code(), "name", e.to_string()))?;
         check_text(&document.note, "note".into())?;
         if document.terms.is_empty() {
             return Err(GoalError::new(

@@ -13,5 +13,6 @@ pub mod distance;
 pub mod draw;
 pub mod geometry;
 pub mod goal;
+pub mod names;
 pub mod npy;
 pub mod rigid;
