@@ -214,6 +214,68 @@ async fn table_of_bad_goals(s: Server) {
             );
         }
     }
+    // Safety zones checked as whole shapes, with the code as well as the field. A second
+    // camera of the same team has an L-shaped safe zone (reflex corner at (20, 20)).
+    let (_, _, l_frame) = camera_and_frame(
+        &s,
+        "validation",
+        json!({"safe_zone": [[0.0, 0.0], [40.0, 0.0], [40.0, 20.0], [20.0, 20.0], [20.0, 40.0], [0.0, 40.0]]}),
+    )
+    .await;
+    let touching_mask = {
+        use base64::Engine;
+        let mut painted = vec![false; 64 * 48];
+        // (30, 35) lies on the no-go square's right edge.
+        painted[35 * 64 + 30] = true;
+        painted[35 * 64 + 31] = true;
+        let png = goalsmith::images::encode_mask(64, 48, &painted).unwrap();
+        base64::engine::general_purpose::STANDARD.encode(png)
+    };
+    let zone_rows: Vec<(&str, Value, &str, &str)> = vec![
+        (
+            "thin band through the no-go square, no vertex inside either",
+            goal_with(
+                &frame,
+                region(json!([
+                    [10.0, 34.0],
+                    [40.0, 34.0],
+                    [40.0, 36.0],
+                    [10.0, 36.0]
+                ])),
+            ),
+            "terms[0].polygon",
+            "inside_no_go_zone",
+        ),
+        (
+            "thin region cutting the corner of the L-shaped safe zone",
+            goal_with(
+                &l_frame,
+                region(json!([
+                    [18.0, 21.0],
+                    [21.0, 18.0],
+                    [22.0, 19.0],
+                    [19.0, 22.0]
+                ])),
+            ),
+            "terms[0].polygon",
+            "outside_safe_zone",
+        ),
+        (
+            "mask touching the no-go square",
+            goal_with(
+                &frame,
+                json!([{"kind": "mask", "source": [1.0, 1.0], "mask_png_base64": touching_mask}]),
+            ),
+            "terms[0].mask_png_base64",
+            "inside_no_go_zone",
+        ),
+    ];
+    for (what, body, field, code) in &zone_rows {
+        let (st, err) = s.post("/api/goals", Some(&editor), body).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{what}: {err}");
+        assert_eq!(err["error"]["field"], *field, "{what}: {err}");
+        assert_eq!(err["error"]["code"], *code, "{what}: {err}");
+    }
     // Numbers JSON cannot carry, and broken JSON.
     for (what, raw) in [
         (

@@ -5,7 +5,7 @@
 
 use crate::cost::{CostPoint, CostSettings, Metric, Mode, Steps, TargetShape};
 use crate::distance::Mask;
-use crate::geometry::{PixelPoint, Polygon};
+use crate::geometry::{PixelPoint, Polygon, RowScan};
 use crate::rigid::{self, RigidFit};
 use serde::{Deserialize, Serialize};
 use std::sync::Arc;
@@ -22,6 +22,13 @@ pub const MAX_TEXT_CHARS: usize = 2000;
 pub const MAX_TERMS: usize = 256;
 /// Most vertices in one polygon and sources in one rigid term.
 pub const MAX_VERTICES: usize = 1024;
+/// Most painted pixels over all mask terms of one goal: 2²³ = 8,388,608, a fully painted
+/// 4096 × 2048 frame. The safety check tests every painted pixel against every camera zone, so
+/// the total over the goal's masks is bounded (up to [`MAX_TERMS`] of them), not each mask
+/// alone. A goal past it is refused with `too_many_painted_pixels`, on the mask term whose
+/// pixels take the running total over, whether or not the camera has zones and whether or not
+/// `override_safety` is set.
+pub const MAX_PAINTED_PIXELS_PER_GOAL: usize = 1 << 23;
 
 /// A pixel coordinate pair `[x, y]` as sent by clients.
 pub type Xy = [f64; 2];
@@ -261,9 +268,10 @@ pub struct CheckContext<'a> {
     pub width: u32,
     /// Frame height in pixels.
     pub height: u32,
-    /// Targets must lie inside this polygon when given.
+    /// Targets must lie inside this closed polygon when given (its boundary counts as inside);
+    /// a region target wholly, a mask at every painted pixel centre.
     pub safe_zone: Option<&'a Polygon>,
-    /// Targets must not lie inside any of these.
+    /// Targets must share no point with any of these closed polygons: touching one is refused.
     pub no_go_zones: &'a [Polygon],
     /// Decodes a term's `mask_png_base64` into (width, height, painted flags).
     pub decode_mask: MaskDecoder<'a>,
@@ -835,34 +843,92 @@ fn check_cost(doc: Option<&CostDocument>) -> Result<CostSettings, GoalError> {
         .map_err(|e| GoalError::new("bad_cost", "cost", e.to_string()))
 }
 
-/// Where each term wants things to go, for the safe-zone and no-go checks.
-fn target_locations(term: &Term) -> Vec<(String, [f64; 2])> {
-    match term {
-        Term::Point { target, .. } => vec![("target".into(), target.to_array())],
-        Term::Region { polygon, .. } => polygon
-            .vertices()
-            .iter()
-            .enumerate()
-            .map(|(k, v)| (format!("polygon[{k}]"), v.to_array()))
-            .collect(),
-        Term::Mask { mask, .. } => {
-            let mut out = Vec::new();
-            for j in 0..mask.height() {
-                for i in 0..mask.width() {
-                    if mask.is_inside(i, j) {
-                        out.push(("mask_png_base64".into(), [i as f64, j as f64]));
-                    }
-                }
-            }
-            out
-        }
-        Term::Rigid { targets, .. } => targets
-            .iter()
-            .enumerate()
-            .map(|(k, t)| (format!("targets[{k}]"), t.to_array()))
-            .collect(),
-        Term::Learned { .. } => Vec::new(),
+/// What is unsafe about one term: the error code, the field under the term, and a sentence.
+type SafetyProblem = (&'static str, String, String);
+
+/// The safety check of a point target: outside the safe zone, or in a no-go zone. Both zones
+/// are closed, so a target on the safe zone's edge is inside it and one on a no-go zone's edge
+/// is in the no-go zone.
+fn point_problem(ctx: &CheckContext<'_>, p: PixelPoint) -> Option<(&'static str, String)> {
+    let (x, y) = (p.x(), p.y());
+    if let Some(zone) = ctx.safe_zone
+        && !zone.contains(x, y)
+    {
+        return Some((
+            "outside_safe_zone",
+            format!("the target at [{x}, {y}] lies outside the camera's safe zone"),
+        ));
     }
+    let k = ctx.no_go_zones.iter().position(|z| z.contains(x, y))?;
+    Some((
+        "inside_no_go_zone",
+        format!("the target at [{x}, {y}] lies inside no-go zone {k} of the camera"),
+    ))
+}
+
+/// The safety check of a region target, exact (see [`Polygon::covers`] and
+/// [`Polygon::intersects`]): the whole region, boundary included, must lie in the closed safe
+/// zone, and it must share no point with any closed no-go zone. Touching a no-go zone's edge
+/// or corner is refused — with a real arm the conservative reading is the safe one — while
+/// running along the safe zone's edge is accepted, as a point target there is.
+fn region_problem(ctx: &CheckContext<'_>, polygon: &Polygon) -> Option<(&'static str, String)> {
+    if let Some(zone) = ctx.safe_zone
+        && !zone.covers(polygon)
+    {
+        return Some((
+            "outside_safe_zone",
+            "the target region reaches outside the camera's safe zone".into(),
+        ));
+    }
+    let k = ctx.no_go_zones.iter().position(|z| z.intersects(polygon))?;
+    Some((
+        "inside_no_go_zone",
+        format!("the target region overlaps or touches no-go zone {k} of the camera"),
+    ))
+}
+
+/// The safety check of a mask target: every painted pixel centre (i, j) must lie in the closed
+/// safe zone and in no closed no-go zone; the first offender in row order is named.
+///
+/// Cost: one pass over the mask's flags, and for each row with a painted pixel an O(n) set-up
+/// of a [`RowScan`] per zone (n its edge count), then O(log n) per zone for each painted pixel.
+/// Nothing is allocated per pixel or per row; the scanners' buffers are reused.
+fn mask_problem(ctx: &CheckContext<'_>, mask: &Mask) -> Option<(&'static str, String)> {
+    if ctx.safe_zone.is_none() && ctx.no_go_zones.is_empty() {
+        return None;
+    }
+    let mut safe = ctx.safe_zone.map(RowScan::new);
+    let mut no_go: Vec<RowScan<'_>> = ctx.no_go_zones.iter().map(RowScan::new).collect();
+    for (j, row) in mask.data().chunks_exact(mask.width()).enumerate() {
+        if !row.contains(&true) {
+            continue;
+        }
+        let y = j as f64;
+        if let Some(s) = &mut safe {
+            s.set_row(y);
+        }
+        for z in &mut no_go {
+            z.set_row(y);
+        }
+        for (i, _) in row.iter().enumerate().filter(|(_, painted)| **painted) {
+            let x = i as f64;
+            if let Some(s) = &safe
+                && !s.contains(x)
+            {
+                return Some((
+                    "outside_safe_zone",
+                    format!("painted pixel [{i}, {j}] lies outside the camera's safe zone"),
+                ));
+            }
+            if let Some(k) = no_go.iter().position(|z| z.contains(x)) {
+                return Some((
+                    "inside_no_go_zone",
+                    format!("painted pixel [{i}, {j}] lies inside no-go zone {k} of the camera"),
+                ));
+            }
+        }
+    }
+    None
 }
 
 fn check_safety(
@@ -870,44 +936,47 @@ fn check_safety(
     ctx: &CheckContext<'_>,
     override_safety: bool,
 ) -> Result<Vec<String>, GoalError> {
+    check_safety_with_limit(terms, ctx, override_safety, MAX_PAINTED_PIXELS_PER_GOAL)
+}
+
+/// [`check_safety`] with the painted-pixel bound as an argument, so tests can reach it with
+/// small masks.
+fn check_safety_with_limit(
+    terms: &[CheckedTerm],
+    ctx: &CheckContext<'_>,
+    override_safety: bool,
+    max_painted: usize,
+) -> Result<Vec<String>, GoalError> {
     let mut warnings = Vec::new();
+    let mut painted = 0usize;
     for (i, t) in terms.iter().enumerate() {
-        let mut problem: Option<(&'static str, String, String)> = None;
-        for (field, [x, y]) in target_locations(&t.term) {
-            if let Some(zone) = ctx.safe_zone
-                && !zone.contains(x, y)
-            {
-                problem = Some((
-                    "outside_safe_zone",
-                    field,
-                    format!("the target at [{x}, {y}] lies outside the camera's safe zone"),
-                ));
-                break;
+        let problem: Option<SafetyProblem> = match &t.term {
+            Term::Point { target, .. } => {
+                point_problem(ctx, *target).map(|(c, m)| (c, "target".to_string(), m))
             }
-            if let Some(k) = ctx.no_go_zones.iter().position(|z| z.contains(x, y)) {
-                problem = Some((
-                    "inside_no_go_zone",
-                    field,
-                    format!("the target at [{x}, {y}] lies inside no-go zone {k} of the camera"),
-                ));
-                break;
+            Term::Rigid { targets, .. } => targets.iter().enumerate().find_map(|(k, p)| {
+                point_problem(ctx, *p).map(|(c, m)| (c, format!("targets[{k}]"), m))
+            }),
+            Term::Region { polygon, .. } => {
+                region_problem(ctx, polygon).map(|(c, m)| (c, "polygon".to_string(), m))
             }
-        }
-        // A region that swallows a whole no-go zone has no vertex inside it; check the zone's
-        // vertices too.
-        if problem.is_none()
-            && let Term::Region { polygon, .. } = &t.term
-            && let Some(k) = ctx
-                .no_go_zones
-                .iter()
-                .position(|z| z.vertices().iter().any(|v| polygon.contains(v.x(), v.y())))
-        {
-            problem = Some((
-                "inside_no_go_zone",
-                "polygon".into(),
-                format!("the target region overlaps no-go zone {k} of the camera"),
-            ));
-        }
+            Term::Mask { mask, .. } => {
+                // Counted before the zones are looked at: the bound holds whatever the camera.
+                painted = painted.saturating_add(mask.data().iter().filter(|&&p| p).count());
+                if painted > max_painted {
+                    return Err(GoalError::new(
+                        "too_many_painted_pixels",
+                        format!("terms[{i}].mask_png_base64"),
+                        format!(
+                            "the masks of one goal may paint at most {max_painted} pixels in \
+                             all; with this term they paint {painted}"
+                        ),
+                    ));
+                }
+                mask_problem(ctx, mask).map(|(c, m)| (c, "mask_png_base64".to_string(), m))
+            }
+            Term::Learned { .. } => None,
+        };
         if let Some((code, field, message)) = problem {
             let field = format!("terms[{i}].{field}");
             if override_safety {
@@ -922,4 +991,358 @@ fn check_safety(
         }
     }
     Ok(warnings)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const W: u32 = 64;
+    const H: u32 = 48;
+
+    fn zone(v: &[Xy]) -> Polygon {
+        check_zone(W, H, v, "zone").unwrap()
+    }
+
+    /// The safe zone leaves out the right edge of the 64×48 frame; one small no-go square.
+    fn bench_camera() -> (Polygon, Vec<Polygon>) {
+        (
+            zone(&[[0.0, 0.0], [56.0, 0.0], [56.0, 47.0], [0.0, 47.0]]),
+            vec![zone(&[
+                [20.0, 30.0],
+                [30.0, 30.0],
+                [30.0, 40.0],
+                [20.0, 40.0],
+            ])],
+        )
+    }
+
+    /// An L-shaped safe zone: the frame's top strip and left strip, reflex corner at (20, 20).
+    fn l_zone() -> Polygon {
+        zone(&[
+            [0.0, 0.0],
+            [40.0, 0.0],
+            [40.0, 20.0],
+            [20.0, 20.0],
+            [20.0, 40.0],
+            [0.0, 40.0],
+        ])
+    }
+
+    /// Test masks are written "i,j i,j …": the painted pixel centres of a 64×48 frame.
+    fn decode_pixels(s: &str) -> Result<(usize, usize, Vec<bool>), String> {
+        let (w, h) = (W as usize, H as usize);
+        let mut flags = vec![false; w * h];
+        for pair in s.split_whitespace() {
+            let parse = |v: &str| v.parse::<usize>().map_err(|e| e.to_string());
+            let (i, j) = pair.split_once(',').ok_or("not i,j")?;
+            flags[parse(j)? * w + parse(i)?] = true;
+        }
+        Ok((w, h, flags))
+    }
+
+    fn check(
+        safe: Option<&Polygon>,
+        no_go: &[Polygon],
+        terms: Vec<TermDocument>,
+        override_safety: bool,
+    ) -> Result<GoalSpec, GoalError> {
+        let ctx = CheckContext {
+            width: W,
+            height: H,
+            safe_zone: safe,
+            no_go_zones: no_go,
+            decode_mask: &decode_pixels,
+            reward_fit_exists: &|_| false,
+        };
+        GoalSpec::check(document(terms, override_safety), &ctx)
+    }
+
+    fn document(terms: Vec<TermDocument>, override_safety: bool) -> GoalDocument {
+        GoalDocument {
+            name: "repot the seedlings".into(),
+            frame_id: "frame".into(),
+            terms,
+            cost: None,
+            note: None,
+            override_safety,
+        }
+    }
+
+    fn region(polygon: &[Xy]) -> TermDocument {
+        TermDocument::Region {
+            label: None,
+            source: [5.0, 5.0],
+            polygon: polygon.to_vec(),
+            weight: None,
+            tolerance_px: None,
+        }
+    }
+
+    fn mask(pixels: &str) -> TermDocument {
+        TermDocument::Mask {
+            label: None,
+            source: [5.0, 5.0],
+            mask_png_base64: pixels.into(),
+            weight: None,
+            tolerance_px: None,
+        }
+    }
+
+    fn point(target: Xy) -> TermDocument {
+        TermDocument::Point {
+            label: None,
+            source: [5.0, 5.0],
+            target,
+            weight: None,
+            tolerance_px: None,
+        }
+    }
+
+    fn refusal(result: Result<GoalSpec, GoalError>) -> (&'static str, String, String) {
+        let e = result.expect_err("the goal should be refused");
+        (e.code, e.field, e.message)
+    }
+
+    const BAND: [Xy; 4] = [[10.0, 34.0], [40.0, 34.0], [40.0, 36.0], [10.0, 36.0]];
+    const CORNER_CUT: [Xy; 4] = [[18.0, 21.0], [21.0, 18.0], [22.0, 19.0], [19.0, 22.0]];
+
+    #[test]
+    fn a_band_through_a_no_go_zone_is_refused() {
+        // No vertex of the band lies in the no-go square, and no corner of the square in the
+        // band: the vertex-only check let this through.
+        let (safe, no_go) = bench_camera();
+        let (code, field, message) =
+            refusal(check(Some(&safe), &no_go, vec![region(&BAND)], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("inside_no_go_zone", "terms[0].polygon")
+        );
+        assert!(message.contains("no-go zone 0"), "{message}");
+        // Touching the square's bottom edge is refused too; a pixel below it is not.
+        let along = [[10.0, 40.0], [40.0, 40.0], [40.0, 44.0], [10.0, 44.0]];
+        let (code, ..) = refusal(check(Some(&safe), &no_go, vec![region(&along)], false));
+        assert_eq!(code, "inside_no_go_zone");
+        let below = [[10.0, 41.0], [40.0, 41.0], [40.0, 44.0], [10.0, 44.0]];
+        assert!(check(Some(&safe), &no_go, vec![region(&below)], false).is_ok());
+        // A region swallowing the whole square.
+        let around = [[15.0, 25.0], [35.0, 25.0], [35.0, 45.0], [15.0, 45.0]];
+        let (code, field, _) = refusal(check(Some(&safe), &no_go, vec![region(&around)], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("inside_no_go_zone", "terms[0].polygon")
+        );
+    }
+
+    #[test]
+    fn a_region_cutting_the_corner_of_an_l_shaped_safe_zone_is_refused() {
+        let l = l_zone();
+        assert!(CORNER_CUT.iter().all(|v| l.contains(v[0], v[1])));
+        let (code, field, _) = refusal(check(Some(&l), &[], vec![region(&CORNER_CUT)], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("outside_safe_zone", "terms[0].polygon")
+        );
+        // On the safe zone's boundary counts as inside: the left arm exactly, and a triangle
+        // whose edge passes through the reflex corner.
+        let arm = [[0.0, 0.0], [20.0, 0.0], [20.0, 40.0], [0.0, 40.0]];
+        let through = [[10.0, 30.0], [30.0, 10.0], [10.0, 10.0]];
+        let spec = check(Some(&l), &[], vec![region(&arm), region(&through)], false).unwrap();
+        assert!(spec.warnings().is_empty());
+        // Later terms are checked too: the refusal names the offending term.
+        let (_, field, _) = refusal(check(
+            Some(&l),
+            &[],
+            vec![region(&arm), region(&CORNER_CUT)],
+            false,
+        ));
+        assert_eq!(field, "terms[1].polygon");
+    }
+
+    #[test]
+    fn the_override_stores_the_goal_and_names_every_unsafe_term() {
+        let (safe, no_go) = bench_camera();
+        let l = l_zone();
+        let spec = check(
+            Some(&safe),
+            &no_go,
+            vec![point([10.0, 10.0]), region(&BAND), point([25.0, 35.0])],
+            true,
+        )
+        .unwrap();
+        let w = spec.warnings();
+        assert_eq!(w.len(), 2, "{w:?}");
+        assert!(w[0].starts_with("terms[1].polygon: ") && w[0].contains("no-go zone 0"));
+        assert!(w[1].starts_with("terms[2].target: ") && w[1].contains("override recorded"));
+        let spec = check(Some(&l), &[], vec![region(&CORNER_CUT)], true).unwrap();
+        assert_eq!(spec.warnings().len(), 1);
+        assert!(spec.warnings()[0].starts_with("terms[0].polygon: "));
+        assert!(spec.warnings()[0].contains("outside the camera's safe zone"));
+    }
+
+    #[test]
+    fn point_and_rigid_targets_keep_their_fields() {
+        let (safe, no_go) = bench_camera();
+        let (code, field, _) = refusal(check(Some(&safe), &no_go, vec![point([60.0, 5.0])], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("outside_safe_zone", "terms[0].target")
+        );
+        // On the no-go square's edge: in the zone.
+        let (code, field, _) =
+            refusal(check(Some(&safe), &no_go, vec![point([30.0, 33.0])], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("inside_no_go_zone", "terms[0].target")
+        );
+        // On the safe zone's edge: inside it.
+        assert!(check(Some(&safe), &no_go, vec![point([56.0, 5.0])], false).is_ok());
+        let rigid = TermDocument::Rigid {
+            label: None,
+            sources: vec![[2.0, 2.0], [6.0, 2.0]],
+            targets: vec![[12.0, 2.0], [22.0, 30.0]],
+            allow_scale: Some(true),
+            weight: None,
+            tolerance_px: None,
+        };
+        let (code, field, _) = refusal(check(Some(&safe), &no_go, vec![rigid], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("inside_no_go_zone", "terms[0].targets[1]")
+        );
+    }
+
+    #[test]
+    fn masks_are_checked_pixel_by_pixel() {
+        let (safe, no_go) = bench_camera();
+        // Pixel (30, 35) lies on the no-go square's right edge: touching counts as inside.
+        let (code, field, message) = refusal(check(
+            Some(&safe),
+            &no_go,
+            vec![mask("31,35 30,35 32,35")],
+            false,
+        ));
+        assert_eq!(
+            (code, field.as_str()),
+            ("inside_no_go_zone", "terms[0].mask_png_base64")
+        );
+        assert!(message.contains("[30, 35]"), "{message}");
+        assert!(check(Some(&safe), &no_go, vec![mask("31,35 32,35 20,29")], false).is_ok());
+        // Column 57 is right of the safe zone; column 56 is its edge.
+        let (code, field, message) =
+            refusal(check(Some(&safe), &no_go, vec![mask("56,3 57,3")], false));
+        assert_eq!(
+            (code, field.as_str()),
+            ("outside_safe_zone", "terms[0].mask_png_base64")
+        );
+        assert!(message.contains("[57, 3]"), "{message}");
+        let spec = check(Some(&safe), &no_go, vec![mask("57,3"), mask("25,35")], true).unwrap();
+        assert_eq!(spec.warnings().len(), 2);
+        assert!(spec.warnings()[1].starts_with("terms[1].mask_png_base64: "));
+    }
+
+    #[test]
+    fn a_mask_filling_an_l_shaped_safe_zone_is_accepted_and_one_more_pixel_is_not() {
+        let l = l_zone();
+        // Every pixel centre of the closed L, its boundary rows and columns included.
+        let mut inside = String::new();
+        for j in 0..H as usize {
+            for i in 0..W as usize {
+                if l.contains(i as f64, j as f64) {
+                    inside.push_str(&format!("{i},{j} "));
+                }
+            }
+        }
+        assert!(inside.contains(" 20,40 ") && inside.contains(" 40,20 "));
+        let no_go = [zone(&[[50.0, 30.0], [60.0, 30.0], [55.0, 40.0]])];
+        assert!(check(Some(&l), &no_go, vec![mask(&inside)], false).is_ok());
+        let (code, _, message) = refusal(check(
+            Some(&l),
+            &no_go,
+            vec![mask(&format!("{inside} 21,21"))],
+            false,
+        ));
+        assert_eq!(code, "outside_safe_zone");
+        assert!(message.contains("[21, 21]"), "{message}");
+    }
+
+    fn mask_term(painted: &[(usize, usize)]) -> CheckedTerm {
+        let (w, h) = (W as usize, H as usize);
+        let mut flags = vec![false; w * h];
+        for &(i, j) in painted {
+            flags[j * w + i] = true;
+        }
+        CheckedTerm {
+            term: Term::Mask {
+                source: PixelPoint::new(1.0, 1.0).unwrap(),
+                mask: Arc::new(Mask::new(w, h, flags).unwrap()),
+            },
+            label: None,
+            weight: 1.0,
+            tolerance_px: 5.0,
+        }
+    }
+
+    #[test]
+    fn the_painted_pixel_bound_counts_over_all_mask_terms() {
+        let (safe, no_go) = bench_camera();
+        let ctx = CheckContext {
+            width: W,
+            height: H,
+            safe_zone: Some(&safe),
+            no_go_zones: &no_go,
+            decode_mask: &decode_pixels,
+            reward_fit_exists: &|_| false,
+        };
+        let terms = [
+            mask_term(&[(1, 1), (2, 1), (3, 1)]),
+            mask_term(&[(4, 4), (5, 4)]),
+        ];
+        assert!(check_safety_with_limit(&terms, &ctx, false, 5).is_ok());
+        for override_safety in [false, true] {
+            let e = check_safety_with_limit(&terms, &ctx, override_safety, 4).unwrap_err();
+            assert_eq!(
+                (e.code, e.field.as_str()),
+                ("too_many_painted_pixels", "terms[1].mask_png_base64")
+            );
+            assert!(e.message.contains("at most 4 pixels"), "{}", e.message);
+        }
+        let e = check_safety_with_limit(&terms, &ctx, false, 2).unwrap_err();
+        assert_eq!(e.field, "terms[0].mask_png_base64");
+    }
+
+    /// The public bound itself, at and just past it: a fully painted 4096×2048 frame is
+    /// exactly 2²³ pixels.
+    #[test]
+    fn the_public_painted_pixel_bound_is_enforced_by_the_goal_check() {
+        let (w, h) = (4096u32, 2048u32);
+        assert_eq!(w as usize * h as usize, MAX_PAINTED_PIXELS_PER_GOAL);
+        let decode = |s: &str| -> Result<(usize, usize, Vec<bool>), String> {
+            let n = w as usize * h as usize;
+            Ok(match s {
+                "all" => (w as usize, h as usize, vec![true; n]),
+                _ => {
+                    let mut flags = vec![false; n];
+                    flags[0] = true;
+                    (w as usize, h as usize, flags)
+                }
+            })
+        };
+        let ctx = CheckContext {
+            width: w,
+            height: h,
+            safe_zone: None,
+            no_go_zones: &[],
+            decode_mask: &decode,
+            reward_fit_exists: &|_| false,
+        };
+        assert!(GoalSpec::check(document(vec![mask("all")], false), &ctx).is_ok());
+        let e = GoalSpec::check(document(vec![mask("all"), mask("one")], true), &ctx)
+            .expect_err("one pixel past the bound");
+        assert_eq!(
+            (e.code, e.field.as_str()),
+            ("too_many_painted_pixels", "terms[1].mask_png_base64")
+        );
+        assert!(e.message.contains("8388608"), "{}", e.message);
+    }
 }
