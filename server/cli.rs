@@ -98,7 +98,10 @@ fn run_cost(
         (None, None) => return Err("give --points or --maps".into()),
     };
     let result = crate::scoring::evaluate(&model, content_type, &body, usize::MAX / 2)?;
-    println!("{}", crate::scoring::result_json(&result));
+    println!(
+        "{}",
+        serde_json::to_string(&crate::scoring::cost_response(&result))?
+    );
     Ok(())
 }
 
