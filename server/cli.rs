@@ -100,7 +100,10 @@ fn run_cost(
     let result = crate::scoring::evaluate(&model, content_type, &body, usize::MAX / 2)?;
     // The result goes to stdout for scripts; the caution to stderr, where a person sees it.
     eprintln!("goalsmith: {}", crate::SAFETY_CAUTION);
-    println!("{}", crate::scoring::result_json(&result));
+    println!(
+        "{}",
+        serde_json::to_string(&crate::scoring::cost_response(&result))?
+    );
     Ok(())
 }
 

@@ -6,7 +6,8 @@ use goalsmith_core::cost::{CostModel, CostResult, MapBatch};
 use goalsmith_core::draw::{self, OverlayItem, Rgba8Image, ZoneKind};
 use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec, Term};
 use goalsmith_core::npy;
-use serde::Deserialize;
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
 use sha2::{Digest, Sha256};
 use std::io::{Cursor, Write};
@@ -98,10 +99,13 @@ pub fn cost_maps_npy(
         .map_err(|e| ScoreError::Internal(e.to_string()))
 }
 
-#[derive(Deserialize)]
+/// The JSON body of `POST …/cost`.
+#[derive(Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
-struct PointsBody {
-    points: Vec<Vec<Vec<[f64; 2]>>>,
+pub struct PointsBody {
+    /// Predicted pixel positions `[x, y]` of shape (N, T, P, 2): N candidates, T steps, P source
+    /// points (the revision's `derived.points`).
+    pub points: Vec<Vec<Vec<[f64; 2]>>>,
 }
 
 /// Predicted points (N, T, P, 2) from JSON `{"points": …}`, flattened, with (N, T).
@@ -211,9 +215,56 @@ pub fn evaluate(
     }
 }
 
+/// The response body of a cost evaluation (and the offline CLI's output).
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct CostResponse {
+    /// Index of the cheapest candidate (the first on ties).
+    pub best: usize,
+    /// Cost C_n of each candidate.
+    pub costs: Vec<f64>,
+    /// per_point[n][p]: point p's weighted share of C_n, so each row sums to `costs[n]`.
+    pub per_point: Vec<Vec<f64>>,
+}
+
 /// The response body of a cost evaluation.
-pub fn result_json(r: &CostResult) -> Value {
-    json!({"costs": r.costs, "per_point": r.per_point, "best": r.best})
+pub fn cost_response(r: &CostResult) -> CostResponse {
+    CostResponse {
+        best: r.best,
+        costs: r.costs.clone(),
+        per_point: r.per_point.clone(),
+    }
+}
+
+/// How one final position of an outcome did.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct OutcomePoint {
+    /// Index p of the source point.
+    pub index: usize,
+    /// Distance to its target shape, pixels.
+    pub residual_px: f64,
+    /// Index of its term.
+    pub term: usize,
+    /// Its success radius, pixels.
+    pub tolerance_px: f64,
+    /// `residual_px <= tolerance_px`.
+    pub within_tolerance: bool,
+}
+
+/// The result of [`outcome`].
+#[derive(Debug, Clone)]
+pub struct OutcomeResult {
+    /// Every point within its tolerance.
+    pub success: bool,
+    /// Per point, in cost-map order.
+    pub per_point: Vec<OutcomePoint>,
+    /// The goal's cost of the final positions.
+    pub cost: f64,
+    /// Mean residual, pixels.
+    pub mean_residual_px: f64,
 }
 
 /// Residuals of final positions: per point the distance to its target shape and whether it is
@@ -222,7 +273,7 @@ pub fn outcome(
     spec: &GoalSpec,
     model: &CostModel,
     final_points: &[[f64; 2]],
-) -> Result<Value, ScoreError> {
+) -> Result<OutcomeResult, ScoreError> {
     let p = model.len();
     if final_points.len() != p {
         return Err(invalid(
@@ -254,18 +305,24 @@ pub fn outcome(
         let within = d <= tol;
         all_within &= within;
         sum += d;
-        per_point.push(json!({"index": k, "term": sources[k].term, "residual_px": d, "within_tolerance": within, "tolerance_px": tol}));
+        per_point.push(OutcomePoint {
+            index: k,
+            residual_px: d,
+            term: sources[k].term,
+            tolerance_px: tol,
+            within_tolerance: within,
+        });
         flat.extend_from_slice(xy);
     }
     let cost = model
         .evaluate_points(&flat, 1, 1)
         .map_err(|e| invalid("bad_prediction", Some("final_points"), e.to_string()))?;
-    Ok(json!({
-        "success": all_within,
-        "per_point": per_point,
-        "cost": cost.costs[0],
-        "mean_residual_px": sum / p as f64,
-    }))
+    Ok(OutcomeResult {
+        success: all_within,
+        per_point,
+        cost: cost.costs[0],
+        mean_residual_px: sum / p as f64,
+    })
 }
 
 /// Camera zones for the overlay.

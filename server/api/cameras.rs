@@ -3,7 +3,7 @@
 use super::auth::{Principal, Role};
 use super::error::{ApiError, ApiResult};
 use super::extract::JsonBody;
-use super::{AppState, items, parse_id, rfc3339};
+use super::{AppState, Items, items, parse_id, rfc3339};
 use crate::store::{self, cameras::CameraRow};
 use axum::Json;
 use axum::extract::{Path, State};
@@ -11,6 +11,7 @@ use axum::http::StatusCode;
 use goalsmith_core::camera::{Intrinsics, Pose, WorkPlane};
 use goalsmith_core::goal::{Xy, check_zone};
 use goalsmith_core::names::{self, NameKind};
+use schemars::{JsonSchema, Schema, SchemaGenerator, json_schema};
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
@@ -18,33 +19,48 @@ use serde_json::Value;
 pub const MAX_SIDE: u32 = 16384;
 
 /// The body of `POST /api/cameras`.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct CameraInput {
+    /// Display name, 1 to 200 characters.
     name: String,
+    /// Frame width in pixels.
     width: u32,
+    /// Frame height in pixels.
     height: u32,
     /// Either `{fx, fy, cx, cy, distortion}` or ROS CameraInfo fields `{K, D, distortion_model}`.
+    // Parsed by hand (`parse_intrinsics`) for error messages that name both forms; the schema
+    // says what that parser takes.
     #[serde(default)]
+    #[schemars(schema_with = "intrinsics_input_schema")]
     intrinsics: Option<Value>,
+    /// The plane the robot works on, in camera coordinates.
     #[serde(default)]
     work_plane: Option<WorkPlaneDoc>,
+    /// Pose of the camera in the robot base frame.
     #[serde(default)]
     pose_in_base: Option<PoseDoc>,
+    /// Targets must lie inside this polygon (pixels).
     #[serde(default)]
     safe_zone: Option<Vec<Xy>>,
+    /// Targets must not lie inside these polygons (pixels).
     #[serde(default)]
     no_go_zones: Option<Vec<Vec<Xy>>>,
 }
 
+fn intrinsics_input_schema(generator: &mut SchemaGenerator) -> Schema {
+    let direct = generator.subschema_for::<IntrinsicsDoc>();
+    let ros = generator.subschema_for::<CameraInfoInput>();
+    // Exactly one fits: both forms refuse unknown fields, and their fields differ.
+    json_schema!({ "oneOf": [direct, ros, {"type": "null"}] })
+}
+
 /// Intrinsics in goalsmith's own form.
-#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct IntrinsicsDoc {
-    /// Focal length along x, pixels.
-    pub fx: f64,
-    /// Focal length along y, pixels.
-    pub fy: f64,
     /// Principal point x, pixels.
     pub cx: f64,
     /// Principal point y, pixels.
@@ -52,27 +68,39 @@ pub struct IntrinsicsDoc {
     /// Brown–Conrady k1, k2, p1, p2, k3.
     #[serde(default)]
     pub distortion: [f64; 5],
+    /// Focal length along x, pixels.
+    pub fx: f64,
+    /// Focal length along y, pixels.
+    pub fy: f64,
 }
 
-/// The fields of a ROS CameraInfo message (REP 104) that carry the calibration.
-#[derive(Debug, Deserialize)]
+/// The fields of a ROS CameraInfo message (REP 104) that carry the calibration. (Lower-case
+/// `k`, `d`, `r`, `p` are accepted too; the schema names the message's own spelling.)
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 struct CameraInfoInput {
+    /// Camera matrix, row-major 3×3.
     #[serde(alias = "k")]
     #[serde(rename = "K")]
     k: [f64; 9],
+    /// `[k1, k2, p1, p2, k3]`, or empty for none.
     #[serde(alias = "d")]
     #[serde(rename = "D", default)]
     d: Vec<f64>,
+    /// `plumb_bob` (the default; the only model taken with a non-empty `D`).
     #[serde(default = "plumb_bob")]
     distortion_model: String,
+    /// Must equal the camera's width when given.
     #[serde(default)]
     width: Option<u32>,
+    /// Must equal the camera's height when given.
     #[serde(default)]
     height: Option<u32>,
     // R and P are accepted and ignored: goalsmith works in the unrectified image.
+    /// Rectification rotation; accepted and ignored.
     #[serde(alias = "r", rename = "R", default)]
     _r: Option<Vec<f64>>,
+    /// Projection matrix; accepted and ignored.
     #[serde(alias = "p", rename = "P", default)]
     _p: Option<Vec<f64>>,
 }
@@ -82,7 +110,7 @@ fn plumb_bob() -> String {
 }
 
 /// The work plane n·X = offset_m in camera coordinates (metres).
-#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct WorkPlaneDoc {
     /// Plane normal (any length; stored normalised).
@@ -92,7 +120,7 @@ pub struct WorkPlaneDoc {
 }
 
 /// Camera to robot base: X_base = R·X_cam + t.
-#[derive(Debug, Clone, Deserialize, Serialize, PartialEq)]
+#[derive(Debug, Clone, Deserialize, Serialize, PartialEq, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct PoseDoc {
     /// 3×3 rotation, row-major.
@@ -169,11 +197,11 @@ fn parse_intrinsics(v: Value, width: u32, height: u32) -> ApiResult<IntrinsicsDo
             .map_err(|e| ApiError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?
     };
     Ok(IntrinsicsDoc {
-        fx: intr.fx(),
-        fy: intr.fy(),
         cx: intr.cx(),
         cy: intr.cy(),
         distortion: intr.distortion(),
+        fx: intr.fx(),
+        fy: intr.fy(),
     })
 }
 
@@ -229,39 +257,123 @@ pub fn check_camera(input: CameraInput) -> ApiResult<CameraDoc> {
     })
 }
 
-/// The camera as served: the document, its id, time, and the calibration in CameraInfo form.
-pub fn camera_json(row: &CameraRow) -> ApiResult<Value> {
-    let doc = parse_doc(row)?;
-    let mut v = serde_json::to_value(&doc).map_err(|e| ApiError::Internal(e.to_string()))?;
-    v["id"] = Value::String(row.id.clone());
-    v["created_at"] = Value::String(rfc3339(row.created_at));
-    v["camera_info"] = match doc.intrinsics() {
-        Some(i) => camera_info_json(&i, doc.width, doc.height),
-        None => Value::Null,
-    };
-    Ok(v)
+/// A camera as served: the stored document, its id and time, and the calibration also in ROS
+/// CameraInfo form.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct CameraView {
+    /// The intrinsics as ROS CameraInfo fields; null when the camera is not calibrated.
+    pub camera_info: Option<CameraInfoView>,
+    /// Registration time, RFC 3339 UTC.
+    pub created_at: String,
+    /// Frame height.
+    pub height: u32,
+    /// Camera id.
+    pub id: String,
+    /// Intrinsics in goalsmith's form; null when not calibrated.
+    pub intrinsics: Option<IntrinsicsDoc>,
+    /// Display name.
+    pub name: String,
+    /// No-go zone polygons.
+    pub no_go_zones: Vec<Vec<Xy>>,
+    /// Pose of the camera in the robot base frame.
+    pub pose_in_base: Option<PoseDoc>,
+    /// Safe zone polygon.
+    pub safe_zone: Option<Vec<Xy>>,
+    /// Frame width.
+    pub width: u32,
+    /// Work plane (unit normal).
+    pub work_plane: Option<WorkPlaneDoc>,
 }
 
 /// Intrinsics as the fields of a ROS CameraInfo message (REP 104 names: K, D, R, P).
-pub fn camera_info_json(i: &Intrinsics, width: u32, height: u32) -> Value {
-    let ci = i.to_camera_info(width, height);
-    serde_json::json!({
-        "width": ci.width,
-        "height": ci.height,
-        "distortion_model": ci.distortion_model,
-        "D": ci.d,
-        "K": ci.k,
-        "R": ci.r,
-        "P": ci.p,
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct CameraInfoView {
+    /// `[k1, k2, p1, p2, k3]`.
+    #[serde(rename = "D")]
+    pub d: Vec<f64>,
+    /// Camera matrix, row-major 3×3.
+    #[serde(rename = "K")]
+    pub k: [f64; 9],
+    /// Projection matrix `[K | 0]`, row-major 3×4.
+    #[serde(rename = "P")]
+    pub p: [f64; 12],
+    /// Rectification rotation (the identity), row-major 3×3.
+    #[serde(rename = "R")]
+    pub r: [f64; 9],
+    /// `plumb_bob`.
+    pub distortion_model: String,
+    /// Image height.
+    pub height: u32,
+    /// Image width.
+    pub width: u32,
+}
+
+/// The camera as served.
+pub fn camera_view(row: &CameraRow) -> ApiResult<CameraView> {
+    let doc = parse_doc(row)?;
+    Ok(CameraView {
+        camera_info: doc
+            .intrinsics()
+            .map(|i| camera_info_view(&i, doc.width, doc.height)),
+        created_at: rfc3339(row.created_at),
+        height: doc.height,
+        id: row.id.clone(),
+        intrinsics: doc.intrinsics,
+        name: doc.name,
+        no_go_zones: doc.no_go_zones,
+        pose_in_base: doc.pose_in_base,
+        safe_zone: doc.safe_zone,
+        width: doc.width,
+        work_plane: doc.work_plane,
     })
 }
 
+/// The camera as served, as a value (for pages and bundles).
+pub fn camera_json(row: &CameraRow) -> ApiResult<Value> {
+    serde_json::to_value(camera_view(row)?).map_err(|e| ApiError::Internal(e.to_string()))
+}
+
+/// Intrinsics as the fields of a ROS CameraInfo message.
+pub fn camera_info_view(i: &Intrinsics, width: u32, height: u32) -> CameraInfoView {
+    let ci = i.to_camera_info(width, height);
+    CameraInfoView {
+        d: ci.d,
+        k: ci.k,
+        p: ci.p,
+        r: ci.r,
+        distortion_model: ci.distortion_model,
+        height: ci.height,
+        width: ci.width,
+    }
+}
+
 /// Query of `GET /api/cameras/{id}/intrinsics`.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct ResizeQuery {
+    /// Width of the resized frames (default: the camera's).
+    #[schemars(range(min = 1, max = 16384))]
     width: Option<u32>,
+    /// Height of the resized frames (default: the camera's).
+    #[schemars(range(min = 1, max = 16384))]
     height: Option<u32>,
+}
+
+/// Body of `GET /api/cameras/{id}/intrinsics`.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Serialize, JsonSchema)]
+pub struct ResizedIntrinsics {
+    /// The intrinsics as ROS CameraInfo fields.
+    pub camera_info: CameraInfoView,
+    /// The resized height.
+    pub height: u32,
+    /// The intrinsics in goalsmith's form.
+    pub intrinsics: IntrinsicsDoc,
+    /// The resized width.
+    pub width: u32,
 }
 
 /// `GET /api/cameras/{id}/intrinsics[?width=w&height=h]`: the intrinsics for frames resized to
@@ -271,7 +383,7 @@ pub async fn intrinsics(
     who: Principal,
     Path(id): Path<String>,
     query: Result<axum::extract::Query<ResizeQuery>, axum::extract::rejection::QueryRejection>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<ResizedIntrinsics>> {
     let axum::extract::Query(q) =
         query.map_err(|e| ApiError::invalid_body("bad_query", e.body_text()))?;
     let row = load(&state, &who, &id).await?;
@@ -293,18 +405,18 @@ pub async fn intrinsics(
             f64::from(h) / f64::from(doc.height),
         )
         .map_err(|e| ApiError::invalid("bad_size", "width", e.to_string()))?;
-    Ok(Json(serde_json::json!({
-        "width": w,
-        "height": h,
-        "intrinsics": IntrinsicsDoc {
-            fx: scaled.fx(),
-            fy: scaled.fy(),
+    Ok(Json(ResizedIntrinsics {
+        camera_info: camera_info_view(&scaled, w, h),
+        height: h,
+        intrinsics: IntrinsicsDoc {
             cx: scaled.cx(),
             cy: scaled.cy(),
             distortion: scaled.distortion(),
+            fx: scaled.fx(),
+            fy: scaled.fy(),
         },
-        "camera_info": camera_info_json(&scaled, w, h),
-    })))
+        width: w,
+    }))
 }
 
 /// Parses a stored camera document.
@@ -333,19 +445,22 @@ pub async fn create(
     State(state): State<AppState>,
     who: Principal,
     JsonBody(input): JsonBody<CameraInput>,
-) -> ApiResult<(StatusCode, Json<Value>)> {
+) -> ApiResult<(StatusCode, Json<CameraView>)> {
     who.require(Role::Editor)?;
     let doc = check_camera(input)?;
     let row = insert(&state.store, &who.team_id, &doc).await?;
-    Ok((StatusCode::CREATED, Json(camera_json(&row)?)))
+    Ok((StatusCode::CREATED, Json(camera_view(&row)?)))
 }
 
 /// `GET /api/cameras`.
-pub async fn list(State(state): State<AppState>, who: Principal) -> ApiResult<Json<Value>> {
+pub async fn list(
+    State(state): State<AppState>,
+    who: Principal,
+) -> ApiResult<Json<Items<CameraView>>> {
     let rows = store::cameras::list(state.store.pool(), &who.team_id).await?;
     let out = rows
         .iter()
-        .map(camera_json)
+        .map(camera_view)
         .collect::<ApiResult<Vec<_>>>()?;
     Ok(items(out))
 }
@@ -355,9 +470,9 @@ pub async fn get_one(
     State(state): State<AppState>,
     who: Principal,
     Path(id): Path<String>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<CameraView>> {
     let row = load(&state, &who, &id).await?;
-    Ok(Json(camera_json(&row)?))
+    Ok(Json(camera_view(&row)?))
 }
 
 /// A team's camera or 404.

@@ -2,7 +2,43 @@
 
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use serde_json::json;
+use schemars::JsonSchema;
+use serde::Serialize;
+
+/// The body of every error response.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Serialize, JsonSchema)]
+#[schemars(rename = "Error")]
+pub struct ErrorBody {
+    /// What went wrong.
+    pub error: ErrorDetail,
+}
+
+/// The `error` of an [`ErrorBody`].
+#[derive(Debug, Serialize, JsonSchema)]
+pub struct ErrorDetail {
+    /// snake_case code, stable for programs.
+    pub code: &'static str,
+    /// JSON path of the offending field (`terms[2].target`), where one applies.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub field: Option<String>,
+    /// For a person.
+    pub message: String,
+}
+
+impl ErrorBody {
+    /// An error without a field.
+    pub fn new(code: &'static str, message: impl Into<String>) -> Self {
+        ErrorBody {
+            error: ErrorDetail {
+                code,
+                field: None,
+                message: message.into(),
+            },
+        }
+    }
+}
 
 /// Every way a request can fail, in the words of the API contract.
 #[derive(Debug, thiserror::Error)]
@@ -152,11 +188,14 @@ impl IntoResponse for ApiError {
             }
             other => other.to_string(),
         };
-        let mut error = json!({ "code": self.code(), "message": message });
-        if let Some(f) = self.field() {
-            error["field"] = json!(f);
-        }
-        let mut resp = (status, axum::Json(json!({ "error": error }))).into_response();
+        let body = ErrorBody {
+            error: ErrorDetail {
+                code: self.code(),
+                field: self.field().map(str::to_string),
+                message,
+            },
+        };
+        let mut resp = (status, axum::Json(body)).into_response();
         if status == StatusCode::UNAUTHORIZED {
             resp.headers_mut()
                 .insert(header::WWW_AUTHENTICATE, HeaderValue::from_static("Bearer"));

@@ -15,8 +15,9 @@ use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use goalsmith_core::cost::CostModel;
 use goalsmith_core::goal::GoalSpec;
-use serde::Deserialize;
-use serde_json::{Value, json};
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
+use serde_json::Value;
 use sha2::{Digest, Sha256};
 
 impl From<ScoreError> for ApiError {
@@ -249,10 +250,16 @@ pub fn binary_with_etag(
 }
 
 /// Query of `cost-maps.npy`.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct MapSize {
+    // Strings, parsed in `parse_side`, so a bad number is a 422 naming the field rather than
+    // the query extractor's rejection; the schema says what that parser takes.
+    /// Map width (with `height`; both default to the frame's size).
+    #[schemars(with = "Option<u32>", range(min = 1, max = 8192))]
     width: Option<String>,
+    /// Map height (with `width`).
+    #[schemars(with = "Option<u32>", range(min = 1, max = 8192))]
     height: Option<String>,
 }
 
@@ -316,7 +323,7 @@ pub async fn cost(
     who: Principal,
     Path((id, n)): Path<(String, String)>,
     req: Request,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<scoring::CostResponse>> {
     let content_type = media_type(&req).unwrap_or_default();
     if !matches!(
         content_type.as_str(),
@@ -334,7 +341,7 @@ pub async fn cost(
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
-    Ok(Json(scoring::result_json(&result)))
+    Ok(Json(scoring::cost_response(&result)))
 }
 
 /// `GET /api/goals/{id}/revisions/{n}/overlay.png`.
@@ -398,12 +405,87 @@ pub async fn bundle(
 }
 
 /// Body of `POST …/outcomes`.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct OutcomeInput {
+    /// Where each source point ended, `[x, y]` in pixels, in cost-map order (P entries).
     final_points: Vec<[f64; 2]>,
+    /// At most 2000 characters.
     #[serde(default)]
     note: Option<String>,
+}
+
+/// An outcome as recorded.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct OutcomeView {
+    /// Who reported it.
+    pub author: String,
+    /// The goal's cost of the final positions.
+    pub cost: f64,
+    /// When it was reported, RFC 3339 UTC.
+    pub created_at: String,
+    /// The final positions as reported.
+    // Kept as the stored JSON text parses (null if it ever did not), not re-typed on the way out.
+    #[schemars(with = "Vec<[f64; 2]>")]
+    pub final_points: Value,
+    /// The goal.
+    pub goal_id: String,
+    /// Outcome id.
+    pub id: String,
+    /// Mean residual over the points, pixels.
+    pub mean_residual_px: f64,
+    /// The reporter's note ("" when none).
+    pub note: String,
+    /// Per point, in cost-map order.
+    #[schemars(with = "Vec<scoring::OutcomePoint>")]
+    pub per_point: Value,
+    /// The revision tried.
+    pub revision: i64,
+    /// Every point ended within its tolerance.
+    pub success: bool,
+}
+
+/// Body of `GET /api/goals/{id}/outcomes`.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct OutcomesView {
+    /// The ETag of the goal's latest revision.
+    pub latest_etag: String,
+    /// The goal's latest revision number.
+    pub latest_revision: i64,
+    /// Every outcome of the goal, over all revisions.
+    pub outcomes: Vec<OutcomeView>,
+    /// Counts over those outcomes.
+    pub summary: OutcomeSummary,
+}
+
+/// The `summary` of [`OutcomesView`].
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct OutcomeSummary {
+    /// Trials and successes per revision, by revision number.
+    pub by_revision: Vec<RevisionTally>,
+    /// Mean of the outcomes' mean residuals, pixels; null before the first trial.
+    pub mean_residual_px: Option<f64>,
+    /// successes / trials; null before the first trial.
+    pub success_rate: Option<f64>,
+    /// Outcomes that succeeded.
+    pub successes: usize,
+    /// Outcomes reported.
+    pub trials: usize,
+}
+
+/// Trials of one revision.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct RevisionTally {
+    /// The revision.
+    pub revision: i64,
+    /// Its outcomes that succeeded.
+    pub successes: usize,
+    /// Its outcomes.
+    pub trials: usize,
 }
 
 /// `POST /api/goals/{id}/revisions/{n}/outcomes` → 201 with success, residuals and cost.
@@ -412,7 +494,7 @@ pub async fn report_outcome(
     who: Principal,
     Path((id, n)): Path<(String, String)>,
     JsonBody(input): JsonBody<OutcomeInput>,
-) -> ApiResult<(StatusCode, Json<Value>)> {
+) -> ApiResult<(StatusCode, Json<OutcomeView>)> {
     who.require(Role::Editor)?;
     let note = input.note.unwrap_or_default();
     if note.chars().count() > 2000 {
@@ -430,32 +512,33 @@ pub async fn report_outcome(
         revision: l.row.revision,
         final_points: serde_json::to_string(&input.final_points)
             .map_err(|e| ApiError::Internal(e.to_string()))?,
-        per_point: result["per_point"].to_string(),
-        success: result["success"].as_bool().unwrap_or(false),
-        cost: result["cost"].as_f64().unwrap_or(f64::NAN),
-        mean_residual_px: result["mean_residual_px"].as_f64().unwrap_or(f64::NAN),
+        per_point: serde_json::to_string(&result.per_point)
+            .map_err(|e| ApiError::Internal(e.to_string()))?,
+        success: result.success,
+        cost: result.cost,
+        mean_residual_px: result.mean_residual_px,
         note,
         author: who.author.clone(),
         created_at: store::now_ms(),
     };
     store::outcomes::insert(state.store.pool(), &who.team_id, &row).await?;
-    Ok((StatusCode::CREATED, Json(outcome_json(&row))))
+    Ok((StatusCode::CREATED, Json(outcome_view(&row))))
 }
 
-fn outcome_json(o: &store::outcomes::OutcomeRow) -> Value {
-    json!({
-        "id": o.id,
-        "goal_id": o.goal_id,
-        "revision": o.revision,
-        "success": o.success,
-        "per_point": serde_json::from_str::<Value>(&o.per_point).unwrap_or(Value::Null),
-        "final_points": serde_json::from_str::<Value>(&o.final_points).unwrap_or(Value::Null),
-        "cost": o.cost,
-        "mean_residual_px": o.mean_residual_px,
-        "note": o.note,
-        "author": o.author,
-        "created_at": rfc3339(o.created_at),
-    })
+fn outcome_view(o: &store::outcomes::OutcomeRow) -> OutcomeView {
+    OutcomeView {
+        author: o.author.clone(),
+        cost: o.cost,
+        created_at: rfc3339(o.created_at),
+        final_points: serde_json::from_str::<Value>(&o.final_points).unwrap_or(Value::Null),
+        goal_id: o.goal_id.clone(),
+        id: o.id.clone(),
+        mean_residual_px: o.mean_residual_px,
+        note: o.note.clone(),
+        per_point: serde_json::from_str::<Value>(&o.per_point).unwrap_or(Value::Null),
+        revision: o.revision,
+        success: o.success,
+    }
 }
 
 /// `GET /api/goals/{id}/outcomes` → every outcome and a success summary.
@@ -463,32 +546,36 @@ pub async fn outcomes(
     State(state): State<AppState>,
     who: Principal,
     Path(id): Path<String>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<OutcomesView>> {
     let latest = load_revision(&state, &who, &id, None).await?;
     let rows = store::outcomes::list(state.store.pool(), &who.team_id, &latest.goal_id).await?;
     let trials = rows.len();
     let successes = rows.iter().filter(|o| o.success).count();
-    let mean = if trials == 0 {
-        Value::Null
-    } else {
-        json!(rows.iter().map(|o| o.mean_residual_px).sum::<f64>() / trials as f64)
-    };
+    let mean =
+        (trials > 0).then(|| rows.iter().map(|o| o.mean_residual_px).sum::<f64>() / trials as f64);
     let mut per_revision = std::collections::BTreeMap::<i64, (usize, usize)>::new();
     for o in &rows {
         let e = per_revision.entry(o.revision).or_default();
         e.0 += 1;
         e.1 += usize::from(o.success);
     }
-    Ok(Json(json!({
-        "outcomes": rows.iter().map(outcome_json).collect::<Vec<_>>(),
-        "summary": {
-            "trials": trials,
-            "successes": successes,
-            "success_rate": if trials == 0 { Value::Null } else { json!(successes as f64 / trials as f64) },
-            "mean_residual_px": mean,
-            "by_revision": per_revision.iter().map(|(r, (t, s))| json!({"revision": r, "trials": t, "successes": s})).collect::<Vec<_>>(),
+    Ok(Json(OutcomesView {
+        latest_etag: etag_of(&latest.document),
+        latest_revision: latest.revision,
+        outcomes: rows.iter().map(outcome_view).collect(),
+        summary: OutcomeSummary {
+            by_revision: per_revision
+                .iter()
+                .map(|(r, (t, s))| RevisionTally {
+                    revision: *r,
+                    successes: *s,
+                    trials: *t,
+                })
+                .collect(),
+            mean_residual_px: mean,
+            success_rate: (trials > 0).then(|| successes as f64 / trials as f64),
+            successes,
+            trials,
         },
-        "latest_revision": latest.revision,
-        "latest_etag": etag_of(&latest.document),
-    })))
+    }))
 }

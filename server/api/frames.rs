@@ -3,26 +3,52 @@
 use super::auth::{Principal, Role};
 use super::error::{ApiError, ApiResult};
 use super::extract::{media_type, read_body};
-use super::{AppState, cameras, items, parse_id, rfc3339};
+use super::{AppState, Items, cameras, items, parse_id, rfc3339};
 use crate::images::{self, ImageRejection};
 use crate::store::{self, frames::FrameRow};
 use axum::Json;
 use axum::extract::{Path, Request, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use serde_json::{Value, json};
+use schemars::JsonSchema;
+use serde::Serialize;
+use serde_json::Value;
 use sha2::{Digest, Sha256};
 
+/// A frame's metadata as served.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct FrameView {
+    /// The camera it was taken by.
+    pub camera_id: String,
+    /// Upload time, RFC 3339 UTC.
+    pub created_at: String,
+    /// Height in pixels (the camera's).
+    pub height: i64,
+    /// Frame id.
+    pub id: String,
+    /// SHA-256 of the image bytes, lowercase hex.
+    pub sha256: String,
+    /// Width in pixels (the camera's).
+    pub width: i64,
+}
+
 /// The frame as served.
+pub fn frame_view(f: &FrameRow) -> FrameView {
+    FrameView {
+        camera_id: f.camera_id.clone(),
+        created_at: rfc3339(f.created_at),
+        height: f.height,
+        id: f.id.clone(),
+        sha256: f.sha256.clone(),
+        width: f.width,
+    }
+}
+
+/// The frame as served, as a value (for pages).
 pub fn frame_json(f: &FrameRow) -> Value {
-    json!({
-        "id": f.id,
-        "camera_id": f.camera_id,
-        "sha256": f.sha256,
-        "width": f.width,
-        "height": f.height,
-        "created_at": rfc3339(f.created_at),
-    })
+    serde_json::to_value(frame_view(f)).unwrap_or(Value::Null)
 }
 
 /// Checks an uploaded image against a camera's size and stores it; returns the frame and
@@ -100,7 +126,7 @@ pub async fn upload(
     who: Principal,
     Path(id): Path<String>,
     req: Request,
-) -> ApiResult<(StatusCode, Json<Value>)> {
+) -> ApiResult<(StatusCode, Json<FrameView>)> {
     who.require(Role::Editor)?;
     let camera = cameras::load(&state, &who, &id).await?;
     let content_type = media_type(&req).unwrap_or_default();
@@ -124,7 +150,7 @@ pub async fn upload(
     } else {
         StatusCode::OK
     };
-    Ok((status, Json(frame_json(&frame))))
+    Ok((status, Json(frame_view(&frame))))
 }
 
 /// `GET /api/cameras/{id}/frames`.
@@ -132,10 +158,10 @@ pub async fn list_for_camera(
     State(state): State<AppState>,
     who: Principal,
     Path(id): Path<String>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<Items<FrameView>>> {
     let camera = cameras::load(&state, &who, &id).await?;
     let rows = store::frames::list(state.store.pool(), &who.team_id, Some(&camera.id)).await?;
-    Ok(items(rows.iter().map(frame_json).collect()))
+    Ok(items(rows.iter().map(frame_view).collect()))
 }
 
 /// A team's frame or 404.
@@ -151,8 +177,8 @@ pub async fn get_one(
     State(state): State<AppState>,
     who: Principal,
     Path(id): Path<String>,
-) -> ApiResult<Json<Value>> {
-    Ok(Json(frame_json(&load(&state, &who, &id).await?)))
+) -> ApiResult<Json<FrameView>> {
+    Ok(Json(frame_view(&load(&state, &who, &id).await?)))
 }
 
 /// `GET /api/frames/{id}/image`: the stored bytes, immutable, with the SHA-256 as strong ETag.

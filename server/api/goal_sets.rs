@@ -5,32 +5,74 @@ use super::error::{ApiError, ApiResult};
 use super::export;
 use super::extract::JsonBody;
 use super::goals::{canonical_json, etag_of, if_match, if_none_match, load_revision};
-use super::{AppState, items, parse_id, rfc3339};
+use super::{AppState, Items, items, parse_id, rfc3339};
 use crate::scoring;
 use crate::store::{self, goal_sets::GoalSetRow};
 use axum::extract::{Path, State};
 use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use goalsmith_core::names::{self, NameKind};
-use serde::Deserialize;
-use serde_json::{Value, json};
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
+use serde_json::Value;
 
 /// Most items in one set.
 pub const MAX_ITEMS: usize = 500;
 
 /// Body of `POST /api/goal-sets` and `PUT /api/goal-sets/{id}`.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct GoalSetInput {
+    /// Name, 1 to 200 characters.
     name: String,
+    /// 1 to 500 pinned revisions, in the set's order.
     items: Vec<ItemInput>,
 }
 
-#[derive(Debug, Deserialize)]
+/// One pinned revision of a [`GoalSetInput`].
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 struct ItemInput {
+    /// A goal of the team.
     goal_id: String,
+    /// One of its revisions, from 1.
     revision: i64,
+}
+
+/// A goal set as stored and served. Stored as its canonical bytes (sorted keys, see
+/// [`canonical_json`]), which are served as they are and hashed into the ETag; this struct is
+/// what those bytes are made from and parsed back into for the list.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct GoalSetDocument {
+    /// Who saved this version.
+    pub author: String,
+    /// When version 1 was saved, RFC 3339 UTC.
+    pub created_at: String,
+    /// The set's id.
+    pub id: String,
+    /// The pinned revisions, in order.
+    pub items: Vec<GoalSetItem>,
+    /// Name.
+    pub name: String,
+    /// When this version was saved, RFC 3339 UTC.
+    pub updated_at: String,
+    /// Version, from 1; every save adds one.
+    pub version: i64,
+}
+
+/// One pinned revision of a [`GoalSetDocument`].
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct GoalSetItem {
+    /// The goal.
+    pub goal_id: String,
+    /// The goal's name at that revision.
+    pub name: String,
+    /// The pinned revision.
+    pub revision: i64,
+    /// That revision's `sha256`.
+    pub sha256: String,
 }
 
 /// Checks the body: a name, 1..=500 items, each an existing revision of a team goal.
@@ -38,7 +80,7 @@ async fn check(
     state: &AppState,
     who: &Principal,
     input: GoalSetInput,
-) -> ApiResult<(String, Vec<Value>)> {
+) -> ApiResult<(String, Vec<GoalSetItem>)> {
     let name = names::check(NameKind::GoalSet, &input.name)
         .map_err(|e| ApiError::invalid(e.code(), "name", e.to_string()))?;
     if input.items.is_empty() || input.items.len() > MAX_ITEMS {
@@ -69,7 +111,12 @@ async fn check(
             }
             Err(e) => return Err(e),
         };
-        out.push(json!({"goal_id": rev.goal_id, "revision": rev.revision, "name": rev.name, "sha256": rev.sha256}));
+        out.push(GoalSetItem {
+            goal_id: rev.goal_id,
+            name: rev.name,
+            revision: rev.revision,
+            sha256: rev.sha256,
+        });
     }
     Ok((name, out))
 }
@@ -78,20 +125,22 @@ fn document(
     id: &str,
     name: &str,
     version: i64,
-    items: &[Value],
+    items: Vec<GoalSetItem>,
     author: &str,
     created: i64,
     updated: i64,
-) -> String {
-    canonical_json(&json!({
-        "id": id,
-        "name": name,
-        "version": version,
-        "items": items,
-        "author": author,
-        "created_at": rfc3339(created),
-        "updated_at": rfc3339(updated),
-    }))
+) -> ApiResult<String> {
+    let doc = GoalSetDocument {
+        author: author.to_string(),
+        created_at: rfc3339(created),
+        id: id.to_string(),
+        items,
+        name: name.to_string(),
+        updated_at: rfc3339(updated),
+        version,
+    };
+    let value = serde_json::to_value(&doc).map_err(|e| ApiError::Internal(e.to_string()))?;
+    Ok(canonical_json(&value))
 }
 
 fn respond(status: StatusCode, row: &GoalSetRow) -> Response {
@@ -128,7 +177,7 @@ pub async fn create(
     let id = uuid::Uuid::new_v4().to_string();
     let now = store::now_ms();
     let row = GoalSetRow {
-        document: document(&id, &name, 1, &items, &who.author, now, now),
+        document: document(&id, &name, 1, items, &who.author, now, now)?,
         id,
         name,
         version: 1,
@@ -140,13 +189,16 @@ pub async fn create(
 }
 
 /// `GET /api/goal-sets`.
-pub async fn list(State(state): State<AppState>, who: Principal) -> ApiResult<axum::Json<Value>> {
+pub async fn list(
+    State(state): State<AppState>,
+    who: Principal,
+) -> ApiResult<axum::Json<Items<GoalSetDocument>>> {
     let rows = store::goal_sets::list(state.store.pool(), &who.team_id).await?;
     let docs = rows
         .iter()
         .map(|r| {
-            serde_json::from_str::<Value>(&r.document)
-                .map_err(|e| ApiError::Internal(e.to_string()))
+            serde_json::from_str::<GoalSetDocument>(&r.document)
+                .map_err(|e| ApiError::Internal(format!("goal set {} unreadable: {e}", r.id)))
         })
         .collect::<ApiResult<Vec<_>>>()?;
     Ok(items(docs))
@@ -191,11 +243,11 @@ pub async fn update(
             &current.id,
             &name,
             current.version + 1,
-            &items,
+            items,
             &who.author,
             current.created_at,
             now,
-        ),
+        )?,
         name,
         version: current.version + 1,
         created_at: current.created_at,
@@ -254,4 +306,37 @@ pub async fn bundle(
         &headers,
         etag,
     ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The stored bytes are the set's identity (its ETag): built from the struct they must be
+    /// the bytes the hand-built value gave before the struct existed.
+    #[test]
+    fn stored_bytes_do_not_change() {
+        let items = vec![GoalSetItem {
+            goal_id: "g1".into(),
+            name: "pot \"one\"".into(),
+            revision: 2,
+            sha256: "ab".into(),
+        }];
+        let doc = document(
+            "s1",
+            "morning",
+            3,
+            items,
+            "editor token",
+            0,
+            1_700_000_000_123,
+        )
+        .expect("document");
+        assert_eq!(
+            doc,
+            r#"{"author":"editor token","created_at":"1970-01-01T00:00:00.000Z","id":"s1","items":[{"goal_id":"g1","name":"pot \"one\"","revision":2,"sha256":"ab"}],"name":"morning","updated_at":"2023-11-14T22:13:20.123Z","version":3}"#
+        );
+        let back: GoalSetDocument = serde_json::from_str(&doc).expect("parses back");
+        assert_eq!(back.version, 3);
+    }
 }

@@ -4,7 +4,7 @@ use super::auth::{Principal, Role};
 use super::cameras::{self, CameraDoc};
 use super::error::{ApiError, ApiResult};
 use super::extract::JsonBody;
-use super::{AppState, frames, items, parse_id, rfc3339};
+use super::{AppState, Items, frames, items, parse_id, rfc3339};
 use crate::images;
 use crate::store::{self, goals::RevisionRow};
 use axum::extract::{Path, State};
@@ -12,8 +12,11 @@ use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use goalsmith_core::geometry::Polygon;
 use goalsmith_core::goal::{
-    CheckContext, GoalDocument, GoalSpec, Term, check_zone, polygon_centroid,
+    CheckContext, CostDocument, GoalDocument, GoalSpec, Term, TermDocument, check_zone,
+    polygon_centroid,
 };
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use sha2::{Digest, Sha256};
 
@@ -176,63 +179,173 @@ fn target_pixels(term: &Term) -> Vec<(String, [f64; 2])> {
     }
 }
 
+/// A revision document as served. The server does not serialise this struct: a revision is
+/// stored, hashed and served as the exact canonical bytes [`build_revision`] wrote. It describes
+/// those bytes for the OpenAPI document, and a test parses a built revision into it (unknown
+/// fields refused) and back to the same value, so the two cannot drift.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct RevisionDocument {
+    /// Who saved it (a person's name or a token's label).
+    pub author: String,
+    /// The cost settings, defaults filled in.
+    pub cost: CostDocument,
+    /// When it was saved, RFC 3339 UTC.
+    pub created_at: String,
+    /// What the server derived from the goal when it was saved.
+    pub derived: Derived,
+    /// The frame the goal is drawn on.
+    pub frame_id: String,
+    /// The goal's id.
+    pub goal_id: String,
+    /// The goal's name, trimmed.
+    pub name: String,
+    /// Why this revision was made ("" when no note was given).
+    pub note: String,
+    /// Whether the safety zones were overridden (recorded in `derived.warnings`).
+    pub override_safety: bool,
+    /// Revision number, from 1.
+    pub revision: i64,
+    /// SHA-256 of the canonical specification (name, frame, terms, cost, override flag): the same
+    /// goal saved twice has the same `sha256` (but a new ETag).
+    pub sha256: String,
+    /// The terms, weights and tolerances filled in; cost maps follow this order.
+    pub terms: Vec<TermDocument>,
+}
+
+/// The `derived` section of a revision: source points in cost-map order, rigid fits, 3-D
+/// targets and warnings.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct Derived {
+    /// Every source point over all terms, in cost-map order (P entries).
+    pub points: Vec<DerivedPoint>,
+    /// The fitted transform of each rigid term.
+    pub rigid: Vec<DerivedRigid>,
+    /// Target pixels on the camera's work plane; absent unless the camera has intrinsics and a
+    /// work plane.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub targets_3d: Option<Vec<Target3d>>,
+    /// Why the goal would have been refused without `override_safety`.
+    pub warnings: Vec<String>,
+}
+
+/// One source point of [`Derived`].
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct DerivedPoint {
+    /// Its index p in the cost maps.
+    pub index: usize,
+    /// Its term's kind.
+    pub kind: String,
+    /// The source pixel `[x, y]`.
+    pub source: [f64; 2],
+    /// Index of its term.
+    pub term: usize,
+    /// Success radius, pixels.
+    pub tolerance_px: f64,
+    /// Its share of the term's weight.
+    pub weight: f64,
+}
+
+/// The fit of one rigid term: target ≈ scale · rotation · source + translation.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct DerivedRigid {
+    /// |fitted(source_i) − target_i| per point, pixels.
+    pub residuals_px: Vec<f64>,
+    /// Root mean square of the residuals, pixels.
+    pub rms_px: f64,
+    /// 2×2 rotation, row-major.
+    pub rotation: [[f64; 2]; 2],
+    /// The rotation's angle in image coordinates (x right, y down), degrees.
+    pub rotation_deg: f64,
+    /// Scale factor (1 unless the term allows scale).
+    pub scale: f64,
+    /// Index of the term.
+    pub term: usize,
+    /// Translation, pixels.
+    pub translation: [f64; 2],
+}
+
+/// A target pixel on the work plane.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct Target3d {
+    /// The point in the robot base frame, metres; absent without a camera pose.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub base_m: Option<[f64; 3]>,
+    /// The point in camera coordinates, metres.
+    pub camera_m: [f64; 3],
+    /// The target pixel.
+    pub pixel: [f64; 2],
+    /// Which point of the term: `target`, `targets[k]` or `centroid`.
+    pub point: String,
+    /// Index of the term.
+    pub term: usize,
+}
+
 /// The `derived` section: source points in cost-map order, rigid fits, 3-D targets, warnings.
-pub fn derived(spec: &GoalSpec, camera: &CameraDoc) -> Value {
-    let points: Vec<Value> = spec
+pub fn derived(spec: &GoalSpec, camera: &CameraDoc) -> Derived {
+    let points = spec
         .source_points()
         .iter()
         .enumerate()
-        .map(|(p, s)| {
-            json!({
-                "index": p,
-                "term": s.term,
-                "kind": spec.terms()[s.term].term_kind(),
-                "source": s.source.to_array(),
-                "weight": s.weight,
-                "tolerance_px": s.tolerance_px,
-            })
+        .map(|(p, s)| DerivedPoint {
+            index: p,
+            kind: spec.terms()[s.term].term_kind().to_string(),
+            source: s.source.to_array(),
+            term: s.term,
+            tolerance_px: s.tolerance_px,
+            weight: s.weight,
         })
         .collect();
-    let rigid: Vec<Value> = spec
+    let rigid = spec
         .terms()
         .iter()
         .enumerate()
         .filter_map(|(i, t)| match &t.term {
-            Term::Rigid { fit, .. } => Some(json!({
-                "term": i,
-                "rotation_deg": fit.rotation_deg(),
-                "scale": fit.scale,
-                "translation": fit.translation,
-                "rotation": fit.rotation,
-                "rms_px": fit.rms,
-                "residuals_px": fit.residuals,
-            })),
+            Term::Rigid { fit, .. } => Some(DerivedRigid {
+                residuals_px: fit.residuals.clone(),
+                rms_px: fit.rms,
+                rotation: fit.rotation,
+                rotation_deg: fit.rotation_deg(),
+                scale: fit.scale,
+                term: i,
+                translation: fit.translation,
+            }),
             _ => None,
         })
         .collect();
-    let mut out = json!({
-        "points": points,
-        "rigid": rigid,
-        "warnings": spec.warnings(),
-    });
-    if let (Some(intr), Some(plane)) = (camera.intrinsics(), camera.work_plane()) {
-        let pose = camera.pose();
-        let mut targets = Vec::new();
-        for (i, t) in spec.terms().iter().enumerate() {
-            for (which, px) in target_pixels(&t.term) {
-                let Some(cam) = goalsmith_core::camera::pixel_to_plane(&intr, &plane, px) else {
-                    continue;
-                };
-                let mut v = json!({"term": i, "point": which, "pixel": px, "camera_m": cam});
-                if let Some(pose) = &pose {
-                    v["base_m"] = json!(pose.camera_to_base(cam));
+    let targets_3d = match (camera.intrinsics(), camera.work_plane()) {
+        (Some(intr), Some(plane)) => {
+            let pose = camera.pose();
+            let mut targets = Vec::new();
+            for (i, t) in spec.terms().iter().enumerate() {
+                for (which, px) in target_pixels(&t.term) {
+                    let Some(cam) = goalsmith_core::camera::pixel_to_plane(&intr, &plane, px)
+                    else {
+                        continue;
+                    };
+                    targets.push(Target3d {
+                        base_m: pose.as_ref().map(|p| p.camera_to_base(cam)),
+                        camera_m: cam,
+                        pixel: px,
+                        point: which,
+                        term: i,
+                    });
                 }
-                targets.push(v);
             }
+            Some(targets)
         }
-        out["targets_3d"] = Value::Array(targets);
+        _ => None,
+    };
+    Derived {
+        points,
+        rigid,
+        targets_3d,
+        warnings: spec.warnings().to_vec(),
     }
-    out
 }
 
 /// Builds the stored row (and so the served document) of a checked revision.
@@ -266,7 +379,7 @@ pub fn build_revision(
     m.insert("author".into(), json!(author));
     m.insert("created_at".into(), json!(rfc3339(created_at)));
     m.insert("sha256".into(), json!(sha256));
-    m.insert("derived".into(), derived(spec, camera));
+    m.insert("derived".into(), to_value(&derived(spec, camera))?);
     Ok(RevisionRow {
         goal_id: goal_id.to_string(),
         revision,
@@ -414,12 +527,62 @@ fn conditional(headers: &HeaderMap, rev: &RevisionRow) -> ApiResult<Response> {
     Ok(revision_response(StatusCode::OK, rev))
 }
 
+/// One entry of `GET /api/goals/{id}/revisions`.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct RevisionSummary {
+    /// Who saved it.
+    pub author: String,
+    /// When, RFC 3339 UTC.
+    pub created_at: String,
+    /// The revision's strong ETag (quoted), for `If-Match`.
+    pub etag: String,
+    /// Its frame.
+    pub frame_id: String,
+    /// The goal's id.
+    pub goal_id: String,
+    /// The goal's name at this revision.
+    pub name: String,
+    /// Why it was made.
+    pub note: String,
+    /// Whether the safety zones were overridden.
+    pub override_safety: bool,
+    /// Revision number.
+    pub revision: i64,
+    /// SHA-256 of its canonical specification.
+    pub sha256: String,
+}
+
+/// One entry of `GET /api/goals`.
+// Fields in alphabetical order: the key order of these bodies when they were built as a
+// `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct GoalListItem {
+    /// Author of the latest revision.
+    pub author: String,
+    /// When revision 1 was saved, RFC 3339 UTC.
+    pub created_at: String,
+    /// Frame of the latest revision.
+    pub frame_id: String,
+    /// The goal's id.
+    pub id: String,
+    /// Latest name.
+    pub name: String,
+    /// Latest revision number.
+    pub revision: i64,
+    /// SHA-256 of the latest specification.
+    pub sha256: String,
+    /// When the latest revision was saved, RFC 3339 UTC.
+    pub updated_at: String,
+}
+
 /// `GET /api/goals/{id}/revisions`: metadata of every revision, oldest first.
 pub async fn revisions(
     State(state): State<AppState>,
     who: Principal,
     Path(id): Path<String>,
-) -> ApiResult<axum::Json<Value>> {
+) -> ApiResult<axum::Json<Items<RevisionSummary>>> {
     let id = parse_id(&id, "goal")?;
     let rows = store::goals::list_revisions(state.store.pool(), &who.team_id, &id).await?;
     if rows.is_empty() {
@@ -427,41 +590,142 @@ pub async fn revisions(
     }
     Ok(items(
         rows.iter()
-            .map(|r| {
-                json!({
-                    "goal_id": r.goal_id,
-                    "revision": r.revision,
-                    "name": r.name,
-                    "frame_id": r.frame_id,
-                    "author": r.author,
-                    "note": r.note,
-                    "created_at": rfc3339(r.created_at),
-                    "sha256": r.sha256,
-                    "override_safety": r.override_safety,
-                    "etag": etag_of(&r.document),
-                })
+            .map(|r| RevisionSummary {
+                author: r.author.clone(),
+                created_at: rfc3339(r.created_at),
+                etag: etag_of(&r.document),
+                frame_id: r.frame_id.clone(),
+                goal_id: r.goal_id.clone(),
+                name: r.name.clone(),
+                note: r.note.clone(),
+                override_safety: r.override_safety,
+                revision: r.revision,
+                sha256: r.sha256.clone(),
             })
             .collect(),
     ))
 }
 
 /// `GET /api/goals`: the team's goals, most recently changed first.
-pub async fn list(State(state): State<AppState>, who: Principal) -> ApiResult<axum::Json<Value>> {
+pub async fn list(
+    State(state): State<AppState>,
+    who: Principal,
+) -> ApiResult<axum::Json<Items<GoalListItem>>> {
     let rows = store::goals::list(state.store.pool(), &who.team_id).await?;
     Ok(items(
         rows.iter()
-            .map(|g| {
-                json!({
-                    "id": g.id,
-                    "name": g.name,
-                    "frame_id": g.frame_id,
-                    "revision": g.revision,
-                    "author": g.author,
-                    "sha256": g.sha256,
-                    "created_at": rfc3339(g.created_at),
-                    "updated_at": rfc3339(g.updated_at),
-                })
+            .map(|g| GoalListItem {
+                author: g.author.clone(),
+                created_at: rfc3339(g.created_at),
+                frame_id: g.frame_id.clone(),
+                id: g.id.clone(),
+                name: g.name.clone(),
+                revision: g.revision,
+                sha256: g.sha256.clone(),
+                updated_at: rfc3339(g.updated_at),
             })
             .collect(),
     ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A calibrated, posed camera and a checked goal with point, region and rigid terms, one
+    /// target outside the safe zone (overridden, so the revision carries a warning).
+    fn fixture() -> (GoalSpec, CameraDoc) {
+        let camera: CameraDoc = serde_json::from_value(json!({
+            "name": "bench overhead", "width": 64, "height": 48,
+            "intrinsics": {"fx": 50.0, "fy": 50.0, "cx": 31.5, "cy": 23.5,
+                           "distortion": [0.01, -0.002, 0.0, 0.0, 0.0]},
+            "work_plane": {"normal": [0.0, 0.0, 1.0], "offset_m": 0.4},
+            "pose_in_base": {"rotation": [[1.0, 0.0, 0.0], [0.0, -1.0, 0.0], [0.0, 0.0, -1.0]],
+                             "translation_m": [0.4, 0.0, 0.9]},
+            "safe_zone": [[0.0, 0.0], [50.0, 0.0], [50.0, 47.0], [0.0, 47.0]],
+            "no_go_zones": []
+        }))
+        .expect("camera fixture");
+        let doc: GoalDocument = serde_json::from_value(json!({
+            "name": " pots onto the mat ", "frame_id": "f0a1b2c3-0000-4000-8000-000000000001",
+            "terms": [
+                {"kind": "point", "label": "small pot", "source": [10.0, 12.0], "target": [60.0, 30.0]},
+                {"kind": "region", "source": [20.0, 5.0], "polygon": [[30.0, 5.0], [45.0, 5.0], [45.0, 20.0], [30.0, 20.0]], "weight": 2.0},
+                {"kind": "rigid", "label": "tray", "sources": [[0.0, 0.0], [1.0, 0.0], [0.0, 2.0]], "targets": [[10.0, 10.0], [9.0, 10.0], [10.0, 12.0]], "allow_scale": true}
+            ],
+            "cost": {"metric": "huber", "huber_delta_px": 3.0, "steps": "all"},
+            "note": "first layout",
+            "override_safety": true
+        }))
+        .expect("goal fixture");
+        let safe = camera
+            .safe_zone
+            .as_ref()
+            .map(|z| check_zone(64, 48, z, "safe_zone").expect("safe zone"));
+        let no_masks = |_: &str| Err("no masks in this fixture".to_string());
+        let no_fits = |_: &str| false;
+        let spec = GoalSpec::check(
+            doc,
+            &CheckContext {
+                width: 64,
+                height: 48,
+                safe_zone: safe.as_ref(),
+                no_go_zones: &[],
+                decode_mask: &no_masks,
+                reward_fit_exists: &no_fits,
+            },
+        )
+        .expect("the fixture checks");
+        (spec, camera)
+    }
+
+    /// The stored bytes of a revision are its identity (sha256, ETag): building one from fixed
+    /// inputs must give the bytes it gave when this test was written.
+    #[test]
+    fn revision_bytes_do_not_change() {
+        let (spec, camera) = fixture();
+        assert!(!spec.warnings().is_empty(), "the fixture has a warning");
+        let row = build_revision(
+            "0b7e5c1a-0000-4000-8000-0000000000aa",
+            3,
+            &spec,
+            &camera,
+            "editor token",
+            1_700_000_000_123,
+        )
+        .expect("build");
+        assert_eq!(
+            hex::encode(Sha256::digest(row.document.as_bytes())),
+            "52b5486b859ad456c4b5df9454080978ccc619531edaff3134f659e0ef18641f",
+            "{}",
+            row.document
+        );
+    }
+
+    /// [`RevisionDocument`] describes the stored bytes exactly: a built revision parses into it
+    /// with unknown fields refused, and serialises back to the same value (nulls, absent fields
+    /// and number kinds included).
+    #[test]
+    fn revision_document_describes_the_stored_bytes() {
+        let (spec, mut camera) = fixture();
+        for with_pose in [true, false] {
+            if !with_pose {
+                // Without a pose `base_m` is absent; without a plane `targets_3d` is.
+                camera.pose_in_base = None;
+            }
+            let row = build_revision("g", 1, &spec, &camera, "a", 0).expect("build");
+            let stored: Value = serde_json::from_str(&row.document).expect("stored JSON");
+            let parsed: RevisionDocument =
+                serde_json::from_str(&row.document).expect("the documented shape");
+            assert_eq!(to_value(&parsed).expect("value"), stored);
+        }
+        camera.work_plane = None;
+        let row = build_revision("g", 1, &spec, &camera, "a", 0).expect("build");
+        let parsed: RevisionDocument = serde_json::from_str(&row.document).expect("shape");
+        assert!(parsed.derived.targets_3d.is_none());
+        assert_eq!(
+            to_value(&parsed).expect("value"),
+            serde_json::from_str::<Value>(&row.document).expect("stored JSON")
+        );
+    }
 }

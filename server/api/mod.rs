@@ -1,4 +1,4 @@
-//! The HTTP API of API.md: routes, extractors, auth and error mapping.
+//! The HTTP API: routes, extractors, auth and error mapping.
 //!
 //! Handlers parse into domain types at the boundary, authorise, call core and store, and shape
 //! the response. They hold no SQL and compute no geometry themselves.
@@ -12,14 +12,17 @@ pub mod frames;
 pub mod goal_sets;
 pub mod goals;
 pub mod openapi;
+pub mod routes;
 
 use crate::config::Limits;
 use crate::store::Store;
 use axum::extract::{DefaultBodyLimit, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
-use axum::routing::{get, post};
 use axum::{Json, Router};
+use schemars::JsonSchema;
+use serde::Serialize;
+use std::convert::Infallible;
 use std::sync::Arc;
 use tower_http::limit::RequestBodyLimitLayer;
 
@@ -34,106 +37,31 @@ pub struct AppState {
     pub models: Arc<export::ModelCache>,
 }
 
-/// Every API route with its methods, for the OpenAPI document and the authorisation tests.
-pub const ROUTES: &[(&str, &str)] = &[
-    ("GET", "/healthz"),
-    ("GET", "/api/openapi.json"),
-    ("GET", "/api/schema/goal.json"),
-    ("POST", "/api/cameras"),
-    ("GET", "/api/cameras"),
-    ("GET", "/api/cameras/{id}"),
-    ("GET", "/api/cameras/{id}/intrinsics"),
-    ("POST", "/api/cameras/{id}/frames"),
-    ("GET", "/api/cameras/{id}/frames"),
-    ("GET", "/api/frames/{id}"),
-    ("GET", "/api/frames/{id}/image"),
-    ("POST", "/api/goals"),
-    ("GET", "/api/goals"),
-    ("GET", "/api/goals/{id}"),
-    ("PUT", "/api/goals/{id}"),
-    ("GET", "/api/goals/{id}/revisions"),
-    ("GET", "/api/goals/{id}/revisions/{n}"),
-    ("GET", "/api/goals/{id}/revisions/{n}/cost-maps.npy"),
-    ("POST", "/api/goals/{id}/revisions/{n}/cost"),
-    ("GET", "/api/goals/{id}/revisions/{n}/overlay.png"),
-    ("GET", "/api/goals/{id}/revisions/{n}/bundle.zip"),
-    ("POST", "/api/goals/{id}/revisions/{n}/outcomes"),
-    ("GET", "/api/goals/{id}/outcomes"),
-    ("POST", "/api/goal-sets"),
-    ("GET", "/api/goal-sets"),
-    ("GET", "/api/goal-sets/{id}"),
-    ("PUT", "/api/goal-sets/{id}"),
-    ("GET", "/api/goal-sets/{id}/bundle.zip"),
-    ("POST", "/api/preview/cost-map.png"),
-];
-
-/// The API router; `app` adds pages, static files and the layers around everything.
+/// The API router, built from [`routes::table`]; `app` adds pages, static files and the layers
+/// around everything.
 pub fn router(state: AppState) -> Router<AppState> {
     let limits = state.limits.clone();
-    let json_limit = limits.json_body_bytes;
-    let frame_limit = limits.frame_upload_bytes;
-
-    let uploads = Router::new()
-        .route(
-            "/api/cameras/{id}/frames",
-            post(frames::upload).get(frames::list_for_camera),
-        )
-        .layer(DefaultBodyLimit::max(frame_limit))
-        .layer(RequestBodyLimitLayer::new(frame_limit));
-
-    let cost_limit = limits.cost_body_bytes;
-    let scoring = Router::new()
-        .route("/api/goals/{id}/revisions/{n}/cost", post(export::cost))
-        .layer(DefaultBodyLimit::max(cost_limit))
-        .layer(RequestBodyLimitLayer::new(cost_limit));
-
-    let json_routes = Router::new()
-        .route("/api/cameras", post(cameras::create).get(cameras::list))
-        .route("/api/cameras/{id}", get(cameras::get_one))
-        .route("/api/cameras/{id}/intrinsics", get(cameras::intrinsics))
-        .route("/api/frames/{id}", get(frames::get_one))
-        .route("/api/frames/{id}/image", get(frames::image))
-        .route("/api/goals", post(goals::create).get(goals::list))
-        .route("/api/goals/{id}", get(goals::latest).put(goals::update))
-        .route("/api/goals/{id}/revisions", get(goals::revisions))
-        .route("/api/goals/{id}/revisions/{n}", get(goals::revision))
-        .route(
-            "/api/goals/{id}/revisions/{n}/cost-maps.npy",
-            get(export::cost_maps),
-        )
-        .route(
-            "/api/goals/{id}/revisions/{n}/overlay.png",
-            get(export::overlay),
-        )
-        .route(
-            "/api/goals/{id}/revisions/{n}/bundle.zip",
-            get(export::bundle),
-        )
-        .route(
-            "/api/goals/{id}/revisions/{n}/outcomes",
-            post(export::report_outcome),
-        )
-        .route("/api/goals/{id}/outcomes", get(export::outcomes))
-        .route(
-            "/api/goal-sets",
-            post(goal_sets::create).get(goal_sets::list),
-        )
-        .route(
-            "/api/goal-sets/{id}",
-            get(goal_sets::get_one).put(goal_sets::update),
-        )
-        .route("/api/goal-sets/{id}/bundle.zip", get(goal_sets::bundle))
-        .layer(DefaultBodyLimit::max(json_limit))
-        .layer(RequestBodyLimitLayer::new(json_limit));
-
-    Router::new()
-        .route("/healthz", get(healthz))
-        .route("/api/openapi.json", get(openapi::document))
-        .route("/api/schema/goal.json", get(openapi::goal_schema))
-        .merge(uploads)
-        .merge(scoring)
-        .merge(json_routes)
-        .fallback(api_not_found)
+    let mut api = Router::new();
+    for route in routes::table() {
+        let bytes = match route.limit {
+            routes::BodyLimit::Default => None,
+            routes::BodyLimit::Json => Some(limits.json_body_bytes),
+            routes::BodyLimit::Frame => Some(limits.frame_upload_bytes),
+            routes::BodyLimit::Cost => Some(limits.cost_body_bytes),
+            routes::BodyLimit::Preview => Some(routes::PREVIEW_BODY_BYTES),
+        };
+        // Both layers: `DefaultBodyLimit` sets what the body extractors accept, and
+        // `RequestBodyLimitLayer` refuses an oversized body before it is read at all.
+        let handler = match bytes {
+            Some(n) => route
+                .handler
+                .layer::<_, Infallible>(DefaultBodyLimit::max(n))
+                .layer::<_, Infallible>(RequestBodyLimitLayer::new(n)),
+            None => route.handler,
+        };
+        api = api.route(route.path, handler);
+    }
+    api.fallback(api_not_found)
         .layer(axum::middleware::map_response(contract_errors))
         .layer(axum::middleware::from_fn(caution_header))
 }
@@ -193,11 +121,7 @@ async fn contract_errors(resp: Response) -> Response {
             "something went wrong on the server; it has been logged",
         ),
     };
-    let mut out = (
-        status,
-        Json(serde_json::json!({"error": {"code": code, "message": message}})),
-    )
-        .into_response();
+    let mut out = (status, Json(error::ErrorBody::new(code, message))).into_response();
     for (k, v) in resp.headers() {
         if k != axum::http::header::CONTENT_TYPE && k != axum::http::header::CONTENT_LENGTH {
             out.headers_mut().insert(k.clone(), v.clone());
@@ -206,9 +130,16 @@ async fn contract_errors(resp: Response) -> Response {
     out
 }
 
+/// The body of a healthy `GET /healthz`.
+#[derive(Debug, Serialize, JsonSchema)]
+pub struct Health {
+    /// `ok`.
+    pub status: &'static str,
+}
+
 async fn healthz(State(state): State<AppState>) -> Response {
     match state.store.ping().await {
-        Ok(()) => (StatusCode::OK, Json(serde_json::json!({"status": "ok"}))).into_response(),
+        Ok(()) => (StatusCode::OK, Json(Health { status: "ok" })).into_response(),
         Err(e) => {
             tracing::warn!(error = %e, "health check cannot reach the database");
             error::ApiError::Unavailable.into_response()
@@ -224,9 +155,18 @@ async fn api_not_found(uri: axum::http::Uri) -> Response {
     error::ApiError::NotFound("no such route".into()).into_response()
 }
 
-/// Lists are always `{"items": [...]}`.
-pub fn items<T: serde::Serialize>(items: Vec<T>) -> Json<serde_json::Value> {
-    Json(serde_json::json!({ "items": items }))
+/// A list. Lists are always `{"items": [...]}`, never a bare array, so that fields can join
+/// `items` later without breaking clients.
+#[derive(Debug, Serialize, JsonSchema)]
+#[schemars(rename = "{T}List")]
+pub struct Items<T> {
+    /// The entries, in the order the route documents.
+    pub items: Vec<T>,
+}
+
+/// Wraps a list as `{"items": [...]}`.
+pub fn items<T: Serialize>(items: Vec<T>) -> Json<Items<T>> {
+    Json(Items { items })
 }
 
 /// RFC 3339 UTC with milliseconds, from unix milliseconds.

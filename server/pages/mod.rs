@@ -67,15 +67,12 @@ pub fn router() -> Router<AppState> {
         .route("/team/tokens/{id}/revoke", post(team::revoke_token))
         .layer(DefaultBodyLimit::max(1 << 20))
         .layer(RequestBodyLimitLayer::new(1 << 20));
-    let preview = Router::new()
-        .route(preview::ROUTE, post(preview::cost_map_png))
-        .layer(DefaultBodyLimit::max(16 << 20))
-        .layer(RequestBodyLimitLayer::new(16 << 20));
+    // The editor's preview (`/api/preview/cost-map.png`) is an API route: it is mounted and
+    // documented with the others from `api::routes`.
     Router::new()
         .merge(uploads)
         .merge(forms)
         .layer(axum::middleware::map_response(readable_errors))
-        .merge(preview)
 }
 
 /// The HTML 404 for paths that are not pages; the API's fallback calls it for non-`/api` paths.

@@ -15,26 +15,27 @@ use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
 use goalsmith_core::cost::CostModel;
 use goalsmith_core::goal::GoalDocument;
+use schemars::JsonSchema;
 use serde::Deserialize;
 
-/// The route path (listed in the API's ROUTES and OpenAPI document).
+/// The route path (a row of the API's route table, so also in the OpenAPI document).
 pub const ROUTE: &str = "/api/preview/cost-map.png";
 
 /// Longest side of the preview map; the browser scales it over the frame. Each map pixel holds
-/// the exact cost at its centre (DESIGN.md's map convention), so a coarse preview is exact where
+/// the exact cost at its centre (the cost maps' convention), so a coarse preview is exact where
 /// it samples.
 const DEFAULT_SIDE: u32 = 320;
 const MAX_SIDE: u32 = 1024;
 
 /// The request body.
-#[derive(Debug, Deserialize)]
+#[derive(Debug, Deserialize, JsonSchema)]
 #[serde(deny_unknown_fields)]
 pub struct PreviewInput {
     /// The goal as the editor holds it (same body as `POST /api/goals`).
     goal: GoalDocument,
     /// Index of the source point over all terms (a rigid term counts once per source).
     point: usize,
-    /// Longest side of the returned map (default 320, at most 1024).
+    /// Longest side of the returned map (default 320, clamped to 16..=1024).
     #[serde(default)]
     max_side: Option<u32>,
 }

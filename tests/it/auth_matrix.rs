@@ -248,7 +248,7 @@ async fn matrix(s: Server) {
             )
         })
         .collect();
-    for (m, p) in goalsmith::api::ROUTES {
+    for (m, p) in goalsmith::api::routes::list() {
         assert!(
             routes.contains(&((*m).to_string(), (*p).to_string())),
             "route {m} {p} is missing from the authorisation matrix"
