@@ -231,7 +231,8 @@ fn main() -> Result<(), Error> {
         let bodies = [
             ("f32", goalsmith_core::npy::write_f32(&shape, &probs)?),
             ("f16", {
-                let halves: Vec<half::f16> = probs.iter().map(|&v| half::f16::from_f32(v)).collect();
+                let halves: Vec<half::f16> =
+                    probs.iter().map(|&v| half::f16::from_f32(v)).collect();
                 goalsmith_core::npy::write_f16(&shape, &halves)?
             }),
         ];
@@ -245,7 +246,9 @@ fn main() -> Result<(), Error> {
             for _ in 0..2 {
                 let (st, out) = request(&addr, "POST", &path, &headers, body)?;
                 if st != 200 {
-                    return Err(format!("cost route: {st} {}", String::from_utf8_lossy(&out)).into());
+                    return Err(
+                        format!("cost route: {st} {}", String::from_utf8_lossy(&out)).into(),
+                    );
                 }
                 request(&sink_addr, "POST", "/", &headers, body)?;
             }

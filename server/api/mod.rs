@@ -12,6 +12,7 @@ pub mod frames;
 pub mod goal_sets;
 pub mod goals;
 pub mod openapi;
+pub mod preview;
 pub mod routes;
 
 use crate::config::Limits;
@@ -66,6 +67,14 @@ pub fn router(state: AppState) -> Router<AppState> {
         .layer(axum::middleware::from_fn(caution_header))
 }
 
+/// Whether successful responses on `path` carry the caution header: everything about goals and
+/// goal sets, and the editor's preview of a goal's cost.
+pub fn carries_caution(path: &str) -> bool {
+    ["/api/goals", "/api/goal-sets", "/api/preview"]
+        .iter()
+        .any(|p| path.starts_with(p))
+}
+
 /// Response header that carries [`crate::SAFETY_CAUTION`] with every goal export.
 pub const CAUTION_HEADER: &str = "x-goalsmith-caution";
 
@@ -73,10 +82,7 @@ pub const CAUTION_HEADER: &str = "x-goalsmith-caution";
 /// documents, cost results, outcomes, maps, overlays, bundles), so whatever a planner or a
 /// script pulls carries it, not only the bundle.
 async fn caution_header(req: axum::extract::Request, next: axum::middleware::Next) -> Response {
-    let path = req.uri().path();
-    let applies = ["/api/goals", "/api/goal-sets", "/api/preview"]
-        .iter()
-        .any(|p| path.starts_with(p));
+    let applies = carries_caution(req.uri().path());
     let mut resp = next.run(req).await;
     if applies
         && resp.status().is_success()

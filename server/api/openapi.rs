@@ -345,8 +345,15 @@ fn operation(s: &mut Schemas, route: &Route) -> Value {
         if let Some(c) = r.content {
             v["content"] = content(c, |f| s.response(f));
         }
-        if !r.headers.is_empty() {
-            v["headers"] = headers(r.headers);
+        let mut hs = r.headers.to_vec();
+        if (200..300).contains(&r.status)
+            && super::carries_caution(path)
+            && !hs.iter().any(|h| matches!(h, Header::Caution))
+        {
+            hs.push(Header::Caution);
+        }
+        if !hs.is_empty() {
+            v["headers"] = headers(&hs);
         }
         responses.insert(r.status.to_string(), v);
     }

@@ -5,8 +5,8 @@
 //! and its response is serialised from; the schemas are derived from those types.
 
 use super::openapi::{Content, Header, Operation, Reply, SchemaFn};
+use super::preview;
 use super::{AppState, cameras, export, frames, goal_sets, goals, openapi};
-use crate::pages::preview;
 use axum::handler::Handler;
 use axum::routing::{MethodFilter, MethodRouter, on};
 use schemars::{JsonSchema, SchemaGenerator};

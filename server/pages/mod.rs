@@ -11,7 +11,7 @@ pub mod compare;
 pub mod error;
 pub mod goals;
 pub mod home;
-pub mod preview;
+
 pub mod render;
 pub mod session;
 pub mod sets;

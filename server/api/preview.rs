@@ -5,11 +5,11 @@
 //! `CostModel`), so the preview is the map a planner will get, not a browser approximation; a
 //! goal the server would refuse answers 422 with the same message and field as a save.
 
-use crate::api::AppState;
-use crate::api::auth::Principal;
-use crate::api::error::{ApiError, ApiResult};
-use crate::api::extract::JsonBody;
-use crate::api::goals::check_document;
+use super::AppState;
+use super::auth::Principal;
+use super::error::{ApiError, ApiResult};
+use super::extract::JsonBody;
+use super::goals::check_document;
 use axum::extract::State;
 use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
