@@ -2,7 +2,7 @@
 //! (`goalsmith cost --bundle …`), so both give the same numbers from the same code.
 
 use crate::images;
-use goalsmith_core::cost::{CostModel, CostResult, MapBatch};
+use goalsmith_core::cost::{CostModel, CostResult, MapBatch, PreparedMaps};
 use goalsmith_core::draw::{self, OverlayItem, Rgba8Image, ZoneKind};
 use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec, Term};
 use goalsmith_core::npy;
@@ -169,10 +169,7 @@ pub fn evaluate(
             model.evaluate_points(&flat, n, t).map_err(cost_err)
         }
         "application/x-npy" | "application/octet-stream" => {
-            let arr = npy::read(body, max_bytes).map_err(|e| match e {
-                npy::NpyError::TooLarge { .. } => ScoreError::TooLarge(e.to_string()),
-                other => invalid("bad_npy", None, other.to_string()),
-            })?;
+            let arr = npy::read(body, max_bytes).map_err(ScoreError::from_npy)?;
             let shape = arr.header.shape.clone();
             match shape.as_slice() {
                 [n, t, pp, 2] if *pp == p => {
@@ -212,6 +209,172 @@ pub fn evaluate(
             None,
             format!("send application/json points or an application/x-npy body, not {other:?}"),
         )),
+    }
+}
+
+impl ScoreError {
+    /// An NPY body that cannot be read: 413 when it claims more than the limit, else 422.
+    pub fn from_npy(e: npy::NpyError) -> Self {
+        match e {
+            npy::NpyError::TooLarge { .. } => ScoreError::TooLarge(e.to_string()),
+            other => invalid("bad_npy", None, other.to_string()),
+        }
+    }
+
+    /// A batch the cost engine refuses.
+    pub fn from_cost(e: goalsmith_core::cost::CostError) -> Self {
+        invalid("bad_prediction", None, e.to_string())
+    }
+}
+
+/// Scores probability maps (N, T, P, h, w) block by block as their bytes arrive, so a planner's
+/// upload and the scoring overlap and only a few blocks are ever held, not the whole batch.
+///
+/// Candidates are scored independently by the same kernel whatever the block, so the result is
+/// bit-identical to scoring the whole batch at once: the costs and per-point rows are
+/// concatenated, `best` is the first minimum over all candidates (as in the core), and errors
+/// name candidates by their index in the whole batch.
+pub struct MapScorer {
+    prepared: std::sync::Arc<PreparedMaps>,
+    dtype: npy::Dtype,
+    n: usize,
+    t: usize,
+    candidate_bytes: usize,
+    done: usize,
+    costs: Vec<f64>,
+    per_point: Vec<Vec<f64>>,
+}
+
+/// Bytes of probability maps scored per block: big enough to keep the kernel's own
+/// parallelism worthwhile, small enough that a few blocks in flight cost little memory.
+pub const MAP_BLOCK_BYTES: usize = 4 << 20;
+
+impl MapScorer {
+    /// A scorer for `n` candidates of `t` steps of maps of the prepared size, in `dtype`
+    /// (float32 or float16).
+    pub fn new(
+        prepared: std::sync::Arc<PreparedMaps>,
+        dtype: npy::Dtype,
+        n: usize,
+        t: usize,
+    ) -> Result<Self, ScoreError> {
+        if dtype == npy::Dtype::F64 {
+            return Err(invalid(
+                "bad_npy",
+                None,
+                "probability maps must be float32 or float16, not float64",
+            ));
+        }
+        if n == 0 || t == 0 {
+            return Err(invalid(
+                "bad_prediction",
+                None,
+                goalsmith_core::cost::CostError::EmptyBatch { n, t }.to_string(),
+            ));
+        }
+        let candidate_bytes = t
+            .checked_mul(prepared.points() * prepared.width() * prepared.height())
+            .and_then(|v| v.checked_mul(dtype.itemsize()))
+            .ok_or_else(|| ScoreError::TooLarge("the batch is larger than 2^64 bytes".into()))?;
+        Ok(MapScorer {
+            prepared,
+            dtype,
+            n,
+            t,
+            candidate_bytes,
+            done: 0,
+            costs: Vec::with_capacity(n),
+            per_point: Vec::with_capacity(n),
+        })
+    }
+
+    /// Bytes of one candidate's maps (T·P·h·w items).
+    pub fn candidate_bytes(&self) -> usize {
+        self.candidate_bytes
+    }
+
+    /// How many whole candidates make one block of about [`MAP_BLOCK_BYTES`].
+    pub fn block_candidates(&self) -> usize {
+        (MAP_BLOCK_BYTES / self.candidate_bytes.max(1)).clamp(1, self.n)
+    }
+
+    /// Scores the next whole candidates, held in `raw` (a multiple of [`Self::candidate_bytes`]).
+    pub fn block(&mut self, raw: &[u8]) -> Result<(), ScoreError> {
+        let k = raw.len() / self.candidate_bytes.max(1);
+        if k == 0 || !raw.len().is_multiple_of(self.candidate_bytes) || self.done + k > self.n {
+            return Err(ScoreError::Internal(format!(
+                "a block of {} bytes is not whole candidates of {} bytes",
+                raw.len(),
+                self.candidate_bytes
+            )));
+        }
+        let data =
+            npy::data(self.dtype, raw).map_err(|e| invalid("bad_npy", None, e.to_string()))?;
+        let batch = match &data {
+            npy::NpyData::F32(v) => MapBatch::F32(v),
+            npy::NpyData::F16(v) => MapBatch::F16(v),
+            npy::NpyData::F64(_) => {
+                return Err(ScoreError::Internal(
+                    "float64 maps reached the scorer".into(),
+                ));
+            }
+        };
+        let offset = self.done;
+        let result = self.prepared.evaluate(batch, k, self.t).map_err(|e| {
+            invalid(
+                "bad_prediction",
+                None,
+                shift_candidate(e, offset).to_string(),
+            )
+        })?;
+        self.costs.extend(result.costs);
+        self.per_point.extend(result.per_point);
+        self.done += k;
+        Ok(())
+    }
+
+    /// The result once every candidate has been scored.
+    pub fn finish(self) -> Result<CostResult, ScoreError> {
+        if self.done != self.n {
+            return Err(ScoreError::Internal(format!(
+                "{} of {} candidates scored",
+                self.done, self.n
+            )));
+        }
+        let mut best = 0;
+        for (i, &c) in self.costs.iter().enumerate() {
+            if c < self.costs[best] {
+                best = i;
+            }
+        }
+        Ok(CostResult {
+            costs: self.costs,
+            per_point: self.per_point,
+            best,
+        })
+    }
+}
+
+/// An error about candidate `i` of a block, renumbered as candidate `offset + i` of the batch.
+fn shift_candidate(
+    e: goalsmith_core::cost::CostError,
+    offset: usize,
+) -> goalsmith_core::cost::CostError {
+    use goalsmith_core::cost::CostError as E;
+    match e {
+        E::BadProbability {
+            candidate,
+            step,
+            point,
+        } => E::BadProbability {
+            candidate: candidate + offset,
+            step,
+            point,
+        },
+        E::NonFiniteCost { candidate } => E::NonFiniteCost {
+            candidate: candidate + offset,
+        },
+        other => other,
     }
 }
 

@@ -13,8 +13,9 @@ use axum::Json;
 use axum::extract::{Path, Query, Request, State};
 use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use goalsmith_core::cost::CostModel;
+use goalsmith_core::cost::{CostModel, PreparedMaps};
 use goalsmith_core::goal::GoalSpec;
+use goalsmith_core::npy;
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
@@ -50,6 +51,16 @@ impl From<ScoreError> for ApiError {
 #[derive(Default)]
 pub struct ModelCache {
     entries: std::sync::Mutex<std::collections::HashMap<(String, i64), Checked>>,
+    /// Prepared maps by (model identity, w, h), each holding its model alive so the identity
+    /// cannot be reused by another model while the entry exists; bounded in bytes.
+    prepared: std::sync::Mutex<PreparedCache>,
+}
+
+#[derive(Default)]
+struct PreparedCache {
+    entries:
+        std::collections::HashMap<(usize, usize, usize), (std::sync::Arc<PreparedMaps>, Checked)>,
+    bytes: usize,
 }
 
 /// A checked goal with its cost model, shared between the cache and requests.
@@ -59,6 +70,36 @@ pub type Checked = std::sync::Arc<(GoalSpec, CostModel)>;
 const MODEL_CACHE_ENTRIES: usize = 64;
 
 impl ModelCache {
+    fn prepared(&self, key: &(usize, usize, usize)) -> Option<std::sync::Arc<PreparedMaps>> {
+        Some(self.prepared.lock().ok()?.entries.get(key)?.0.clone())
+    }
+
+    fn put_prepared(
+        &self,
+        key: (usize, usize, usize),
+        maps: std::sync::Arc<PreparedMaps>,
+        model: Checked,
+    ) {
+        let size = maps.points() * maps.width() * maps.height() * 4;
+        if size > PREPARED_CACHE_BYTES / 4 {
+            return; // large maps are rare; keeping them would crowd out the common sizes
+        }
+        let Ok(mut c) = self.prepared.lock() else {
+            return;
+        };
+        while c.bytes + size > PREPARED_CACHE_BYTES {
+            let Some(k) = c.entries.keys().next().copied() else {
+                break;
+            };
+            if let Some((m, _)) = c.entries.remove(&k) {
+                c.bytes -= m.points() * m.width() * m.height() * 4;
+            }
+        }
+        if c.entries.insert(key, (maps, model)).is_none() {
+            c.bytes += size;
+        }
+    }
+
     fn get(&self, key: &(String, i64)) -> Option<Checked> {
         self.entries.lock().ok()?.get(key).cloned()
     }
@@ -333,15 +374,229 @@ pub async fn cost(
             "send application/json {{\"points\": …}} or an application/x-npy body, not {content_type:?}"
         )));
     }
-    let l = load(&state, &who, &id, &n).await?;
-    let body = read_body(req, &state).await?;
+    let checked = checked_model(&state, &who, &id, &n).await?;
     let max = state.limits.cost_body_bytes;
-    let result = tokio::task::spawn_blocking(move || {
-        scoring::evaluate(l.model(), &content_type, &body, max)
-    })
-    .await
-    .map_err(|e| ApiError::Internal(e.to_string()))??;
-    Ok(Json(scoring::cost_response(&result)))
+    if content_type == "application/json" {
+        let body = read_body(req, &state).await?;
+        let result = tokio::task::spawn_blocking(move || {
+            scoring::evaluate(&checked.1, &content_type, &body, max)
+        })
+        .await
+        .map_err(|e| ApiError::Internal(e.to_string()))??;
+        return Ok(Json(scoring::cost_response(&result)));
+    }
+    let declared = req
+        .headers()
+        .get(header::CONTENT_LENGTH)
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.parse::<usize>().ok());
+    let mut body = req.into_body();
+    let result = score_npy(&state, checked, content_type, declared, &mut body).await;
+    if result.is_err() {
+        // Read what the client is still sending (the route's body limit bounds it), so that it
+        // gets the error body rather than a reset connection halfway through its upload.
+        drain(&mut body).await;
+    }
+    result.map(|r| Json(scoring::cost_response(&r)))
+}
+
+/// Discards the rest of a request body.
+async fn drain(body: &mut axum::body::Body) {
+    while let Ok(Some(_)) = next_chunk(body).await {}
+}
+
+/// Scores an NPY body as it arrives: probability maps block by block, points (small) buffered.
+async fn score_npy(
+    state: &AppState,
+    checked: Checked,
+    content_type: String,
+    declared: Option<usize>,
+    body: &mut axum::body::Body,
+) -> ApiResult<goalsmith_core::cost::CostResult> {
+    let max = state.limits.cost_body_bytes;
+    // The NPY header first: it says whether these are maps, which are scored as they arrive.
+    let mut head = Vec::new();
+    let header = loop {
+        match npy::parse_header_prefix(&head, max) {
+            Ok(h) => break h,
+            Err(npy::NpyError::TruncatedHeader { .. }) => {}
+            Err(e) => return Err(ScoreError::from_npy(e).into()),
+        }
+        match next_chunk(body).await? {
+            Some(chunk) => head.extend_from_slice(&chunk),
+            None => {
+                // The whole body was shorter than its header: let the buffered path say why.
+                let result = tokio::task::spawn_blocking(move || {
+                    scoring::evaluate(&checked.1, &content_type, &head, max)
+                })
+                .await
+                .map_err(|e| ApiError::Internal(e.to_string()))??;
+                return Ok(result);
+            }
+        }
+    };
+    let total = header.data_offset + header.data_len;
+    if let Some(d) = declared
+        && d != total
+    {
+        return Err(ScoreError::from_npy(npy::NpyError::DataLength {
+            expected: header.data_len,
+            got: d.saturating_sub(header.data_offset),
+        })
+        .into());
+    }
+    let p = checked.1.len();
+    let maps = match header.shape.as_slice() {
+        [n, t, pp, h, w] if *pp == p && header.dtype != npy::Dtype::F64 => Some((*n, *t, *h, *w)),
+        _ => None,
+    };
+    let Some((n, t, h, w)) = maps else {
+        // Points (and anything malformed) are small: buffer them and use the one full check.
+        while let Some(chunk) = next_chunk(body).await? {
+            if head.len() + chunk.len() > total {
+                return Err(ScoreError::from_npy(npy::NpyError::DataLength {
+                    expected: header.data_len,
+                    got: head.len() + chunk.len() - header.data_offset,
+                })
+                .into());
+            }
+            head.extend_from_slice(&chunk);
+        }
+        let result = tokio::task::spawn_blocking(move || {
+            scoring::evaluate(&checked.1, &content_type, &head, max)
+        })
+        .await
+        .map_err(|e| ApiError::Internal(e.to_string()))??;
+        return Ok(result);
+    };
+    let prepared = prepared_maps(state, &checked, w, h).await?;
+    let scorer = scoring::MapScorer::new(prepared, header.dtype, n, t)?;
+    let block_bytes = scorer.block_candidates() * scorer.candidate_bytes();
+    // Blocks go to one blocking worker through a channel of two: the upload goes on while a
+    // block is scored, and at most three blocks are held at once.
+    let (tx, mut rx) = tokio::sync::mpsc::channel::<Vec<u8>>(2);
+    let worker = tokio::task::spawn_blocking(move || {
+        let mut scorer = scorer;
+        while let Some(block) = rx.blocking_recv() {
+            scorer.block(&block)?;
+        }
+        Ok::<_, ScoreError>(scorer)
+    });
+    let mut block = Vec::with_capacity(block_bytes.min(header.data_len));
+    block.extend_from_slice(&head[header.data_offset..]);
+    let mut received = head.len() - header.data_offset;
+    drop(head);
+    let mut sent_all = true;
+    'read: loop {
+        while block.len() >= block_bytes {
+            let rest = block.split_off(block_bytes);
+            if tx.send(std::mem::replace(&mut block, rest)).await.is_err() {
+                sent_all = false; // the worker stopped on an error; it says which below
+                break 'read;
+            }
+            block.reserve(block_bytes.saturating_sub(block.len()));
+        }
+        match next_chunk(body).await {
+            Ok(Some(chunk)) => {
+                received += chunk.len();
+                if received > header.data_len {
+                    break 'read;
+                }
+                block.extend_from_slice(&chunk);
+            }
+            Ok(None) => break 'read,
+            Err(e) => {
+                drop(tx);
+                let _ = worker.await;
+                return Err(e);
+            }
+        }
+    }
+    if sent_all && received == header.data_len && !block.is_empty() && tx.send(block).await.is_err()
+    {
+        sent_all = false;
+    }
+    drop(tx);
+    let scorer = worker
+        .await
+        .map_err(|e| ApiError::Internal(e.to_string()))??;
+    if sent_all && received != header.data_len {
+        return Err(ScoreError::from_npy(npy::NpyError::DataLength {
+            expected: header.data_len,
+            got: received,
+        })
+        .into());
+    }
+    Ok(scorer.finish()?)
+}
+
+/// The next piece of a request body; a body over the route's limit is a 413.
+async fn next_chunk(body: &mut axum::body::Body) -> ApiResult<Option<axum::body::Bytes>> {
+    use http_body_util::BodyExt;
+    loop {
+        match body.frame().await {
+            None => return Ok(None),
+            Some(Ok(frame)) => {
+                if let Ok(data) = frame.into_data() {
+                    return Ok(Some(data));
+                }
+            }
+            Some(Err(e)) => {
+                let text = e.to_string();
+                let too_large = text.contains("length limit")
+                    || std::error::Error::source(&e)
+                        .is_some_and(|s| s.to_string().contains("length limit"));
+                return Err(if too_large {
+                    ApiError::TooLarge("the request body is larger than this route accepts".into())
+                } else {
+                    ApiError::invalid_body("bad_body", "the request body could not be read")
+                });
+            }
+        }
+    }
+}
+
+/// The checked goal and cost model of revision `n`: one query to find (and authorise) the
+/// revision, then the cache; the frame and camera are read only when the model must be built.
+pub async fn checked_model(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+) -> ApiResult<Checked> {
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    if let Some(c) = state.models.get(&(row.goal_id.clone(), row.revision)) {
+        return Ok(c);
+    }
+    Ok(load_row(state, who, row).await?.checked)
+}
+
+/// Largest prepared map set kept in the cache (P·h·w float32 values and weights).
+const PREPARED_CACHE_BYTES: usize = 64 << 20;
+
+/// The model's maps at (w, h), from the cache or built off the async workers. A planner scores
+/// the same revision at the same size many times a second; building the maps (exact distances
+/// at every map pixel) on each request would cost more than scoring.
+async fn prepared_maps(
+    state: &AppState,
+    checked: &Checked,
+    w: usize,
+    h: usize,
+) -> ApiResult<std::sync::Arc<PreparedMaps>> {
+    let key = (std::sync::Arc::as_ptr(checked) as usize, w, h);
+    if let Some(p) = state.models.prepared(&key) {
+        return Ok(p);
+    }
+    let c = checked.clone();
+    let built = tokio::task::spawn_blocking(move || c.1.prepare_maps(w, h))
+        .await
+        .map_err(|e| ApiError::Internal(e.to_string()))?
+        .map_err(|e| ApiError::from(ScoreError::from_cost(e)))?;
+    let built = std::sync::Arc::new(built);
+    state
+        .models
+        .put_prepared(key, built.clone(), checked.clone());
+    Ok(built)
 }
 
 /// `GET /api/goals/{id}/revisions/{n}/overlay.png`.

@@ -507,3 +507,125 @@ async fn one_name_rule(s: Server) {
 }
 
 on_both_databases!(one_name_rule_per_kind, one_name_rule);
+
+/// The cost route scores probability maps as they arrive, block by block. A batch of several
+/// blocks must give exactly (bit for bit) what the offline scorer gives on the whole batch at
+/// once, and errors must name candidates by their index in the whole batch.
+async fn streamed_maps_equal_whole_batch(s: Server) {
+    let (editor, _cam, frame) = camera_and_frame(&s, "greenhouse", json!({})).await;
+    let body = json!({
+        "name": "tray and pot",
+        "frame_id": frame,
+        "terms": [
+            {"kind": "point", "source": [10.0, 12.0], "target": [40.0, 30.0]},
+            {"kind": "region", "source": [20.0, 5.0], "polygon": [[30.0, 5.0], [50.0, 5.0], [50.0, 20.0], [30.0, 20.0]], "weight": 2.0}
+        ],
+        "cost": {"metric": "huber", "huber_delta_px": 4.0, "steps": "all"}
+    });
+    let (st, rev) = s.post("/api/goals", Some(&editor), &body).await;
+    assert_eq!(st, StatusCode::CREATED, "{rev}");
+    let goal = rev["goal_id"].as_str().unwrap().to_string();
+    let base = format!("/api/goals/{goal}/revisions/1");
+    // 32×24 maps, T=3, P=2: 18 KiB a candidate, so 300 candidates fill one 4 MiB block (227
+    // candidates) and part of a second.
+    let (n, t, p, h, w) = (300usize, 3usize, 2usize, 24usize, 32usize);
+    let mut state = 0x9e37_79b9_7f4a_7c15u64;
+    let mut next = || {
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        (state >> 40) as f32 / (1u64 << 24) as f32 / (h * w) as f32
+    };
+    let probs: Vec<f32> = (0..n * t * p * h * w).map(|_| next()).collect();
+    let npy32 = goalsmith_core::npy::write_f32(&[n, t, p, h, w], &probs).unwrap();
+    let (st, route) = s
+        .post_bytes(
+            &format!("{base}/cost"),
+            Some(&editor),
+            "application/x-npy",
+            npy32.clone(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::OK, "{route}");
+    assert_eq!(route["costs"].as_array().unwrap().len(), n);
+
+    let bundle = s
+        .client
+        .get(s.url(&format!("{base}/bundle.zip")))
+        .bearer_auth(&editor)
+        .send()
+        .await
+        .unwrap()
+        .bytes()
+        .await
+        .unwrap();
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("b.zip"), &bundle).unwrap();
+    std::fs::write(dir.path().join("m.npy"), &npy32).unwrap();
+    let out = Command::new(bin())
+        .arg("cost")
+        .arg("--bundle")
+        .arg(dir.path().join("b.zip"))
+        .arg("--maps")
+        .arg(dir.path().join("m.npy"))
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let whole: Value = serde_json::from_slice(&out.stdout).unwrap();
+    assert_eq!(
+        route, whole,
+        "streamed blocks and the whole batch agree bit for bit"
+    );
+
+    // A bad value in the last block is reported with its index in the whole batch.
+    let mut bad = probs.clone();
+    let at = ((250 * t + 1) * p + 1) * h * w + 5; // candidate 250, step 1, point 1
+    bad[at] = -1.0;
+    let (st, err) = s
+        .post_bytes(
+            &format!("{base}/cost"),
+            Some(&editor),
+            "application/x-npy",
+            goalsmith_core::npy::write_f32(&[n, t, p, h, w], &bad).unwrap(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+    let message = err["error"]["message"].as_str().unwrap();
+    assert!(
+        message.contains("candidate 250, step 1, point 1"),
+        "{message}"
+    );
+
+    // A body shorter than its header says, and one longer, are refused.
+    let mut short = npy32.clone();
+    short.truncate(npy32.len() - 4);
+    let (st, err) = s
+        .post_bytes(
+            &format!("{base}/cost"),
+            Some(&editor),
+            "application/x-npy",
+            short,
+        )
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+    let mut long = npy32.clone();
+    long.extend_from_slice(&[0, 0, 0, 0]);
+    let (st, err) = s
+        .post_bytes(
+            &format!("{base}/cost"),
+            Some(&editor),
+            "application/x-npy",
+            long,
+        )
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+}
+
+on_both_databases!(
+    streamed_maps_are_bit_identical,
+    streamed_maps_equal_whole_batch
+);

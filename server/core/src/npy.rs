@@ -170,6 +170,22 @@ impl NpyHeader {
 /// larger than `max_bytes`, and checking the data that follows has exactly the claimed length.
 /// Nothing proportional to the claimed size is allocated.
 pub fn parse_header(bytes: &[u8], max_bytes: usize) -> Result<NpyHeader, NpyError> {
+    let header = parse_header_prefix(bytes, max_bytes)?;
+    let present = bytes.len() - header.data_offset;
+    if present != header.data_len {
+        return Err(NpyError::DataLength {
+            expected: header.data_len,
+            got: present,
+        });
+    }
+    Ok(header)
+}
+
+/// [`parse_header`] for the start of a file whose data is still arriving: `bytes` must hold
+/// the whole header (the magic, the version, the length and the dictionary), and may hold any
+/// part of the data after it. The caller checks the data length once all of it has arrived.
+/// Nothing proportional to the claimed size is allocated.
+pub fn parse_header_prefix(bytes: &[u8], max_bytes: usize) -> Result<NpyHeader, NpyError> {
     if bytes.len() < 8 {
         return Err(if bytes.starts_with(&MAGIC[..bytes.len().min(6)]) {
             NpyError::TruncatedHeader {
@@ -242,13 +258,6 @@ pub fn parse_header(bytes: &[u8], max_bytes: usize) -> Result<NpyHeader, NpyErro
         .ok_or_else(|| too_large("more than 2^64 bytes".into()))?;
     if data_len > max_bytes {
         return Err(too_large(format!("{data_len} bytes")));
-    }
-    let present = bytes.len() - data_offset;
-    if present != data_len {
-        return Err(NpyError::DataLength {
-            expected: data_len,
-            got: present,
-        });
     }
     Ok(NpyHeader {
         version: (major, minor),
@@ -332,6 +341,29 @@ trait PlainFloat: Copy {}
 impl PlainFloat for f16 {}
 impl PlainFloat for f32 {}
 impl PlainFloat for f64 {}
+
+/// The values held in `raw`, little-endian data of `dtype` (a whole number of items): borrowed
+/// when the alignment allows, else decoded into a copy. For data that arrives in pieces, after
+/// [`parse_header_prefix`].
+pub fn data(dtype: Dtype, raw: &[u8]) -> Result<NpyData<'_>, NpyError> {
+    if !raw.len().is_multiple_of(dtype.itemsize()) {
+        return Err(NpyError::DataLength {
+            expected: raw.len() - raw.len() % dtype.itemsize(),
+            got: raw.len(),
+        });
+    }
+    Ok(match dtype {
+        Dtype::F16 => NpyData::F16(view_or_copy(raw, |b| {
+            f16::from_bits(u16::from_le_bytes([b[0], b[1]]))
+        })),
+        Dtype::F32 => NpyData::F32(view_or_copy(raw, |b| {
+            f32::from_le_bytes([b[0], b[1], b[2], b[3]])
+        })),
+        Dtype::F64 => NpyData::F64(view_or_copy(raw, |b| {
+            f64::from_le_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]])
+        })),
+    })
+}
 
 /// Reinterprets little-endian bytes as `T` without copying when the bytes are aligned for `T`
 /// on a little-endian machine; otherwise decodes a copy.
