@@ -9,8 +9,10 @@
 //! as the yardstick for a memory-bound kernel, one thread summing a 512 MiB float32 buffer
 //! (`memory_read`, read as four streams with the same wide registers and prefetching as the
 //! kernel, which also reads four maps at once, so the ratio compares like with like). Map rows
-//! carry `gb_per_s` (bytes of maps read per second) and `memory_ratio` = their `gb_per_s` ÷
-//! the 512 MiB `memory_read` rate. A second `memory_read` row over 64 MiB shows the rate when
+//! carry `gb_per_s` (bytes of maps read per second), `memory_ratio` = their `gb_per_s` ÷
+//! the 512 MiB `memory_read` rate, and `vs_f32` = their median ÷ the float32 median of the
+//! same size and threads; the float32 and float16 runs of one size and thread count take
+//! turns, so that `vs_f32` compares them under the same load on a shared machine. A second `memory_read` row over 64 MiB shows the rate when
 //! the data fits in the last-level cache, which on machines with a large cache is the fairer
 //! yardstick for the 64×64 batch (65 MB). Every repeat re-reads the same batch (as
 //! `tests/reference/bench_cost_compare.py` does for numpy), so with a last-level cache near
@@ -28,7 +30,7 @@ use crate::geometry::{PixelPoint, Polygon};
 use half::f16;
 use half::slice::HalfFloatSliceExt;
 use std::hint::black_box;
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
 /// A parameter value: a number (sizes, rates) or a text (dtype, steps).
@@ -138,16 +140,36 @@ impl SplitMix64 {
 
 /// Median of repeated runs of `f`: at least `min_reps`, and until ~`budget` has passed.
 fn median_ms(min_reps: usize, budget: Duration, mut f: impl FnMut()) -> f64 {
-    f(); // warm up caches, page tables and the thread pool
-    let start = Instant::now();
-    let mut times = Vec::new();
-    while times.len() < min_reps || (start.elapsed() < budget && times.len() < 200) {
-        let t0 = Instant::now();
-        f();
-        times.push(t0.elapsed().as_secs_f64() * 1e3);
+    interleaved_median_ms(min_reps, budget, &mut [&mut f])[0]
+}
+
+/// Median of repeated runs of each of `fs`, taken in turns (one run of each per round) so that
+/// a change in the machine's load affects all alike and their ratio holds: at least
+/// `min_reps` rounds, and until ~`budget` has passed.
+fn interleaved_median_ms(
+    min_reps: usize,
+    budget: Duration,
+    fs: &mut [&mut dyn FnMut()],
+) -> Vec<f64> {
+    for f in fs.iter_mut() {
+        f(); // warm up caches, page tables and the thread pool
     }
-    times.sort_by(f64::total_cmp);
-    times[times.len() / 2]
+    let start = Instant::now();
+    let mut times = vec![Vec::new(); fs.len()];
+    while times[0].len() < min_reps || (start.elapsed() < budget && times[0].len() < 200) {
+        for (f, t) in fs.iter_mut().zip(&mut times) {
+            let t0 = Instant::now();
+            f();
+            t.push(t0.elapsed().as_secs_f64() * 1e3);
+        }
+    }
+    times
+        .iter_mut()
+        .map(|t| {
+            t.sort_by(f64::total_cmp);
+            t[t.len() / 2]
+        })
+        .collect()
 }
 
 fn round4(x: f64) -> f64 {
@@ -253,33 +275,41 @@ fn cost_bench() -> Result<Vec<BenchRow>, String> {
         let mut rng = SplitMix64(side as u64);
         let scale = 2.0 / (side * side) as f64;
         let maps32: Vec<f32> = (0..len).map(|_| (rng.next_f64() * scale) as f32).collect();
-        for dtype in ["f32", "f16"] {
-            let maps16: Vec<f16>;
-            let (batch, bytes) = if dtype == "f32" {
-                (MapBatch::F32(&maps32), len * 4)
-            } else {
-                let mut v = vec![f16::ZERO; len];
-                v.convert_from_f32_slice(&maps32);
-                maps16 = v;
-                (MapBatch::F16(&maps16), len * 2)
-            };
-            for &threads in &thread_counts {
-                let pool = pool(threads)?;
-                let mut failed = None;
-                let ms = pool.install(|| {
-                    median_ms(5, Duration::from_secs(2), || {
-                        if let Err(e) = prepared.evaluate(batch, n, t) {
-                            failed = Some(e.to_string());
+        let mut maps16 = vec![f16::ZERO; len];
+        maps16.convert_from_f32_slice(&maps32);
+        let batches = [
+            ("f32", MapBatch::F32(&maps32), len * 4),
+            ("f16", MapBatch::F16(&maps16), len * 2),
+        ];
+        for &threads in &thread_counts {
+            // Both dtypes in turns, so that `vs_f32` compares them under the same load.
+            let pool = pool(threads)?;
+            let failed = Mutex::new(None);
+            let ms = pool.install(|| {
+                let mut runs: Vec<_> = batches
+                    .iter()
+                    .map(|&(_, batch, _)| {
+                        let (prepared, failed) = (&prepared, &failed);
+                        move || {
+                            if let Err(e) = prepared.evaluate(batch, n, t) {
+                                *failed.lock().unwrap_or_else(|p| p.into_inner()) =
+                                    Some(e.to_string());
+                            }
                         }
                     })
-                });
-                if let Some(e) = failed {
-                    return Err(e);
-                }
-                let gbps = bytes as f64 / (ms * 1e-3) / 1e9;
+                    .collect();
+                let mut fs: Vec<&mut dyn FnMut()> =
+                    runs.iter_mut().map(|f| f as &mut dyn FnMut()).collect();
+                interleaved_median_ms(5, Duration::from_secs(4), &mut fs)
+            });
+            if let Some(e) = failed.into_inner().unwrap_or_else(|p| p.into_inner()) {
+                return Err(e);
+            }
+            for (&(dtype, _, bytes), &ms_d) in batches.iter().zip(&ms) {
+                let gbps = bytes as f64 / (ms_d * 1e-3) / 1e9;
                 rows.push(BenchRow {
                     bench: "cost".into(),
-                    median_ms: round4(ms),
+                    median_ms: round4(ms_d),
                     params: vec![
                         text("kind", "maps"),
                         num("n", n as f64),
@@ -294,6 +324,7 @@ fn cost_bench() -> Result<Vec<BenchRow>, String> {
                         num("bytes", bytes as f64),
                         num("gb_per_s", round4(gbps)),
                         num("memory_ratio", round4(gbps / memory_gbps)),
+                        num("vs_f32", round4(ms_d / ms[0])),
                     ],
                 });
             }

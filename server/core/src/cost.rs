@@ -663,28 +663,51 @@ fn dot_min_f32<const PREFETCH: bool>(a: &[f32], b: &[f32]) -> (f64, f32) {
     let ahead = a.as_ptr().cast::<u8>().wrapping_add(PREFETCH_BYTES);
     let mut offset = 0usize;
     for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
-        let mut acc = [0.0f32; LANES];
-        let mut ac = ab.chunks_exact(LANES);
-        let mut bc = bb.chunks_exact(LANES);
-        for (x, y) in (&mut ac).zip(&mut bc) {
+        add_block(ab, bb, &mut total, &mut mn, || {
             if PREFETCH {
                 prefetch(ahead.wrapping_add(offset));
                 offset += LANES * 4;
             }
-            for l in 0..LANES {
-                acc[l] += x[l] * y[l];
-                mn[l] = if x[l] < mn[l] { x[l] } else { mn[l] };
-            }
-        }
-        for (x, y) in ac.remainder().iter().zip(bc.remainder()) {
-            acc[0] += x * y;
-            mn[0] = if *x < mn[0] { *x } else { mn[0] };
-        }
-        for l in 0..LANES {
-            total[l] += f64::from(acc[l]);
-        }
+        });
         offset = offset.wrapping_add(ab.len() % LANES * 4);
     }
+    lanes_result(&total, &mn)
+}
+
+/// One block (at most [`BLOCK`] values) of [`dot_min_f32`]: Σ a·b in [`LANES`] float32 lanes
+/// (the remainder in lane 0), added lane by lane into `total`, and the lanes' minima of `a`
+/// into `mn`. `step` runs once per [`LANES`] values (the caller's prefetching).
+#[inline(always)]
+fn add_block(
+    ab: &[f32],
+    bb: &[f32],
+    total: &mut [f64; LANES],
+    mn: &mut [f32; LANES],
+    mut step: impl FnMut(),
+) {
+    let mut acc = [0.0f32; LANES];
+    let mut ac = ab.chunks_exact(LANES);
+    let mut bc = bb.chunks_exact(LANES);
+    for (x, y) in (&mut ac).zip(&mut bc) {
+        step();
+        for l in 0..LANES {
+            acc[l] += x[l] * y[l];
+            mn[l] = if x[l] < mn[l] { x[l] } else { mn[l] };
+        }
+    }
+    for (x, y) in ac.remainder().iter().zip(bc.remainder()) {
+        acc[0] += x * y;
+        mn[0] = if *x < mn[0] { *x } else { mn[0] };
+    }
+    for l in 0..LANES {
+        total[l] += f64::from(acc[l]);
+    }
+}
+
+/// The kernels' result from their lanes: the float64 lane totals summed in lane order, and the
+/// least lane minimum.
+#[inline(always)]
+fn lanes_result(total: &[f64; LANES], mn: &[f32; LANES]) -> (f64, f32) {
     (
         total.iter().sum(),
         mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)),
@@ -712,12 +735,15 @@ fn each<T>(
     }
 }
 
-/// As [`dot_min_f32`] for float16 `a`, converted block by block into a stack buffer.
+/// As [`dot_min_f32`] for float16 `a`, converted block by block into a stack buffer. The lanes
+/// and their float64 totals are those of [`dot_min_f32`], and float16 → float32 is exact, so
+/// the result is bit-identical to [`dot_min_f32`] of the maps converted to float32: a float16
+/// batch scores exactly as its float32 conversion does.
 #[inline(always)]
 fn dot_min_f16(a: &[f16], b: &[f32]) -> (f64, f32) {
     let mut buf = [0.0f32; BLOCK];
-    let mut total = 0.0;
-    let mut mn = f32::INFINITY;
+    let mut total = [0.0f64; LANES];
+    let mut mn = [f32::INFINITY; LANES];
     for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
         // Ask for the block after this one (2 KiB of float16) while converting this one.
         let next = ab.as_ptr().cast::<u8>().wrapping_add(BLOCK * 2);
@@ -726,11 +752,9 @@ fn dot_min_f16(a: &[f16], b: &[f32]) -> (f64, f32) {
         }
         let dst = &mut buf[..ab.len()];
         ab.convert_to_f32_slice(dst);
-        let (s, m) = dot_min_f32::<false>(dst, bb);
-        total += s;
-        mn = mn.min(m);
+        add_block(dst, bb, &mut total, &mut mn, || {});
     }
-    (total, mn)
+    lanes_result(&total, &mn)
 }
 
 /// Sum of a float32 buffer read as four streams (its quarters, 16 lanes each) with the
@@ -781,37 +805,76 @@ pub(crate) fn streaming_sum(data: &[f32]) -> f32 {
 /// operations are the same, only wider registers carry them (and float16 → float32 is exact).
 #[cfg(target_arch = "x86_64")]
 mod x86 {
-    use super::{BLOCK, GROUP_PREFETCH_BYTES, LANES, PREFETCH_BYTES, prefetch};
+    use super::{BLOCK, GROUP_PREFETCH_BYTES, LANES, SumMin, prefetch};
     use half::f16;
     use std::arch::x86_64::{
-        _mm_loadu_si128, _mm256_add_ps, _mm256_cvtph_ps, _mm256_loadu_ps, _mm256_min_ps,
+        __m256, _mm_loadu_si128, _mm256_add_ps, _mm256_cvtph_ps, _mm256_loadu_ps, _mm256_min_ps,
         _mm256_mul_ps, _mm256_set1_ps, _mm256_setzero_ps, _mm256_storeu_ps,
     };
+
+    /// A value type of probability maps that the grouped kernel reads.
+    pub(super) trait MapValue: Copy {
+        /// The 8 values from `p` as float32.
+        ///
+        /// # Safety
+        /// `p` must point to 8 readable values; the CPU must support AVX, and F16C for float16.
+        unsafe fn load8(p: *const Self) -> __m256;
+        /// One value as float32 (exact for both types).
+        fn to_f32(self) -> f32;
+    }
+
+    impl MapValue for f32 {
+        #[inline(always)]
+        unsafe fn load8(p: *const Self) -> __m256 {
+            // SAFETY: the caller's contract; the intrinsic accepts unaligned pointers.
+            unsafe { _mm256_loadu_ps(p) }
+        }
+        #[inline(always)]
+        fn to_f32(self) -> f32 {
+            self
+        }
+    }
+
+    impl MapValue for f16 {
+        #[inline(always)]
+        unsafe fn load8(p: *const Self) -> __m256 {
+            // SAFETY: the caller's contract (8 float16 are the 16 bytes read); unaligned is fine.
+            unsafe { _mm256_cvtph_ps(_mm_loadu_si128(p.cast())) }
+        }
+        #[inline(always)]
+        fn to_f32(self) -> f32 {
+            f16::to_f32(self)
+        }
+    }
 
     /// [`super::dot_min_f32`] for `G` maps against the same cost map `b` in one pass, so each
     /// load of `b` serves `G` maps and `G` independent streams keep the memory busy. Per map
     /// the lanes, their order and the float32 operations are those of the portable kernel
     /// (two 8-wide registers of the 16 lanes, a separate multiply and add, the remainder in
     /// lane 0, lane totals in float64 every [`BLOCK`] values), so each result is bit-identical
-    /// to `dot_min_f32(a[g], b)`. Every `a[g]` must have the length of `b`.
-    #[target_feature(enable = "avx2")]
-    pub(super) fn dot_min_f32_group<const G: usize>(a: [&[f32]; G], b: &[f32]) -> [(f64, f32); G] {
+    /// to `dot_min_f32(a[g], b)`, or for float16 maps to `dot_min_f16(a[g], b)` (F16C converts
+    /// exactly, as the portable conversion does). Every `a[g]` must have the length of `b`.
+    /// Inlined into [`dot_min_f32_group`] and [`dot_min_f16_group`], which enable the CPU
+    /// features that the loads need.
+    #[inline(always)]
+    fn dot_min_group<T: MapValue, const G: usize>(a: [&[T]; G], b: &[f32]) -> [SumMin; G] {
         let len = b.len();
         assert!(
             a.iter().all(|x| x.len() == len),
             "maps and cost map differ in length"
         );
+        let bytes = std::mem::size_of::<T>();
         let mut total = [[0.0f64; LANES]; G];
-        let mut m = [_mm256_set1_ps(f32::INFINITY); G];
+        // SAFETY (all intrinsics below): the callers enable AVX2 (and F16C for float16).
+        let mut m = [unsafe { _mm256_set1_ps(f32::INFINITY) }; G];
         let mut start = 0;
         while start < len {
             let block = (len - start).min(BLOCK);
             let full = block - block % LANES;
-            let mut acc = [[_mm256_setzero_ps(); 2]; G];
+            let mut acc = [[unsafe { _mm256_setzero_ps() }; 2]; G];
             let mut k = start;
             while k < start + full {
-                // SAFETY (loads): k + 16 ≤ len, and every `a[g]` and `b` hold `len` floats; the
-                // intrinsics accept unaligned pointers; this function enables AVX and AVX2.
+                // SAFETY (loads): k + 16 ≤ len, and every `a[g]` and `b` hold `len` values.
                 let (y0, y1) = unsafe {
                     (
                         _mm256_loadu_ps(b.as_ptr().add(k)),
@@ -820,18 +883,18 @@ mod x86 {
                 };
                 for g in 0..G {
                     let base = a[g].as_ptr();
-                    prefetch(base.cast::<u8>().wrapping_add(k * 4 + GROUP_PREFETCH_BYTES));
-                    let (x0, x1) = unsafe {
-                        (
-                            _mm256_loadu_ps(base.add(k)),
-                            _mm256_loadu_ps(base.add(k + 8)),
-                        )
-                    };
-                    acc[g][0] = _mm256_add_ps(acc[g][0], _mm256_mul_ps(x0, y0));
-                    acc[g][1] = _mm256_add_ps(acc[g][1], _mm256_mul_ps(x1, y1));
-                    // min(x, m) = x < m ? x : m, as the portable lanes; the minimum's value
-                    // does not depend on the order the lanes are folded in.
-                    m[g] = _mm256_min_ps(_mm256_min_ps(x0, x1), m[g]);
+                    prefetch(
+                        base.cast::<u8>()
+                            .wrapping_add(k * bytes + GROUP_PREFETCH_BYTES),
+                    );
+                    unsafe {
+                        let (x0, x1) = (T::load8(base.add(k)), T::load8(base.add(k + 8)));
+                        acc[g][0] = _mm256_add_ps(acc[g][0], _mm256_mul_ps(x0, y0));
+                        acc[g][1] = _mm256_add_ps(acc[g][1], _mm256_mul_ps(x1, y1));
+                        // min(x, m) = x < m ? x : m, as the portable lanes; the minimum's value
+                        // does not depend on the order the lanes are folded in.
+                        m[g] = _mm256_min_ps(_mm256_min_ps(x0, x1), m[g]);
+                    }
                 }
                 k += LANES;
             }
@@ -846,8 +909,9 @@ mod x86 {
                 }
                 let tail = start + full..start + block;
                 for (x, y) in a[g][tail.clone()].iter().zip(&b[tail]) {
+                    let x = x.to_f32();
                     lanes[0] += x * y;
-                    mn[0] = if *x < mn[0] { *x } else { mn[0] };
+                    mn[0] = if x < mn[0] { x } else { mn[0] };
                 }
                 // SAFETY: `mn` holds 8 floats.
                 m[g] = unsafe { _mm256_loadu_ps(mn.as_ptr()) };
@@ -868,84 +932,72 @@ mod x86 {
         })
     }
 
-    /// [`dot_min_f32_group`] for up to [`super::GROUP`] maps, results into `out`.
-    ///
-    /// # Safety
-    /// The CPU must support AVX2.
+    /// [`dot_min_group`] for float32 maps.
     #[target_feature(enable = "avx2")]
-    pub(super) unsafe fn dot_min_f32_avx2(a: &[&[f32]], b: &[f32], out: &mut [(f64, f32)]) {
+    pub(super) fn dot_min_f32_group<const G: usize>(a: [&[f32]; G], b: &[f32]) -> [SumMin; G] {
+        dot_min_group(a, b)
+    }
+
+    /// [`dot_min_group`] for float16 maps.
+    #[target_feature(enable = "avx2,f16c")]
+    pub(super) fn dot_min_f16_group<const G: usize>(a: [&[f16]; G], b: &[f32]) -> [SumMin; G] {
+        dot_min_group(a, b)
+    }
+
+    /// Calls `group` with the maps of `a` as an array (up to [`super::GROUP`] of them, one by
+    /// one beyond) and puts the results into `out`.
+    #[inline(always)]
+    fn by_count<T: Copy>(
+        a: &[&[T]],
+        out: &mut [SumMin],
+        one: impl Fn([&[T]; 1]) -> [SumMin; 1],
+        two: impl Fn([&[T]; 2]) -> [SumMin; 2],
+        three: impl Fn([&[T]; 3]) -> [SumMin; 3],
+        four: impl Fn([&[T]; 4]) -> [SumMin; 4],
+    ) {
         match *a {
-            [a0] => out[..1].copy_from_slice(&dot_min_f32_group([a0], b)),
-            [a0, a1] => out[..2].copy_from_slice(&dot_min_f32_group([a0, a1], b)),
-            [a0, a1, a2] => out[..3].copy_from_slice(&dot_min_f32_group([a0, a1, a2], b)),
-            [a0, a1, a2, a3] => out[..4].copy_from_slice(&dot_min_f32_group([a0, a1, a2, a3], b)),
+            [a0] => out[..1].copy_from_slice(&one([a0])),
+            [a0, a1] => out[..2].copy_from_slice(&two([a0, a1])),
+            [a0, a1, a2] => out[..3].copy_from_slice(&three([a0, a1, a2])),
+            [a0, a1, a2, a3] => out[..4].copy_from_slice(&four([a0, a1, a2, a3])),
             _ => {
                 for (x, o) in a.iter().zip(out.iter_mut()) {
-                    *o = dot_min_f32_group([*x], b)[0];
+                    *o = one([*x])[0];
                 }
             }
         }
     }
 
-    /// [`super::dot_min_f16`] with the conversion fused into the loop: the same 16 lanes (two
-    /// 8-wide registers), the same separate multiply and add, the same remainder handling, so
-    /// the result is bit-identical.
+    /// [`dot_min_f32_group`] for up to [`super::GROUP`] maps, results into `out`.
+    ///
+    /// # Safety
+    /// The CPU must support AVX2.
+    #[target_feature(enable = "avx2")]
+    pub(super) unsafe fn dot_min_f32_avx2(a: &[&[f32]], b: &[f32], out: &mut [SumMin]) {
+        by_count(
+            a,
+            out,
+            |x| dot_min_f32_group(x, b),
+            |x| dot_min_f32_group(x, b),
+            |x| dot_min_f32_group(x, b),
+            |x| dot_min_f32_group(x, b),
+        );
+    }
+
+    /// [`dot_min_f16_group`] for up to [`super::GROUP`] maps, results into `out`.
+    ///
+    /// # Safety
+    /// The CPU must support AVX2 and F16C.
     #[target_feature(enable = "avx2,f16c")]
-    pub(super) fn dot_min_f16_avx2(a: &[f16], b: &[f32]) -> (f64, f32) {
-        let mut total = [0.0f64; LANES];
-        let mut mn = [f32::INFINITY; LANES];
-        let ahead = a.as_ptr().cast::<u8>().wrapping_add(PREFETCH_BYTES);
-        let mut offset = 0usize;
-        for (ab, bb) in a.chunks(BLOCK).zip(b.chunks(BLOCK)) {
-            let mut acc = [_mm256_setzero_ps(); 2];
-            // SAFETY (all loads and stores below): every pointer comes from a slice with at
-            // least the 16 bytes (8 f16) or 32 bytes (8 f32) accessed; the intrinsics accept
-            // unaligned pointers; this function enables AVX, AVX2 and F16C.
-            let mut m = unsafe {
-                [
-                    _mm256_loadu_ps(mn.as_ptr()),
-                    _mm256_loadu_ps(mn.as_ptr().add(8)),
-                ]
-            };
-            let mut ac = ab.chunks_exact(LANES);
-            let mut bc = bb.chunks_exact(LANES);
-            for (k, (x, y)) in (&mut ac).zip(&mut bc).enumerate() {
-                // 16 float16 are half a cache line: one prefetch every other step.
-                if k % 2 == 0 {
-                    prefetch(ahead.wrapping_add(offset + k * LANES * 2));
-                }
-                for h in 0..2 {
-                    let (xv, yv) = unsafe {
-                        (
-                            _mm256_cvtph_ps(_mm_loadu_si128(x.as_ptr().add(8 * h).cast())),
-                            _mm256_loadu_ps(y.as_ptr().add(8 * h)),
-                        )
-                    };
-                    acc[h] = _mm256_add_ps(acc[h], _mm256_mul_ps(xv, yv));
-                    m[h] = _mm256_min_ps(xv, m[h]);
-                }
-            }
-            offset += ab.len() * 2;
-            let mut lanes = [0.0f32; LANES];
-            unsafe {
-                _mm256_storeu_ps(lanes.as_mut_ptr(), acc[0]);
-                _mm256_storeu_ps(lanes.as_mut_ptr().add(8), acc[1]);
-                _mm256_storeu_ps(mn.as_mut_ptr(), m[0]);
-                _mm256_storeu_ps(mn.as_mut_ptr().add(8), m[1]);
-            }
-            for (x, y) in ac.remainder().iter().zip(bc.remainder()) {
-                let x = x.to_f32();
-                lanes[0] += x * y;
-                mn[0] = if x < mn[0] { x } else { mn[0] };
-            }
-            for l in 0..LANES {
-                total[l] += f64::from(lanes[l]);
-            }
-        }
-        (
-            total.iter().sum(),
-            mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)),
-        )
+    pub(super) unsafe fn dot_min_f16_avx2(a: &[&[f16]], b: &[f32], out: &mut [SumMin]) {
+        by_count(
+            a,
+            out,
+            |x| dot_min_f16_group(x, b),
+            |x| dot_min_f16_group(x, b),
+            |x| dot_min_f16_group(x, b),
+            |x| dot_min_f16_group(x, b),
+        );
     }
 }
 
@@ -1006,9 +1058,11 @@ impl PreparedMaps {
                     && std::arch::is_x86_feature_detected!("f16c")
                 {
                     // SAFETY: the CPU has AVX2 and F16C (checked just above).
-                    let dot = |a: &[f16], b: &[f32]| unsafe { x86::dot_min_f16_avx2(a, b) };
+                    let dot = |a: &[&[f16]], b: &[f32], out: &mut [SumMin]| unsafe {
+                        x86::dot_min_f16_avx2(a, b, out)
+                    };
                     return self
-                        .run(v, &mut per, t, steps, parallel, each(dot))
+                        .run(v, &mut per, t, steps, parallel, dot)
                         .and_then(|()| finish(per, np));
                 }
                 self.run(v, &mut per, t, steps, parallel, each(dot_min_f16))
@@ -1475,7 +1529,7 @@ mod tests {
 
         #[cfg(target_arch = "x86_64")]
         #[test]
-        fn wide_kernels_are_bit_identical(len in 0usize..3000, seed in 0u64..1000) {
+        fn wide_kernels_are_bit_identical(len in 0usize..3000, seed in 0u64..1000, wild in any::<bool>()) {
             prop_assume!(std::arch::is_x86_feature_detected!("avx2")
                 && std::arch::is_x86_feature_detected!("f16c"));
             let mut s = seed;
@@ -1484,21 +1538,45 @@ mod tests {
                 (s >> 40) as f32 / (1u64 << 24) as f32 - 0.1
             };
             let a: Vec<f32> = (0..len).map(|_| next()).collect();
-            let b: Vec<f32> = (0..len).map(|_| next() * 100.0).collect();
-            let a16: Vec<f16> = a.iter().map(|&v| f16::from_f32(v * 1e3)).collect();
-            // SAFETY: both features were detected above.
-            let wide16 = unsafe { x86::dot_min_f16_avx2(&a16, &b) };
-            // Groups of one to four maps (the others are shifted copies of `a`).
-            let rot: Vec<Vec<f32>> = (0..4).map(|r| { let mut v = a.clone(); if len > 0 { v.rotate_left(r * 7 % len); } v }).collect();
+            // `wild`: cost values over 40 orders of magnitude, so that the lanes' float64
+            // totals round and any difference in the order they are added in would show.
+            let b: Vec<f32> = (0..len)
+                .map(|k| next() * 100.0 * if wild { 10f32.powi(k as i32 % 41 - 20) } else { 1.0 })
+                .collect();
+            // float16 maps with subnormals too (below 6.1e-5).
+            let a16: Vec<f16> = a.iter().enumerate()
+                .map(|(k, &v)| f16::from_f32(v * if k % 5 == 0 { 1e-5 } else { 1e3 }))
+                .collect();
+            let a16_as_f32: Vec<f32> = a16.iter().map(|v| v.to_f32()).collect();
+            // The portable float16 kernel scores exactly as float32 does on the converted maps.
+            prop_assert_eq!(dot_min_f16(&a16, &b), dot_min_f32::<false>(&a16_as_f32, &b));
+            // Groups of one to five maps (the others are shifted copies), both types.
+            let shifted = |r: usize| {
+                let mut v = a.clone();
+                let mut v16 = a16.clone();
+                if len > 0 {
+                    v.rotate_left(r * 7 % len);
+                    v16.rotate_left(r * 7 % len);
+                }
+                (v, v16)
+            };
+            let (rot, rot16): (Vec<Vec<f32>>, Vec<Vec<f16>>) = (0..4).map(shifted).unzip();
             for g in 1..=5 {
                 let group: Vec<&[f32]> = (0..g).map(|r| rot[r % 4].as_slice()).collect();
                 let mut out = vec![(0.0, 0.0); g];
+                // SAFETY: both features were detected above.
                 unsafe { x86::dot_min_f32_avx2(&group, &b, &mut out) };
                 for (r, got) in out.iter().enumerate() {
                     prop_assert_eq!(*got, dot_min_f32::<false>(&rot[r % 4], &b));
                 }
+                let group16: Vec<&[f16]> = (0..g).map(|r| rot16[r % 4].as_slice()).collect();
+                let mut out16 = vec![(0.0, 0.0); g];
+                // SAFETY: both features were detected above.
+                unsafe { x86::dot_min_f16_avx2(&group16, &b, &mut out16) };
+                for (r, got) in out16.iter().enumerate() {
+                    prop_assert_eq!(*got, dot_min_f16(&rot16[r % 4], &b));
+                }
             }
-            prop_assert_eq!(wide16, dot_min_f16(&a16, &b));
         }
 
         #[test]
@@ -1713,6 +1791,47 @@ mod tests {
                 point: 3
             })
         );
+    }
+
+    /// float16 batches go through the grouped kernel too (on AVX2 + F16C machines): for every
+    /// steps and mode setting, a float16 batch scores bit for bit as its float32 conversion,
+    /// and the first bad map is named as for float32.
+    #[test]
+    fn f16_batches_score_exactly_as_their_f32_conversion() {
+        let (n, t, np, w, h) = (5usize, 7usize, 4usize, 13usize, 6usize);
+        let plane = w * h;
+        let mut s = 29u64;
+        let maps16: Vec<f16> = (0..n * t * np * plane)
+            .map(|_| {
+                s = s.wrapping_mul(6364136223846793005).wrapping_add(1);
+                f16::from_f32((s >> 40) as f32 / (1u64 << 24) as f32 / plane as f32)
+            })
+            .collect();
+        let maps32: Vec<f32> = maps16.iter().map(|v| v.to_f32()).collect();
+        for steps in [Steps::All, Steps::Final] {
+            for mode in [Mode::Expected, Mode::Hit] {
+                let prepared = mixed_model(steps, mode).prepare_maps(w, h).unwrap();
+                let want = prepared.evaluate(MapBatch::F32(&maps32), n, t).unwrap();
+                let got = prepared.evaluate(MapBatch::F16(&maps16), n, t).unwrap();
+                assert_eq!(got, want, "{steps:?} {mode:?}");
+            }
+        }
+        let prepared = mixed_model(Steps::All, Mode::Expected)
+            .prepare_maps(w, h)
+            .unwrap();
+        let at = |c: usize, st: usize, p: usize| ((c * t + st) * np + p) * plane + 2;
+        let (mut bad16, mut bad32) = (maps16.clone(), maps32.clone());
+        for (k, v) in [(at(3, 5, 1), -0.5f32), (at(3, 4, 2), f32::NAN)] {
+            bad16[k] = f16::from_f32(v);
+            bad32[k] = v;
+        }
+        let want = Err(CostError::BadProbability {
+            candidate: 3,
+            step: 4,
+            point: 2,
+        });
+        assert_eq!(prepared.evaluate(MapBatch::F32(&bad32), n, t), want);
+        assert_eq!(prepared.evaluate(MapBatch::F16(&bad16), n, t), want);
     }
 
     #[test]
