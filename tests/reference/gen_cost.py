@@ -1,6 +1,6 @@
 """Reference vectors for server/core/src/cost.rs and npy.rs.
 
-The cost formulas of DESIGN.md "Conventions" evaluated directly in numpy (float64) on random
+The cost formulas of docs/conventions.md evaluated directly in numpy (float64) on random
 data with a fixed seed:
   - distances: point targets by np.hypot; a polygon region by shapely (Polygon.distance, 0
     inside); a painted mask by scipy.ndimage.distance_transform_edt on the frame grid and by

@@ -1,6 +1,6 @@
 // The frame ↔ screen mapping shared by the editor and the comparison view.
 //
-// Convention (DESIGN.md): the centre of the top-left frame pixel is (0, 0), so a frame of width
+// Convention (docs/conventions.md): the centre of the top-left frame pixel is (0, 0), so a frame of width
 // W spans x in [-0.5, W - 0.5]. The frame is drawn with its left edge at canvas CSS x = px and
 // each frame pixel z CSS pixels wide, so pixel i covers [px + i·z, px + (i+1)·z] and its centre
 // is at px + (i + 0.5)·z. Hence a canvas position cx is the frame point x = (cx − px)/z − 0.5.

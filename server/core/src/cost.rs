@@ -1283,7 +1283,7 @@ mod tests {
     use proptest::prelude::*;
     use serde_json::Value;
 
-    /// numpy / shapely / scipy evaluation of the DESIGN.md formulas; see
+    /// numpy / shapely / scipy evaluation of the cost formulas (docs/conventions.md); see
     /// tests/reference/gen_cost.py.
     const REFERENCE: &str = include_str!(concat!(
         env!("CARGO_MANIFEST_DIR"),
