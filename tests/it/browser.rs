@@ -424,6 +424,68 @@ async fn editor_end_to_end() {
         "{before} → {after}"
     );
 
+    // Each tool answers to the initial of its name; erasing is a visible toggle of the brush.
+    for (k, tool) in [
+        ("i", "region"),
+        ("w", "rigid"),
+        ("o", "mask"),
+        ("s", "inspect"),
+        ("p", "point"),
+    ] {
+        key(&a, k).await;
+        let pressed = js(
+            &a,
+            &format!(
+                "return document.querySelector('[data-tool={tool}]').getAttribute('aria-pressed');"
+            ),
+        )
+        .await;
+        assert_eq!(pressed, "true", "key {k} picks {tool}");
+    }
+    key(&a, "o").await;
+    let erase = "return document.getElementById('paint-erase').getAttribute('aria-pressed');";
+    assert_eq!(js(&a, erase).await, "false");
+    click(&a, "#paint-erase").await;
+    assert_eq!(
+        js(&a, erase).await,
+        "true",
+        "the Erase button turns erasing on"
+    );
+    key(&a, "e").await;
+    assert_eq!(js(&a, erase).await, "false", "E turns it off again");
+    key(&a, "s").await;
+
+    // `,` and `.` turn the selected object's targets about their centroid (Shift: 0.1°), and so
+    // do the buttons on its card. Angles in image coordinates: atan2(dy, dx), y down.
+    click(&a, ".term[data-index='3'] .term-pick").await;
+    let angle = |v: &serde_json::Value| -> f64 {
+        let pts: Vec<[f64; 2]> = (0..3)
+            .map(|k| [v[k][0].as_f64().unwrap(), v[k][1].as_f64().unwrap()])
+            .collect();
+        let c = [
+            pts.iter().map(|p| p[0]).sum::<f64>() / 3.0,
+            pts.iter().map(|p| p[1]).sum::<f64>() / 3.0,
+        ];
+        (pts[0][1] - c[1]).atan2(pts[0][0] - c[0]).to_degrees()
+    };
+    let targets = "return window.goalEditor.state.terms[3].targets;";
+    let t0 = angle(&js(&a, targets).await);
+    key(&a, ".").await;
+    let t1 = angle(&js(&a, targets).await);
+    assert!((t1 - t0 - 1.0).abs() < 0.1, "`.` turns by +1°: {t0} → {t1}");
+    key(&a, Key::Shift + ",").await;
+    let t2 = angle(&js(&a, targets).await);
+    assert!(
+        (t2 - t1 + 0.1).abs() < 0.05,
+        "Shift+, turns by −0.1°: {t1} → {t2}"
+    );
+    click(&a, ".term[data-index='3'] [data-turn='-1']").await;
+    let t3 = angle(&js(&a, targets).await);
+    assert!(
+        (t3 - t2 + 1.0).abs() < 0.1,
+        "the ⟲ button turns by −1°: {t2} → {t3}"
+    );
+
     // A second browser session on the same goal; the first saves revision 3 meanwhile.
     let b = browser(&driver, &work.path().join("b")).await;
     sign_in(&b, &s.base, "tamsin", "potting bench 1").await;
