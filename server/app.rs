@@ -11,6 +11,7 @@ use std::sync::Arc;
 use std::time::Duration;
 use tokio::net::TcpListener;
 use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
+use tower_http::set_header::SetResponseHeaderLayer;
 use tower_http::trace::TraceLayer;
 
 /// The whole application: API, pages and the layers around them.
@@ -18,7 +19,13 @@ pub fn app(state: AppState) -> Router {
     let request_id = HeaderName::from_static("x-request-id");
     api::router(state.clone())
         .merge(crate::pages::router())
-        .nest_service("/static", tower_http::services::ServeDir::new(static_dir()))
+        .nest_service(
+            "/static",
+            // A missing file gets the contract's error body, not an empty 404.
+            Router::new()
+                .fallback_service(tower_http::services::ServeDir::new(static_dir()))
+                .layer(axum::middleware::map_response(api::contract_errors)),
+        )
         .with_state(state)
         .layer(
             TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
@@ -35,6 +42,12 @@ pub fn app(state: AppState) -> Router {
                 tracing::info_span!("request", method = %req.method(), route, request_id = id)
             }),
         )
+        // Browsers must take every response as the type it says it is (no sniffing a JSON
+        // error or an uploaded image into something else).
+        .layer(SetResponseHeaderLayer::if_not_present(
+            axum::http::header::X_CONTENT_TYPE_OPTIONS,
+            axum::http::HeaderValue::from_static("nosniff"),
+        ))
         .layer(PropagateRequestIdLayer::new(request_id.clone()))
         .layer(SetRequestIdLayer::new(request_id, MakeRequestUuid))
 }

@@ -86,9 +86,35 @@ pub fn decode(
     max_alloc: u64,
 ) -> Result<image::DynamicImage, ImageRejection> {
     declared_size(bytes, format, max_side)?;
+    ends_whole(bytes, format)?;
     let mut r = reader(bytes, format);
     r.limits(limits(max_side, max_alloc));
     r.decode().map_err(map_err)
+}
+
+/// The decoders fill in what a cut-off file lacks (grey rows for a JPEG that stops early), so
+/// a frame must also hold its format's end marker: a JPEG the EOI marker FF D9 after its last
+/// start-of-scan FF DA (ITU-T T.81, B.2.1; an FF inside entropy-coded data is always followed
+/// by 00, so an FF D9 after the last scan is the real end, not a thumbnail's), a PNG its IEND
+/// chunk (PNG Specification, 11.2.5). Bytes after the marker, which some cameras append, are
+/// allowed.
+fn ends_whole(bytes: &[u8], format: ImageFormat) -> Result<(), ImageRejection> {
+    let last = |pat: &[u8]| bytes.windows(pat.len()).rposition(|w| w == pat);
+    let whole = match format {
+        ImageFormat::Jpeg => match (last(&[0xFF, 0xDA]), last(&[0xFF, 0xD9])) {
+            (Some(sos), Some(eoi)) => eoi > sos,
+            _ => false,
+        },
+        ImageFormat::Png => last(b"IEND").is_some(),
+        _ => true,
+    };
+    if whole {
+        Ok(())
+    } else {
+        Err(ImageRejection::Corrupt(
+            "the file ends before its end marker (cut off in transfer?)".into(),
+        ))
+    }
 }
 
 /// Decodes a base64 PNG mask: painted where luma ≥ 128 and alpha ≥ 128.

@@ -110,10 +110,25 @@ pub struct PointsBody {
 
 /// Predicted points (N, T, P, 2) from JSON `{"points": …}`, flattened, with (N, T).
 pub fn points_from_json(body: &[u8], p: usize) -> Result<(Vec<f64>, usize, usize), ScoreError> {
+    // One JSON object and nothing after it, as for every JSON body.
+    if body.iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
+        return Err(invalid(
+            "bad_json",
+            None,
+            "the body must be one JSON object {\"points\": …}",
+        ));
+    }
     let de = &mut serde_json::Deserializer::from_slice(body);
-    let parsed: PointsBody = serde_path_to_error::deserialize(de).map_err(|e| {
+    let parsed: PointsBody = serde_path_to_error::deserialize(&mut *de).map_err(|e| {
         let path = e.path().to_string();
         invalid("bad_json", Some(&path), e.into_inner().to_string())
+    })?;
+    de.end().map_err(|e| {
+        invalid(
+            "bad_json",
+            None,
+            format!("the body holds more after its JSON object: {e}"),
+        )
     })?;
     let n = parsed.points.len();
     let t = parsed.points.first().map_or(0, Vec::len);
@@ -400,6 +415,11 @@ pub fn cost_response(r: &CostResult) -> CostResponse {
     }
 }
 
+/// Largest |x| or |y| of a reported final position, pixels. A frame is at most 8192 px wide,
+/// so this leaves room for a source that left the view and still keeps every residual, its
+/// square and the team's mean far from overflow.
+pub const MAX_OUTCOME_COORD_PX: f64 = 1e6;
+
 /// How one final position of an outcome did.
 // Fields in alphabetical order: the key order of these bodies when they were built as a
 // `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
@@ -459,6 +479,17 @@ pub fn outcome(
                 "not_finite",
                 Some(&format!("final_points[{k}]")),
                 "coordinates must be finite numbers",
+            ));
+        }
+        if xy[0].abs() > MAX_OUTCOME_COORD_PX || xy[1].abs() > MAX_OUTCOME_COORD_PX {
+            return Err(invalid(
+                "out_of_range",
+                Some(&format!("final_points[{k}]")),
+                format!(
+                    "a final position must lie within {MAX_OUTCOME_COORD_PX} px of the frame's \
+                     origin; [{}, {}] is no position a camera saw",
+                    xy[0], xy[1]
+                ),
             ));
         }
         let d = model

@@ -198,11 +198,13 @@ impl FromRequestParts<AppState> for Principal {
             return from_session(parts, state).await;
         };
         let value = value.to_str().map_err(|_| ApiError::Unauthorized)?;
+        // The scheme name is case-insensitive (RFC 9110, 11.1): `Bearer`, `bearer`, `BEARER`.
         let token = value
-            .strip_prefix("Bearer ")
-            .or_else(|| value.strip_prefix("bearer "))
-            .ok_or(ApiError::Unauthorized)?
-            .trim();
+            .split_once(' ')
+            .filter(|(scheme, _)| scheme.eq_ignore_ascii_case("bearer"))
+            .map(|(_, t)| t.trim())
+            .filter(|t| !t.is_empty())
+            .ok_or(ApiError::Unauthorized)?;
         let row = store::teams::find_token(state.store.pool(), &hash_token(token))
             .await?
             .ok_or(ApiError::Unauthorized)?;

@@ -196,6 +196,8 @@ fn parse_intrinsics(v: Value, width: u32, height: u32) -> ApiResult<IntrinsicsDo
         Intrinsics::from_camera_info(ros.k, &ros.d, &ros.distortion_model)
             .map_err(|e| ApiError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?
     };
+    intr.check_plausible(width, height)
+        .map_err(|e| ApiError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?;
     Ok(IntrinsicsDoc {
         cx: intr.cx(),
         cy: intr.cy(),

@@ -67,9 +67,18 @@ where
 }
 
 /// Parses JSON with the path of the failing field in the error.
+///
+/// Strict: the body must be one JSON object (serde would also take an array for a struct, by
+/// position) with nothing after it but whitespace.
 pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
+    if bytes.iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
+        return Err(ApiError::invalid_body(
+            "bad_json",
+            "the body must be one JSON object {…}",
+        ));
+    }
     let de = &mut serde_json::Deserializer::from_slice(bytes);
-    serde_path_to_error::deserialize(de).map_err(|e| {
+    let value: T = serde_path_to_error::deserialize(&mut *de).map_err(|e| {
         let path = e.path().to_string();
         let inner = e.into_inner();
         let message = match inner.classify() {
@@ -87,5 +96,12 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
         } else {
             ApiError::invalid(code, path, message)
         }
-    })
+    })?;
+    de.end().map_err(|e| {
+        ApiError::invalid_body(
+            "bad_json",
+            format!("the body holds more after its JSON object: {e}"),
+        )
+    })?;
+    Ok(value)
 }

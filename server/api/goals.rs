@@ -68,12 +68,18 @@ pub fn if_match(headers: &HeaderMap, etag: &str) -> ApiResult<bool> {
     let Some(value) = headers.get(header::IF_MATCH) else {
         return Err(ApiError::PreconditionRequired);
     };
-    Ok(value
+    let tags: Vec<&str> = value
         .to_str()
         .unwrap_or("")
         .split(',')
         .map(str::trim)
-        .any(|t| t == "*" || t == etag))
+        .collect();
+    // `*` would let any number of writers through at once, each believing it saved on top of
+    // what it saw: a goal must be changed at a named revision, by that revision's ETag.
+    if tags.contains(&"*") {
+        return Err(ApiError::PreconditionRequired);
+    }
+    Ok(tags.contains(&etag))
 }
 
 /// Whether `If-None-Match` matches `etag` (so a 304 can be sent).

@@ -95,7 +95,7 @@ async fn caution_header(req: axum::extract::Request, next: axum::middleware::Nex
 
 /// Layers and the router itself answer some errors in plain text (405, a body over the
 /// `RequestBodyLimitLayer`, …). Rewrite those into the contract's JSON error body.
-async fn contract_errors(resp: Response) -> Response {
+pub async fn contract_errors(resp: Response) -> Response {
     let status = resp.status();
     let plain = resp
         .headers()

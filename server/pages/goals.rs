@@ -288,6 +288,9 @@ pub(super) struct RestoreForm {
     etag: String,
     #[serde(default)]
     note: String,
+    /// Present when the person ticked the box that takes a safety override on again.
+    #[serde(default)]
+    confirm_override: Option<String>,
 }
 
 /// `POST /goals/{id}/restore`: revision n becomes the content of a new revision, through the same
@@ -303,6 +306,21 @@ pub(super) async fn restore(
     let old = load_revision(&state, &signed.who, &id, Some(n)).await?;
     let doc: Value = serde_json::from_str(&old.document)
         .map_err(|e| PageError::internal(format!("revision unreadable: {e}")))?;
+    let history = format!("/goals/{}/history", old.goal_id);
+    // An override is a decision of the person who made it. Restoring such a revision makes a
+    // new revision under the restorer's name, so they must take the override on themselves.
+    let overrides = doc["override_safety"].as_bool().unwrap_or(false);
+    if overrides && form.confirm_override.as_deref() != Some("yes") {
+        return Ok(redirect_flash(
+            &history,
+            &format!(
+                "Revision {n} overrides the camera's safety zones. Nothing was restored: tick the \
+                 box beside its Restore button to take the override on under your name."
+            ),
+            true,
+            &headers,
+        ));
+    }
     let note = match form.note.trim() {
         "" => format!("restored revision {n}"),
         t => format!("restored revision {n}: {t}"),
@@ -318,7 +336,6 @@ pub(super) async fn restore(
     let document: GoalDocument = serde_json::from_value(body)
         .map_err(|e| PageError::internal(format!("old revision does not parse: {e}")))?;
     let mut put_headers = HeaderMap::new();
-    let history = format!("/goals/{}/history", old.goal_id);
     let Ok(v) = HeaderValue::from_str(&form.etag) else {
         return Ok(redirect_flash(
             &history,

@@ -11,6 +11,7 @@ mod export;
 mod goal_sets;
 mod openapi;
 mod pages;
+mod probe;
 mod restart;
 mod review;
 mod routes;

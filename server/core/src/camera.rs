@@ -40,6 +40,20 @@ pub enum CameraError {
         "distortion model {0:?} is not supported; use \"plumb_bob\" with D = [k1, k2, p1, p2, k3]"
     )]
     UnsupportedDistortionModel(String),
+    /// A value no real camera of this frame size has.
+    #[error("{field} = {value} is not a physical value for a {width}×{height} frame: {why}")]
+    Implausible {
+        /// Which value.
+        field: &'static str,
+        /// The value given.
+        value: f64,
+        /// Frame width.
+        width: u32,
+        /// Frame height.
+        height: u32,
+        /// The rule it breaks.
+        why: &'static str,
+    },
     /// D has the wrong number of coefficients.
     #[error("plumb_bob needs 5 distortion coefficients [k1, k2, p1, p2, k3] (or none), got {0}")]
     BadDistortionLength(usize),
@@ -171,6 +185,58 @@ impl Intrinsics {
             cy: finite(cy, "cy")?,
             distortion,
         })
+    }
+
+    /// Refuses intrinsics no real camera with a `width`×`height` frame has, so a typo such as
+    /// `fx: 1e308` is caught when the camera is registered instead of silently giving no 3-D
+    /// targets later. The bounds are generous: focal lengths from 10⁻³ to 10³ times the longer
+    /// side (fields of view from about 0.06° to nearly 180°), the principal point within one
+    /// frame size of the frame, and distortion coefficients of magnitude at most 10³ (fitted
+    /// values are usually well below 10). Rules of thumb (common practice), not a standard.
+    pub fn check_plausible(&self, width: u32, height: u32) -> Result<(), CameraError> {
+        let side = f64::from(width.max(height));
+        let bad = |field, value, why| CameraError::Implausible {
+            field,
+            value,
+            width,
+            height,
+            why,
+        };
+        for (field, f) in [("fx", self.fx), ("fy", self.fy)] {
+            if !(1e-3 * side..=1e3 * side).contains(&f) {
+                return Err(bad(
+                    field,
+                    f,
+                    "a focal length lies within 10⁻³ to 10³ times the longer side",
+                ));
+            }
+        }
+        let (w, h) = (f64::from(width), f64::from(height));
+        if !(-w..=2.0 * w).contains(&self.cx) {
+            return Err(bad(
+                "cx",
+                self.cx,
+                "the principal point lies within one frame width of the frame",
+            ));
+        }
+        if !(-h..=2.0 * h).contains(&self.cy) {
+            return Err(bad(
+                "cy",
+                self.cy,
+                "the principal point lies within one frame height of the frame",
+            ));
+        }
+        const NAMES: [&str; 5] = ["k1", "k2", "p1", "p2", "k3"];
+        for (v, name) in self.distortion.iter().zip(NAMES) {
+            if v.abs() > 1e3 {
+                return Err(bad(
+                    name,
+                    *v,
+                    "distortion coefficients are at most 10³ in size",
+                ));
+            }
+        }
+        Ok(())
     }
 
     /// From ROS CameraInfo fields: `k` row-major 3×3 `[fx 0 cx; 0 fy cy; 0 0 1]`, `d` the

@@ -430,13 +430,20 @@ impl Frame {
     }
 }
 
+/// Largest term weight. Weights are relative; this bound keeps a weighted cost of any position
+/// a planner can send (squared distances of up to 10^12 px², over hundreds of steps and
+/// points) far from floating-point overflow.
+pub const MAX_WEIGHT: f64 = 1e6;
+/// Largest tolerance radius, pixels: larger than any frame's diagonal.
+pub const MAX_TOLERANCE_PX: f64 = 1e5;
+
 fn check_weight(weight: Option<f64>, field: String) -> Result<f64, GoalError> {
     let w = weight.unwrap_or(DEFAULT_WEIGHT);
-    if !w.is_finite() || w < 0.0 {
+    if !w.is_finite() || !(0.0..=MAX_WEIGHT).contains(&w) {
         return Err(GoalError::new(
             "bad_weight",
             field,
-            "weight must be a finite number ≥ 0",
+            format!("weight must be a number from 0 to {MAX_WEIGHT}"),
         ));
     }
     Ok(w)
@@ -444,11 +451,11 @@ fn check_weight(weight: Option<f64>, field: String) -> Result<f64, GoalError> {
 
 fn check_tolerance(tol: Option<f64>, field: String) -> Result<f64, GoalError> {
     let t = tol.unwrap_or(DEFAULT_TOLERANCE_PX);
-    if !t.is_finite() || t <= 0.0 {
+    if !t.is_finite() || t <= 0.0 || t > MAX_TOLERANCE_PX {
         return Err(GoalError::new(
             "bad_tolerance",
             field,
-            "tolerance_px must be a finite number > 0",
+            format!("tolerance_px must be a number > 0 and at most {MAX_TOLERANCE_PX}"),
         ));
     }
     Ok(t)
