@@ -322,17 +322,7 @@ impl<'a> NpyArray<'a> {
 pub fn read(bytes: &[u8], max_bytes: usize) -> Result<NpyArray<'_>, NpyError> {
     let header = parse_header(bytes, max_bytes)?;
     let raw = &bytes[header.data_offset..header.data_offset + header.data_len];
-    let data = match header.dtype {
-        Dtype::F16 => NpyData::F16(view_or_copy(raw, |b| {
-            f16::from_bits(u16::from_le_bytes([b[0], b[1]]))
-        })),
-        Dtype::F32 => NpyData::F32(view_or_copy(raw, |b| {
-            f32::from_le_bytes([b[0], b[1], b[2], b[3]])
-        })),
-        Dtype::F64 => NpyData::F64(view_or_copy(raw, |b| {
-            f64::from_le_bytes([b[0], b[1], b[2], b[3], b[4], b[5], b[6], b[7]])
-        })),
-    };
+    let data = data(header.dtype, raw)?;
     Ok(NpyArray { header, data })
 }
 
