@@ -106,12 +106,20 @@ pub(super) async fn signin(
     let next = safe_next(&form.next).to_string();
     state.security.sign_in_attempt(&login, &client)?;
     let person = store::accounts::find_person_by_login(state.store.pool(), &login).await?;
-    let ok = verify_password(
+    let ok = match verify_password(
         &state,
         form.password,
         person.as_ref().map(|p| p.password_hash.clone()),
     )
-    .await?;
+    .await
+    {
+        Ok(ok) => ok,
+        Err(busy @ PageError::Busy { .. }) => {
+            state.security.attempt_not_run(&login, &client);
+            return Err(busy);
+        }
+        Err(e) => return Err(e),
+    };
     let back = format!("/signin?next={}", super::error::percent_encode(&next));
     let Some(person) = person.filter(|_| ok) else {
         tracing::info!(login = %login, "sign-in refused");
@@ -341,7 +349,15 @@ pub(super) async fn change_password(
         .await?
         .ok_or_else(|| PageError::internal("signed-in person vanished"))?;
     state.security.sign_in_attempt(&person.login, &client)?;
-    if !verify_password(&state, form.current, Some(person.password_hash)).await? {
+    let right = match verify_password(&state, form.current, Some(person.password_hash)).await {
+        Ok(right) => right,
+        Err(busy @ PageError::Busy { .. }) => {
+            state.security.attempt_not_run(&person.login, &client);
+            return Err(busy);
+        }
+        Err(e) => return Err(e),
+    };
+    if !right {
         return fail("The current password is not right.");
     }
     state.security.signed_in(&person.login);

@@ -48,6 +48,10 @@ impl Throttle {
     /// Seconds until `key` may have another event, or `None` when it may now.
     pub fn blocked(&mut self, key: &str, now: Instant) -> Option<u64> {
         let window = self.window;
+        if self.limit == 0 {
+            // A limit of 0 allows nothing, not even a first event.
+            return Some(window.as_secs().max(1));
+        }
         let events = self.keys.get_mut(key)?;
         while events
             .front()
@@ -79,6 +83,13 @@ impl Throttle {
             events.pop_front();
         }
         Ok(())
+    }
+
+    /// Takes back the newest event of `key` (an attempt that never ran).
+    pub fn undo(&mut self, key: &str) {
+        if let Some(events) = self.keys.get_mut(key) {
+            events.pop_back();
+        }
     }
 
     /// Forgets `key` (a successful sign-in clears its login's failures).
@@ -189,6 +200,17 @@ impl Security {
         }
         addresses.hit(&client.0, now).map_err(too_many)?;
         logins.hit(&key, now).map_err(too_many)
+    }
+
+    /// An attempt recorded by [`Self::sign_in_attempt`] that never checked a password (every
+    /// hashing slot was taken): it does not count against the login or the address.
+    pub fn attempt_not_run(&self, login: &str, client: &ClientAddr) {
+        if let Ok(mut addresses) = self.addresses.lock() {
+            addresses.undo(&client.0);
+        }
+        if let Ok(mut logins) = self.logins.lock() {
+            logins.undo(&login_key(login));
+        }
     }
 
     /// A successful sign-in: the login's failures are forgotten.
@@ -407,6 +429,9 @@ mod tests {
         let retry = t.hit("a", t0).expect_err("third within the window");
         assert_eq!(retry, 60);
         assert!(t.hit("b", t0).is_ok(), "other keys are separate");
+        t.undo("a");
+        assert!(t.hit("a", t0).is_ok(), "an undone event does not count");
+        assert!(t.hit("a", t0).is_err());
         assert!(t.hit("a", t0 + Duration::from_secs(60)).is_ok());
         t.clear("a");
         assert!(t.blocked("a", t0).is_none());
