@@ -70,6 +70,10 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
         store,
         limits: Arc::new(config.limits.clone()),
         models: Arc::default(),
+        security: Arc::new(crate::pages::security::Security::new(
+            &config.limits.signin,
+            config.public_url.clone(),
+        )?),
     };
     Ok(state)
 }
@@ -80,6 +84,7 @@ pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>
     let state = prepare(&config).await?;
     let listener = TcpListener::bind(&config.bind).await?;
     let addr = listener.local_addr()?;
+    state.security.set_bound(addr);
     let demo_team = if config.demo {
         crate::demo::load(&state).await?
     } else {
@@ -92,7 +97,12 @@ pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>
         eprintln!("{lines}");
     }
     let store = state.store.clone();
-    let server = axum::serve(listener, app(state)).with_graceful_shutdown(shutdown_signal());
+    // With the peer address on each request: the sign-in throttle counts attempts per client.
+    let server = axum::serve(
+        listener,
+        app(state).into_make_service_with_connect_info::<std::net::SocketAddr>(),
+    )
+    .with_graceful_shutdown(shutdown_signal());
     server.await?;
     tracing::info!("stopped accepting; in-flight requests finished");
     tokio::time::timeout(Duration::from_secs(5), store.close())

@@ -1,7 +1,7 @@
 //! Command-line interface: `serve`, `token create`, and the tools for planners.
 
 use crate::api::auth::{self, Role};
-use crate::config::{Limits, ServeConfig, default_database_url};
+use crate::config::{Limits, ServeConfig, SignInLimits, check_public_url, default_database_url};
 use crate::store::Store;
 use clap::{Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -36,6 +36,47 @@ impl DbArgs {
     }
 }
 
+/// Sign-in throttle settings. Hidden: the defaults (see [`SignInLimits`]) are the documented
+/// behaviour, and these exist so tests can reach the limits with a few requests.
+#[derive(clap::Args, Clone)]
+struct SignInArgs {
+    #[arg(long, hide = true)]
+    signin_window_s: Option<u64>,
+    #[arg(long, hide = true)]
+    signin_failures_per_login: Option<usize>,
+    #[arg(long, hide = true)]
+    signin_attempts_per_address: Option<usize>,
+    #[arg(long, hide = true)]
+    password_hashes_at_once: Option<usize>,
+    #[arg(long, hide = true)]
+    password_hash_queue: Option<usize>,
+    #[arg(long, hide = true)]
+    password_hash_wait_ms: Option<u64>,
+}
+
+impl SignInArgs {
+    fn limits(&self) -> SignInLimits {
+        let d = SignInLimits::default();
+        SignInLimits {
+            window_s: self.signin_window_s.unwrap_or(d.window_s),
+            failures_per_login: self
+                .signin_failures_per_login
+                .unwrap_or(d.failures_per_login),
+            attempts_per_address: self
+                .signin_attempts_per_address
+                .unwrap_or(d.attempts_per_address),
+            tracked_keys: d.tracked_keys,
+            // At least one slot, or nobody could ever sign in.
+            hashes_at_once: self
+                .password_hashes_at_once
+                .unwrap_or(d.hashes_at_once)
+                .max(1),
+            hash_queue: self.password_hash_queue.unwrap_or(d.hash_queue),
+            hash_wait_ms: self.password_hash_wait_ms.unwrap_or(d.hash_wait_ms),
+        }
+    }
+}
+
 #[derive(Subcommand)]
 enum Command {
     /// Run the HTTP server
@@ -48,6 +89,12 @@ enum Command {
         /// Load the demo scenario (a greenhouse potting bench) into an empty database
         #[arg(long)]
         demo: bool,
+        /// The address people reach the server at (e.g. https://goals.example.org), used for
+        /// invite and start-up links; default: the address it listens on
+        #[arg(long, env = "GOALSMITH_PUBLIC_URL")]
+        public_url: Option<String>,
+        #[command(flatten)]
+        signin: SignInArgs,
     },
     /// Manage API tokens
     Token {
@@ -168,15 +215,32 @@ pub fn main() -> ExitCode {
     let cli = Cli::parse();
     init_logs();
     let result: Result<(), Box<dyn std::error::Error>> = match cli.command {
-        Command::Serve { bind, db, demo } => runtime().map_err(Into::into).and_then(|rt| {
-            rt.block_on(crate::app::serve(ServeConfig {
-                bind,
-                database_url: db.url(),
-                data_dir: db.data_dir.clone(),
-                demo,
-                limits: Limits::default(),
-            }))
-        }),
+        Command::Serve {
+            bind,
+            db,
+            demo,
+            public_url,
+            signin,
+        } => public_url
+            .as_deref()
+            .map(check_public_url)
+            .transpose()
+            .map_err(Into::into)
+            .and_then(|public_url| {
+                let config = ServeConfig {
+                    bind,
+                    database_url: db.url(),
+                    data_dir: db.data_dir.clone(),
+                    demo,
+                    limits: Limits {
+                        signin: signin.limits(),
+                        ..Limits::default()
+                    },
+                    public_url,
+                };
+                let rt = runtime()?;
+                rt.block_on(crate::app::serve(config))
+            }),
         Command::Token {
             command:
                 TokenCommand::Create {

@@ -15,6 +15,46 @@ pub struct Limits {
     pub max_image_side: u32,
     /// Most memory one image decode may allocate.
     pub max_decode_bytes: u64,
+    /// Sign-in throttle and password-hashing bounds.
+    pub signin: SignInLimits,
+}
+
+/// How hard the sign-in form may be pushed. The defaults are documented in README.md
+/// ("Sign-in limits"); the `serve` flags that change them are hidden because only tests need them.
+#[derive(Debug, Clone)]
+pub struct SignInLimits {
+    /// The sliding window both counts below refer to, in seconds (default 900 = 15 minutes).
+    pub window_s: u64,
+    /// Failed sign-ins for one login within the window before that login is refused with 429
+    /// (default 5). A success clears the count.
+    pub failures_per_login: usize,
+    /// Sign-in attempts (right or wrong) from one client address within the window before that
+    /// address is refused with 429 (default 20).
+    pub attempts_per_address: usize,
+    /// Logins and addresses tracked at most; beyond that the oldest are forgotten, so a flood of
+    /// invented logins cannot grow memory without bound (default 10 000 each).
+    pub tracked_keys: usize,
+    /// Password hashes (argon2, ~19 MB each) running at once (default 2, the cores we plan for).
+    pub hashes_at_once: usize,
+    /// Requests allowed to wait for a hashing slot; more are answered 503 at once (default 16).
+    pub hash_queue: usize,
+    /// How long a request waits for a hashing slot before it is answered 503, in milliseconds
+    /// (default 2000).
+    pub hash_wait_ms: u64,
+}
+
+impl Default for SignInLimits {
+    fn default() -> Self {
+        Self {
+            window_s: 900,
+            failures_per_login: 5,
+            attempts_per_address: 20,
+            tracked_keys: 10_000,
+            hashes_at_once: 2,
+            hash_queue: 16,
+            hash_wait_ms: 2000,
+        }
+    }
 }
 
 impl Default for Limits {
@@ -25,6 +65,7 @@ impl Default for Limits {
             cost_body_bytes: 1 << 30,
             max_image_side: 8192,
             max_decode_bytes: 512 << 20,
+            signin: SignInLimits::default(),
         }
     }
 }
@@ -42,6 +83,33 @@ pub struct ServeConfig {
     pub demo: bool,
     /// Request limits.
     pub limits: Limits,
+    /// The address people reach the server at (`https://goals.example.org`), for the links it
+    /// hands out; `None` means the address it listens on.
+    pub public_url: Option<String>,
+}
+
+/// Checks a `--public-url`: an absolute `http` or `https` URL of a host, without query or
+/// fragment; returned without a trailing `/` so paths can be appended.
+pub fn check_public_url(raw: &str) -> Result<String, String> {
+    let url = raw.trim().trim_end_matches('/');
+    let rest = url
+        .strip_prefix("https://")
+        .or_else(|| url.strip_prefix("http://"))
+        .ok_or_else(|| format!("--public-url {raw:?} must start with http:// or https://"))?;
+    let host = rest.split('/').next().unwrap_or("");
+    let fine = |c: char| c.is_ascii_alphanumeric() || matches!(c, '.' | '-' | ':' | '[' | ']');
+    if host.is_empty() || !host.chars().all(fine) {
+        return Err(format!("--public-url {raw:?} has no usable host"));
+    }
+    if rest
+        .chars()
+        .any(|c| matches!(c, '?' | '#' | '\\') || c.is_whitespace() || c.is_control())
+    {
+        return Err(format!(
+            "--public-url {raw:?} may hold a host and a path only"
+        ));
+    }
+    Ok(url.to_string())
 }
 
 /// The default database URL for a data directory.

@@ -36,6 +36,8 @@ pub struct AppState {
     pub limits: Arc<Limits>,
     /// Checked goals and cost models of recently scored revisions (revisions never change).
     pub models: Arc<export::ModelCache>,
+    /// Sign-in throttles, the password-hash bound, the form-token key and the link base.
+    pub security: Arc<crate::pages::security::Security>,
 }
 
 /// The API router, built from [`routes::table`]; `app` adds pages, static files and the layers

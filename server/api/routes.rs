@@ -305,6 +305,10 @@ mod tests {
             store,
             limits: Arc::default(),
             models: Arc::default(),
+            security: Arc::new(
+                crate::pages::security::Security::new(&Default::default(), None)
+                    .expect("security state"),
+            ),
         });
         let rows = table();
         let mut paths: Vec<&str> = rows.iter().map(|r| r.path).collect();

@@ -2,6 +2,7 @@
 
 use super::error::{PageError, safe_next};
 use super::render::{Chrome, ok, page, redirect, redirect_flash};
+use super::security::ClientAddr;
 use super::session::{
     CsrfForm, MIN_PASSWORD_CHARS, PreForm, SET_COOKIE, Signed, clear_session_cookie, form_cookie,
     hash_password, start_session, verify_password,
@@ -68,7 +69,7 @@ pub(super) async fn signin_form(
     if auth::session_of(&headers, &state).await?.is_some() {
         return Ok(redirect(&next));
     }
-    let (cookie, form_token) = form_cookie(&headers)?;
+    let (cookie, form_token) = form_cookie(&state, &headers)?;
     let page = SignInPage {
         chrome: Chrome::anonymous(&headers),
         form_token,
@@ -85,20 +86,40 @@ pub(super) struct SignInForm {
     next: String,
 }
 
-/// `POST /signin`.
+/// Ends the session the browser's cookie names, if any: signing in (or joining a team) always
+/// starts a new session rather than carrying on one the browser already had.
+async fn end_current_session(state: &AppState, headers: &HeaderMap) -> Result<(), PageError> {
+    if let Some(old) = auth::session_of(headers, state).await? {
+        store::accounts::delete_session(state.store.pool(), &old.id).await?;
+    }
+    Ok(())
+}
+
+/// `POST /signin`: throttled per login and per client address (429 before any hashing).
 pub(super) async fn signin(
     State(state): State<AppState>,
     headers: HeaderMap,
+    client: ClientAddr,
     PreForm(form): PreForm<SignInForm>,
 ) -> Result<Response, PageError> {
     let login = form.login.trim().to_lowercase();
     let next = safe_next(&form.next).to_string();
+    state.security.sign_in_attempt(&login, &client)?;
     let person = store::accounts::find_person_by_login(state.store.pool(), &login).await?;
-    let ok = verify_password(
+    let ok = match verify_password(
+        &state,
         form.password,
         person.as_ref().map(|p| p.password_hash.clone()),
     )
-    .await?;
+    .await
+    {
+        Ok(ok) => ok,
+        Err(busy @ PageError::Busy { .. }) => {
+            state.security.attempt_not_run(&login, &client);
+            return Err(busy);
+        }
+        Err(e) => return Err(e),
+    };
     let back = format!("/signin?next={}", super::error::percent_encode(&next));
     let Some(person) = person.filter(|_| ok) else {
         tracing::info!(login = %login, "sign-in refused");
@@ -109,6 +130,7 @@ pub(super) async fn signin(
             &headers,
         ));
     };
+    state.security.signed_in(&login);
     let teams = store::accounts::memberships_of(state.store.pool(), &person.id).await?;
     let Some(team) = teams.first() else {
         return Ok(redirect_flash(
@@ -118,8 +140,9 @@ pub(super) async fn signin(
             &headers,
         ));
     };
-    let cookie = start_session(&state, &person.id, &team.team_id, &headers).await?;
-    Ok(with_cookie(redirect(&next), &cookie))
+    end_current_session(&state, &headers).await?;
+    let session = start_session(&state, &person.id, &team.team_id, &headers).await?;
+    Ok(with_cookie(redirect(&next), &session.cookie))
 }
 
 /// `POST /signout`.
@@ -155,7 +178,7 @@ pub(super) async fn welcome_form(
     let current = auth::session_of(&headers, &state)
         .await?
         .map(|s| s.display_name);
-    let (cookie, form_token) = form_cookie(&headers)?;
+    let (cookie, form_token) = form_cookie(&state, &headers)?;
     let page = WelcomePage {
         chrome: Chrome::anonymous(&headers),
         form_token,
@@ -259,7 +282,7 @@ pub(super) async fn welcome(
                  join with your account.",
             );
         }
-        let hash = hash_password(form.password).await?;
+        let hash = hash_password(&state, form.password).await?;
         match store::accounts::accept_invite(
             state.store.pool(),
             &invite.id,
@@ -280,14 +303,15 @@ pub(super) async fn welcome(
             "This invitation link was used a moment ago by someone else.".into(),
         ));
     };
-    let cookie = start_session(&state, &person_id, &invite.team_id, &headers).await?;
+    end_current_session(&state, &headers).await?;
+    let session = start_session(&state, &person_id, &invite.team_id, &headers).await?;
     let text = format!(
         "Welcome to {}. You are {} of this team.",
         invite.team_name,
         with_article(&invite.role)
     );
     let resp = redirect_flash("/", &text, false, &headers);
-    Ok(with_cookie(resp, &cookie))
+    Ok(with_cookie(resp, &session.cookie))
 }
 
 /// `GET /account`.
@@ -311,31 +335,46 @@ pub(super) struct PasswordForm {
     password_again: String,
 }
 
-/// `POST /account/password`: needs the current password; ends the person's other sessions.
+/// `POST /account/password`: needs the current password (throttled like sign-in, so a borrowed
+/// session cannot guess it); ends all the person's sessions, this one included, and continues
+/// in a new one with a new cookie.
 pub(super) async fn change_password(
     State(state): State<AppState>,
     headers: HeaderMap,
+    client: ClientAddr,
     CsrfForm { signed, form }: CsrfForm<PasswordForm>,
 ) -> Result<Response, PageError> {
     let fail = |m: &str| Ok(redirect_flash("/account", m, true, &headers));
     let person = store::accounts::get_person(state.store.pool(), &signed.info.person_id)
         .await?
         .ok_or_else(|| PageError::internal("signed-in person vanished"))?;
-    if !verify_password(form.current, Some(person.password_hash)).await? {
+    state.security.sign_in_attempt(&person.login, &client)?;
+    let right = match verify_password(&state, form.current, Some(person.password_hash)).await {
+        Ok(right) => right,
+        Err(busy @ PageError::Busy { .. }) => {
+            state.security.attempt_not_run(&person.login, &client);
+            return Err(busy);
+        }
+        Err(e) => return Err(e),
+    };
+    if !right {
         return fail("The current password is not right.");
     }
+    state.security.signed_in(&person.login);
     if let Err(m) = check_new_password(&form.password, &form.password_again) {
         return fail(&m);
     }
-    let hash = hash_password(form.password).await?;
+    let hash = hash_password(&state, form.password).await?;
     store::accounts::set_password(state.store.pool(), &person.id, &hash).await?;
-    store::accounts::delete_other_sessions(state.store.pool(), &person.id, &signed.info.id).await?;
-    Ok(redirect_flash(
+    let session = start_session(&state, &person.id, &signed.info.team_id, &headers).await?;
+    store::accounts::delete_other_sessions(state.store.pool(), &person.id, &session.id).await?;
+    let resp = redirect_flash(
         "/account",
         "Password changed. Other browsers signed in as you were signed out.",
         false,
         &headers,
-    ))
+    );
+    Ok(with_cookie(resp, &session.cookie))
 }
 
 #[derive(Deserialize)]

@@ -25,6 +25,18 @@ pub enum PageError {
     UnsupportedMediaType(String),
     /// Any other refusal of the API layer, kept with its status.
     Api(StatusCode, String),
+    /// 429 with `Retry-After`: too many sign-in attempts.
+    TooMany {
+        /// What to tell the person.
+        message: String,
+        /// Seconds until the next attempt may succeed.
+        retry_after_s: u64,
+    },
+    /// 503 with `Retry-After`: every password-hashing slot is taken.
+    Busy {
+        /// Seconds to wait before trying again.
+        retry_after_s: u64,
+    },
     /// 500; the detail goes to the log only.
     Internal(String),
 }
@@ -57,13 +69,38 @@ impl From<crate::store::StoreError> for PageError {
 }
 
 /// Only local paths are followed after sign-in, so a crafted link cannot bounce a person to
-/// another site.
+/// another site; anything else becomes the home page.
 pub fn safe_next(next: &str) -> &str {
-    if next.starts_with('/') && !next.starts_with("//") && !next.contains('\\') {
-        next
-    } else {
-        "/"
+    if is_local_path(next) { next } else { "/" }
+}
+
+/// A path on this site: starts with exactly one `/`, and stays so however often it is
+/// percent-decoded. Browsers drop tabs and newlines and read `\` as `/` in a `Location`, so
+/// `/\t/evil` or `/\\evil` would become `//evil`, another host; such values are refused rather
+/// than cleaned up. Printable ASCII only, so the value is also safe in a header.
+fn is_local_path(next: &str) -> bool {
+    if !next.bytes().all(|b| (0x21..=0x7e).contains(&b)) {
+        return false;
     }
+    let mut current = std::borrow::Cow::Borrowed(next);
+    // Three rounds cover a value encoded twice over; one that still changes is refused.
+    for _ in 0..3 {
+        let bad = !current.starts_with('/')
+            || current.starts_with("//")
+            || current.contains('\\')
+            || current.chars().any(|c| c.is_control() || c.is_whitespace());
+        if bad {
+            return false;
+        }
+        let decoded = percent_encoding::percent_decode_str(&current)
+            .decode_utf8_lossy()
+            .into_owned();
+        if decoded == current {
+            return true;
+        }
+        current = std::borrow::Cow::Owned(decoded);
+    }
+    false
 }
 
 impl IntoResponse for PageError {
@@ -89,6 +126,26 @@ impl IntoResponse for PageError {
                 (StatusCode::UNSUPPORTED_MEDIA_TYPE, "Wrong kind of file", m)
             }
             PageError::Api(status, m) => (status, "That did not work", m),
+            PageError::TooMany {
+                message,
+                retry_after_s,
+            } => {
+                return with_retry_after(
+                    StatusCode::TOO_MANY_REQUESTS,
+                    "Too many attempts",
+                    message,
+                    retry_after_s,
+                );
+            }
+            PageError::Busy { retry_after_s } => {
+                return with_retry_after(
+                    StatusCode::SERVICE_UNAVAILABLE,
+                    "Busy",
+                    "The server is checking many passwords right now. Try again in a moment."
+                        .into(),
+                    retry_after_s,
+                );
+            }
             PageError::Internal(detail) => {
                 tracing::error!(%detail, "page failed");
                 (
@@ -110,6 +167,21 @@ impl IntoResponse for PageError {
     }
 }
 
+fn with_retry_after(status: StatusCode, title: &'static str, message: String, s: u64) -> Response {
+    let mut resp = render(
+        status,
+        &ErrorPage {
+            chrome: Default::default(),
+            status: status.as_u16(),
+            title,
+            message,
+        },
+    );
+    resp.headers_mut()
+        .insert(header::RETRY_AFTER, HeaderValue::from(s));
+    resp
+}
+
 /// Percent-encodes everything but unreserved characters (for a query value).
 pub fn percent_encode(s: &str) -> String {
     let mut out = String::with_capacity(s.len());
@@ -121,4 +193,35 @@ pub fn percent_encode(s: &str) -> String {
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::safe_next;
+
+    #[test]
+    fn next_keeps_local_paths_only() {
+        for bad in [
+            "//evil.example",
+            "/\\evil.example",
+            "/\t/evil.example",
+            "/%09/evil.example",
+            "/%2F/evil.example",
+            "/%2f/evil.example",
+            "/%252F/evil.example",
+            "%2F%2Fevil.example",
+            "https://evil.example",
+            "javascript:alert(1)",
+            " /x",
+            "/x%0d%0aSet-Cookie:a=b",
+            "/x\r\nSet-Cookie:a=b",
+            "/%5Cevil.example",
+            "",
+        ] {
+            assert_eq!(safe_next(bad), "/", "{bad:?}");
+        }
+        for good in ["/", "/goals/abc?x=1", "/team", "/?q=pot"] {
+            assert_eq!(safe_next(good), good);
+        }
+    }
 }

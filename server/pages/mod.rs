@@ -13,6 +13,7 @@ pub mod goals;
 pub mod home;
 
 pub mod render;
+pub mod security;
 pub mod session;
 pub mod sets;
 pub mod team;
@@ -159,18 +160,11 @@ pub async fn startup_link(
         },
     )
     .await?;
-    // A server bound to all interfaces is still reachable on loopback; print an address a
-    // browser on the same machine can open.
-    let host = if addr.ip().is_unspecified() {
-        match addr {
-            SocketAddr::V4(_) => format!("127.0.0.1:{}", addr.port()),
-            SocketAddr::V6(_) => format!("[::1]:{}", addr.port()),
-        }
-    } else {
-        addr.to_string()
-    };
+    // The public URL when configured, else an address a browser on this machine can open.
+    state.security.set_bound(addr);
+    let base = state.security.link_base(None);
     Ok(Some(format!(
-        "sign in as the first owner of team {:?}: http://{host}/welcome/{secret}\n\
+        "sign in as the first owner of team {:?}: {base}/welcome/{secret}\n\
          (one-time link, valid {STARTUP_LINK_HOURS} h; a restart prints a new one while no account exists)",
         team.1
     )))

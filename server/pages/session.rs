@@ -17,10 +17,14 @@ pub const FORM_COOKIE: &str = "gs_form";
 /// Shortest password accepted.
 pub const MIN_PASSWORD_CHARS: usize = 10;
 
-/// Hashes a password with argon2id (the crate's defaults follow the OWASP minimum). CPU-bound:
-/// called on the blocking pool.
-pub async fn hash_password(password: String) -> Result<String, PageError> {
+/// Hashes a password with argon2id (the crate's defaults follow the OWASP minimum). CPU-bound
+/// and ~19 MB each: runs on the blocking pool, in one of the few hashing slots (503 when none
+/// frees up soon). The slot moves into the task, so it stays taken until the hash is done even
+/// when the client gives up.
+pub async fn hash_password(state: &AppState, password: String) -> Result<String, PageError> {
+    let slot = state.security.hash_slot().await?;
     tokio::task::spawn_blocking(move || {
+        let _slot = slot;
         let mut salt = [0u8; 16];
         getrandom::fill(&mut salt)
             .map_err(|e| PageError::internal(format!("no randomness: {e}")))?;
@@ -40,8 +44,15 @@ pub async fn hash_password(password: String) -> Result<String, PageError> {
 const DUMMY_HASH: &str = "$argon2id$v=19$m=19456,t=2,p=1$c29tZXNhbHRzb21lc2FsdA$2pZmnrZ3zcVQ5Jlj9CVNSu0s1vGBj0Fo1T5kFfMMpEM";
 
 /// Checks a password against a stored hash (or the dummy hash when `hash` is `None`).
-pub async fn verify_password(password: String, hash: Option<String>) -> Result<bool, PageError> {
+/// Runs like [`hash_password`], in a hashing slot.
+pub async fn verify_password(
+    state: &AppState,
+    password: String,
+    hash: Option<String>,
+) -> Result<bool, PageError> {
+    let slot = state.security.hash_slot().await?;
     tokio::task::spawn_blocking(move || {
+        let _slot = slot;
         let known = hash.is_some();
         let stored = hash.unwrap_or_else(|| DUMMY_HASH.to_string());
         let parsed = PasswordHash::new(&stored)
@@ -81,17 +92,26 @@ pub fn set_cookie(name: &str, value: &str, max_age_s: i64, headers: &HeaderMap) 
     format!("{name}={value}; Path=/; Max-Age={max_age_s}; HttpOnly; SameSite=Strict{secure}")
 }
 
-/// Starts a session for a person in a team; returns the `Set-Cookie` value.
+/// A session just started: its `Set-Cookie` value and its id.
+pub struct NewSession {
+    /// The `Set-Cookie` header value.
+    pub cookie: String,
+    /// The session's id, to keep it when ending the person's others.
+    pub id: String,
+}
+
+/// Starts a session for a person in a team, always with a new random secret (so a cookie planted
+/// before sign-in is never the one in use after it).
 pub async fn start_session(
     state: &AppState,
     person_id: &str,
     team_id: &str,
     headers: &HeaderMap,
-) -> Result<String, PageError> {
+) -> Result<NewSession, PageError> {
     let secret = random_secret()?;
     let csrf = random_secret()?;
     let max_age = SESSION_DAYS * 24 * 3600;
-    store::accounts::create_session(
+    let id = store::accounts::create_session(
         state.store.pool(),
         &store::accounts::NewSession {
             token_hash: &auth::hash_token(&secret),
@@ -102,7 +122,10 @@ pub async fn start_session(
         },
     )
     .await?;
-    Ok(set_cookie(SESSION_COOKIE, &secret, max_age, headers))
+    Ok(NewSession {
+        cookie: set_cookie(SESSION_COOKIE, &secret, max_age, headers),
+        id,
+    })
 }
 
 /// A signed-in person. Pages that need one take this extractor; without a live session the
@@ -188,7 +211,9 @@ impl<T: DeserializeOwned> FromRequest<AppState> for CsrfForm<T> {
     }
 }
 
-/// A form posted before sign-in (sign-in, welcome): checked against the form cookie instead.
+/// A form posted before sign-in (sign-in, welcome): its `csrf` field must equal the form cookie
+/// (double-submit) and be a token this server issued and that has not expired, so a client
+/// cannot pass the check with a cookie and field it made up.
 pub struct PreForm<T>(pub T);
 
 impl<T: DeserializeOwned> FromRequest<AppState> for PreForm<T> {
@@ -196,6 +221,7 @@ impl<T: DeserializeOwned> FromRequest<AppState> for PreForm<T> {
 
     async fn from_request(req: Request, state: &AppState) -> Result<Self, Self::Rejection> {
         let expected = auth::cookie(req.headers(), FORM_COOKIE)
+            .filter(|v| state.security.form_token_age(v).is_some())
             .unwrap_or("")
             .to_string();
         let bytes = read_form(req, state).await?;
@@ -224,14 +250,14 @@ async fn read_form(req: Request, state: &AppState) -> Result<axum::body::Bytes, 
     Ok(crate::api::extract::read_body(req, state).await?)
 }
 
-/// The form cookie and its value for a page that shows a pre-session form.
-pub fn form_cookie(headers: &HeaderMap) -> Result<(String, String), PageError> {
-    // Keep the value the browser already has, so two open sign-in tabs both work.
-    let value = match auth::cookie(headers, FORM_COOKIE) {
-        Some(v) if v.len() == 64 && v.bytes().all(|b| b.is_ascii_hexdigit()) => v.to_string(),
-        _ => random_secret()?,
-    };
-    Ok((set_cookie(FORM_COOKIE, &value, 3600, headers), value))
+/// The form cookie and its value for a page that shows a pre-session form: the browser's own
+/// while it is one we issued recently (so two open sign-in tabs both work), else a new one.
+pub fn form_cookie(state: &AppState, headers: &HeaderMap) -> Result<(String, String), PageError> {
+    let (value, max_age) = state
+        .security
+        .form_token_for(auth::cookie(headers, FORM_COOKIE))?;
+    let max_age = i64::try_from(max_age).unwrap_or(3600);
+    Ok((set_cookie(FORM_COOKIE, &value, max_age, headers), value))
 }
 
 /// `Set-Cookie` that removes the session cookie.

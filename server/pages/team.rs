@@ -128,23 +128,6 @@ fn parse_role(raw: &str) -> Result<Role, PageError> {
     Role::parse(raw).ok_or_else(|| PageError::BadRequest(format!("{raw:?} is not a role")))
 }
 
-fn host_of(headers: &HeaderMap) -> String {
-    let host = headers
-        .get(axum::http::header::HOST)
-        .and_then(|v| v.to_str().ok())
-        .filter(|h| {
-            h.chars()
-                .all(|c| c.is_ascii_alphanumeric() || matches!(c, '.' | '-' | ':' | '[' | ']'))
-        })
-        .unwrap_or("localhost");
-    let scheme = if super::session::over_tls(headers) {
-        "https"
-    } else {
-        "http"
-    };
-    format!("{scheme}://{host}")
-}
-
 #[derive(Deserialize)]
 pub(super) struct InviteForm {
     role: String,
@@ -184,7 +167,7 @@ pub(super) async fn invite(
             role.as_str(),
             signed.info.team_name
         ),
-        secret: format!("{}/welcome/{secret}", host_of(&headers)),
+        secret: format!("{}/welcome/{secret}", state.security.link_base(Some(&headers))),
         advice: "This page is the only time the link is shown. You can withdraw it on the members page until it is used.".into(),
     };
     Ok(render(StatusCode::CREATED, &page))

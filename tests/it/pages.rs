@@ -20,6 +20,7 @@ pub struct Page {
     pub status: StatusCode,
     pub location: Option<String>,
     pub content_type: String,
+    pub retry_after: Option<String>,
     pub body: String,
 }
 
@@ -75,11 +76,17 @@ impl Person {
             .and_then(|v| v.to_str().ok())
             .unwrap_or("")
             .to_string();
+        let retry_after = resp
+            .headers()
+            .get("retry-after")
+            .and_then(|v| v.to_str().ok())
+            .map(str::to_string);
         let body = resp.text().await.unwrap_or_default();
         Page {
             status,
             location,
             content_type,
+            retry_after,
             body,
         }
     }
@@ -596,7 +603,9 @@ async fn accounts(kind: Db) {
         "this session goes on"
     );
 
-    // Sign out without the token is refused; with it the session ends.
+    // Sign out without the token is refused; with it the session ends. The password change
+    // started a new session, with a new page token.
+    let acsrf = csrf_in(&owner.get("/account").await.body);
     assert_eq!(
         owner.post_form("/signout", &[("csrf", "x")]).await.status,
         StatusCode::FORBIDDEN
@@ -786,6 +795,314 @@ async fn goal_set_pages(kind: Db) {
     assert_eq!(after["items"].as_array().unwrap().len(), 2);
 }
 
+/// A sign-in attempt with a form token the server issued: from the sign-in page, or, when the
+/// browser is signed in (the page then redirects), the form cookie it already holds.
+async fn try_signin(p: &mut Person, login: &str, password: &str, next: &str) -> Page {
+    let page = p.get("/signin").await;
+    let form = if page.status == StatusCode::OK {
+        csrf_in(&page.body)
+    } else {
+        p.cookies.get("gs_form").cloned().expect("a form cookie")
+    };
+    p.post_form(
+        "/signin",
+        &[
+            ("csrf", &form),
+            ("login", login),
+            ("password", password),
+            ("next", next),
+        ],
+    )
+    .await
+}
+
+fn retry_after(page_status: StatusCode, headers_body: &Page) -> u64 {
+    assert_eq!(headers_body.status, page_status, "{}", headers_body.body);
+    assert!(
+        headers_body.content_type.starts_with("text/html"),
+        "{}",
+        headers_body.content_type
+    );
+    headers_body
+        .retry_after
+        .as_deref()
+        .and_then(|v| v.parse().ok())
+        .expect("Retry-After in seconds")
+}
+
+async fn signin_throttle(kind: Db) {
+    let Some(db) = fresh_db(kind, "pages_signin_throttle").await else {
+        return;
+    };
+    let (s, link) = start_with_link(
+        &db.url,
+        &db.data_dir,
+        &[
+            "--signin-failures-per-login",
+            "3",
+            "--signin-attempts-per-address",
+            "12",
+        ],
+    );
+    join(&s.base, &link, "ilse", "Ilse", "seed trays at six").await;
+    let mut p = Person::new(&s.base);
+
+    // Two failures, then the right password works and clears them.
+    for _ in 0..2 {
+        let wrong = try_signin(&mut p, "ilse", "not it", "/").await;
+        assert_eq!(wrong.status, StatusCode::SEE_OTHER);
+    }
+    let right = try_signin(&mut p, "ilse", "seed trays at six", "/team").await;
+    assert_eq!(right.location.as_deref(), Some("/team"));
+    p.cookies.remove("gs_session");
+
+    // Three more failures reach the login's limit: even the right password is refused now,
+    // with 429, Retry-After and a readable page, and no session.
+    for _ in 0..3 {
+        let wrong = try_signin(&mut p, "ILSE", "not it", "/").await;
+        assert_eq!(wrong.status, StatusCode::SEE_OTHER, "{}", wrong.body);
+    }
+    let refused = try_signin(&mut p, "ilse", "seed trays at six", "/").await;
+    assert!(retry_after(StatusCode::TOO_MANY_REQUESTS, &refused) > 0);
+    assert!(refused.body.contains("Too many"), "{}", refused.body);
+    assert!(!p.cookies.contains_key("gs_session"));
+
+    // Another login from the same address is not held back by ilse's limit...
+    let other = try_signin(&mut p, "bruno", "whatever", "/").await;
+    assert_eq!(other.status, StatusCode::SEE_OTHER);
+    // ...until the address has used its 12 attempts (6 for ilse, 1 for bruno so far; refused
+    // attempts do not count).
+    for i in 0..5 {
+        let page = try_signin(&mut p, &format!("guess{i}"), "whatever", "/").await;
+        assert_eq!(page.status, StatusCode::SEE_OTHER, "attempt {i}");
+    }
+    let refused = try_signin(&mut p, "someone-new", "whatever", "/").await;
+    assert!(retry_after(StatusCode::TOO_MANY_REQUESTS, &refused) > 0);
+}
+
+async fn form_token_issued_by_server(kind: Db) {
+    let Some((s, _db)) = server(kind, "pages_form_token").await else {
+        return;
+    };
+    // Made-up pairs of cookie and field are refused: the old 64-hex format, and one shaped like
+    // ours with a wrong MAC.
+    let forged_mac = format!(
+        "{:x}.{}.{}",
+        1_900_000_000u64,
+        "ab".repeat(16),
+        "cd".repeat(32)
+    );
+    for made_up in ["0123456789abcdef".repeat(4), forged_mac] {
+        let mut p = Person::new(&s.base);
+        p.cookies.insert("gs_form".into(), made_up.clone());
+        let page = p
+            .post_form(
+                "/signin",
+                &[
+                    ("csrf", made_up.as_str()),
+                    ("login", "nobody"),
+                    ("password", "whatever"),
+                ],
+            )
+            .await;
+        assert_eq!(page.status, StatusCode::FORBIDDEN, "{made_up}");
+        assert!(page.content_type.starts_with("text/html"));
+    }
+    // The sign-in page replaces a made-up cookie with one of ours, which then passes.
+    let mut p = Person::new(&s.base);
+    p.cookies
+        .insert("gs_form".into(), "0123456789abcdef".repeat(4));
+    let page = try_signin(&mut p, "nobody", "whatever", "/").await;
+    assert_eq!(page.status, StatusCode::SEE_OTHER, "{}", page.body);
+}
+
+async fn session_rotation(kind: Db) {
+    let Some(db) = fresh_db(kind, "pages_session_rotation").await else {
+        return;
+    };
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+    let (mut first, _) = join(&s.base, &link, "oskar", "Oskar", "compost turner 3").await;
+    let first_cookie = first.cookies["gs_session"].clone();
+
+    // Fixation: a session cookie planted before sign-in is not the one in use after it.
+    let planted = "5".repeat(64);
+    let mut p = Person::new(&s.base);
+    p.cookies.insert("gs_session".into(), planted.clone());
+    let ok = try_signin(&mut p, "oskar", "compost turner 3", "/").await;
+    assert_eq!(ok.status, StatusCode::SEE_OTHER);
+    let signed = p
+        .cookies
+        .get("gs_session")
+        .cloned()
+        .expect("a session cookie");
+    assert_ne!(signed, planted);
+    assert_eq!(p.get("/").await.status, StatusCode::OK);
+
+    // Signing in again from a signed-in browser ends its old session.
+    let again = try_signin(&mut p, "oskar", "compost turner 3", "/").await;
+    assert_eq!(again.status, StatusCode::SEE_OTHER, "{}", again.body);
+    let rotated = p.cookies["gs_session"].clone();
+    assert_ne!(rotated, signed);
+    let mut stale = Person::new(&s.base);
+    stale.cookies.insert("gs_session".into(), signed);
+    assert_eq!(stale.get("/").await.status, StatusCode::SEE_OTHER);
+
+    // A password change: this browser continues in a new session; the old cookie is dead.
+    let acsrf = csrf_in(&first.get("/account").await.body);
+    let changed = first
+        .post_form(
+            "/account/password",
+            &[
+                ("csrf", &acsrf),
+                ("current", "compost turner 3"),
+                ("password", "worm bin number 4"),
+                ("password_again", "worm bin number 4"),
+            ],
+        )
+        .await;
+    assert_eq!(changed.status, StatusCode::SEE_OTHER);
+    let new_cookie = first.cookies["gs_session"].clone();
+    assert_ne!(new_cookie, first_cookie);
+    assert_eq!(first.get("/account").await.status, StatusCode::OK);
+    let mut old = Person::new(&s.base);
+    old.cookies.insert("gs_session".into(), first_cookie);
+    assert_eq!(old.get("/").await.status, StatusCode::SEE_OTHER);
+    assert_eq!(
+        p.get("/").await.status,
+        StatusCode::SEE_OTHER,
+        "other browsers end too"
+    );
+}
+
+/// `next` values that must not leave the site, as the form or the decoded query carries them.
+const BAD_NEXT: &[&str] = &[
+    "//evil.example",
+    "/\\evil.example",
+    "/\\/evil.example",
+    "/%09/evil.example",
+    "/%2F/evil.example",
+    "/%5C/evil.example",
+    "https://evil.example",
+    "javascript:alert(1)",
+    "/\t/evil.example",
+    "/\n/evil.example",
+    "%2F%2Fevil.example",
+    " /x",
+    "/x%0d%0aSet-Cookie:a=b",
+    "/x\r\nSet-Cookie: a=b",
+    "evil.example",
+];
+
+async fn next_stays_on_site(kind: Db) {
+    let Some(db) = fresh_db(kind, "pages_next").await else {
+        return;
+    };
+    let (s, link) = start_with_link(
+        &db.url,
+        &db.data_dir,
+        &["--signin-attempts-per-address", "1000"],
+    );
+    let (mut signed, _) = join(&s.base, &link, "petra", "Petra", "drip line valve").await;
+    let mut anon = Person::new(&s.base);
+    let query = |v: &str| {
+        format!(
+            "/signin?{}",
+            serde_urlencoded::to_string([("next", v)]).unwrap()
+        )
+    };
+    for bad in BAD_NEXT {
+        // GET, signed in: redirected home.
+        let page = signed.get(&query(bad)).await;
+        assert_eq!(page.location.as_deref(), Some("/"), "GET signed in {bad:?}");
+        // GET, signed out: the form carries the home page.
+        let page = anon.get(&query(bad)).await;
+        assert!(
+            page.body.contains("name=\"next\" value=\"/\""),
+            "GET signed out {bad:?}"
+        );
+        // POST: after signing in, home.
+        let mut p = Person::new(&s.base);
+        let page = try_signin(&mut p, "petra", "drip line valve", bad).await;
+        assert_eq!(page.location.as_deref(), Some("/"), "POST {bad:?}");
+    }
+    // The raw query strings of the probe, undecoded by us.
+    for raw in [
+        "/signin?next=/%09/other.host/x",
+        "/signin?next=%2F%2Fother.host",
+        "/signin?next=/%5Cother.host",
+    ] {
+        assert_eq!(
+            signed.get(raw).await.location.as_deref(),
+            Some("/"),
+            "{raw}"
+        );
+    }
+    // A local next is kept, on both.
+    let good = "/goals/abc?x=1";
+    assert_eq!(
+        signed.get(&query(good)).await.location.as_deref(),
+        Some(good)
+    );
+    let mut p = Person::new(&s.base);
+    let page = try_signin(&mut p, "petra", "drip line valve", good).await;
+    assert_eq!(page.location.as_deref(), Some(good));
+}
+
+async fn invite(owner: &mut Person, host: Option<&str>) -> String {
+    let team_csrf = csrf_in(&owner.get("/team").await.body);
+    let body = serde_urlencoded::to_string([
+        ("csrf", team_csrf.as_str()),
+        ("role", "viewer"),
+        ("note", "Wren"),
+    ])
+    .unwrap();
+    let mut req = owner
+        .client
+        .post(owner.url("/team/invites"))
+        .header("content-type", "application/x-www-form-urlencoded")
+        .body(body);
+    if let Some(h) = host {
+        req = req.header("host", h);
+    }
+    let page = owner.send(req).await;
+    assert_eq!(page.status, StatusCode::CREATED, "{}", page.body);
+    link_in(&page.body)
+}
+
+async fn invite_links(kind: Db) {
+    let Some(db) = fresh_db(kind, "pages_invite_links").await else {
+        return;
+    };
+    {
+        let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+        let (mut owner, _) = join(&s.base, &link, "hedda", "Hedda", "raised bed 12 ft").await;
+        let forged = invite(&mut owner, Some("evil.example")).await;
+        assert!(
+            forged.starts_with(&format!("{}/welcome/", s.base)),
+            "{forged} should point at {}",
+            s.base
+        );
+        let plain = invite(&mut owner, None).await;
+        assert!(
+            plain.starts_with(&format!("{}/welcome/", s.base)),
+            "{plain}"
+        );
+    }
+    let Some(db) = fresh_db(kind, "pages_invite_links_public").await else {
+        return;
+    };
+    let public = "https://goals.example.org";
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &["--public-url", public]);
+    assert!(link.starts_with(&format!("{public}/welcome/")), "{link}");
+    let path = &link[public.len()..];
+    let (mut owner, _) = join(&s.base, path, "hedda", "Hedda", "raised bed 12 ft").await;
+    let forged = invite(&mut owner, Some("evil.example")).await;
+    assert!(
+        forged.starts_with(&format!("{public}/welcome/")),
+        "{forged}"
+    );
+}
+
 macro_rules! both {
     ($name:ident, $body:ident) => {
         mod $name {
@@ -808,3 +1125,14 @@ both!(
 );
 both!(cost_preview_route, preview_and_sets);
 both!(goal_set_pages_create_reorder_pin, goal_set_pages);
+both!(signin_is_throttled_per_login_and_address, signin_throttle);
+both!(
+    signin_form_token_must_be_issued_by_the_server,
+    form_token_issued_by_server
+);
+both!(
+    session_id_rotates_on_signin_and_password_change,
+    session_rotation
+);
+both!(next_after_signin_stays_on_this_site, next_stays_on_site);
+both!(invite_links_use_the_real_or_public_address, invite_links);

@@ -391,7 +391,8 @@ pub fn start_with_link(
     let (tx, rx) = std::sync::mpsc::channel::<String>();
     std::thread::spawn(move || {
         for line in BufReader::new(stderr).lines().map_while(Result::ok) {
-            if let Some(i) = line.find("http://")
+            // `https://` too: with `--public-url` the link names the public address.
+            if let Some(i) = line.find("http://").or_else(|| line.find("https://"))
                 && line.contains("/welcome/")
             {
                 let url = line[i..]
