@@ -168,15 +168,19 @@ pub fn main() -> ExitCode {
     let cli = Cli::parse();
     init_logs();
     let result: Result<(), Box<dyn std::error::Error>> = match cli.command {
-        Command::Serve { bind, db, demo } => runtime().map_err(Into::into).and_then(|rt| {
-            rt.block_on(crate::app::serve(ServeConfig {
-                bind,
-                database_url: db.url(),
-                data_dir: db.data_dir.clone(),
-                demo,
-                limits: Limits::default(),
-            }))
-        }),
+        Command::Serve { bind, db, demo } => {
+            Limits::from_env().map_err(Into::into).and_then(|limits| {
+                runtime().map_err(Into::into).and_then(|rt| {
+                    rt.block_on(crate::app::serve(ServeConfig {
+                        bind,
+                        database_url: db.url(),
+                        data_dir: db.data_dir.clone(),
+                        demo,
+                        limits,
+                    }))
+                })
+            })
+        }
         Command::Token {
             command:
                 TokenCommand::Create {

@@ -92,11 +92,37 @@ pub fn cost_maps_npy(
     width: usize,
     height: usize,
 ) -> Result<Vec<u8>, ScoreError> {
-    let maps = model
-        .cost_maps(width, height)
+    cost_maps_npy_until(model, width, height, &|| false)
+}
+
+/// [`cost_maps_npy`], written plane by plane into the NPY bytes (one float64 plane held, not
+/// P of them), and given up with an error when `stop` answers true (the client hung up; no one
+/// reads the answer). The bytes are those of the whole-stack conversion exactly.
+pub fn cost_maps_npy_until(
+    model: &CostModel,
+    width: usize,
+    height: usize,
+    stop: &(dyn Fn() -> bool + Sync),
+) -> Result<Vec<u8>, ScoreError> {
+    let shape = [model.len(), height, width];
+    let metric = model.settings().metric();
+    let mut out = npy::f32_header(&shape).map_err(|e| ScoreError::Internal(e.to_string()))?;
+    let done = model
+        .distance_planes(width, height, stop, |_, d| {
+            if out.capacity() == out.len() {
+                out.reserve_exact(shape.iter().product::<usize>() * 4);
+            }
+            for &v in d {
+                out.extend_from_slice(&(metric.apply(v) as f32).to_le_bytes());
+            }
+        })
         .map_err(|e| invalid("bad_map_size", Some("width"), e.to_string()))?;
-    npy::write_f32(&[model.len(), height, width], &maps)
-        .map_err(|e| ScoreError::Internal(e.to_string()))
+    if !done {
+        return Err(ScoreError::Internal(
+            "map building stopped: the client hung up".into(),
+        ));
+    }
+    Ok(out)
 }
 
 /// The JSON body of `POST …/cost`.

@@ -282,13 +282,18 @@ pub async fn bundle(
         let goal = item["goal_id"].as_str().unwrap_or_default();
         let n = item["revision"].to_string();
         let l = export::load(&state, &who, goal, &n).await?;
+        l.check_full_size_maps(&state.limits)?;
         let (content_type, frame) = l.frame_image(&state).await?;
         loaded.push((l, content_type, frame));
     }
+    let permit = state.heavy_permits.acquire().await?;
+    let cancel = super::heavy::Cancel::new();
+    let stop = cancel.flag();
     let zip = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
         let maps = loaded
             .iter()
-            .map(|(l, _, _)| l.full_size_maps())
+            .map(|(l, _, _)| l.full_size_maps(&stop))
             .collect::<Result<Vec<_>, _>>()?;
         let parts: Vec<scoring::BundleParts<'_>> = loaded
             .iter()
@@ -299,6 +304,7 @@ pub async fn bundle(
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
+    drop(cancel);
     Ok(export::binary_with_etag(
         "application/zip",
         format!("goal-set-{id}-v{}.zip", row.version),

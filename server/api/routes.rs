@@ -305,6 +305,7 @@ mod tests {
             store,
             limits: Arc::default(),
             models: Arc::default(),
+            heavy_permits: Arc::default(),
         });
         let rows = table();
         let mut paths: Vec<&str> = rows.iter().map(|r| r.path).collect();
