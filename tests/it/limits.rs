@@ -151,6 +151,22 @@ async fn request_limits(s: Server) {
     let (st, bytes) = get_bytes(&s, &format!("/api/goal-sets/{set_id}/bundle.zip"), &editor).await;
     assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY);
     assert_eq!(error_of(&bytes)["error"]["code"], "map_too_large");
+    // A set's items are summed: the 2-point goal alone is at the limit, twice it is past.
+    let set = json!({"name": "once", "items": [{"goal_id": two, "revision": 1}]});
+    let (st, doc) = s.post("/api/goal-sets", Some(&editor), &set).await;
+    assert_eq!(st, StatusCode::CREATED, "{doc}");
+    let once = doc["id"].as_str().expect("set id");
+    let (st, _) = get_bytes(&s, &format!("/api/goal-sets/{once}/bundle.zip"), &editor).await;
+    assert_eq!(st, StatusCode::OK);
+    let set = json!({"name": "twice", "items": [{"goal_id": two, "revision": 1}, {"goal_id": two, "revision": 1}]});
+    let (st, doc) = s.post("/api/goal-sets", Some(&editor), &set).await;
+    assert_eq!(st, StatusCode::CREATED, "{doc}");
+    let twice = doc["id"].as_str().expect("set id");
+    let (st, bytes) = get_bytes(&s, &format!("/api/goal-sets/{twice}/bundle.zip"), &editor).await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY);
+    let err = error_of(&bytes);
+    assert_eq!(err["error"]["code"], "map_too_large", "{err}");
+    assert_eq!(err["error"]["field"], "items", "{err}");
 
     // A probability-map batch: maps of P · h · w at the limit are scored, past it refused.
     let mut maps = vec![0f32; 2 * 48 * 64];
