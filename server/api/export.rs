@@ -762,10 +762,21 @@ async fn prepared_maps(
         return Ok(p);
     }
     let c = checked.clone();
-    let built = tokio::task::spawn_blocking(move || c.1.prepare_maps(w, h))
-        .await
-        .map_err(|e| ApiError::Internal(e.to_string()))?
-        .map_err(|e| ApiError::from(ScoreError::from_cost(e)))?;
+    // Part of the handler's future: a client that hangs up drops it and the build stops.
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
+    let (built, done) = tokio::task::spawn_blocking(move || {
+        c.1.prepare_maps_until(w, h, &|| stop.load(Ordering::Relaxed))
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))?
+    .map_err(|e| ApiError::from(ScoreError::from_cost(e)))?;
+    drop(cancel);
+    if !done {
+        return Err(ApiError::Internal(
+            "map building stopped: the client hung up".into(),
+        ));
+    }
     let built = std::sync::Arc::new(built);
     state
         .models

@@ -485,27 +485,40 @@ impl CostModel {
     /// Precomputes what scoring (N, T, P, height, width) maps needs: the cost maps for
     /// `expected`, the within-tolerance indicators for `hit`. Keep it to score many batches.
     pub fn prepare_maps(&self, width: usize, height: usize) -> Result<PreparedMaps, CostError> {
-        let distances = self.distance_maps(width, height)?;
-        let plane = width * height;
+        Ok(self.prepare_maps_until(width, height, &|| false)?.0)
+    }
+
+    /// [`Self::prepare_maps`] built plane by plane from [`Self::distance_planes`] (one float64
+    /// plane held, not the stack), stopping early when `stop` answers true: the flag says
+    /// whether the maps are complete (an incomplete set must not be used). The values are those
+    /// of the whole-stack build exactly.
+    pub fn prepare_maps_until(
+        &self,
+        width: usize,
+        height: usize,
+        stop: &(dyn Fn() -> bool + Sync),
+    ) -> Result<(PreparedMaps, bool), CostError> {
+        let plane = self.check_map_size(width, height)?;
         let metric = self.settings.metric;
-        let kernel: Vec<f32> = match self.settings.mode {
-            Mode::Expected => distances.iter().map(|&d| metric.apply(d) as f32).collect(),
-            Mode::Hit => distances
-                .chunks_exact(plane)
-                .zip(&self.points)
-                .flat_map(|(ds, p)| {
-                    ds.iter()
-                        .map(move |&d| if d <= p.tolerance_px { 1.0 } else { 0.0 })
-                })
-                .collect(),
-        };
-        Ok(PreparedMaps {
-            width,
-            height,
-            weights: self.points.iter().map(|p| p.weight).collect(),
-            settings: self.settings,
-            kernel,
-        })
+        let mode = self.settings.mode;
+        let mut kernel: Vec<f32> = Vec::with_capacity(plane * self.points.len());
+        let done = self.distance_planes(width, height, stop, |p, ds| match mode {
+            Mode::Expected => kernel.extend(ds.iter().map(|&d| metric.apply(d) as f32)),
+            Mode::Hit => {
+                let tol = self.points[p].tolerance_px;
+                kernel.extend(ds.iter().map(|&d| if d <= tol { 1.0 } else { 0.0 }));
+            }
+        })?;
+        Ok((
+            PreparedMaps {
+                width,
+                height,
+                weights: self.points.iter().map(|p| p.weight).collect(),
+                settings: self.settings,
+                kernel,
+            },
+            done,
+        ))
     }
 
     /// Scores probability maps of shape (n, t, P, height, width); see [`PreparedMaps::evaluate`].
