@@ -506,8 +506,10 @@ pub async fn cost(
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<usize>().ok());
     let mut body = req.into_body();
-    let _permit = state.heavy_permits.acquire().await?;
-    let result = score_npy(&state, checked, content_type, declared, &mut body).await;
+    let result = match state.heavy_permits.acquire().await {
+        Ok(_permit) => score_npy(&state, checked, content_type, declared, &mut body).await,
+        Err(busy) => Err(busy),
+    };
     if result.is_err() {
         // Read what the client is still sending (the route's body limit bounds it), so that it
         // gets the error body rather than a reset connection halfway through its upload.
