@@ -69,11 +69,17 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
     let state = AppState {
         store,
         limits: Arc::new(config.limits.clone()),
-        models: Arc::default(),
-        security: Arc::new(crate::pages::security::Security::new(
+        security: Arc::new(crate::security::Security::new(
             &config.limits.signin,
             config.public_url.clone(),
         )?),
+        models: Arc::new(crate::api::export::ModelCache::with_budget(
+            config.limits.model_cache_bytes,
+        )),
+        heavy_permits: Arc::new(crate::api::heavy::Heavy::new(
+            config.limits.heavy_permits,
+            config.limits.heavy_queue,
+        )),
     };
     Ok(state)
 }

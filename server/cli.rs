@@ -227,15 +227,16 @@ pub fn main() -> ExitCode {
             .transpose()
             .map_err(Into::into)
             .and_then(|public_url| {
+                let limits = Limits {
+                    signin: signin.limits(),
+                    ..Limits::from_env()?
+                };
                 let config = ServeConfig {
                     bind,
                     database_url: db.url(),
                     data_dir: db.data_dir.clone(),
                     demo,
-                    limits: Limits {
-                        signin: signin.limits(),
-                        ..Limits::default()
-                    },
+                    limits,
                     public_url,
                 };
                 let rt = runtime()?;

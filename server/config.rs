@@ -15,6 +15,21 @@ pub struct Limits {
     pub max_image_side: u32,
     /// Most memory one image decode may allocate.
     pub max_decode_bytes: u64,
+    /// Largest JSON cost body (`{"points": …}`): JSON is the slow path, parsed into nested
+    /// vectors at many times its size, so it gets far less than NPY.
+    pub cost_json_bytes: usize,
+    /// Most values (P · h · w) in one stack of cost maps built for a request: `cost-maps.npy`,
+    /// the maps of an NPY probability-map batch, each revision's maps in a bundle.
+    pub max_map_values: usize,
+    /// Most points (N · T · P) in an NPY points body; they are buffered and converted to f64.
+    pub max_npy_points: usize,
+    /// Heavy requests (scoring, map, bundle and overlay building, frame decoding) running at
+    /// once.
+    pub heavy_permits: usize,
+    /// Heavy requests waiting for a permit; past that they are answered 503 `busy`.
+    pub heavy_queue: usize,
+    /// Bytes of checked goals and cost models kept in the model cache.
+    pub model_cache_bytes: usize,
     /// Sign-in throttle and password-hashing bounds.
     pub signin: SignInLimits,
 }
@@ -57,6 +72,11 @@ impl Default for SignInLimits {
     }
 }
 
+/// Cores available to this process (1 when unknown).
+pub fn cores() -> usize {
+    std::thread::available_parallelism().map_or(1, std::num::NonZeroUsize::get)
+}
+
 impl Default for Limits {
     fn default() -> Self {
         Self {
@@ -65,8 +85,58 @@ impl Default for Limits {
             cost_body_bytes: 1 << 30,
             max_image_side: 8192,
             max_decode_bytes: 512 << 20,
+            cost_json_bytes: 8 << 20,
+            max_map_values: 1 << 25,
+            max_npy_points: 1 << 22,
+            heavy_permits: cores(),
+            heavy_queue: 4 * cores(),
+            model_cache_bytes: 256 << 20,
             signin: SignInLimits::default(),
         }
+    }
+}
+
+impl Limits {
+    /// The defaults with `GOALSMITH_HEAVY_PERMITS`, `GOALSMITH_HEAVY_QUEUE`,
+    /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES` and
+    /// `GOALSMITH_MODEL_CACHE_BYTES` applied where set (whole numbers; permits at least 1; the
+    /// queue defaults to 4 × permits). A value that does not parse is an error rather
+    /// than silently the default, so a typo in a deployment is seen at start-up.
+    pub fn from_env() -> Result<Self, String> {
+        let mut l = Self::default();
+        let read = |name: &str| -> Result<Option<usize>, String> {
+            match std::env::var(name) {
+                Ok(v) => v
+                    .trim()
+                    .parse::<usize>()
+                    .map(Some)
+                    .map_err(|_| format!("{name} must be a whole number, not {v:?}")),
+                Err(_) => Ok(None),
+            }
+        };
+        if let Some(p) = read("GOALSMITH_HEAVY_PERMITS")? {
+            if p == 0 {
+                return Err("GOALSMITH_HEAVY_PERMITS must be at least 1".into());
+            }
+            l.heavy_permits = p;
+            l.heavy_queue = 4 * p;
+        }
+        if let Some(q) = read("GOALSMITH_HEAVY_QUEUE")? {
+            l.heavy_queue = q;
+        }
+        // The per-request limits too, so a deployment can tighten them and tests can reach
+        // them with small requests.
+        for (name, slot) in [
+            ("GOALSMITH_MAX_MAP_VALUES", &mut l.max_map_values),
+            ("GOALSMITH_MAX_NPY_POINTS", &mut l.max_npy_points),
+            ("GOALSMITH_COST_JSON_BYTES", &mut l.cost_json_bytes),
+            ("GOALSMITH_MODEL_CACHE_BYTES", &mut l.model_cache_bytes),
+        ] {
+            if let Some(v) = read(name)? {
+                *slot = v;
+            }
+        }
+        Ok(l)
     }
 }
 

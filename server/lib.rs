@@ -12,6 +12,7 @@ pub mod demo;
 pub mod images;
 pub mod pages;
 pub mod scoring;
+pub mod security;
 pub mod store;
 
 /// The caution carried by the README, every export and the editor.

@@ -71,7 +71,20 @@ pub fn spec_from_revision(doc: &Value, width: u32, height: u32) -> Result<GoalSp
             reward_fit_exists: &no_fits,
         },
     )
-    .map_err(|e| ScoreError::Internal(format!("stored revision no longer checks: {e}")))
+    .map_err(|e| match e.code {
+        // Saved before the per-goal vertex total existed: the client's request is refused
+        // (its maps would cost W·H per vertex), not the server's fault.
+        "too_many_vertices" => invalid(
+            "too_many_vertices",
+            None,
+            format!(
+                "this revision was saved before the current limits and breaks one: {}; save a \
+                 new revision within it",
+                e.message
+            ),
+        ),
+        _ => ScoreError::Internal(format!("stored revision no longer checks: {e}")),
+    })
 }
 
 /// The cost model of a checked goal.
@@ -92,11 +105,37 @@ pub fn cost_maps_npy(
     width: usize,
     height: usize,
 ) -> Result<Vec<u8>, ScoreError> {
-    let maps = model
-        .cost_maps(width, height)
+    cost_maps_npy_until(model, width, height, &|| false)
+}
+
+/// [`cost_maps_npy`], written plane by plane into the NPY bytes (one float64 plane held, not
+/// P of them), and given up with an error when `stop` answers true (the client hung up; no one
+/// reads the answer). The bytes are those of the whole-stack conversion exactly.
+pub fn cost_maps_npy_until(
+    model: &CostModel,
+    width: usize,
+    height: usize,
+    stop: &(dyn Fn() -> bool + Sync),
+) -> Result<Vec<u8>, ScoreError> {
+    let shape = [model.len(), height, width];
+    let metric = model.settings().metric();
+    let mut out = npy::f32_header(&shape).map_err(|e| ScoreError::Internal(e.to_string()))?;
+    let done = model
+        .distance_planes(width, height, stop, |_, d| {
+            if out.capacity() == out.len() {
+                out.reserve_exact(shape.iter().product::<usize>() * 4);
+            }
+            for &v in d {
+                out.extend_from_slice(&(metric.apply(v) as f32).to_le_bytes());
+            }
+        })
         .map_err(|e| invalid("bad_map_size", Some("width"), e.to_string()))?;
-    npy::write_f32(&[model.len(), height, width], &maps)
-        .map_err(|e| ScoreError::Internal(e.to_string()))
+    if !done {
+        return Err(ScoreError::Internal(
+            "map building stopped: the client hung up".into(),
+        ));
+    }
+    Ok(out)
 }
 
 /// The JSON body of `POST …/cost`.
@@ -838,4 +877,30 @@ pub fn read_bundle(bytes: &[u8]) -> Result<(Value, u32, u32), ScoreError> {
             })
     };
     Ok((goal, dim("width")?, dim("height")?))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A revision stored before the per-goal vertex total: refused as the client's request (a
+    /// 422 saying why), not as a server fault.
+    #[test]
+    fn a_stored_revision_past_the_vertex_total_is_refused_not_a_fault() {
+        let circle: Vec<[f64; 2]> = (0..1024)
+            .map(|k| {
+                let a = std::f64::consts::TAU * f64::from(k) / 1024.0;
+                [32.0 + 20.0 * a.cos(), 24.0 + 20.0 * a.sin()]
+            })
+            .collect();
+        let region = json!({"kind": "region", "source": [5.0, 5.0], "polygon": circle});
+        let doc = json!({"name": "old", "frame_id": "f", "terms": vec![region; 5]});
+        match spec_from_revision(&doc, 64, 48) {
+            Err(ScoreError::Invalid { code, message, .. }) => {
+                assert_eq!(code, "too_many_vertices");
+                assert!(message.contains("4096"), "{message}");
+            }
+            other => panic!("expected too_many_vertices, got {:?}", other.map(|_| ())),
+        }
+    }
 }

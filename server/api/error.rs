@@ -80,6 +80,9 @@ pub enum ApiError {
     /// The database cannot be reached (503).
     #[error("the database is unavailable")]
     Unavailable,
+    /// Too many heavy requests at once (503 with `Retry-After: 1`).
+    #[error("the server is busy with other heavy requests; retry in a second")]
+    Busy,
     /// Anything unexpected (500); details go to the log only.
     #[error("internal error")]
     Internal(String),
@@ -120,7 +123,7 @@ impl ApiError {
             ApiError::PreconditionRequired => StatusCode::PRECONDITION_REQUIRED,
             ApiError::PreconditionFailed(_) => StatusCode::PRECONDITION_FAILED,
             ApiError::Conflict(_) => StatusCode::CONFLICT,
-            ApiError::Unavailable => StatusCode::SERVICE_UNAVAILABLE,
+            ApiError::Unavailable | ApiError::Busy => StatusCode::SERVICE_UNAVAILABLE,
             ApiError::Internal(_) => StatusCode::INTERNAL_SERVER_ERROR,
         }
     }
@@ -138,6 +141,7 @@ impl ApiError {
             ApiError::PreconditionFailed(_) => "stale_revision",
             ApiError::Conflict(_) => "conflict",
             ApiError::Unavailable => "unavailable",
+            ApiError::Busy => "busy",
             ApiError::Internal(_) => "internal",
         }
     }
@@ -199,6 +203,10 @@ impl IntoResponse for ApiError {
         if status == StatusCode::UNAUTHORIZED {
             resp.headers_mut()
                 .insert(header::WWW_AUTHENTICATE, HeaderValue::from_static("Bearer"));
+        }
+        if matches!(self, ApiError::Busy) {
+            resp.headers_mut()
+                .insert(header::RETRY_AFTER, HeaderValue::from_static("1"));
         }
         resp
     }

@@ -4,9 +4,11 @@
 use super::auth::{Principal, Role};
 use super::cameras::{self, CameraDoc};
 use super::error::{ApiError, ApiResult};
-use super::extract::{JsonBody, media_type, read_body};
+use super::extract::{JsonBody, media_type};
 use super::goals::{etag_of, if_none_match, load_revision, parse_revision};
+use super::heavy::Cancel;
 use super::{AppState, frames, rfc3339};
+use crate::config::Limits;
 use crate::scoring::{self, ScoreError};
 use crate::store::{self, goals::RevisionRow};
 use axum::Json;
@@ -20,6 +22,7 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
 use sha2::{Digest, Sha256};
+use std::sync::atomic::{AtomicBool, Ordering};
 
 impl From<ScoreError> for ApiError {
     fn from(e: ScoreError) -> Self {
@@ -47,13 +50,23 @@ impl From<ScoreError> for ApiError {
 /// Checked goals and their cost models by (goal id, revision). A planner in a control loop
 /// scores the same revision many times a second; rebuilding the model (mask decoding and
 /// indexing included) each time would dominate small requests. Revisions are immutable, so an
-/// entry never goes stale; the cache only bounds its size.
-#[derive(Default)]
+/// entry never goes stale; the cache only bounds its size, in bytes: a model with mask targets
+/// holds about 9 bytes per frame pixel per mask (the mask and its column index), so a count of
+/// entries says nothing about memory.
 pub struct ModelCache {
-    entries: std::sync::Mutex<std::collections::HashMap<(String, i64), Checked>>,
+    entries: std::sync::Mutex<ModelEntries>,
     /// Prepared maps by (model identity, w, h), each holding its model alive so the identity
     /// cannot be reused by another model while the entry exists; bounded in bytes.
     prepared: std::sync::Mutex<PreparedCache>,
+}
+
+/// Least recently used first out: each entry records the tick of its last use.
+#[derive(Default)]
+struct ModelEntries {
+    map: std::collections::HashMap<(String, i64), (Checked, usize, u64)>,
+    bytes: usize,
+    tick: u64,
+    budget: usize,
 }
 
 #[derive(Default)]
@@ -66,10 +79,35 @@ struct PreparedCache {
 /// A checked goal with its cost model, shared between the cache and requests.
 pub type Checked = std::sync::Arc<(GoalSpec, CostModel)>;
 
-/// Most revisions kept in the [`ModelCache`].
-const MODEL_CACHE_ENTRIES: usize = 64;
+/// What one cached revision is taken to hold: the model's masks and indexes plus a fixed
+/// allowance for the goal document, labels and the map entry itself.
+fn checked_bytes(c: &Checked) -> usize {
+    c.1.approx_bytes() + 4096
+}
+
+impl Default for ModelCache {
+    fn default() -> Self {
+        Self::with_budget(crate::config::Limits::default().model_cache_bytes)
+    }
+}
 
 impl ModelCache {
+    /// A cache holding at most `budget` bytes of models (by [`checked_bytes`]).
+    pub fn with_budget(budget: usize) -> Self {
+        Self {
+            entries: std::sync::Mutex::new(ModelEntries {
+                budget,
+                ..ModelEntries::default()
+            }),
+            prepared: std::sync::Mutex::default(),
+        }
+    }
+
+    /// Bytes of models held now (read-only, for tests and logs).
+    pub fn bytes(&self) -> usize {
+        self.entries.lock().map_or(0, |e| e.bytes)
+    }
+
     fn prepared(&self, key: &(usize, usize, usize)) -> Option<std::sync::Arc<PreparedMaps>> {
         Some(self.prepared.lock().ok()?.entries.get(key)?.0.clone())
     }
@@ -101,19 +139,44 @@ impl ModelCache {
     }
 
     fn get(&self, key: &(String, i64)) -> Option<Checked> {
-        self.entries.lock().ok()?.get(key).cloned()
+        let mut e = self.entries.lock().ok()?;
+        e.tick += 1;
+        let tick = e.tick;
+        let entry = e.map.get_mut(key)?;
+        entry.2 = tick;
+        Some(entry.0.clone())
     }
 
     fn put(&self, key: (String, i64), value: Checked) {
-        if let Ok(mut m) = self.entries.lock() {
-            if m.len() >= MODEL_CACHE_ENTRIES && !m.contains_key(&key) {
-                // Any entry will do: they are cheap to rebuild and never wrong.
-                if let Some(k) = m.keys().next().cloned() {
-                    m.remove(&k);
-                }
-            }
-            m.insert(key, value);
+        let size = checked_bytes(&value);
+        let Ok(mut e) = self.entries.lock() else {
+            return;
+        };
+        if size > e.budget {
+            return; // used by the request that built it, but not kept: it would evict all else
         }
+        if let Some((_, old, _)) = e.map.remove(&key) {
+            e.bytes -= old;
+        }
+        while e.bytes + size > e.budget {
+            // A linear scan for the oldest: the cache holds tens of entries, not thousands, and
+            // an eviction follows a model build that costs far more.
+            let Some(oldest) = e
+                .map
+                .iter()
+                .min_by_key(|(_, (_, _, t))| *t)
+                .map(|(k, _)| k.clone())
+            else {
+                break;
+            };
+            if let Some((_, b, _)) = e.map.remove(&oldest) {
+                e.bytes -= b;
+            }
+        }
+        e.tick += 1;
+        let tick = e.tick;
+        e.bytes += size;
+        e.map.insert(key, (value, size, tick));
     }
 }
 
@@ -141,10 +204,20 @@ impl Loaded {
             .ok_or_else(|| ApiError::Internal(format!("image of frame {} missing", self.frame.id)))
     }
 
-    /// The full-size cost maps as NPY (CPU work: call it off the async workers).
-    pub fn full_size_maps(&self) -> Result<Vec<u8>, ScoreError> {
+    /// The full-size cost maps as NPY (CPU work: call it off the async workers), given up
+    /// when `stop` is set (see [`super::heavy::Cancel`]).
+    pub fn full_size_maps(&self, stop: &AtomicBool) -> Result<Vec<u8>, ScoreError> {
         let (w, h) = self.spec().frame_size();
-        scoring::cost_maps_npy(self.model(), w as usize, h as usize)
+        scoring::cost_maps_npy_until(self.model(), w as usize, h as usize, &|| {
+            stop.load(Ordering::Relaxed)
+        })
+    }
+
+    /// Refuses (422 `map_too_large`) a bundle whose full-size maps are over the limit, before
+    /// anything is built.
+    pub fn check_full_size_maps(&self, limits: &Limits) -> ApiResult<()> {
+        let (w, h) = self.spec().frame_size();
+        check_map_values(limits, self.model().len(), w as usize, h as usize, None)
     }
 
     /// What the bundle of this revision is made of.
@@ -182,6 +255,30 @@ impl Loaded {
     }
 }
 
+/// Refuses maps of more than `limits.max_map_values` values (P · h · w) with a 422
+/// `map_too_large` naming the limit, before any of them is built.
+pub fn check_map_values(
+    limits: &Limits,
+    points: usize,
+    width: usize,
+    height: usize,
+    field: Option<&str>,
+) -> ApiResult<()> {
+    let max = limits.max_map_values;
+    let values = points.saturating_mul(width).saturating_mul(height);
+    if values <= max {
+        return Ok(());
+    }
+    Err(ApiError::Invalid {
+        code: "map_too_large",
+        message: format!(
+            "cost maps of {points} points × {height} × {width} are {values} values, over the \
+             limit of {max} values (P · h · w) per request; ask for smaller maps"
+        ),
+        field: field.map(str::to_string),
+    })
+}
+
 /// Loads revision `n` of a team's goal and rebuilds its cost model (off the async workers).
 pub async fn load(state: &AppState, who: &Principal, id: &str, n: &str) -> ApiResult<Loaded> {
     let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
@@ -202,7 +299,9 @@ pub async fn load_row(state: &AppState, who: &Principal, row: RevisionRow) -> Ap
         None => {
             let (w, h) = (camera.width, camera.height);
             let doc2 = doc.clone();
+            let permit = state.heavy_permits.acquire().await?;
             let built = tokio::task::spawn_blocking(move || {
+                let _permit = permit;
                 let spec = scoring::spec_from_revision(&doc2, w, h)?;
                 let model = scoring::model(&spec)?;
                 Ok::<_, ScoreError>(std::sync::Arc::new((spec, model)))
@@ -343,13 +442,28 @@ pub async fn cost_maps(
             ));
         }
     };
+    let asked = w.is_some();
     let l = load(&state, &who, &id, &n).await?;
     let (fw, fh) = l.spec().frame_size();
     let (w, h) = (w.unwrap_or(fw as usize), h.unwrap_or(fh as usize));
+    check_map_values(
+        &state.limits,
+        l.model().len(),
+        w,
+        h,
+        asked.then_some("width"),
+    )?;
     let rev = l.row.revision;
-    let bytes = tokio::task::spawn_blocking(move || scoring::cost_maps_npy(l.model(), w, h))
-        .await
-        .map_err(|e| ApiError::Internal(e.to_string()))??;
+    let permit = state.heavy_permits.acquire().await?;
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
+    let bytes = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
+        scoring::cost_maps_npy_until(l.model(), w, h, &|| stop.load(Ordering::Relaxed))
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??;
+    drop(cancel);
     Ok(binary(
         "application/x-npy",
         format!("goal-{id}-r{rev}-cost-maps-{w}x{h}.npy"),
@@ -377,7 +491,8 @@ pub async fn cost(
     let checked = checked_model(&state, &who, &id, &n).await?;
     let max = state.limits.cost_body_bytes;
     if content_type == "application/json" {
-        let body = read_body(req, &state).await?;
+        let body = read_json_cost_body(req, state.limits.cost_json_bytes).await?;
+        let _permit = state.heavy_permits.acquire().await?;
         let result = tokio::task::spawn_blocking(move || {
             scoring::evaluate(&checked.1, &content_type, &body, max)
         })
@@ -391,13 +506,44 @@ pub async fn cost(
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<usize>().ok());
     let mut body = req.into_body();
-    let result = score_npy(&state, checked, content_type, declared, &mut body).await;
+    let result = match state.heavy_permits.acquire().await {
+        Ok(_permit) => score_npy(&state, checked, content_type, declared, &mut body).await,
+        Err(busy) => Err(busy),
+    };
     if result.is_err() {
         // Read what the client is still sending (the route's body limit bounds it), so that it
         // gets the error body rather than a reset connection halfway through its upload.
         drain(&mut body).await;
     }
     result.map(|r| Json(scoring::cost_response(&r)))
+}
+
+/// Reads a JSON cost body of at most `max` bytes, refusing (413) as soon as it is known to be
+/// longer, from `Content-Length` or while reading, so an oversized body is never held whole.
+async fn read_json_cost_body(req: Request, max: usize) -> ApiResult<Vec<u8>> {
+    let too_large = || {
+        ApiError::TooLarge(format!(
+            "JSON cost bodies are limited to {max} bytes; send larger batches as NPY points \
+             (N, T, P, 2) with Content-Type: application/x-npy"
+        ))
+    };
+    let declared = req
+        .headers()
+        .get(header::CONTENT_LENGTH)
+        .and_then(|v| v.to_str().ok())
+        .and_then(|v| v.parse::<usize>().ok());
+    if declared.is_some_and(|d| d > max) {
+        return Err(too_large());
+    }
+    let mut body = req.into_body();
+    let mut out = Vec::with_capacity(declared.unwrap_or(0));
+    while let Some(chunk) = next_chunk(&mut body).await? {
+        if out.len() + chunk.len() > max {
+            return Err(too_large());
+        }
+        out.extend_from_slice(&chunk);
+    }
+    Ok(out)
 }
 
 /// Discards the rest of a request body.
@@ -451,7 +597,36 @@ async fn score_npy(
         _ => None,
     };
     let Some((n, t, h, w)) = maps else {
-        // Points (and anything malformed) are small: buffer them and use the one full check.
+        // Only points are buffered, and only up to their own limit: anything else would be
+        // refused after buffering anyway, so it is refused from its header alone.
+        match header.shape.as_slice() {
+            [n, t, pp, 2] if *pp == p => {
+                let points = n.saturating_mul(*t).saturating_mul(p);
+                let limit = state.limits.max_npy_points;
+                if points > limit {
+                    return Err(ApiError::TooLarge(format!(
+                        "NPY points of shape ({n}, {t}, {p}, 2) are {points} points, over the \
+                         limit of {limit} points (N · T · P) per request; send smaller batches"
+                    )));
+                }
+            }
+            [_, _, pp, _, _] if *pp == p => {
+                return Err(ApiError::invalid_body(
+                    "bad_npy",
+                    "probability maps must be float32 or float16, not float64",
+                ));
+            }
+            other => {
+                return Err(ApiError::invalid_body(
+                    "bad_shape",
+                    format!(
+                        "this goal has P = {p} source points: send maps of shape (N, T, {p}, h, \
+                         w) or points of shape (N, T, {p}, 2), not {other:?}"
+                    ),
+                ));
+            }
+        }
+        // Points are small: buffer them and use the one full check.
         while let Some(chunk) = next_chunk(body).await? {
             if head.len() + chunk.len() > total {
                 return Err(ScoreError::from_npy(npy::NpyError::DataLength {
@@ -469,6 +644,7 @@ async fn score_npy(
         .map_err(|e| ApiError::Internal(e.to_string()))??;
         return Ok(result);
     };
+    check_map_values(&state.limits, p, w, h, None)?;
     let prepared = prepared_maps(state, &checked, w, h).await?;
     let scorer = scoring::MapScorer::new(prepared, header.dtype, n, t)?;
     let block_bytes = scorer.block_candidates() * scorer.candidate_bytes();
@@ -588,10 +764,21 @@ async fn prepared_maps(
         return Ok(p);
     }
     let c = checked.clone();
-    let built = tokio::task::spawn_blocking(move || c.1.prepare_maps(w, h))
-        .await
-        .map_err(|e| ApiError::Internal(e.to_string()))?
-        .map_err(|e| ApiError::from(ScoreError::from_cost(e)))?;
+    // Part of the handler's future: a client that hangs up drops it and the build stops.
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
+    let (built, done) = tokio::task::spawn_blocking(move || {
+        c.1.prepare_maps_until(w, h, &|| stop.load(Ordering::Relaxed))
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))?
+    .map_err(|e| ApiError::from(ScoreError::from_cost(e)))?;
+    drop(cancel);
+    if !done {
+        return Err(ApiError::Internal(
+            "map building stopped: the client hung up".into(),
+        ));
+    }
     let built = std::sync::Arc::new(built);
     state
         .models
@@ -609,7 +796,9 @@ pub async fn overlay(
     let l = load(&state, &who, &id, &n).await?;
     let (_, bytes) = l.frame_image(&state).await?;
     let rev = l.row.revision;
+    let permit = state.heavy_permits.acquire().await?;
     let png = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
         scoring::overlay_png(
             l.spec(),
             &bytes,
@@ -642,14 +831,20 @@ pub async fn bundle(
         return Ok(not_modified(&etag));
     }
     let l = load_row(&state, &who, row).await?;
+    l.check_full_size_maps(&state.limits)?;
     let (content_type, frame) = l.frame_image(&state).await?;
     let rev = l.row.revision;
+    let permit = state.heavy_permits.acquire().await?;
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
     let zip = tokio::task::spawn_blocking(move || {
-        let maps = l.full_size_maps()?;
+        let _permit = permit;
+        let maps = l.full_size_maps(&stop)?;
         scoring::bundle_zip(&l.bundle_parts(&content_type, &frame, &maps))
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
+    drop(cancel);
     Ok(binary_with_etag(
         "application/zip",
         format!("goal-{id}-r{rev}.zip"),
@@ -833,4 +1028,58 @@ pub async fn outcomes(
             trials,
         },
     }))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A checked 2-term goal on a 64×48 frame; `mask` adds a fully painted mask term.
+    fn checked(mask: bool) -> Checked {
+        let mut terms = vec![serde_json::json!({
+            "kind": "point", "source": [1.0, 1.0], "target": [5.0, 5.0]
+        })];
+        if mask {
+            let png = crate::images::encode_mask(64, 48, &vec![true; 64 * 48]).expect("png");
+            use base64::Engine;
+            terms.push(serde_json::json!({
+                "kind": "mask", "source": [2.0, 2.0],
+                "mask_png_base64": base64::engine::general_purpose::STANDARD.encode(png)
+            }));
+        }
+        let doc = serde_json::json!({"name": "g", "frame_id": "f", "terms": terms});
+        let spec = scoring::spec_from_revision(&doc, 64, 48).expect("spec");
+        let model = scoring::model(&spec).expect("model");
+        std::sync::Arc::new((spec, model))
+    }
+
+    #[test]
+    fn the_model_cache_stays_within_its_byte_budget_least_recently_used_out() {
+        let one = checked_bytes(&checked(false));
+        let cache = ModelCache::with_budget(3 * one);
+        for r in 0..20 {
+            cache.put(("g".into(), r), checked(false));
+            assert!(cache.bytes() <= 3 * one, "{} > {}", cache.bytes(), 3 * one);
+        }
+        assert_eq!(cache.bytes(), 3 * one, "full, not emptied");
+        // The three most recent are kept; using the oldest of them keeps it past the next put.
+        assert!(cache.get(&("g".into(), 16)).is_none());
+        assert!(cache.get(&("g".into(), 17)).is_some());
+        cache.put(("g".into(), 20), checked(false));
+        assert!(
+            cache.get(&("g".into(), 17)).is_some(),
+            "recently used stays"
+        );
+        assert!(
+            cache.get(&("g".into(), 18)).is_none(),
+            "least recently used went"
+        );
+        // A model with a mask index is counted by its bytes: larger than this budget, it is not
+        // kept, and nothing else is evicted for it.
+        let big = checked(true);
+        assert!(checked_bytes(&big) > 3 * one, "a mask index is W·H·8 bytes");
+        cache.put(("g".into(), 99), big);
+        assert!(cache.get(&("g".into(), 99)).is_none());
+        assert_eq!(cache.bytes(), 3 * one);
+    }
 }

@@ -278,17 +278,38 @@ pub async fn bundle(
     let set: Value =
         serde_json::from_str(&row.document).map_err(|e| ApiError::Internal(e.to_string()))?;
     let mut loaded = Vec::new();
+    // The set's ZIP holds every item's maps at once, so the limit is on their sum, as for one
+    // heavy request.
+    let mut values = 0usize;
     for item in set["items"].as_array().into_iter().flatten() {
         let goal = item["goal_id"].as_str().unwrap_or_default();
         let n = item["revision"].to_string();
         let l = export::load(&state, &who, goal, &n).await?;
+        l.check_full_size_maps(&state.limits)?;
+        let (w, h) = l.spec().frame_size();
+        values = values.saturating_add(l.model().len() * w as usize * h as usize);
+        let max = state.limits.max_map_values;
+        if values > max {
+            return Err(ApiError::invalid(
+                "map_too_large",
+                "items",
+                format!(
+                    "the full-size cost maps of this set's items are {values} values or more, \
+                     over the limit of {max} values (sum of P · H · W) per bundle; split the set"
+                ),
+            ));
+        }
         let (content_type, frame) = l.frame_image(&state).await?;
         loaded.push((l, content_type, frame));
     }
+    let permit = state.heavy_permits.acquire().await?;
+    let cancel = super::heavy::Cancel::new();
+    let stop = cancel.flag();
     let zip = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
         let maps = loaded
             .iter()
-            .map(|(l, _, _)| l.full_size_maps())
+            .map(|(l, _, _)| l.full_size_maps(&stop))
             .collect::<Result<Vec<_>, _>>()?;
         let parts: Vec<scoring::BundleParts<'_>> = loaded
             .iter()
@@ -299,6 +320,7 @@ pub async fn bundle(
     })
     .await
     .map_err(|e| ApiError::Internal(e.to_string()))??;
+    drop(cancel);
     Ok(export::binary_with_etag(
         "application/zip",
         format!("goal-set-{id}-v{}.zip", row.version),

@@ -11,6 +11,7 @@ pub mod extract;
 pub mod frames;
 pub mod goal_sets;
 pub mod goals;
+pub mod heavy;
 pub mod openapi;
 pub mod preview;
 pub mod routes;
@@ -37,7 +38,9 @@ pub struct AppState {
     /// Checked goals and cost models of recently scored revisions (revisions never change).
     pub models: Arc<export::ModelCache>,
     /// Sign-in throttles, the password-hash bound, the form-token key and the link base.
-    pub security: Arc<crate::pages::security::Security>,
+    pub security: Arc<crate::security::Security>,
+    /// Permits for heavy work (see [`heavy`]), shared by every request.
+    pub heavy_permits: Arc<heavy::Heavy>,
 }
 
 /// The API router, built from [`routes::table`]; `app` adds pages, static files and the layers

@@ -98,6 +98,8 @@ pub struct Operation {
     pub request: Option<Content>,
     /// The success responses.
     pub replies: Vec<Reply>,
+    /// Takes a heavy-work permit, so may answer 503 `busy` with `Retry-After: 1`.
+    pub heavy: bool,
 }
 
 /// The OpenAPI document as served.
@@ -395,6 +397,15 @@ fn operation(s: &mut Schemas, route: &Route) -> Value {
         responses.insert(
             "503".into(),
             error_response(s, "the database cannot be reached"),
+        );
+    }
+    if doc.heavy {
+        responses.insert(
+            "503".into(),
+            error_response(
+                s,
+                "`busy`: too many heavy requests at once; retry after the `Retry-After` seconds",
+            ),
         );
     }
 

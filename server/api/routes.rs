@@ -116,6 +116,12 @@ impl Route {
         self
     }
 
+    /// Takes a heavy-work permit (see [`super::heavy`]): may answer 503 `busy`.
+    fn heavy(mut self) -> Self {
+        self.doc.heavy = true;
+        self
+    }
+
     /// Answers 304 to a matching `If-None-Match`.
     fn conditional(mut self) -> Self {
         self.doc.conditional = true;
@@ -212,6 +218,7 @@ pub fn table() -> Vec<Route> {
             .query::<cameras::ResizeQuery>()
             .ok::<cameras::ResizedIntrinsics>(200, "the intrinsics at that size", &[]),
         Route::post("/api/cameras/{id}/frames", "Upload a frame (raw image/png or image/jpeg body of the camera's size); 200 when the same bytes were already a frame of this camera", frames::upload)
+            .heavy()
             .limit(BodyLimit::Frame)
             .binary_body(&["image/png", "image/jpeg"])
             .ok::<frames::FrameView>(201, "a new frame", &[])
@@ -241,20 +248,25 @@ pub fn table() -> Vec<Route> {
             .conditional()
             .ok::<goals::RevisionDocument>(200, "the revision, as stored", STORED),
         Route::get("/api/goals/{id}/revisions/{n}/cost-maps.npy", "Cost maps, float32 NPY of shape (P, H, W); ?width=&height= evaluates exactly at another size", export::cost_maps)
+            .heavy()
             .query::<export::MapSize>()
             .conditional()
             .ok_binary(&["application/x-npy"], "float32 cost maps of shape (P, h, w)", DOWNLOAD),
         Route::post("/api/goals/{id}/revisions/{n}/cost", "Score candidates: JSON {points: [N][T][P][2]}, or an NPY body of float32/float16 maps (N, T, P, h, w) or points (N, T, P, 2)", export::cost)
+            .heavy()
             .limit(BodyLimit::Cost)
             .json_or_binary_body::<crate::scoring::PointsBody>(&["application/x-npy", "application/octet-stream"])
             .ok::<crate::scoring::CostResponse>(200, "the candidates' costs", &[]),
         Route::get("/api/goals/{id}/revisions/{n}/overlay.png", "The frame with the goal drawn on it", export::overlay)
+            .heavy()
             .conditional()
             .ok_binary(&["image/png"], "the overlay", DOWNLOAD),
         Route::get("/api/goals/{id}/revisions/{n}/bundle.zip", "Reproducible bundle: goal.json, cost-maps.npy, frame, camera.json, README.txt, manifest.json", export::bundle)
+            .heavy()
             .conditional()
             .ok_binary(&["application/zip"], "the bundle; the same bytes for the same revision", DOWNLOAD),
         Route::post("/api/goals/{id}/revisions/{n}/outcomes", "Report final source positions of a trial; 201 with success, residuals and cost", export::report_outcome)
+            .heavy()
             .json_body::<export::OutcomeInput>()
             .ok::<export::OutcomeView>(201, "the outcome as recorded", &[]),
         Route::get("/api/goals/{id}/outcomes", "All outcomes of a goal with a success summary", export::outcomes)
@@ -271,9 +283,11 @@ pub fn table() -> Vec<Route> {
             .json_body::<goal_sets::GoalSetInput>()
             .ok::<goal_sets::GoalSetDocument>(200, "the goal set, as stored", STORED),
         Route::get("/api/goal-sets/{id}/bundle.zip", "Every pinned revision's bundle in one reproducible ZIP, in set order", goal_sets::bundle)
+            .heavy()
             .conditional()
             .ok_binary(&["application/zip"], "the bundle; the same bytes for the same set version", DOWNLOAD),
         Route::post(preview::ROUTE, "Cost map of one source point of an unsaved goal {goal, point, max_side?} as a translucent heat PNG (the editor's live preview); 422 with field when the goal would be refused", preview::cost_map_png)
+            .heavy()
             .limit(BodyLimit::Preview)
             .json_body::<preview::PreviewInput>()
             .ok_binary(&["image/png"], "the heat map", &[Header::CostMax]),
@@ -306,9 +320,9 @@ mod tests {
             limits: Arc::default(),
             models: Arc::default(),
             security: Arc::new(
-                crate::pages::security::Security::new(&Default::default(), None)
-                    .expect("security state"),
+                crate::security::Security::new(&Default::default(), None).expect("security state"),
             ),
+            heavy_permits: Arc::default(),
         });
         let rows = table();
         let mut paths: Vec<&str> = rows.iter().map(|r| r.path).collect();

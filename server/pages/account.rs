@@ -2,13 +2,13 @@
 
 use super::error::{PageError, safe_next};
 use super::render::{Chrome, ok, page, redirect, redirect_flash};
-use super::security::ClientAddr;
 use super::session::{
     CsrfForm, MIN_PASSWORD_CHARS, PreForm, SET_COOKIE, Signed, clear_session_cookie, form_cookie,
     hash_password, start_session, verify_password,
 };
 use crate::api::AppState;
 use crate::api::auth::{self, hash_token};
+use crate::security::ClientAddr;
 use crate::store::{self, accounts::InviteRow};
 use askama::Template;
 use axum::extract::{Path, Query, State};

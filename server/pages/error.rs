@@ -41,6 +41,23 @@ pub enum PageError {
     Internal(String),
 }
 
+impl From<crate::security::SecurityError> for PageError {
+    fn from(e: crate::security::SecurityError) -> Self {
+        use crate::security::SecurityError as S;
+        match e {
+            S::TooMany {
+                message,
+                retry_after_s,
+            } => PageError::TooMany {
+                message,
+                retry_after_s,
+            },
+            S::Busy { retry_after_s } => PageError::Busy { retry_after_s },
+            S::Internal(detail) => PageError::Internal(detail),
+        }
+    }
+}
+
 impl PageError {
     /// A 500 with a detail for the log.
     pub fn internal(detail: impl Into<String>) -> Self {

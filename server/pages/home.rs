@@ -349,7 +349,11 @@ pub(super) async fn upload_frame(
             false,
             &headers,
         )),
-        Err(e @ crate::api::error::ApiError::Invalid { .. }) => Ok(redirect_flash(
+        // A person at the page is told to retry, not shown an error page, when the server is
+        // busy with other heavy work.
+        Err(
+            e @ (crate::api::error::ApiError::Invalid { .. } | crate::api::error::ApiError::Busy),
+        ) => Ok(redirect_flash(
             "/",
             &format!("The frame was not stored: {e}"),
             true,

@@ -13,7 +13,7 @@ pub mod goals;
 pub mod home;
 
 pub mod render;
-pub mod security;
+
 pub mod session;
 pub mod sets;
 pub mod team;

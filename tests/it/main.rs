@@ -9,6 +9,7 @@ mod browser;
 mod concurrency;
 mod export;
 mod goal_sets;
+mod limits;
 mod openapi;
 mod pages;
 mod probe;

@@ -116,22 +116,39 @@ pub struct Server {
 
 impl Server {
     pub fn start(db_url: &str, data_dir: &std::path::Path, extra: &[&str]) -> Server {
-        let child = Self::spawn(db_url, data_dir, extra, Stdio::inherit());
+        Self::start_with_env(db_url, data_dir, extra, &[])
+    }
+
+    /// [`Server::start`] with environment variables (limits) set for the server process.
+    pub fn start_with_env(
+        db_url: &str,
+        data_dir: &std::path::Path,
+        extra: &[&str],
+        env: &[(&str, &str)],
+    ) -> Server {
+        let mut child = Self::command(db_url, data_dir, extra, Stdio::inherit());
+        child.envs(env.iter().copied());
+        let child = child.spawn().expect("spawn goalsmith serve");
         Self::from_child(child, db_url, data_dir)
     }
 
     /// `goalsmith serve` on a free port, stdout piped for the listening line.
     fn spawn(db_url: &str, data_dir: &std::path::Path, extra: &[&str], stderr: Stdio) -> Child {
-        Command::new(bin())
-            .args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
+        Self::command(db_url, data_dir, extra, stderr)
+            .spawn()
+            .expect("spawn goalsmith serve")
+    }
+
+    fn command(db_url: &str, data_dir: &std::path::Path, extra: &[&str], stderr: Stdio) -> Command {
+        let mut c = Command::new(bin());
+        c.args(["serve", "--bind", "127.0.0.1:0", "--database", db_url])
             .arg("--data-dir")
             .arg(data_dir)
             .args(extra)
             .env("GOALSMITH_LOG", "warn")
             .stdout(Stdio::piped())
-            .stderr(stderr)
-            .spawn()
-            .expect("spawn goalsmith serve")
+            .stderr(stderr);
+        c
     }
 
     /// Waits for the one stdout line `listening on http://…` and wraps the process.

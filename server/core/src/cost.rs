@@ -392,12 +392,36 @@ impl CostModel {
     /// Distance maps d_p at the pixel centres of a (height, width) map, shape (P, h, w).
     pub fn distance_maps(&self, width: usize, height: usize) -> Result<Vec<f64>, CostError> {
         let plane = self.check_map_size(width, height)?;
+        let mut out = Vec::with_capacity(plane * self.points.len());
+        self.distance_planes(width, height, &|| false, |_, d| out.extend_from_slice(d))?;
+        Ok(out)
+    }
+
+    /// The distance maps one plane (source point) at a time, in order, handed to `each` as
+    /// `(p, d_p)`, so a caller that converts them (to float32 NPY bytes, say) holds one plane of
+    /// float64 rather than all of them. `stop` is asked between rows and between planes: when it
+    /// answers true the work ends early and `Ok(false)` is returned (a client that hung up);
+    /// otherwise `Ok(true)`. The values are those of [`Self::distance_maps`] exactly.
+    pub fn distance_planes(
+        &self,
+        width: usize,
+        height: usize,
+        stop: &(dyn Fn() -> bool + Sync),
+        mut each: impl FnMut(usize, &[f64]),
+    ) -> Result<bool, CostError> {
+        let plane = self.check_map_size(width, height)?;
         let (xs, ys) = self.map_coordinates(width, height);
-        let mut out = vec![0.0f64; plane * self.points.len()];
-        for (point, dst) in self.points.iter().zip(out.chunks_exact_mut(plane)) {
+        let mut dst = vec![0.0f64; plane];
+        for (p, point) in self.points.iter().enumerate() {
+            if stop() {
+                return Ok(false);
+            }
             match &point.target {
                 TargetShape::Point(t) => {
                     for (row, &y) in dst.chunks_exact_mut(width).zip(&ys) {
+                        if stop() {
+                            return Ok(false);
+                        }
                         for (v, &x) in row.iter_mut().zip(&xs) {
                             *v = t.distance_to(x, y);
                         }
@@ -407,15 +431,45 @@ impl CostModel {
                     dst.par_chunks_mut(width)
                         .zip(ys.par_iter())
                         .for_each(|(row, &y)| {
+                            // A region row costs width × vertices: the check is cheap beside it.
+                            if stop() {
+                                return;
+                            }
                             for (v, &x) in row.iter_mut().zip(&xs) {
                                 *v = poly.distance(x, y);
                             }
                         });
+                    if stop() {
+                        return Ok(false); // rows were skipped: the plane is incomplete
+                    }
                 }
                 TargetShape::Mask(m) => dst.copy_from_slice(&distance::edt_at(m, &xs, &ys)),
             }
+            each(p, &dst);
         }
-        Ok(out)
+        Ok(true)
+    }
+
+    /// Bytes this model holds beyond its own struct, roughly: the masks and, for each mask
+    /// target, its column index (two float32 per frame pixel). For bounding caches by bytes.
+    pub fn approx_bytes(&self) -> usize {
+        let points = self.points.len() * std::mem::size_of::<CostPoint>();
+        let shapes: usize = self
+            .points
+            .iter()
+            .map(|p| match &p.target {
+                TargetShape::Point(_) => 0,
+                TargetShape::Region(poly) => poly.vertices().len() * 16,
+                TargetShape::Mask(m) => m.width() * m.height(),
+            })
+            .sum();
+        let index: usize = self
+            .mask_index
+            .iter()
+            .flatten()
+            .map(|i| (i.up.len() + i.down.len()) * 4)
+            .sum();
+        points + shapes + index
     }
 
     /// The cost maps M_p = m(d_p) as float32, shape (P, height, width), C order.
@@ -431,27 +485,40 @@ impl CostModel {
     /// Precomputes what scoring (N, T, P, height, width) maps needs: the cost maps for
     /// `expected`, the within-tolerance indicators for `hit`. Keep it to score many batches.
     pub fn prepare_maps(&self, width: usize, height: usize) -> Result<PreparedMaps, CostError> {
-        let distances = self.distance_maps(width, height)?;
-        let plane = width * height;
+        Ok(self.prepare_maps_until(width, height, &|| false)?.0)
+    }
+
+    /// [`Self::prepare_maps`] built plane by plane from [`Self::distance_planes`] (one float64
+    /// plane held, not the stack), stopping early when `stop` answers true: the flag says
+    /// whether the maps are complete (an incomplete set must not be used). The values are those
+    /// of the whole-stack build exactly.
+    pub fn prepare_maps_until(
+        &self,
+        width: usize,
+        height: usize,
+        stop: &(dyn Fn() -> bool + Sync),
+    ) -> Result<(PreparedMaps, bool), CostError> {
+        let plane = self.check_map_size(width, height)?;
         let metric = self.settings.metric;
-        let kernel: Vec<f32> = match self.settings.mode {
-            Mode::Expected => distances.iter().map(|&d| metric.apply(d) as f32).collect(),
-            Mode::Hit => distances
-                .chunks_exact(plane)
-                .zip(&self.points)
-                .flat_map(|(ds, p)| {
-                    ds.iter()
-                        .map(move |&d| if d <= p.tolerance_px { 1.0 } else { 0.0 })
-                })
-                .collect(),
-        };
-        Ok(PreparedMaps {
-            width,
-            height,
-            weights: self.points.iter().map(|p| p.weight).collect(),
-            settings: self.settings,
-            kernel,
-        })
+        let mode = self.settings.mode;
+        let mut kernel: Vec<f32> = Vec::with_capacity(plane * self.points.len());
+        let done = self.distance_planes(width, height, stop, |p, ds| match mode {
+            Mode::Expected => kernel.extend(ds.iter().map(|&d| metric.apply(d) as f32)),
+            Mode::Hit => {
+                let tol = self.points[p].tolerance_px;
+                kernel.extend(ds.iter().map(|&d| if d <= tol { 1.0 } else { 0.0 }));
+            }
+        })?;
+        Ok((
+            PreparedMaps {
+                width,
+                height,
+                weights: self.points.iter().map(|p| p.weight).collect(),
+                settings: self.settings,
+                kernel,
+            },
+            done,
+        ))
     }
 
     /// Scores probability maps of shape (n, t, P, height, width); see [`PreparedMaps::evaluate`].
@@ -1420,6 +1487,58 @@ mod tests {
             checked += 1;
         }
         assert_eq!(checked, 60);
+    }
+
+    #[test]
+    fn distance_planes_are_the_maps_and_stop_when_asked() {
+        use std::sync::atomic::{AtomicUsize, Ordering};
+        let doc: Value = serde_json::from_str(REFERENCE).unwrap();
+        let model = CostModel::new(
+            24,
+            18,
+            reference_points(&doc),
+            CostSettings::new(Metric::Squared, Steps::Final, Mode::Expected).unwrap(),
+        )
+        .unwrap();
+        assert!(model.len() >= 2, "the reference has several points");
+        let whole = model.distance_maps(24, 18).unwrap();
+        let mut planes = Vec::new();
+        let done = model
+            .distance_planes(24, 18, &|| false, |p, d| {
+                assert_eq!(p, planes.len() / (24 * 18));
+                planes.extend_from_slice(d);
+            })
+            .unwrap();
+        assert!(done);
+        assert_eq!(planes, whole, "bit-identical to distance_maps");
+        // A stop that turns true after the first plane: nothing more is handed over.
+        let delivered = AtomicUsize::new(0);
+        let done = model
+            .distance_planes(24, 18, &|| delivered.load(Ordering::SeqCst) >= 1, |_, _| {
+                delivered.fetch_add(1, Ordering::SeqCst);
+            })
+            .unwrap();
+        assert!(!done);
+        assert_eq!(delivered.load(Ordering::SeqCst), 1);
+    }
+
+    #[test]
+    fn approx_bytes_counts_mask_indexes() {
+        let doc: Value = serde_json::from_str(REFERENCE).unwrap();
+        let points = reference_points(&doc);
+        let masks = points
+            .iter()
+            .filter(|p| matches!(p.target, TargetShape::Mask(_)))
+            .count();
+        let model = CostModel::new(
+            24,
+            18,
+            points,
+            CostSettings::new(Metric::Squared, Steps::Final, Mode::Expected).unwrap(),
+        )
+        .unwrap();
+        // Two float32 per pixel per mask index and a byte per mask pixel at least.
+        assert!(model.approx_bytes() >= masks * 24 * 18 * 9);
     }
 
     #[test]

@@ -22,6 +22,11 @@ pub const MAX_TEXT_CHARS: usize = 2000;
 pub const MAX_TERMS: usize = 256;
 /// Most vertices in one polygon and sources in one rigid term.
 pub const MAX_VERTICES: usize = 1024;
+/// Most polygon vertices and rigid sources over all terms of one goal. A region's cost map
+/// costs W·H·vertices to build (every pixel measures every edge), so the total, not each
+/// polygon alone, bounds the work of a map or a bundle; refused with `too_many_vertices` on
+/// `terms`.
+pub const MAX_VERTICES_PER_GOAL: usize = 4096;
 /// Most painted pixels over all mask terms of one goal: 2²³ = 8,388,608, a fully painted
 /// 4096 × 2048 frame. The safety check tests every painted pixel against every camera zone, so
 /// the total over the goal's masks is bounded (up to [`MAX_TERMS`] of them), not each mask
@@ -509,6 +514,25 @@ impl GoalSpec {
                 "too_many_terms",
                 "terms",
                 format!("at most {MAX_TERMS} terms"),
+            ));
+        }
+        let vertices: usize = document
+            .terms
+            .iter()
+            .map(|t| match t {
+                TermDocument::Region { polygon, .. } => polygon.len(),
+                TermDocument::Rigid { sources, .. } => sources.len(),
+                _ => 0,
+            })
+            .sum();
+        if vertices > MAX_VERTICES_PER_GOAL {
+            return Err(GoalError::new(
+                "too_many_vertices",
+                "terms",
+                format!(
+                    "at most {MAX_VERTICES_PER_GOAL} polygon vertices and rigid sources over all \
+                     terms of a goal; this one has {vertices}"
+                ),
             ));
         }
         let settings = check_cost(document.cost.as_ref())?;
@@ -1185,6 +1209,45 @@ mod tests {
         assert_eq!(spec.warnings().len(), 1);
         assert!(spec.warnings()[0].starts_with("terms[0].polygon: "));
         assert!(spec.warnings()[0].contains("outside the camera's safe zone"));
+    }
+
+    /// A convex polygon of `n` vertices on a circle inside the 64×48 frame.
+    fn circle(n: usize) -> Vec<Xy> {
+        (0..n)
+            .map(|k| {
+                let a = std::f64::consts::TAU * k as f64 / n as f64;
+                [32.0 + 20.0 * a.cos(), 24.0 + 20.0 * a.sin()]
+            })
+            .collect()
+    }
+
+    #[test]
+    fn vertices_are_bounded_over_the_whole_goal() {
+        // At the limit: four polygons of MAX_VERTICES each make MAX_VERTICES_PER_GOAL.
+        let at: Vec<TermDocument> = (0..MAX_VERTICES_PER_GOAL / MAX_VERTICES)
+            .map(|_| region(&circle(MAX_VERTICES)))
+            .collect();
+        assert!(check(None, &[], at.clone(), false).is_ok());
+        // One triangle more is past it, though every polygon alone is within MAX_VERTICES.
+        let mut past = at;
+        past.push(region(&circle(3)));
+        let (code, field, message) = refusal(check(None, &[], past, false));
+        assert_eq!((code, field.as_str()), ("too_many_vertices", "terms"));
+        assert!(message.contains("4096"), "{message}");
+        // Rigid sources count too.
+        let mut rigid_past: Vec<TermDocument> =
+            (0..3).map(|_| region(&circle(MAX_VERTICES))).collect();
+        rigid_past.push(region(&circle(3)));
+        rigid_past.push(TermDocument::Rigid {
+            label: None,
+            sources: vec![[2.0, 2.0]; MAX_VERTICES],
+            targets: vec![[12.0, 2.0]; MAX_VERTICES],
+            allow_scale: None,
+            weight: None,
+            tolerance_px: None,
+        });
+        let (code, field, _) = refusal(check(None, &[], rigid_past, false));
+        assert_eq!((code, field.as_str()), ("too_many_vertices", "terms"));
     }
 
     #[test]

@@ -383,6 +383,13 @@ pub fn write_f32(shape: &[usize], data: &[f32]) -> Result<Vec<u8>, NpyError> {
     Ok(out)
 }
 
+/// The header of a C-order little-endian float32 array of `shape`, for a writer that appends
+/// the data itself (plane by plane, say) rather than holding it all as `f32` first.
+pub fn f32_header(shape: &[usize]) -> Result<Vec<u8>, NpyError> {
+    let elements = shape.iter().product();
+    header_bytes(Dtype::F32, shape, elements)
+}
+
 /// A C-order little-endian float16 array as `numpy.save` writes it (version 1.0 header).
 pub fn write_f16(shape: &[usize], data: &[f16]) -> Result<Vec<u8>, NpyError> {
     let mut out = header_bytes(Dtype::F16, shape, data.len())?;

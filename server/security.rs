@@ -6,7 +6,25 @@
 //! must be posted to the process that served it; that is acceptable while we run one or two
 //! processes behind a sticky proxy, and is the thing to move into the database when we run more.
 
-use super::error::PageError;
+/// Why a sign-in step was refused; the pages turn it into a page with the right status.
+#[derive(Debug)]
+pub enum SecurityError {
+    /// Too many attempts (429), with the message for the person and when to come back.
+    TooMany {
+        /// For the person.
+        message: String,
+        /// Seconds until the next attempt is allowed.
+        retry_after_s: u64,
+    },
+    /// Every hashing slot is taken (503).
+    Busy {
+        /// Seconds to wait before retrying.
+        retry_after_s: u64,
+    },
+    /// Something that should not happen.
+    Internal(String),
+}
+
 use crate::config::SignInLimits;
 use axum::extract::{ConnectInfo, FromRequestParts};
 use axum::http::{HeaderMap, request::Parts};
@@ -171,9 +189,9 @@ impl Security {
     /// either is over its limit. Runs before the password hash, so a refused attempt costs
     /// nothing. The login's attempt counts as a failure until [`Self::signed_in`] clears it:
     /// counting before the hash means parallel guesses cannot all slip under the limit.
-    pub fn sign_in_attempt(&self, login: &str, client: &ClientAddr) -> Result<(), PageError> {
+    pub fn sign_in_attempt(&self, login: &str, client: &ClientAddr) -> Result<(), SecurityError> {
         let now = Instant::now();
-        let too_many = |retry_after_s| PageError::TooMany {
+        let too_many = |retry_after_s| SecurityError::TooMany {
             message: format!(
                 "There were too many sign-in attempts for this account or from this network. \
                  Wait {} and try again.",
@@ -184,11 +202,11 @@ impl Security {
         let mut addresses = self
             .addresses
             .lock()
-            .map_err(|_| PageError::internal("address throttle poisoned"))?;
+            .map_err(|_| SecurityError::Internal("address throttle poisoned".into()))?;
         let mut logins = self
             .logins
             .lock()
-            .map_err(|_| PageError::internal("login throttle poisoned"))?;
+            .map_err(|_| SecurityError::Internal("login throttle poisoned".into()))?;
         // Check both before recording either, so a refused login does not use up the address's
         // allowance and the other way round.
         let key = login_key(login);
@@ -222,11 +240,11 @@ impl Security {
 
     /// A slot to run one password hash in, or 503 when the slots stay taken for longer than
     /// the configured wait or too many requests already wait.
-    pub async fn hash_slot(&self) -> Result<OwnedSemaphorePermit, PageError> {
+    pub async fn hash_slot(&self) -> Result<OwnedSemaphorePermit, SecurityError> {
         if let Ok(permit) = self.hashing.clone().try_acquire_owned() {
             return Ok(permit);
         }
-        let busy = || PageError::Busy {
+        let busy = || SecurityError::Busy {
             retry_after_s: self.limits.hash_wait_ms.div_ceil(1000).max(1),
         };
         let ahead = self.waiting.fetch_add(1, Ordering::SeqCst);
@@ -243,10 +261,10 @@ impl Security {
 
     /// A new pre-session form token: `time.nonce.mac`, the MAC keyed by this process's secret,
     /// so only tokens we issued pass [`Self::form_token_age`].
-    pub fn issue_form_token(&self) -> Result<String, PageError> {
+    pub fn issue_form_token(&self) -> Result<String, SecurityError> {
         let mut nonce = [0u8; 16];
         getrandom::fill(&mut nonce)
-            .map_err(|e| PageError::internal(format!("no randomness: {e}")))?;
+            .map_err(|e| SecurityError::Internal(format!("no randomness: {e}")))?;
         let payload = format!("{:x}.{}", unix_s(), hex::encode(nonce));
         let mac = hex::encode(hmac_sha256(&self.form_key, payload.as_bytes()));
         Ok(format!("{payload}.{mac}"))
@@ -271,7 +289,7 @@ impl Security {
 
     /// The token for a page showing a pre-session form: the browser's own while it is ours and
     /// young enough, else a new one; with the cookie's lifetime in seconds.
-    pub fn form_token_for(&self, current: Option<&str>) -> Result<(String, u64), PageError> {
+    pub fn form_token_for(&self, current: Option<&str>) -> Result<(String, u64), SecurityError> {
         if let Some(t) = current
             && let Some(age) = self.form_token_age(t)
             && age < FORM_TOKEN_REUSE_SECS
@@ -490,7 +508,7 @@ mod tests {
         let s = Security::new(&limits, None).expect("security");
         let held = s.hash_slot().await.expect("the one slot");
         match s.hash_slot().await {
-            Err(PageError::Busy { retry_after_s }) => assert_eq!(retry_after_s, 1),
+            Err(SecurityError::Busy { retry_after_s }) => assert_eq!(retry_after_s, 1),
             other => panic!("expected busy, got {other:?}"),
         }
         drop(held);

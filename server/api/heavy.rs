@@ -1,0 +1,125 @@
+//! A bound on CPU- and memory-heavy work across requests: scoring, building cost maps, bundles
+//! and overlays, and decoding frames each take a permit. Without it, a handful of parallel
+//! requests from one viewer token could each hold hundreds of megabytes and every core at once.
+//!
+//! Requests beyond the permits wait, but only so many: past the queue they are answered 503
+//! `busy` with `Retry-After: 1`, so a burst is shed quickly instead of piling up memory and
+//! latency for everyone (light routes such as `/healthz` never wait here).
+
+use super::error::ApiError;
+use std::sync::Arc;
+use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use tokio::sync::{OwnedSemaphorePermit, Semaphore};
+
+/// The permits and the count of requests waiting for one.
+pub struct Heavy {
+    permits: Arc<Semaphore>,
+    waiting: AtomicUsize,
+    queue: usize,
+}
+
+impl Heavy {
+    /// `permits` at once (at least 1), at most `queue` more waiting.
+    pub fn new(permits: usize, queue: usize) -> Self {
+        Self {
+            permits: Arc::new(Semaphore::new(permits.max(1))),
+            waiting: AtomicUsize::new(0),
+            queue,
+        }
+    }
+
+    /// A permit now, or after waiting in the queue; `busy` (503) when the queue is full.
+    pub async fn acquire(&self) -> Result<OwnedSemaphorePermit, ApiError> {
+        if let Ok(p) = self.permits.clone().try_acquire_owned() {
+            return Ok(p);
+        }
+        if self.waiting.fetch_add(1, Ordering::SeqCst) >= self.queue {
+            self.waiting.fetch_sub(1, Ordering::SeqCst);
+            return Err(ApiError::Busy);
+        }
+        // Decremented however the wait ends, also when the client hangs up meanwhile and the
+        // handler future is dropped.
+        struct Waiting<'a>(&'a AtomicUsize);
+        impl Drop for Waiting<'_> {
+            fn drop(&mut self) {
+                self.0.fetch_sub(1, Ordering::SeqCst);
+            }
+        }
+        let _w = Waiting(&self.waiting);
+        self.permits
+            .clone()
+            .acquire_owned()
+            .await
+            .map_err(|e| ApiError::Internal(format!("heavy permits closed: {e}")))
+    }
+}
+
+impl Default for Heavy {
+    fn default() -> Self {
+        let cores = crate::config::cores();
+        Self::new(cores, 4 * cores)
+    }
+}
+
+/// Set when the handler future that holds it is dropped: a client that hung up drops the
+/// future, and the blocking work it started checks [`Cancel::flag`] to stop early.
+pub struct Cancel(Arc<AtomicBool>);
+
+impl Cancel {
+    /// A guard with a fresh flag.
+    pub fn new() -> Self {
+        Self(Arc::new(AtomicBool::new(false)))
+    }
+
+    /// The flag to move into the blocking work.
+    pub fn flag(&self) -> Arc<AtomicBool> {
+        self.0.clone()
+    }
+}
+
+impl Default for Cancel {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl Drop for Cancel {
+    fn drop(&mut self) {
+        self.0.store(true, Ordering::Relaxed);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[tokio::test]
+    async fn a_full_queue_is_busy_and_a_freed_permit_is_reused() {
+        let h = Arc::new(Heavy::new(1, 1));
+        let first = h.acquire().await.expect("a free permit");
+        // One may wait …
+        let h2 = h.clone();
+        let waiter = tokio::spawn(async move { h2.acquire().await.map(drop) });
+        while h.waiting.load(Ordering::SeqCst) == 0 {
+            tokio::task::yield_now().await;
+        }
+        // … the next is refused.
+        assert!(matches!(h.acquire().await, Err(ApiError::Busy)));
+        drop(first);
+        waiter
+            .await
+            .expect("join")
+            .expect("the waiter gets the permit");
+        assert_eq!(h.waiting.load(Ordering::SeqCst), 0);
+        assert!(h.acquire().await.is_ok());
+    }
+
+    #[test]
+    fn cancel_sets_its_flag_when_dropped() {
+        let c = Cancel::new();
+        let f = c.flag();
+        assert!(!f.load(Ordering::Relaxed));
+        drop(c);
+        assert!(f.load(Ordering::Relaxed));
+    }
+}
