@@ -34,6 +34,13 @@ pub const MAX_VERTICES_PER_GOAL: usize = 4096;
 /// pixels take the running total over, whether or not the camera has zones and whether or not
 /// `override_safety` is set.
 pub const MAX_PAINTED_PIXELS_PER_GOAL: usize = 1 << 23;
+/// Most mask pixels, painted or not, over all mask terms of one goal: 2²⁶ = 67,108,864, one
+/// mask of the largest frame (8192 × 8192) or 32 masks of 1920 × 1080. Every mask is of the
+/// frame's size and its cost model keeps a distance index of that size, so this bounds the
+/// memory one goal's model can take (several hundred MiB at the limit). Checked from the
+/// number of mask terms before any mask is decoded; refused with `too_many_mask_pixels` on
+/// `terms`.
+pub const MAX_MASK_PIXELS_PER_GOAL: usize = 1 << 26;
 
 /// A pixel coordinate pair `[x, y]` as sent by clients.
 pub type Xy = [f64; 2];
@@ -532,6 +539,25 @@ impl GoalSpec {
                 format!(
                     "at most {MAX_VERTICES_PER_GOAL} polygon vertices and rigid sources over all \
                      terms of a goal; this one has {vertices}"
+                ),
+            ));
+        }
+        let masks = document
+            .terms
+            .iter()
+            .filter(|t| matches!(t, TermDocument::Mask { .. }))
+            .count();
+        let mask_pixels = masks
+            .saturating_mul(frame.width as usize)
+            .saturating_mul(frame.height as usize);
+        if mask_pixels > MAX_MASK_PIXELS_PER_GOAL {
+            return Err(GoalError::new(
+                "too_many_mask_pixels",
+                "terms",
+                format!(
+                    "at most {MAX_MASK_PIXELS_PER_GOAL} mask pixels over all mask terms of a goal \
+                     (masks are of the frame's size, {}×{}); this one has {masks} masks",
+                    frame.width, frame.height
                 ),
             ));
         }
@@ -1414,5 +1440,46 @@ mod tests {
             ("too_many_painted_pixels", "terms[1].mask_png_base64")
         );
         assert!(e.message.contains("8388608"), "{}", e.message);
+    }
+
+    #[test]
+    fn mask_pixels_are_bounded_before_any_mask_is_decoded() {
+        // 1920 × 1080 frames: 32 masks fit in 2^26 pixels, 33 do not. The decoder is never
+        // reached past the bound (it would fail the test), and at the bound it runs.
+        let (w, h) = (1920u32, 1080u32);
+        let decoded = std::cell::Cell::new(0usize);
+        let decode = |_: &str| -> Result<(usize, usize, Vec<bool>), String> {
+            decoded.set(decoded.get() + 1);
+            let mut flags = vec![false; w as usize * h as usize];
+            flags[0] = true;
+            Ok((w as usize, h as usize, flags))
+        };
+        let ctx = CheckContext {
+            width: w,
+            height: h,
+            safe_zone: None,
+            no_go_zones: &[],
+            decode_mask: &decode,
+            reward_fit_exists: &|_| false,
+        };
+        let mask = || TermDocument::Mask {
+            label: None,
+            source: [1.0, 1.0],
+            mask_png_base64: "x".into(),
+            weight: None,
+            tolerance_px: None,
+        };
+        let at = MAX_MASK_PIXELS_PER_GOAL / (w as usize * h as usize);
+        assert_eq!(at, 32);
+        assert!(GoalSpec::check(document((0..at).map(|_| mask()).collect(), false), &ctx).is_ok());
+        assert_eq!(decoded.get(), at);
+        decoded.set(0);
+        let e = GoalSpec::check(document((0..=at).map(|_| mask()).collect(), false), &ctx)
+            .expect_err("one mask past the bound");
+        assert_eq!(
+            (e.code, e.field.as_str()),
+            ("too_many_mask_pixels", "terms")
+        );
+        assert_eq!(decoded.get(), 0, "refused before decoding");
     }
 }
