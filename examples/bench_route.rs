@@ -15,65 +15,13 @@
 //! Prints one JSON line per dtype with the best and median times and the route/sink ratios.
 
 use std::io::{BufRead, BufReader, Read, Write};
-use std::net::{TcpListener, TcpStream};
-use std::process::{Command, Stdio};
+use std::net::TcpListener;
+
 use std::time::Instant;
 
-type Error = Box<dyn std::error::Error>;
-
-/// Sends one request and reads the whole response; returns (status, body).
-fn request(
-    addr: &str,
-    method: &str,
-    path: &str,
-    headers: &[(&str, &str)],
-    body: &[u8],
-) -> Result<(u16, Vec<u8>), Error> {
-    let mut s = TcpStream::connect(addr)?;
-    s.set_nodelay(true)?;
-    let mut head = format!(
-        "{method} {path} HTTP/1.1\r\nHost: {addr}\r\nConnection: close\r\nContent-Length: {}\r\n",
-        body.len()
-    );
-    for (k, v) in headers {
-        head.push_str(&format!("{k}: {v}\r\n"));
-    }
-    head.push_str("\r\n");
-    s.write_all(head.as_bytes())?;
-    s.write_all(body)?;
-    let mut r = BufReader::new(s);
-    let mut status_line = String::new();
-    r.read_line(&mut status_line)?;
-    let status: u16 = status_line
-        .split_whitespace()
-        .nth(1)
-        .and_then(|c| c.parse().ok())
-        .ok_or("bad status line")?;
-    let mut len: Option<usize> = None;
-    loop {
-        let mut line = String::new();
-        r.read_line(&mut line)?;
-        if line == "\r\n" || line.is_empty() {
-            break;
-        }
-        if let Some((k, v)) = line.split_once(':')
-            && k.eq_ignore_ascii_case("content-length")
-        {
-            len = v.trim().parse().ok();
-        }
-    }
-    let mut out = Vec::new();
-    match len {
-        Some(n) => {
-            out.resize(n, 0);
-            r.read_exact(&mut out)?;
-        }
-        None => {
-            r.read_to_end(&mut out)?;
-        }
-    }
-    Ok((status, out))
-}
+#[path = "support/http.rs"]
+mod http;
+use http::{Error, field, json, request};
 
 /// A bare HTTP sink: reads the request line, headers and Content-Length bytes, answers 200.
 fn sink() -> Result<String, Error> {
@@ -126,30 +74,6 @@ fn sink() -> Result<String, Error> {
     Ok(addr)
 }
 
-fn json(addr: &str, token: &str, method: &str, path: &str, body: &str) -> Result<String, Error> {
-    let auth = format!("Bearer {token}");
-    let (st, out) = request(
-        addr,
-        method,
-        path,
-        &[
-            ("Authorization", &auth),
-            ("Content-Type", "application/json"),
-        ],
-        body.as_bytes(),
-    )?;
-    let text = String::from_utf8(out)?;
-    if st >= 300 {
-        return Err(format!("{method} {path}: {st} {text}").into());
-    }
-    Ok(text)
-}
-
-fn field(doc: &str, name: &str) -> Result<String, Error> {
-    let v: serde_json::Value = serde_json::from_str(doc)?;
-    Ok(v[name].as_str().ok_or("missing id")?.to_string())
-}
-
 fn stats(mut v: Vec<f64>) -> (f64, f64) {
     v.sort_by(f64::total_cmp);
     (v[0], v[v.len() / 2])
@@ -160,34 +84,8 @@ fn main() -> Result<(), Error> {
         .nth(1)
         .and_then(|a| a.parse().ok())
         .unwrap_or(15);
-    let bin = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("target/release/goalsmith");
-    if !bin.exists() {
-        return Err("build the server first: cargo build --release".into());
-    }
-    let dir = tempfile::tempdir()?;
-    let db = format!("sqlite://{}", dir.path().join("bench.db").display());
-    let token = String::from_utf8(
-        Command::new(&bin)
-            .args(["token", "create", "--team", "bench", "--role", "editor"])
-            .args(["--database", &db])
-            .output()?
-            .stdout,
-    )?
-    .trim()
-    .to_string();
-    let mut server = Command::new(&bin)
-        .args(["serve", "--bind", "127.0.0.1:0", "--database", &db])
-        .env("GOALSMITH_LOG", "warn")
-        .stdout(Stdio::piped())
-        .spawn()?;
-    let mut line = String::new();
-    BufReader::new(server.stdout.take().ok_or("no stdout")?).read_line(&mut line)?;
-    let addr = line
-        .trim()
-        .strip_prefix("listening on http://")
-        .ok_or("no listening line")?
-        .to_string();
-
+    let served = http::Served::start()?;
+    let (addr, token) = (served.addr.clone(), served.token.clone());
     let result = (|| -> Result<(), Error> {
         let cam = json(
             &addr,
@@ -348,7 +246,6 @@ fn main() -> Result<(), Error> {
         );
         Ok(())
     })();
-    let _ = server.kill();
-    let _ = server.wait();
+    drop(served);
     result
 }

@@ -484,11 +484,15 @@ pub async fn cost(
         content_type.as_str(),
         "application/json" | "application/x-npy" | "application/octet-stream"
     ) {
-        return Err(ApiError::UnsupportedMediaType(format!(
+        let e = ApiError::UnsupportedMediaType(format!(
             "send application/json {{\"points\": …}} or an application/x-npy body, not {content_type:?}"
-        )));
+        ));
+        return Err(refuse(req, e).await);
     }
-    let checked = checked_model(&state, &who, &id, &n).await?;
+    let checked = match checked_model(&state, &who, &id, &n).await {
+        Ok(c) => c,
+        Err(e) => return Err(refuse(req, e).await),
+    };
     let max = state.limits.cost_body_bytes;
     if content_type == "application/json" {
         let body = read_json_cost_body(req, state.limits.cost_json_bytes).await?;
@@ -532,18 +536,30 @@ async fn read_json_cost_body(req: Request, max: usize) -> ApiResult<Vec<u8>> {
         .get(header::CONTENT_LENGTH)
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<usize>().ok());
+    let mut body = req.into_body();
     if declared.is_some_and(|d| d > max) {
+        // Read the rest and drop it (the route's limit bounds it), so the client reads the 413
+        // rather than a connection reset halfway through its upload.
+        drain(&mut body).await;
         return Err(too_large());
     }
-    let mut body = req.into_body();
     let mut out = Vec::with_capacity(declared.unwrap_or(0));
     while let Some(chunk) = next_chunk(&mut body).await? {
         if out.len() + chunk.len() > max {
+            drain(&mut body).await;
             return Err(too_large());
         }
         out.extend_from_slice(&chunk);
     }
     Ok(out)
+}
+
+/// An early refusal of a request whose body has not been read: the body is read and dropped
+/// first (the route's limit bounds it), so a client still uploading a large batch reads the
+/// error (a 404, a 415, a 503 `busy`) rather than a reset connection.
+async fn refuse(req: Request, e: ApiError) -> ApiError {
+    drain(&mut req.into_body()).await;
+    e
 }
 
 /// Discards the rest of a request body.
