@@ -19,6 +19,15 @@ pub fn app(state: AppState) -> Router {
     let request_id = HeaderName::from_static("x-request-id");
     api::router(state.clone())
         .merge(crate::pages::router())
+        // One fallback for both edges, here where they are put together: API paths get the
+        // contract's JSON 404, everything else the readable page.
+        .fallback(|uri: axum::http::Uri| async move {
+            if api::owns_path(uri.path()) {
+                api::not_found()
+            } else {
+                crate::pages::not_found_page()
+            }
+        })
         .nest_service(
             "/static",
             // A missing file gets the contract's error body, not an empty 404.

@@ -67,8 +67,7 @@ pub fn router(state: AppState) -> Router<AppState> {
         };
         api = api.route(route.path, handler);
     }
-    api.fallback(api_not_found)
-        .layer(axum::middleware::map_response(contract_errors))
+    api.layer(axum::middleware::map_response(contract_errors))
         .layer(axum::middleware::from_fn(caution_header))
 }
 
@@ -158,12 +157,15 @@ async fn healthz(State(state): State<AppState>) -> Response {
     }
 }
 
-async fn api_not_found(uri: axum::http::Uri) -> Response {
-    // Paths outside /api belong to people: they get a readable page, not JSON.
-    if !uri.path().starts_with("/api/") && uri.path() != "/healthz" {
-        return crate::pages::not_found_page();
-    }
+/// The answer for an API path that matches no route (`app` routes unknown paths here or to
+/// the pages' 404, by prefix).
+pub fn not_found() -> Response {
     error::ApiError::NotFound("no such route".into()).into_response()
+}
+
+/// Whether an unmatched path is the API's (JSON 404) rather than the pages' (HTML 404).
+pub fn owns_path(path: &str) -> bool {
+    path.starts_with("/api/") || path == "/healthz"
 }
 
 /// A list. Lists are always `{"items": [...]}`, never a bare array, so that fields can join

@@ -76,7 +76,8 @@ pub fn router() -> Router<AppState> {
         .layer(axum::middleware::map_response(readable_errors))
 }
 
-/// The HTML 404 for paths that are not pages; the API's fallback calls it for non-`/api` paths.
+/// The HTML 404 for paths that are not pages; the application's fallback answers with it for
+/// every path outside the API.
 pub fn not_found_page() -> Response {
     error::PageError::NotFound("There is no page at this address.".into()).into_response()
 }
