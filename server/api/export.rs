@@ -272,8 +272,10 @@ pub fn check_map_values(
     Err(ApiError::Invalid {
         code: "map_too_large",
         message: format!(
-            "cost maps of {points} points × {height} × {width} are {values} values, over the \
-             limit of {max} values (P · h · w) per request; ask for smaller maps"
+            "cost maps of {points} source point{} at {width} × {height} pixels are {values} \
+             values, over the limit of {max} values (P · h · w) per request; ask for a smaller \
+             width and height",
+            if points == 1 { "" } else { "s" }
         ),
         field: field.map(str::to_string),
     })
@@ -497,11 +499,7 @@ pub async fn cost(
     if content_type == "application/json" {
         let body = read_json_cost_body(req, state.limits.cost_json_bytes).await?;
         let _permit = state.heavy_permits.acquire().await?;
-        let result = tokio::task::spawn_blocking(move || {
-            scoring::evaluate(&checked.1, &content_type, &body, max)
-        })
-        .await
-        .map_err(|e| ApiError::Internal(e.to_string()))??;
+        let result = evaluate_buffered(checked, content_type, body, max).await?;
         return Ok(Json(scoring::cost_response(&result)));
     }
     let declared = req
@@ -562,6 +560,21 @@ async fn refuse(req: Request, e: ApiError) -> ApiError {
     e
 }
 
+/// Scores a whole buffered body (JSON points, NPY points, or anything the full check must
+/// explain) off the async workers.
+async fn evaluate_buffered(
+    checked: Checked,
+    content_type: String,
+    body: impl AsRef<[u8]> + Send + 'static,
+    max: usize,
+) -> ApiResult<goalsmith_core::cost::CostResult> {
+    Ok(tokio::task::spawn_blocking(move || {
+        scoring::evaluate(&checked.1, &content_type, body.as_ref(), max)
+    })
+    .await
+    .map_err(|e| ApiError::Internal(e.to_string()))??)
+}
+
 /// Discards the rest of a request body.
 async fn drain(body: &mut axum::body::Body) {
     while let Ok(Some(_)) = next_chunk(body).await {}
@@ -588,12 +601,7 @@ async fn score_npy(
             Some(chunk) => head.extend_from_slice(&chunk),
             None => {
                 // The whole body was shorter than its header: let the buffered path say why.
-                let result = tokio::task::spawn_blocking(move || {
-                    scoring::evaluate(&checked.1, &content_type, &head, max)
-                })
-                .await
-                .map_err(|e| ApiError::Internal(e.to_string()))??;
-                return Ok(result);
+                return evaluate_buffered(checked, content_type, head, max).await;
             }
         }
     };
@@ -653,12 +661,7 @@ async fn score_npy(
             }
             head.extend_from_slice(&chunk);
         }
-        let result = tokio::task::spawn_blocking(move || {
-            scoring::evaluate(&checked.1, &content_type, &head, max)
-        })
-        .await
-        .map_err(|e| ApiError::Internal(e.to_string()))??;
-        return Ok(result);
+        return evaluate_buffered(checked, content_type, head, max).await;
     };
     check_map_values(&state.limits, p, w, h, None)?;
     let prepared = prepared_maps(state, &checked, w, h).await?;
