@@ -1,8 +1,9 @@
 //! Building the application and running it: `app(state)` is separate from binding a port so tests
 //! and the binary share it.
 
-use crate::api::{self, AppState};
+use crate::api;
 use crate::config::ServeConfig;
+use crate::service::AppState;
 use crate::store::Store;
 use axum::Router;
 use axum::extract::MatchedPath;
@@ -28,11 +29,12 @@ pub fn app(state: AppState) -> Router {
                 crate::pages::not_found_page()
             }
         })
-        .nest_service(
+        .nest(
             "/static",
             // A missing file gets the contract's error body, not an empty 404.
             Router::new()
-                .fallback_service(tower_http::services::ServeDir::new(static_dir()))
+                .route("/{name}", axum::routing::get(crate::assets::serve))
+                .fallback(|| async { api::not_found() })
                 .layer(axum::middleware::map_response(api::contract_errors)),
         )
         .with_state(state)
@@ -61,14 +63,6 @@ pub fn app(state: AppState) -> Router {
         .layer(SetRequestIdLayer::new(request_id, MakeRequestUuid))
 }
 
-/// Where the JS and CSS live: `web/static` beside the binary's source tree, or
-/// `GOALSMITH_STATIC_DIR`.
-pub fn static_dir() -> std::path::PathBuf {
-    std::env::var_os("GOALSMITH_STATIC_DIR")
-        .map(Into::into)
-        .unwrap_or_else(|| std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("web/static"))
-}
-
 /// Connects to the database, runs migrations and (with `--demo`) loads the demo scenario.
 pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::error::Error>> {
     if config.database_url.starts_with("sqlite:") {
@@ -82,10 +76,10 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
             &config.limits.signin,
             config.public_url.clone(),
         )?),
-        models: Arc::new(crate::api::export::ModelCache::with_budget(
+        models: Arc::new(crate::service::export::ModelCache::with_budget(
             config.limits.model_cache_bytes,
         )),
-        heavy_permits: Arc::new(crate::api::heavy::Heavy::new(
+        heavy_permits: Arc::new(crate::service::heavy::Heavy::new(
             config.limits.heavy_permits,
             config.limits.heavy_queue,
         )),
@@ -105,7 +99,8 @@ pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>
     } else {
         None
     };
-    let announce = crate::pages::startup_link(&state, addr, demo_team.as_deref()).await?;
+    let announce =
+        crate::service::accounts::startup_link(&state, addr, demo_team.as_deref()).await?;
     // The one line on stdout that scripts wait for; everything else goes to stderr.
     println!("listening on http://{addr}");
     if let Some(lines) = announce {

@@ -1,7 +1,7 @@
 //! Command-line interface: `serve`, `token create`, and the tools for planners.
 
-use crate::api::auth::{self, Role};
 use crate::config::{Limits, ServeConfig, SignInLimits, check_public_url, default_database_url};
+use crate::service::auth::{self, Role};
 use crate::store::Store;
 use clap::{Parser, Subcommand, ValueEnum};
 use std::path::PathBuf;
@@ -255,9 +255,10 @@ pub fn main() -> ExitCode {
                 let store = Store::connect(&db.url()).await?;
                 let role = Role::from(role);
                 let label = label.unwrap_or_else(|| format!("{} token", role.as_str()));
-                let token = auth::create_token(&store, team.trim(), role, &label)
+                let token = auth::bootstrap_token(&store, team.trim(), role, &label)
                     .await
-                    .map_err(|e| e.to_string())?;
+                    .map_err(|e| e.to_string())?
+                    .token;
                 println!("{token}");
                 store.close().await;
                 Ok(())

@@ -2,8 +2,8 @@
 //! database by `serve --demo`. The picture and its layout (`demo-data/`) are painted by the
 //! project's own code: `cargo run -p goalsmith-core --example paint_demo -- demo-data`.
 
-use crate::api::auth::{self, Principal, Role};
-use crate::api::{AppState, cameras, goals};
+use crate::service::auth::{self, Principal, Role};
+use crate::service::{AppState, cameras, frames, goals};
 use crate::store;
 use goalsmith_core::goal::GoalDocument;
 use serde_json::{Value, json};
@@ -65,39 +65,34 @@ fn goal_bodies(frame_id: &str, scene: &Value) -> Vec<Value> {
 
 /// Loads the demo when the database is empty; returns the demo team's name when it did.
 pub async fn load(state: &AppState) -> Result<Option<String>, Box<dyn std::error::Error>> {
-    if store::teams::count_teams(state.store.pool()).await? > 0 {
+    if store::teams::count_teams(&state.store).await? > 0 {
         tracing::info!("the database already holds teams; the demo is not loaded again");
         return Ok(None);
     }
-    let team = store::teams::get_or_create_team(state.store.pool(), TEAM).await?;
+    let team = store::teams::get_or_create_team(&state.store, TEAM).await?;
     let who = Principal {
         team_id: team.id.clone(),
         role: Role::Owner,
         author: "demo".into(),
     };
     let input: cameras::CameraInput = serde_json::from_value(camera_body())?;
-    let doc = cameras::check_camera(input).map_err(|e| e.to_string())?;
-    let camera = cameras::insert(&state.store, &team.id, &doc)
+    let camera = cameras::create(state, &who, input)
         .await
         .map_err(|e| e.to_string())?;
-    let (frame, _) =
-        crate::api::frames::store_frame(state, &team.id, &camera, "image/png", BENCH_PNG.to_vec())
-            .await
-            .map_err(|e| e.to_string())?;
+    let (frame, _) = frames::upload(state, &who, &camera.id, "image/png", BENCH_PNG.to_vec())
+        .await
+        .map_err(|e| e.to_string())?;
     let scene: Value = serde_json::from_str(SCENE_JSON)?;
     for body in goal_bodies(&frame.id, &scene) {
         let doc: GoalDocument = serde_json::from_value(body)?;
-        let (spec, camera) = goals::check_document(state, &who, doc)
+        goals::create(state, &who, doc)
             .await
             .map_err(|e| format!("demo goal does not check: {e}"))?;
-        let id = uuid::Uuid::new_v4().to_string();
-        let rev = goals::build_revision(&id, 1, &spec, &camera, "demo", store::now_ms())
-            .map_err(|e| e.to_string())?;
-        store::goals::create(state.store.pool(), &team.id, &rev).await?;
     }
-    let token = auth::create_token(&state.store, TEAM, Role::Editor, "demo planner")
+    let token = auth::create_team_token(&state.store, &team.id, Role::Editor, "demo planner")
         .await
-        .map_err(|e| e.to_string())?;
+        .map_err(|e| e.to_string())?
+        .token;
     eprintln!(
         "demo loaded: team {TEAM:?} with a camera, a frame of the potting bench and 3 goals\n\
          an editor API token for scripts (shown once): {token}"

@@ -6,13 +6,17 @@
 
 pub mod api;
 pub mod app;
+pub mod assets;
 pub mod cli;
 pub mod config;
+pub mod cookies;
 pub mod demo;
 pub mod images;
+mod layers;
 pub mod pages;
 pub mod scoring;
 pub mod security;
+pub mod service;
 pub mod store;
 
 /// The caution carried by the README, every export and the editor.

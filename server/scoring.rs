@@ -462,7 +462,7 @@ pub const MAX_OUTCOME_COORD_PX: f64 = 1e6;
 /// How one final position of an outcome did.
 // Fields in alphabetical order: the key order of these bodies when they were built as a
 // `serde_json::Value` (a sorted map in release builds), so the served bytes did not change.
-#[derive(Debug, Clone, Serialize, JsonSchema)]
+#[derive(Debug, Clone, Serialize, serde::Deserialize, JsonSchema)]
 pub struct OutcomePoint {
     /// Index p of the source point.
     pub index: usize,
@@ -730,7 +730,7 @@ pub fn revision_files(parts: &BundleParts<'_>) -> Vec<(String, Vec<u8>)> {
         (format!("frame.{}", parts.frame_ext), parts.frame.to_vec()),
         (
             "camera.json".into(),
-            crate::api::goals::canonical_json(parts.camera).into_bytes(),
+            goalsmith_core::canonical::to_string(parts.camera).into_bytes(),
         ),
         ("README.txt".into(), readme(parts).into_bytes()),
     ]

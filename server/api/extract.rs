@@ -1,7 +1,7 @@
 //! Extractors that turn malformed requests into the contract's error body, never the
 //! framework's plain text.
 
-use super::error::ApiError;
+use super::error::ServiceError;
 use axum::body::Bytes;
 use axum::extract::rejection::BytesRejection;
 use axum::extract::{FromRequest, Request};
@@ -9,16 +9,16 @@ use axum::http::header;
 use serde::de::DeserializeOwned;
 
 /// Reads the body, mapping an over-limit body to 413.
-pub async fn read_body<S: Send + Sync>(req: Request, state: &S) -> Result<Bytes, ApiError> {
+pub async fn read_body<S: Send + Sync>(req: Request, state: &S) -> Result<Bytes, ServiceError> {
     Bytes::from_request(req, state).await.map_err(|e| match e {
         BytesRejection::FailedToBufferBody(inner) => {
             if inner.body_text().contains("length limit") || inner.status().as_u16() == 413 {
-                ApiError::TooLarge("the request body is larger than this route accepts".into())
+                ServiceError::TooLarge("the request body is larger than this route accepts".into())
             } else {
-                ApiError::invalid_body("bad_body", "the request body could not be read")
+                ServiceError::invalid_body("bad_body", "the request body could not be read")
             }
         }
-        other => ApiError::invalid_body("bad_body", other.body_text()),
+        other => ServiceError::invalid_body("bad_body", other.body_text()),
     })
 }
 
@@ -45,18 +45,18 @@ where
     S: Send + Sync,
     T: DeserializeOwned,
 {
-    type Rejection = ApiError;
+    type Rejection = ServiceError;
 
     async fn from_request(req: Request, state: &S) -> Result<Self, Self::Rejection> {
         match media_type(&req).as_deref() {
             Some("application/json") => {}
             Some(other) => {
-                return Err(ApiError::UnsupportedMediaType(format!(
+                return Err(ServiceError::UnsupportedMediaType(format!(
                     "send application/json, not {other}"
                 )));
             }
             None => {
-                return Err(ApiError::UnsupportedMediaType(
+                return Err(ServiceError::UnsupportedMediaType(
                     "send Content-Type: application/json".into(),
                 ));
             }
@@ -70,9 +70,9 @@ where
 ///
 /// Strict: the body must be one JSON object (serde would also take an array for a struct, by
 /// position) with nothing after it but whitespace.
-pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
+pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ServiceError> {
     if bytes.iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
-        return Err(ApiError::invalid_body(
+        return Err(ServiceError::invalid_body(
             "bad_json",
             "the body must be one JSON object {…}",
         ));
@@ -92,13 +92,13 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ApiError> {
             _ => "bad_json",
         };
         if path == "." || path.is_empty() {
-            ApiError::invalid_body(code, message)
+            ServiceError::invalid_body(code, message)
         } else {
-            ApiError::invalid(code, path, message)
+            ServiceError::invalid(code, path, message)
         }
     })?;
     de.end().map_err(|e| {
-        ApiError::invalid_body(
+        ServiceError::invalid_body(
             "bad_json",
             format!("the body holds more after its JSON object: {e}"),
         )

@@ -11,13 +11,11 @@ pub mod extract;
 pub mod frames;
 pub mod goal_sets;
 pub mod goals;
-pub mod heavy;
 pub mod openapi;
 pub mod preview;
 pub mod routes;
 
-use crate::config::Limits;
-use crate::store::Store;
+use crate::service::AppState;
 use axum::extract::{DefaultBodyLimit, State};
 use axum::http::StatusCode;
 use axum::response::{IntoResponse, Response};
@@ -25,23 +23,7 @@ use axum::{Json, Router};
 use schemars::JsonSchema;
 use serde::Serialize;
 use std::convert::Infallible;
-use std::sync::Arc;
 use tower_http::limit::RequestBodyLimitLayer;
-
-/// Shared by every handler.
-#[derive(Clone)]
-pub struct AppState {
-    /// The database.
-    pub store: Store,
-    /// Body and image limits.
-    pub limits: Arc<Limits>,
-    /// Checked goals and cost models of recently scored revisions (revisions never change).
-    pub models: Arc<export::ModelCache>,
-    /// Sign-in throttles, the password-hash bound, the form-token key and the link base.
-    pub security: Arc<crate::security::Security>,
-    /// Permits for heavy work (see [`heavy`]), shared by every request.
-    pub heavy_permits: Arc<heavy::Heavy>,
-}
 
 /// The API router, built from [`routes::table`]; `app` adds pages, static files and the layers
 /// around everything.
@@ -152,7 +134,7 @@ async fn healthz(State(state): State<AppState>) -> Response {
         Ok(()) => (StatusCode::OK, Json(Health { status: "ok" })).into_response(),
         Err(e) => {
             tracing::warn!(error = %e, "health check cannot reach the database");
-            error::ApiError::Unavailable.into_response()
+            error::ServiceError::Unavailable.into_response()
         }
     }
 }
@@ -160,7 +142,7 @@ async fn healthz(State(state): State<AppState>) -> Response {
 /// The answer for an API path that matches no route (`app` routes unknown paths here or to
 /// the pages' 404, by prefix).
 pub fn not_found() -> Response {
-    error::ApiError::NotFound("no such route".into()).into_response()
+    error::ServiceError::NotFound("no such route".into()).into_response()
 }
 
 /// Whether an unmatched path is the API's (JSON 404) rather than the pages' (HTML 404).
@@ -180,21 +162,4 @@ pub struct Items<T> {
 /// Wraps a list as `{"items": [...]}`.
 pub fn items<T: Serialize>(items: Vec<T>) -> Json<Items<T>> {
     Json(Items { items })
-}
-
-/// RFC 3339 UTC with milliseconds, from unix milliseconds.
-pub fn rfc3339(ms: i64) -> String {
-    let t = time::OffsetDateTime::from_unix_timestamp_nanos(i128::from(ms) * 1_000_000)
-        .unwrap_or(time::OffsetDateTime::UNIX_EPOCH);
-    let format = time::macros::format_description!(
-        "[year]-[month]-[day]T[hour]:[minute]:[second].[subsecond digits:3]Z"
-    );
-    t.format(&format).unwrap_or_default()
-}
-
-/// Parses a UUID path id, so malformed ids are a plain 404 rather than a database round trip.
-pub fn parse_id(raw: &str, what: &str) -> Result<String, error::ApiError> {
-    uuid::Uuid::parse_str(raw)
-        .map(|u| u.to_string())
-        .map_err(|_| error::ApiError::NotFound(format!("no {what} with id {raw:?}")))
 }

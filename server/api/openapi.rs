@@ -5,9 +5,10 @@
 //! them into schemas here. A type that changes changes the document; a route that is mounted is
 //! documented, because the router is built from the same table.
 
-use super::auth::{CSRF_HEADER, SESSION_COOKIE};
+use super::auth::CSRF_HEADER;
 use super::error::ErrorBody;
 use super::routes::{self, Route, Verb};
+use crate::service::accounts::SESSION_COOKIE;
 use axum::Json;
 use goalsmith_core::goal::GoalDocument;
 use schemars::generate::{Contract, SchemaSettings};
@@ -523,7 +524,7 @@ pub fn document_value() -> Value {
 /// sorted at every level and two-space indents, whatever order the build's `serde_json` keeps
 /// map keys in (test builds keep insertion order through a dev-dependency's feature).
 pub fn reference_form(doc: &Value) -> String {
-    let sorted = super::goals::canonical_json(doc);
+    let sorted = goalsmith_core::canonical::to_string(doc);
     let reparsed: Value = serde_json::from_str(&sorted).unwrap_or(Value::Null);
     let mut out = serde_json::to_string_pretty(&reparsed).unwrap_or_default();
     out.push('\n');

@@ -6,10 +6,10 @@
 //! goal the server would refuse answers 422 with the same message and field as a save.
 
 use super::AppState;
-use super::auth::Principal;
-use super::error::{ApiError, ApiResult};
+use super::error::{ServiceError, ServiceResult};
 use super::extract::JsonBody;
-use super::goals::check_document;
+use crate::service::auth::Principal;
+use crate::service::goals::check_document;
 use axum::extract::State;
 use axum::http::{HeaderValue, header};
 use axum::response::{IntoResponse, Response};
@@ -57,13 +57,13 @@ pub async fn cost_map_png(
     State(state): State<AppState>,
     who: Principal,
     JsonBody(input): JsonBody<PreviewInput>,
-) -> ApiResult<Response> {
+) -> ServiceResult<Response> {
     let side = input.max_side.unwrap_or(DEFAULT_SIDE).clamp(16, MAX_SIDE);
     let (spec, _camera) = check_document(&state, &who, input.goal).await?;
     let points = spec.cost_points()?;
     let p = input.point;
     let Some(point) = points.get(p).cloned() else {
-        return Err(ApiError::invalid(
+        return Err(ServiceError::invalid(
             "bad_point",
             "point",
             format!(
@@ -102,8 +102,8 @@ pub async fn cost_map_png(
         Ok((out.into_inner(), max))
     })
     .await
-    .map_err(|e| ApiError::Internal(format!("preview task: {e}")))?
-    .map_err(ApiError::Internal)?;
+    .map_err(|e| ServiceError::Internal(format!("preview task: {e}")))?
+    .map_err(ServiceError::Internal)?;
     let mut resp = ([(header::CONTENT_TYPE, "image/png")], png.0).into_response();
     if let Ok(v) = HeaderValue::from_str(&format!("{:.6}", png.1)) {
         resp.headers_mut().insert("x-cost-max", v);

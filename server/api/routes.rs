@@ -7,6 +7,7 @@
 use super::openapi::{Content, Header, Operation, Reply, SchemaFn};
 use super::preview;
 use super::{AppState, cameras, export, frames, goal_sets, goals, openapi};
+use crate::service;
 use axum::handler::Handler;
 use axum::routing::{MethodFilter, MethodRouter, on};
 use schemars::{JsonSchema, SchemaGenerator};
@@ -116,7 +117,7 @@ impl Route {
         self
     }
 
-    /// Takes a heavy-work permit (see [`super::heavy`]): may answer 503 `busy`.
+    /// Takes a heavy-work permit (see [`crate::service::heavy`]): may answer 503 `busy`.
     fn heavy(mut self) -> Self {
         self.doc.heavy = true;
         self
@@ -208,45 +209,45 @@ pub fn table() -> Vec<Route> {
             .public()
             .ok::<openapi::JsonSchemaDocument>(200, "the JSON Schema of the body of POST /api/goals and PUT /api/goals/{id}", &[]),
         Route::post("/api/cameras", "Register a camera (size, intrinsics or CameraInfo K/D, work plane, pose, zones)", cameras::create)
-            .json_body::<cameras::CameraInput>()
-            .ok::<cameras::CameraView>(201, "the camera as stored", &[]),
+            .json_body::<service::cameras::CameraInput>()
+            .ok::<service::cameras::CameraView>(201, "the camera as stored", &[]),
         Route::get("/api/cameras", "List the team's cameras", cameras::list)
-            .ok::<super::Items<cameras::CameraView>>(200, "the team's cameras", &[]),
+            .ok::<super::Items<service::cameras::CameraView>>(200, "the team's cameras", &[]),
         Route::get("/api/cameras/{id}", "One camera, with its calibration also in CameraInfo form", cameras::get_one)
-            .ok::<cameras::CameraView>(200, "the camera", &[]),
+            .ok::<service::cameras::CameraView>(200, "the camera", &[]),
         Route::get("/api/cameras/{id}/intrinsics", "Intrinsics (both forms) for frames resized to ?width=&height= (fx, cx by the horizontal factor; fy, cy by the vertical)", cameras::intrinsics)
             .query::<cameras::ResizeQuery>()
-            .ok::<cameras::ResizedIntrinsics>(200, "the intrinsics at that size", &[]),
+            .ok::<service::cameras::ResizedIntrinsics>(200, "the intrinsics at that size", &[]),
         Route::post("/api/cameras/{id}/frames", "Upload a frame (raw image/png or image/jpeg body of the camera's size); 200 when the same bytes were already a frame of this camera", frames::upload)
             .heavy()
             .limit(BodyLimit::Frame)
             .binary_body(&["image/png", "image/jpeg"])
-            .ok::<frames::FrameView>(201, "a new frame", &[])
-            .ok::<frames::FrameView>(200, "the same bytes were already a frame of this camera", &[]),
+            .ok::<service::frames::FrameView>(201, "a new frame", &[])
+            .ok::<service::frames::FrameView>(200, "the same bytes were already a frame of this camera", &[]),
         Route::get("/api/cameras/{id}/frames", "List a camera's frames", frames::list_for_camera)
             .limit(BodyLimit::Frame)
-            .ok::<super::Items<frames::FrameView>>(200, "the camera's frames", &[]),
+            .ok::<super::Items<service::frames::FrameView>>(200, "the camera's frames", &[]),
         Route::get("/api/frames/{id}", "Frame metadata", frames::get_one)
-            .ok::<frames::FrameView>(200, "the frame", &[]),
+            .ok::<service::frames::FrameView>(200, "the frame", &[]),
         Route::get("/api/frames/{id}/image", "The frame's stored image bytes", frames::image)
             .conditional()
             .ok_binary(&["image/png", "image/jpeg"], "the image exactly as uploaded", STORED),
         Route::post("/api/goals", "Create a goal; the body becomes revision 1", goals::create)
             .json_body::<GoalDocument>()
-            .ok::<goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),
+            .ok::<service::goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),
         Route::get("/api/goals", "List goals, most recently changed first", goals::list)
-            .ok::<super::Items<goals::GoalListItem>>(200, "the team's goals", &[]),
+            .ok::<super::Items<service::goals::GoalListItem>>(200, "the team's goals", &[]),
         Route::get("/api/goals/{id}", "The latest revision document (ETag for If-Match)", goals::latest)
             .conditional()
-            .ok::<goals::RevisionDocument>(200, "the latest revision, as stored", STORED),
+            .ok::<service::goals::RevisionDocument>(200, "the latest revision, as stored", STORED),
         Route::put("/api/goals/{id}", "Save a new revision; needs If-Match with the latest ETag (428 without, 412 when stale)", goals::update)
             .json_body::<GoalDocument>()
-            .ok::<goals::RevisionDocument>(200, "the new revision, as stored", STORED),
+            .ok::<service::goals::RevisionDocument>(200, "the new revision, as stored", STORED),
         Route::get("/api/goals/{id}/revisions", "Metadata of every revision, oldest first", goals::revisions)
-            .ok::<super::Items<goals::RevisionSummary>>(200, "every revision's metadata", &[]),
+            .ok::<super::Items<service::goals::RevisionSummary>>(200, "every revision's metadata", &[]),
         Route::get("/api/goals/{id}/revisions/{n}", "One immutable revision document (strong ETag, 304 on If-None-Match)", goals::revision)
             .conditional()
-            .ok::<goals::RevisionDocument>(200, "the revision, as stored", STORED),
+            .ok::<service::goals::RevisionDocument>(200, "the revision, as stored", STORED),
         Route::get("/api/goals/{id}/revisions/{n}/cost-maps.npy", "Cost maps, float32 NPY of shape (P, H, W); ?width=&height= evaluates exactly at another size", export::cost_maps)
             .heavy()
             .query::<export::MapSize>()
@@ -267,21 +268,21 @@ pub fn table() -> Vec<Route> {
             .ok_binary(&["application/zip"], "the bundle; the same bytes for the same revision", DOWNLOAD),
         Route::post("/api/goals/{id}/revisions/{n}/outcomes", "Report final source positions of a trial; 201 with success, residuals and cost", export::report_outcome)
             .heavy()
-            .json_body::<export::OutcomeInput>()
-            .ok::<export::OutcomeView>(201, "the outcome as recorded", &[]),
+            .json_body::<service::outcomes::OutcomeInput>()
+            .ok::<service::outcomes::OutcomeView>(201, "the outcome as recorded", &[]),
         Route::get("/api/goals/{id}/outcomes", "All outcomes of a goal with a success summary", export::outcomes)
-            .ok::<export::OutcomesView>(200, "every outcome of the goal and their summary", &[]),
+            .ok::<service::outcomes::OutcomesView>(200, "every outcome of the goal and their summary", &[]),
         Route::post("/api/goal-sets", "Create a goal set: {name, items: [{goal_id, revision}]}", goal_sets::create)
-            .json_body::<goal_sets::GoalSetInput>()
-            .ok::<goal_sets::GoalSetDocument>(201, "the goal set, as stored", STORED),
+            .json_body::<service::goal_sets::GoalSetInput>()
+            .ok::<service::goal_sets::GoalSetDocument>(201, "the goal set, as stored", STORED),
         Route::get("/api/goal-sets", "List goal sets, most recently saved first", goal_sets::list)
-            .ok::<super::Items<goal_sets::GoalSetDocument>>(200, "the team's goal sets", &[]),
+            .ok::<super::Items<service::goal_sets::GoalSetDocument>>(200, "the team's goal sets", &[]),
         Route::get("/api/goal-sets/{id}", "One goal set (ETag for If-Match)", goal_sets::get_one)
             .conditional()
-            .ok::<goal_sets::GoalSetDocument>(200, "the goal set, as stored", STORED),
+            .ok::<service::goal_sets::GoalSetDocument>(200, "the goal set, as stored", STORED),
         Route::put("/api/goal-sets/{id}", "Save a goal set; needs If-Match (428 without, 412 when stale)", goal_sets::update)
-            .json_body::<goal_sets::GoalSetInput>()
-            .ok::<goal_sets::GoalSetDocument>(200, "the goal set, as stored", STORED),
+            .json_body::<service::goal_sets::GoalSetInput>()
+            .ok::<service::goal_sets::GoalSetDocument>(200, "the goal set, as stored", STORED),
         Route::get("/api/goal-sets/{id}/bundle.zip", "Every pinned revision's bundle in one reproducible ZIP, in set order", goal_sets::bundle)
             .heavy()
             .conditional()

@@ -3,18 +3,17 @@
 use super::error::{PageError, safe_next};
 use super::render::{Chrome, ok, page, redirect, redirect_flash};
 use super::session::{
-    CsrfForm, MIN_PASSWORD_CHARS, PreForm, SET_COOKIE, Signed, clear_session_cookie, form_cookie,
-    hash_password, start_session, verify_password,
+    CsrfForm, PreForm, SET_COOKIE, Signed, clear_session_cookie, form_cookie, session_cookie,
+    session_secret,
 };
-use crate::api::AppState;
-use crate::api::auth::{self, hash_token};
 use crate::security::ClientAddr;
-use crate::store::{self, accounts::InviteRow};
+use crate::service::accounts::{self, Joiner, MIN_PASSWORD_CHARS, SignIn};
+use crate::service::{AppState, ServiceError, auth};
+use crate::store::accounts::InviteRow;
 use askama::Template;
 use axum::extract::{Path, Query, State};
 use axum::http::{HeaderMap, HeaderValue};
 use axum::response::Response;
-use goalsmith_core::names::{self, NameKind};
 use serde::Deserialize;
 
 #[derive(Template)]
@@ -66,7 +65,9 @@ pub(super) async fn signin_form(
     Query(q): Query<NextQuery>,
 ) -> Result<Response, PageError> {
     let next = safe_next(q.next.as_deref().unwrap_or("/")).to_string();
-    if auth::session_of(&headers, &state).await?.is_some() {
+    if let Some(secret) = session_secret(&headers)
+        && auth::session_for_secret(&state, &secret).await?.is_some()
+    {
         return Ok(redirect(&next));
     }
     let (cookie, form_token) = form_cookie(&state, &headers)?;
@@ -86,15 +87,6 @@ pub(super) struct SignInForm {
     next: String,
 }
 
-/// Ends the session the browser's cookie names, if any: signing in (or joining a team) always
-/// starts a new session rather than carrying on one the browser already had.
-async fn end_current_session(state: &AppState, headers: &HeaderMap) -> Result<(), PageError> {
-    if let Some(old) = auth::session_of(headers, state).await? {
-        store::accounts::delete_session(state.store.pool(), &old.id).await?;
-    }
-    Ok(())
-}
-
 /// `POST /signin`: throttled per login and per client address (429 before any hashing).
 pub(super) async fn signin(
     State(state): State<AppState>,
@@ -102,47 +94,35 @@ pub(super) async fn signin(
     client: ClientAddr,
     PreForm(form): PreForm<SignInForm>,
 ) -> Result<Response, PageError> {
-    let login = form.login.trim().to_lowercase();
     let next = safe_next(&form.next).to_string();
-    state.security.sign_in_attempt(&login, &client)?;
-    let person = store::accounts::find_person_by_login(state.store.pool(), &login).await?;
-    let ok = match verify_password(
-        &state,
-        form.password,
-        person.as_ref().map(|p| p.password_hash.clone()),
-    )
-    .await
-    {
-        Ok(ok) => ok,
-        Err(busy @ PageError::Busy { .. }) => {
-            state.security.attempt_not_run(&login, &client);
-            return Err(busy);
-        }
-        Err(e) => return Err(e),
-    };
+    let current = session_secret(&headers);
     let back = format!("/signin?next={}", super::error::percent_encode(&next));
-    let Some(person) = person.filter(|_| ok) else {
-        tracing::info!(login = %login, "sign-in refused");
-        return Ok(redirect_flash(
+    let outcome = accounts::sign_in(
+        &state,
+        &form.login,
+        form.password,
+        &client,
+        current.as_deref(),
+    )
+    .await?;
+    match outcome {
+        SignIn::Refused => Ok(redirect_flash(
             &back,
             "That login and password do not match an account.",
             true,
             &headers,
-        ));
-    };
-    state.security.signed_in(&login);
-    let teams = store::accounts::memberships_of(state.store.pool(), &person.id).await?;
-    let Some(team) = teams.first() else {
-        return Ok(redirect_flash(
+        )),
+        SignIn::NoTeam => Ok(redirect_flash(
             &back,
             "This account no longer belongs to any team; ask an owner for a new invite.",
             true,
             &headers,
-        ));
-    };
-    end_current_session(&state, &headers).await?;
-    let session = start_session(&state, &person.id, &team.team_id, &headers).await?;
-    Ok(with_cookie(redirect(&next), &session.cookie))
+        )),
+        SignIn::Started(session) => Ok(with_cookie(
+            redirect(&next),
+            &session_cookie(&session, &headers),
+        )),
+    }
 }
 
 /// `POST /signout`.
@@ -151,21 +131,9 @@ pub(super) async fn signout(
     headers: HeaderMap,
     CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
 ) -> Result<Response, PageError> {
-    store::accounts::delete_session(state.store.pool(), &signed.info.id).await?;
+    accounts::sign_out(&state, &signed.info).await?;
     let resp = redirect_flash("/signin", "You are signed out.", false, &headers);
     Ok(with_cookie(resp, &clear_session_cookie(&headers)))
-}
-
-async fn live_invite(state: &AppState, token: &str) -> Result<InviteRow, PageError> {
-    store::accounts::find_invite(state.store.pool(), &hash_token(token))
-        .await?
-        .ok_or_else(|| {
-            PageError::NotFound(
-                "This invitation link was already used, was withdrawn, or has expired. Ask an \
-                 owner of the team for a new one."
-                    .into(),
-            )
-        })
 }
 
 /// `GET /welcome/{token}`.
@@ -174,10 +142,13 @@ pub(super) async fn welcome_form(
     headers: HeaderMap,
     Path(token): Path<String>,
 ) -> Result<Response, PageError> {
-    let invite = live_invite(&state, &token).await?;
-    let current = auth::session_of(&headers, &state)
-        .await?
-        .map(|s| s.display_name);
+    let invite = accounts::live_invite(&state, &token).await?;
+    let current = match session_secret(&headers) {
+        Some(secret) => auth::session_for_secret(&state, &secret)
+            .await?
+            .map(|s| s.display_name),
+        None => None,
+    };
     let (cookie, form_token) = form_cookie(&state, &headers)?;
     let page = WelcomePage {
         chrome: Chrome::anonymous(&headers),
@@ -203,43 +174,6 @@ pub(super) struct WelcomeForm {
     password_again: String,
 }
 
-/// Login names: 1–64 of lowercase letters, digits and `. _ - @`, so they are easy to type and
-/// never confusable by case.
-pub fn check_login(raw: &str) -> Result<String, &'static str> {
-    let login = raw.trim().to_lowercase();
-    if login.is_empty() || login.chars().count() > 64 {
-        return Err("a login needs 1 to 64 characters");
-    }
-    if !login
-        .chars()
-        .all(|c| c.is_ascii_alphanumeric() || matches!(c, '.' | '_' | '-' | '@'))
-    {
-        return Err("a login may hold letters, digits and . _ - @ only");
-    }
-    Ok(login)
-}
-
-/// Display names, by the one rule for people's names.
-pub fn check_display_name(raw: &str) -> Result<String, String> {
-    names::check(NameKind::Person, raw).map_err(|e| e.to_string())
-}
-
-/// A new password: long enough, typed the same twice.
-pub fn check_new_password(password: &str, again: &str) -> Result<(), String> {
-    if password.chars().count() < MIN_PASSWORD_CHARS {
-        return Err(format!(
-            "a password needs at least {MIN_PASSWORD_CHARS} characters"
-        ));
-    }
-    if password.len() > 1024 {
-        return Err("a password may have at most 1024 bytes".into());
-    }
-    if password != again {
-        return Err("the two passwords differ".into());
-    }
-    Ok(())
-}
-
 /// `POST /welcome/{token}`: creates the account (or uses the signed-in one) and joins the team.
 pub(super) async fn welcome(
     State(state): State<AppState>,
@@ -247,71 +181,45 @@ pub(super) async fn welcome(
     Path(token): Path<String>,
     PreForm(form): PreForm<WelcomeForm>,
 ) -> Result<Response, PageError> {
-    let invite = live_invite(&state, &token).await?;
     let back = format!("/welcome/{}", super::error::percent_encode(&token));
-    let fail = |m: &str| Ok(redirect_flash(&back, m, true, &headers));
-    let person_id = if form.join_existing.is_some() {
-        let Some(current) = auth::session_of(&headers, &state).await? else {
-            return fail("Sign in first to join with an existing account.");
-        };
-        store::accounts::accept_invite(
-            state.store.pool(),
-            &invite.id,
-            Some(&current.person_id),
-            None,
-        )
-        .await?
-    } else {
-        let display_name = match check_display_name(&form.display_name) {
-            Ok(n) => n,
-            Err(m) => return fail(&m),
-        };
-        let login = match check_login(&form.login) {
-            Ok(l) => l,
-            Err(m) => return fail(m),
-        };
-        if let Err(m) = check_new_password(&form.password, &form.password_again) {
-            return fail(&m);
-        }
-        if store::accounts::find_person_by_login(state.store.pool(), &login)
-            .await?
-            .is_some()
-        {
-            return fail(
-                "That login is taken. If it is yours, sign in first and open this link again to \
-                 join with your account.",
-            );
-        }
-        let hash = hash_password(&state, form.password).await?;
-        match store::accounts::accept_invite(
-            state.store.pool(),
-            &invite.id,
-            None,
-            Some((&login, &display_name, &hash)),
-        )
-        .await
-        {
-            Ok(p) => p,
-            Err(store::StoreError::Constraint(_)) => {
-                return fail("That login was taken a moment ago; choose another.");
+    let current = session_secret(&headers);
+    let joiner = if form.join_existing.is_some() {
+        match current.as_deref() {
+            Some(secret) => Joiner::Signed(secret),
+            None => {
+                return Ok(redirect_flash(
+                    &back,
+                    "Sign in first to join with an existing account.",
+                    true,
+                    &headers,
+                ));
             }
-            Err(e) => return Err(e.into()),
+        }
+    } else {
+        Joiner::New {
+            display_name: &form.display_name,
+            login: &form.login,
+            password: form.password,
+            password_again: &form.password_again,
         }
     };
-    let Some(person_id) = person_id else {
-        return Err(PageError::NotFound(
-            "This invitation link was used a moment ago by someone else.".into(),
-        ));
+    let joined = match accounts::accept_invite(&state, &token, joiner, current.as_deref()).await {
+        Ok(j) => j,
+        Err(e @ ServiceError::Invalid { .. }) => {
+            return Ok(redirect_flash(&back, &e.to_string(), true, &headers));
+        }
+        Err(e) => return Err(e.into()),
     };
-    end_current_session(&state, &headers).await?;
-    let session = start_session(&state, &person_id, &invite.team_id, &headers).await?;
     let text = format!(
         "Welcome to {}. You are {} of this team.",
-        invite.team_name,
-        with_article(&invite.role)
+        joined.invite.team_name,
+        with_article(joined.invite.role.as_str())
     );
     let resp = redirect_flash("/", &text, false, &headers);
-    Ok(with_cookie(resp, &session.cookie))
+    Ok(with_cookie(
+        resp,
+        &session_cookie(&joined.session, &headers),
+    ))
 }
 
 /// `GET /account`.
@@ -344,37 +252,29 @@ pub(super) async fn change_password(
     client: ClientAddr,
     CsrfForm { signed, form }: CsrfForm<PasswordForm>,
 ) -> Result<Response, PageError> {
-    let fail = |m: &str| Ok(redirect_flash("/account", m, true, &headers));
-    let person = store::accounts::get_person(state.store.pool(), &signed.info.person_id)
-        .await?
-        .ok_or_else(|| PageError::internal("signed-in person vanished"))?;
-    state.security.sign_in_attempt(&person.login, &client)?;
-    let right = match verify_password(&state, form.current, Some(person.password_hash)).await {
-        Ok(right) => right,
-        Err(busy @ PageError::Busy { .. }) => {
-            state.security.attempt_not_run(&person.login, &client);
-            return Err(busy);
+    let session = match accounts::change_password(
+        &state,
+        &signed.info,
+        &client,
+        form.current,
+        form.password,
+        &form.password_again,
+    )
+    .await
+    {
+        Ok(s) => s,
+        Err(e @ ServiceError::Invalid { .. }) => {
+            return Ok(redirect_flash("/account", &e.to_string(), true, &headers));
         }
-        Err(e) => return Err(e),
+        Err(e) => return Err(e.into()),
     };
-    if !right {
-        return fail("The current password is not right.");
-    }
-    state.security.signed_in(&person.login);
-    if let Err(m) = check_new_password(&form.password, &form.password_again) {
-        return fail(&m);
-    }
-    let hash = hash_password(&state, form.password).await?;
-    store::accounts::set_password(state.store.pool(), &person.id, &hash).await?;
-    let session = start_session(&state, &person.id, &signed.info.team_id, &headers).await?;
-    store::accounts::delete_other_sessions(state.store.pool(), &person.id, &session.id).await?;
     let resp = redirect_flash(
         "/account",
         "Password changed. Other browsers signed in as you were signed out.",
         false,
         &headers,
     );
-    Ok(with_cookie(resp, &session.cookie))
+    Ok(with_cookie(resp, &session_cookie(&session, &headers)))
 }
 
 #[derive(Deserialize)]
@@ -388,14 +288,8 @@ pub(super) async fn switch_team(
     headers: HeaderMap,
     CsrfForm { signed, form }: CsrfForm<SwitchForm>,
 ) -> Result<Response, PageError> {
-    let teams = store::accounts::memberships_of(state.store.pool(), &signed.info.person_id).await?;
-    let Some(team) = teams.iter().find(|t| t.team_id == form.team_id) else {
-        return Err(PageError::Forbidden(
-            "you are not a member of that team".into(),
-        ));
-    };
-    store::accounts::switch_team(state.store.pool(), &signed.info.id, &team.team_id).await?;
-    let text = format!("Now working in {}.", team.team_name);
+    let name = accounts::switch_team(&state, &signed.info, &form.team_id).await?;
+    let text = format!("Now working in {name}.");
     Ok(redirect_flash("/", &text, false, &headers))
 }
 

@@ -1,7 +1,7 @@
 //! Errors of the pages, rendered as readable HTML with the right status (never raw JSON).
 
 use super::render::{ErrorPage, render};
-use crate::api::error::ApiError;
+use crate::service::ServiceError;
 use axum::http::{HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
 
@@ -23,8 +23,8 @@ pub enum PageError {
     TooLarge(String),
     /// 415.
     UnsupportedMediaType(String),
-    /// Any other refusal of the API layer, kept with its status.
-    Api(StatusCode, String),
+    /// Any other refusal of the service, kept with its status.
+    Refused(StatusCode, String),
     /// 429 with `Retry-After`: too many sign-in attempts.
     TooMany {
         /// What to tell the person.
@@ -65,23 +65,41 @@ impl PageError {
     }
 }
 
-impl From<ApiError> for PageError {
-    fn from(e: ApiError) -> Self {
+impl From<ServiceError> for PageError {
+    fn from(e: ServiceError) -> Self {
         match e {
-            ApiError::Unauthorized => PageError::SignIn { next: "/".into() },
-            ApiError::Forbidden(m) => PageError::Forbidden(m),
-            ApiError::NotFound(m) => PageError::NotFound(m),
-            ApiError::TooLarge(m) => PageError::TooLarge(m),
-            ApiError::UnsupportedMediaType(m) => PageError::UnsupportedMediaType(m),
-            ApiError::Internal(d) => PageError::Internal(d),
-            other => PageError::Api(other.status(), other.to_string()),
+            ServiceError::Unauthorized => PageError::SignIn { next: "/".into() },
+            ServiceError::Forbidden(m) => PageError::Forbidden(m),
+            ServiceError::NotFound(m) => PageError::NotFound(m),
+            ServiceError::TooLarge(m) => PageError::TooLarge(m),
+            ServiceError::UnsupportedMediaType(m) => PageError::UnsupportedMediaType(m),
+            ServiceError::Internal(d) => PageError::Internal(d),
+            ServiceError::TooMany {
+                message,
+                retry_after_s,
+            } => PageError::TooMany {
+                message,
+                retry_after_s,
+            },
+            ServiceError::HashingBusy { retry_after_s } => PageError::Busy { retry_after_s },
+            ServiceError::Busy => PageError::Busy { retry_after_s: 1 },
+            other => {
+                let status = match other {
+                    ServiceError::Invalid { .. } => StatusCode::UNPROCESSABLE_ENTITY,
+                    ServiceError::PreconditionRequired => StatusCode::PRECONDITION_REQUIRED,
+                    ServiceError::PreconditionFailed(_) => StatusCode::PRECONDITION_FAILED,
+                    ServiceError::Conflict(_) => StatusCode::CONFLICT,
+                    _ => StatusCode::SERVICE_UNAVAILABLE,
+                };
+                PageError::Refused(status, other.to_string())
+            }
         }
     }
 }
 
 impl From<crate::store::StoreError> for PageError {
     fn from(e: crate::store::StoreError) -> Self {
-        ApiError::from(e).into()
+        ServiceError::from(e).into()
     }
 }
 
@@ -142,7 +160,7 @@ impl IntoResponse for PageError {
             PageError::UnsupportedMediaType(m) => {
                 (StatusCode::UNSUPPORTED_MEDIA_TYPE, "Wrong kind of file", m)
             }
-            PageError::Api(status, m) => (status, "That did not work", m),
+            PageError::Refused(status, m) => (status, "That did not work", m),
             PageError::TooMany {
                 message,
                 retry_after_s,
@@ -199,17 +217,17 @@ fn with_retry_after(status: StatusCode, title: &'static str, message: String, s:
     resp
 }
 
-/// Percent-encodes everything but unreserved characters (for a query value).
+/// Characters kept as they are in a query value: the unreserved ones of RFC 3986 and `/`.
+const QUERY_VALUE: &percent_encoding::AsciiSet = &percent_encoding::NON_ALPHANUMERIC
+    .remove(b'-')
+    .remove(b'_')
+    .remove(b'.')
+    .remove(b'~')
+    .remove(b'/');
+
+/// Percent-encodes everything but unreserved characters and `/` (for a query value).
 pub fn percent_encode(s: &str) -> String {
-    let mut out = String::with_capacity(s.len());
-    for b in s.bytes() {
-        if b.is_ascii_alphanumeric() || matches!(b, b'-' | b'_' | b'.' | b'~' | b'/') {
-            out.push(b as char);
-        } else {
-            out.push_str(&format!("%{b:02X}"));
-        }
-    }
-    out
+    percent_encoding::utf8_percent_encode(s, QUERY_VALUE).to_string()
 }
 
 #[cfg(test)]

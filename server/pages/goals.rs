@@ -5,16 +5,16 @@ use super::compare::{Change, diff};
 use super::error::PageError;
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
-use crate::api::auth::Role;
-use crate::api::extract::JsonBody;
-use crate::api::goals::{self as api_goals, etag_of, load_revision, parse_revision};
-use crate::api::{AppState, cameras, frames};
+use crate::service::auth::Role;
+use crate::service::goals::{
+    self, Expected, OVERRIDE_UNCONFIRMED, etag_of, load_revision, parse_revision,
+};
+use crate::service::{AppState, ServiceError, cameras, frames};
 use crate::store;
 use askama::Template;
 use axum::extract::{Path, Query, State};
-use axum::http::{HeaderMap, HeaderValue, header};
+use axum::http::HeaderMap;
 use axum::response::Response;
-use goalsmith_core::goal::GoalDocument;
 use serde::Deserialize;
 use serde_json::{Value, json};
 
@@ -193,8 +193,7 @@ pub(super) async fn history(
 ) -> Result<Response, PageError> {
     let latest = load_revision(&state, &signed.who, &id, None).await?;
     let rows =
-        store::goals::list_revisions(state.store.pool(), &signed.who.team_id, &latest.goal_id)
-            .await?;
+        store::goals::list_revisions(&state.store, &signed.who.team_id, &latest.goal_id).await?;
     let revisions = rows
         .iter()
         .rev()
@@ -294,7 +293,7 @@ pub(super) struct RestoreForm {
 }
 
 /// `POST /goals/{id}/restore`: revision n becomes the content of a new revision, through the same
-/// checked, `If-Match`-guarded path as the API's `PUT`.
+/// checked, ETag-guarded service call as the API's `PUT`.
 pub(super) async fn restore(
     State(state): State<AppState>,
     headers: HeaderMap,
@@ -303,81 +302,40 @@ pub(super) async fn restore(
 ) -> Result<Response, PageError> {
     signed.require(Role::Editor)?;
     let n = parse_revision(&form.revision)?;
-    let old = load_revision(&state, &signed.who, &id, Some(n)).await?;
-    let doc: Value = serde_json::from_str(&old.document)
-        .map_err(|e| PageError::internal(format!("revision unreadable: {e}")))?;
-    let history = format!("/goals/{}/history", old.goal_id);
-    // An override is a decision of the person who made it. Restoring such a revision makes a
-    // new revision under the restorer's name, so they must take the override on themselves.
-    let overrides = doc["override_safety"].as_bool().unwrap_or(false);
-    if overrides && form.confirm_override.as_deref() != Some("yes") {
-        return Ok(redirect_flash(
-            &history,
-            &format!(
+    let history = format!("/goals/{id}/history");
+    let restored = goals::restore(
+        &state,
+        &signed.who,
+        &id,
+        n,
+        &Expected::Etags(vec![form.etag.clone()]),
+        &form.note,
+        form.confirm_override.as_deref() == Some("yes"),
+    )
+    .await;
+    let (text, error) = match restored {
+        Ok(rev) => (
+            format!("Revision {n} restored as revision {}.", rev.revision),
+            false,
+        ),
+        Err(ServiceError::Invalid { code, .. }) if code == OVERRIDE_UNCONFIRMED => (
+            format!(
                 "Revision {n} overrides the camera's safety zones. Nothing was restored: tick the \
                  box beside its Restore button to take the override on under your name."
             ),
             true,
-            &headers,
-        ));
-    }
-    let note = match form.note.trim() {
-        "" => format!("restored revision {n}"),
-        t => format!("restored revision {n}: {t}"),
-    };
-    let body = json!({
-        "name": doc["name"],
-        "frame_id": doc["frame_id"],
-        "terms": doc["terms"],
-        "cost": doc["cost"],
-        "note": note,
-        "override_safety": doc["override_safety"],
-    });
-    let document: GoalDocument = serde_json::from_value(body)
-        .map_err(|e| PageError::internal(format!("old revision does not parse: {e}")))?;
-    let mut put_headers = HeaderMap::new();
-    let Ok(v) = HeaderValue::from_str(&form.etag) else {
-        return Ok(redirect_flash(
-            &history,
-            "The form was damaged; reload the page.",
-            true,
-            &headers,
-        ));
-    };
-    put_headers.insert(header::IF_MATCH, v);
-    match api_goals::update(
-        State(state.clone()),
-        signed.who.clone(),
-        Path(old.goal_id.clone()),
-        put_headers,
-        JsonBody(document),
-    )
-    .await
-    {
-        Ok(_) => {
-            let latest = load_revision(&state, &signed.who, &id, None).await?;
-            Ok(redirect_flash(
-                &history,
-                &format!("Revision {n} restored as revision {}.", latest.revision),
-                false,
-                &headers,
-            ))
+        ),
+        Err(e @ ServiceError::PreconditionFailed(_)) => {
+            (format!("Nothing was restored: {e}"), true)
         }
-        Err(e @ crate::api::error::ApiError::PreconditionFailed(_)) => Ok(redirect_flash(
-            &history,
-            &format!("Nothing was restored: {e}"),
-            true,
-            &headers,
-        )),
-        Err(e @ crate::api::error::ApiError::Invalid { .. }) => Ok(redirect_flash(
-            &history,
-            &format!(
+        Err(e @ ServiceError::Invalid { .. }) => (
+            format!(
                 "Revision {n} cannot be restored as it stands (the camera's zones may have \
                  changed): {e}"
             ),
             true,
-            &headers,
-        )),
-        Err(e) => Err(e.into()),
-    }
+        ),
+        Err(e) => return Err(e.into()),
+    };
+    Ok(redirect_flash(&history, &text, error, &headers))
 }

@@ -4,11 +4,11 @@
 use super::error::PageError;
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
-use crate::api::auth::{Role, same_secret};
-use crate::api::{AppState, cameras, frames};
+use crate::service::auth::{Role, same_secret};
+use crate::service::{AppState, ServiceError, cameras, frames};
 use crate::store;
 use askama::Template;
-use axum::extract::{Path, Query, Request, State};
+use axum::extract::{FromRequest, Multipart, Path, Query, Request, State};
 use axum::http::{HeaderMap, header};
 use axum::response::Response;
 use serde::Deserialize;
@@ -99,7 +99,7 @@ pub(super) async fn home(
     signed: Signed,
     Query(query): Query<HomeQuery>,
 ) -> Result<Response, PageError> {
-    let pool = state.store.pool();
+    let pool = &state.store;
     let team = &signed.who.team_id;
     let q = query.q.unwrap_or_default().trim().to_lowercase();
     let camera_rows = store::cameras::list(pool, team).await?;
@@ -252,14 +252,14 @@ pub(super) async fn create_camera(
         Ok(i) => i,
         Err(e) => return fail(format!("The camera could not be read: {e}")),
     };
-    let doc = match cameras::check_camera(input) {
-        Ok(d) => d,
-        Err(e) => {
+    let row = match cameras::create(&state, &signed.who, input).await {
+        Ok(row) => row,
+        Err(e @ ServiceError::Invalid { .. }) => {
             let field = e.field().map(|f| format!(" ({f})")).unwrap_or_default();
             return fail(format!("The camera was not added{field}: {e}"));
         }
+        Err(e) => return Err(e.into()),
     };
-    let row = cameras::insert(&state.store, &signed.who.team_id, &doc).await?;
     Ok(redirect_flash(
         "/",
         &format!(
@@ -295,22 +295,29 @@ pub(super) async fn upload_frame(
     if declared.is_some_and(|n| n > limit + 64 * 1024) {
         return Err(too_large());
     }
-    let boundary = crate::api::extract::media_type(&req)
-        .filter(|m| m == "multipart/form-data")
-        .and_then(|_| multipart_boundary(&headers))
-        .ok_or_else(|| {
-            PageError::UnsupportedMediaType("send the upload form (multipart/form-data)".into())
-        })?;
-    let body = axum::body::to_bytes(req.into_body(), limit + 64 * 1024)
-        .await
-        .map_err(|_| too_large())?;
-    let parts = parse_multipart(&body, &boundary)
-        .ok_or_else(|| PageError::BadRequest("the upload form could not be read".into()))?;
-    let csrf = parts
-        .iter()
-        .find(|p| p.name == "csrf")
-        .map(|p| String::from_utf8_lossy(p.data).into_owned())
-        .unwrap_or_default();
+    let mut form = Multipart::from_request(req, &state).await.map_err(|_| {
+        PageError::UnsupportedMediaType("send the upload form (multipart/form-data)".into())
+    })?;
+    let unreadable = || PageError::BadRequest("the upload form could not be read".into());
+    let mut csrf = String::new();
+    let mut file: Option<(Option<String>, Vec<u8>)> = None;
+    while let Some(mut field) = form.next_field().await.map_err(|_| unreadable())? {
+        let name = field.name().unwrap_or_default().to_string();
+        let content_type = field.content_type().map(str::to_ascii_lowercase);
+        // Read piece by piece, so the whole form never holds more than the frame limit.
+        let mut data = Vec::new();
+        while let Some(chunk) = field.chunk().await.map_err(|_| unreadable())? {
+            if data.len() + chunk.len() > limit {
+                return Err(too_large());
+            }
+            data.extend_from_slice(&chunk);
+        }
+        match name.as_str() {
+            "csrf" => csrf = String::from_utf8_lossy(&data).into_owned(),
+            "frame" if !data.is_empty() => file = Some((content_type, data)),
+            _ => {}
+        }
+    }
     if !same_secret(&csrf, &signed.info.csrf_token) {
         return Err(PageError::Forbidden(
             "this form did not carry the page's security token; reload the page and send it again"
@@ -318,42 +325,26 @@ pub(super) async fn upload_frame(
         ));
     }
     signed.require(Role::Editor)?;
-    let file = parts
-        .iter()
-        .find(|p| p.name == "frame" && !p.data.is_empty())
-        .ok_or_else(|| PageError::BadRequest("choose an image file to upload".into()))?;
-    let camera = cameras::load(&state, &signed.who, &id).await?;
-    let content_type = match file.content_type.as_deref() {
-        Some("image/png") => "image/png",
-        Some("image/jpeg" | "image/jpg") => "image/jpeg",
-        _ if file.data.starts_with(b"\x89PNG") => "image/png",
-        _ if file.data.starts_with(&[0xFF, 0xD8]) => "image/jpeg",
-        _ => {
-            return Err(PageError::UnsupportedMediaType(
-                "frames are PNG or JPEG images".into(),
-            ));
-        }
+    let (declared_type, data) =
+        file.ok_or_else(|| PageError::BadRequest("choose an image file to upload".into()))?;
+    let Some(content_type) = frames::frame_media_type(declared_type.as_deref(), &data) else {
+        return Err(PageError::UnsupportedMediaType(
+            "frames are PNG or JPEG images".into(),
+        ));
     };
-    match frames::store_frame(
-        &state,
-        &signed.who.team_id,
-        &camera,
-        content_type,
-        file.data.to_vec(),
-    )
-    .await
-    {
-        Ok((frame, _)) => Ok(redirect_flash(
-            &format!("/?uploaded={}", frame.id),
-            &format!("Frame uploaded to {}.", camera.name),
-            false,
-            &headers,
-        )),
+    match frames::upload(&state, &signed.who, &id, content_type, data).await {
+        Ok((frame, _)) => {
+            let camera = cameras::load(&state, &signed.who, &frame.camera_id).await?;
+            Ok(redirect_flash(
+                &format!("/?uploaded={}", frame.id),
+                &format!("Frame uploaded to {}.", camera.name),
+                false,
+                &headers,
+            ))
+        }
         // A person at the page is told to retry, not shown an error page, when the server is
         // busy with other heavy work.
-        Err(
-            e @ (crate::api::error::ApiError::Invalid { .. } | crate::api::error::ApiError::Busy),
-        ) => Ok(redirect_flash(
+        Err(e @ (ServiceError::Invalid { .. } | ServiceError::Busy)) => Ok(redirect_flash(
             "/",
             &format!("The frame was not stored: {e}"),
             true,
@@ -363,82 +354,9 @@ pub(super) async fn upload_frame(
     }
 }
 
-fn multipart_boundary(headers: &HeaderMap) -> Option<String> {
-    let ct = headers.get(header::CONTENT_TYPE)?.to_str().ok()?;
-    ct.split(';').skip(1).find_map(|p| {
-        let (k, v) = p.trim().split_once('=')?;
-        (k.trim().eq_ignore_ascii_case("boundary"))
-            .then(|| v.trim().trim_matches('"').to_string())
-            .filter(|b| !b.is_empty() && b.len() <= 200)
-    })
-}
-
-struct Part<'a> {
-    name: String,
-    content_type: Option<String>,
-    data: &'a [u8],
-}
-
-fn find(hay: &[u8], needle: &[u8], from: usize) -> Option<usize> {
-    if needle.is_empty() || hay.len() < needle.len() {
-        return None;
-    }
-    (from..=hay.len() - needle.len()).find(|&i| &hay[i..i + needle.len()] == needle)
-}
-
-/// A small `multipart/form-data` reader for the one upload form: enough for text fields and one
-/// file, refusing anything malformed rather than guessing.
-fn parse_multipart<'a>(body: &'a [u8], boundary: &str) -> Option<Vec<Part<'a>>> {
-    let delim = format!("--{boundary}");
-    let delim = delim.as_bytes();
-    let mut pos = find(body, delim, 0)? + delim.len();
-    let mut parts = Vec::new();
-    loop {
-        if body.get(pos..pos + 2)? == b"--" {
-            return Some(parts);
-        }
-        pos = find(body, b"\r\n", pos)? + 2;
-        let head_end = find(body, b"\r\n\r\n", pos)?;
-        let head = std::str::from_utf8(&body[pos..head_end]).ok()?;
-        let data_start = head_end + 4;
-        let next = find(body, &[b"\r\n", delim].concat(), data_start)?;
-        let mut name = None;
-        let mut content_type = None;
-        for line in head.split("\r\n") {
-            let (k, v) = line.split_once(':')?;
-            if k.trim().eq_ignore_ascii_case("content-disposition") {
-                name = v.split(';').find_map(|p| {
-                    let (k, v) = p.trim().split_once('=')?;
-                    (k == "name").then(|| v.trim_matches('"').to_string())
-                });
-            } else if k.trim().eq_ignore_ascii_case("content-type") {
-                content_type = Some(v.trim().to_ascii_lowercase());
-            }
-        }
-        parts.push(Part {
-            name: name?,
-            content_type,
-            data: &body[data_start..next],
-        });
-        pos = next + 2 + delim.len();
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
-
-    #[test]
-    fn multipart_fields_and_file() {
-        let body = b"--XyZ\r\nContent-Disposition: form-data; name=\"csrf\"\r\n\r\nabc\r\n--XyZ\r\nContent-Disposition: form-data; name=\"frame\"; filename=\"a.png\"\r\nContent-Type: image/png\r\n\r\n\x89PNG\r\n--x\r\n--XyZ--\r\n";
-        let parts = parse_multipart(body, "XyZ").expect("parses");
-        assert_eq!(parts.len(), 2);
-        assert_eq!(parts[0].name, "csrf");
-        assert_eq!(parts[0].data, b"abc");
-        assert_eq!(parts[1].content_type.as_deref(), Some("image/png"));
-        assert_eq!(parts[1].data, b"\x89PNG\r\n--x");
-        assert!(parse_multipart(b"--XyZ\r\nbroken", "XyZ").is_none());
-    }
 
     #[test]
     fn status_words() {

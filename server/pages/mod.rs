@@ -18,19 +18,13 @@ pub mod session;
 pub mod sets;
 pub mod team;
 
-use crate::api::AppState;
-use crate::api::auth::hash_token;
-use crate::store;
+use crate::service::AppState;
 use axum::Router;
 use axum::extract::DefaultBodyLimit;
 use axum::http::{StatusCode, header};
 use axum::response::{IntoResponse, Response};
 use axum::routing::{get, post};
-use std::net::SocketAddr;
 use tower_http::limit::RequestBodyLimitLayer;
-
-/// How long the start-up sign-in link stays valid.
-const STARTUP_LINK_HOURS: i64 = 24;
 
 /// The page routes (merged beside the API by `app`).
 pub fn router() -> Router<AppState> {
@@ -109,64 +103,11 @@ async fn readable_errors(resp: Response) -> Response {
         StatusCode::PAYLOAD_TOO_LARGE => error::PageError::TooLarge(message),
         StatusCode::NOT_FOUND => error::PageError::NotFound(message),
         StatusCode::FORBIDDEN => error::PageError::Forbidden(message),
-        s => error::PageError::Api(s, message),
+        s => error::PageError::Refused(s, message),
     };
     let mut out = err.into_response();
     if let Some(allow) = resp.headers().get(header::ALLOW) {
         out.headers_mut().insert(header::ALLOW, allow.clone());
     }
     out
-}
-
-/// What to print at start-up for a person to sign in: a one-time link for the first owner of an
-/// empty database, or of the demo team (`demo_team`) after `--demo`. `None` when people already
-/// have accounts.
-///
-/// While nobody has an account, every start replaces the previous link (only the newest works),
-/// so a lost terminal is fixed by restarting.
-pub async fn startup_link(
-    state: &AppState,
-    addr: SocketAddr,
-    demo_team: Option<&str>,
-) -> Result<Option<String>, Box<dyn std::error::Error>> {
-    let pool = state.store.pool();
-    if store::accounts::count_people(pool).await? > 0 {
-        return Ok(None);
-    }
-    let team = match demo_team {
-        Some(name) => {
-            let t = store::teams::get_or_create_team(pool, name).await?;
-            (t.id, t.name)
-        }
-        None => match store::accounts::first_team(pool).await? {
-            Some(t) => t,
-            None => {
-                let t = store::teams::get_or_create_team(pool, "my team").await?;
-                (t.id, t.name)
-            }
-        },
-    };
-    store::accounts::delete_startup_invites(pool).await?;
-    let secret = session::random_secret().map_err(|e| format!("{e:?}"))?;
-    store::accounts::create_invite(
-        pool,
-        &store::accounts::NewInvite {
-            team_id: &team.0,
-            token_hash: &hash_token(&secret),
-            role: "owner",
-            kind: "startup",
-            note: "first owner",
-            created_by: "start-up",
-            expires_at: store::now_ms() + STARTUP_LINK_HOURS * 3600 * 1000,
-        },
-    )
-    .await?;
-    // The public URL when configured, else an address a browser on this machine can open.
-    state.security.set_bound(addr);
-    let base = state.security.link_base(None);
-    Ok(Some(format!(
-        "sign in as the first owner of team {:?}: {base}/welcome/{secret}\n\
-         (one-time link, valid {STARTUP_LINK_HOURS} h; a restart prints a new one while no account exists)",
-        team.1
-    )))
 }

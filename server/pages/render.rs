@@ -1,7 +1,8 @@
 //! The one wrapper every page goes through: the shared chrome (who is signed in, the team, the
 //! CSRF token, a flash message) and turning a template into a response.
 
-use super::session::{Signed, set_cookie};
+use super::session::Signed;
+use crate::service::auth::Role;
 use askama::Template;
 use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{Html, IntoResponse, Response};
@@ -39,7 +40,7 @@ pub struct Chrome {
     /// Their team id.
     pub team_id: String,
     /// Their role in it.
-    pub role: String,
+    pub role: Role,
     /// The session's CSRF token, for forms and `fetch`.
     pub csrf: String,
     /// Other teams they belong to.
@@ -65,28 +66,27 @@ impl Chrome {
 
     /// The frame for a signed-in person.
     pub async fn signed(
-        state: &crate::api::AppState,
+        state: &crate::service::AppState,
         signed: &Signed,
         headers: &HeaderMap,
         section: &'static str,
     ) -> Self {
-        let teams =
-            crate::store::accounts::memberships_of(state.store.pool(), &signed.info.person_id)
-                .await
-                .unwrap_or_default()
-                .into_iter()
-                .map(|m| TeamChoice {
-                    id: m.team_id,
-                    name: m.team_name,
-                })
-                .collect();
+        let teams = crate::store::accounts::memberships_of(&state.store, &signed.info.person_id)
+            .await
+            .unwrap_or_default()
+            .into_iter()
+            .map(|m| TeamChoice {
+                id: m.team_id,
+                name: m.team_name,
+            })
+            .collect();
         let flash = read_flash(headers);
         Chrome {
             signed: true,
             display_name: signed.info.display_name.clone(),
             team_name: signed.info.team_name.clone(),
             team_id: signed.info.team_id.clone(),
-            role: signed.info.role.clone(),
+            role: signed.info.role,
             csrf: signed.info.csrf_token.clone(),
             teams,
             section,
@@ -97,11 +97,11 @@ impl Chrome {
 
     /// Whether the person is an owner (the team page is theirs).
     pub fn is_owner(&self) -> bool {
-        self.role == "owner"
+        self.role >= Role::Owner
     }
     /// Whether the person may edit.
     pub fn can_edit(&self) -> bool {
-        self.role == "owner" || self.role == "editor"
+        self.role >= Role::Editor
     }
     /// The navigation class of a section link.
     pub fn here(&self, section: &str) -> &'static str {
@@ -110,9 +110,11 @@ impl Chrome {
 }
 
 fn read_flash(headers: &HeaderMap) -> Option<Flash> {
-    let raw = crate::api::auth::cookie(headers, FLASH_COOKIE)?;
+    let raw = crate::cookies::get(headers, FLASH_COOKIE)?;
     let (kind, text) = raw.split_once(':')?;
-    let text = percent_decode(text);
+    let text = percent_encoding::percent_decode_str(text)
+        .decode_utf8_lossy()
+        .into_owned();
     if text.is_empty() {
         return None;
     }
@@ -120,27 +122,6 @@ fn read_flash(headers: &HeaderMap) -> Option<Flash> {
         text,
         error: kind == "e",
     })
-}
-
-fn percent_decode(s: &str) -> String {
-    let bytes = s.as_bytes();
-    let mut out = Vec::with_capacity(bytes.len());
-    let mut i = 0;
-    while i < bytes.len() {
-        if bytes[i] == b'%'
-            && i + 2 < bytes.len()
-            && let Some(v) = std::str::from_utf8(&bytes[i + 1..i + 3])
-                .ok()
-                .and_then(|h| u8::from_str_radix(h, 16).ok())
-        {
-            out.push(v);
-            i += 3;
-            continue;
-        }
-        out.push(bytes[i]);
-        i += 1;
-    }
-    String::from_utf8_lossy(&out).into_owned()
 }
 
 /// A page template with its frame.
@@ -210,7 +191,7 @@ pub fn redirect_flash(location: &str, text: &str, error: bool, headers: &HeaderM
         if error { "e" } else { "i" },
         super::error::percent_encode(text)
     );
-    if let Ok(v) = HeaderValue::from_str(&set_cookie(FLASH_COOKIE, &value, 60, headers)) {
+    if let Ok(v) = HeaderValue::from_str(&crate::cookies::set(FLASH_COOKIE, &value, 60, headers)) {
         resp.headers_mut().append(header::SET_COOKIE, v);
     }
     resp

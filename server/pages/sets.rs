@@ -1,22 +1,20 @@
 //! Goal sets: create one from selected goals pinned at their current revisions, reorder, update
-//! pins, download the set's bundle. Writes go through the API's own handlers (same checks,
-//! same `If-Match`).
+//! pins, download the set's bundle. Writes go through the service's goal-set calls (the same
+//! checks and the same ETag guard as the API's).
 
 use super::error::PageError;
 use super::home::SetRow;
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
-use crate::api::auth::Role;
-use crate::api::error::ApiError;
-use crate::api::extract::JsonBody;
-use crate::api::goals::etag_of;
-use crate::api::{AppState, goal_sets};
+use crate::service::auth::Role;
+use crate::service::goal_sets::{self, GoalSetInput, ItemInput};
+use crate::service::goals::{Expected, etag_of};
+use crate::service::{AppState, ServiceError};
 use crate::store;
 use askama::Template;
 use axum::extract::{Path, State};
-use axum::http::{HeaderMap, HeaderValue, header};
+use axum::http::HeaderMap;
 use axum::response::{IntoResponse, Response};
-use serde_json::{Value, json};
 use std::collections::HashMap;
 
 struct GoalChoice {
@@ -61,26 +59,21 @@ page!(SetsPage, SetPage);
 
 /// The team's goal sets for lists.
 pub(super) async fn summaries(state: &AppState, team: &str) -> Result<Vec<SetRow>, PageError> {
-    let rows = store::goal_sets::list(state.store.pool(), team).await?;
-    Ok(rows
-        .iter()
+    let rows = store::goal_sets::list(&state.store, team).await?;
+    rows.iter()
         .map(|r| {
-            let items = serde_json::from_str::<Value>(&r.document)
-                .ok()
-                .and_then(|d| d["items"].as_array().map(Vec::len))
-                .unwrap_or(0);
-            SetRow {
+            Ok(SetRow {
                 id: r.id.clone(),
                 name: r.name.clone(),
-                items,
+                items: goal_sets::parse(r)?.items.len(),
                 when: when(r.updated_at),
-            }
+            })
         })
-        .collect())
+        .collect()
 }
 
 async fn goal_choices(state: &AppState, team: &str) -> Result<Vec<GoalChoice>, PageError> {
-    Ok(store::goals::list(state.store.pool(), team)
+    Ok(store::goals::list(&state.store, team)
         .await?
         .into_iter()
         .map(|g| GoalChoice {
@@ -106,9 +99,9 @@ pub(super) async fn list(
     Ok(ok(&page))
 }
 
-fn flash_api_error(location: &str, what: &str, e: ApiError, headers: &HeaderMap) -> Response {
+fn flash_refusal(location: &str, what: &str, e: ServiceError, headers: &HeaderMap) -> Response {
     match e {
-        ApiError::Invalid { .. } | ApiError::PreconditionFailed(_) => {
+        ServiceError::Invalid { .. } | ServiceError::PreconditionFailed(_) => {
             redirect_flash(location, &format!("{what}: {e}"), true, headers)
         }
         other => PageError::from(other).into_response(),
@@ -132,13 +125,14 @@ pub(super) async fn create(
         .into_iter()
         .map(|g| (g.id, g.revision))
         .collect();
-    let items: Vec<Value> = form
+    let items: Vec<ItemInput> = form
         .iter()
         .filter(|(k, _)| k == "goal")
         .filter_map(|(_, id)| {
-            latest
-                .get(id)
-                .map(|n| json!({"goal_id": id, "revision": n}))
+            latest.get(id).map(|n| ItemInput {
+                goal_id: id.clone(),
+                revision: *n,
+            })
         })
         .collect();
     if items.is_empty() {
@@ -149,20 +143,15 @@ pub(super) async fn create(
             &headers,
         ));
     }
-    let input: goal_sets::GoalSetInput =
-        serde_json::from_value(json!({"name": name, "items": items}))
-            .map_err(|e| PageError::internal(e.to_string()))?;
-    match goal_sets::create(State(state.clone()), signed.who.clone(), JsonBody(input)).await {
-        Ok(resp) => {
-            let id = created_id(resp).await.unwrap_or_default();
-            Ok(redirect_flash(
-                &format!("/goal-sets/{id}"),
-                "Goal set made; each goal is pinned at its current revision.",
-                false,
-                &headers,
-            ))
-        }
-        Err(e) => Ok(flash_api_error(
+    let input = GoalSetInput { name, items };
+    match goal_sets::create(&state, &signed.who, input).await {
+        Ok(row) => Ok(redirect_flash(
+            &format!("/goal-sets/{}", row.id),
+            "Goal set made; each goal is pinned at its current revision.",
+            false,
+            &headers,
+        )),
+        Err(e) => Ok(flash_refusal(
             "/goal-sets",
             "The set was not made",
             e,
@@ -171,23 +160,18 @@ pub(super) async fn create(
     }
 }
 
-async fn created_id(resp: Response) -> Option<String> {
-    let bytes = axum::body::to_bytes(resp.into_body(), 16 << 20)
-        .await
-        .ok()?;
-    let v: Value = serde_json::from_slice(&bytes).ok()?;
-    v["id"].as_str().map(str::to_string)
-}
-
 async fn load(
     state: &AppState,
     signed: &Signed,
     id: &str,
 ) -> Result<store::goal_sets::GoalSetRow, PageError> {
-    let id = crate::api::parse_id(id, "goal set")?;
-    store::goal_sets::get(state.store.pool(), &signed.who.team_id, &id)
-        .await?
-        .ok_or_else(|| PageError::NotFound(format!("There is no goal set {id} in this team.")))
+    match goal_sets::load(state, &signed.who, id).await {
+        Ok(row) => Ok(row),
+        Err(ServiceError::NotFound(_)) => Err(PageError::NotFound(format!(
+            "There is no goal set {id} in this team."
+        ))),
+        Err(e) => Err(e.into()),
+    }
 }
 
 /// `GET /goal-sets/{id}`.
@@ -198,27 +182,24 @@ pub(super) async fn show(
     Path(id): Path<String>,
 ) -> Result<Response, PageError> {
     let row = load(&state, &signed, &id).await?;
-    let doc: Value = serde_json::from_str(&row.document)
-        .map_err(|e| PageError::internal(format!("goal set unreadable: {e}")))?;
+    let doc = goal_sets::parse(&row)?;
     let goals = goal_choices(&state, &signed.who.team_id).await?;
     let latest: HashMap<&str, (&str, i64)> = goals
         .iter()
         .map(|g| (g.id.as_str(), (g.name.as_str(), g.revision)))
         .collect();
-    let items: Vec<ItemLine> = doc["items"]
-        .as_array()
+    let items: Vec<ItemLine> = doc
+        .items
         .into_iter()
-        .flatten()
         .enumerate()
         .map(|(k, it)| {
-            let gid = it["goal_id"].as_str().unwrap_or_default().to_string();
-            let (cur_name, latest_rev) = latest.get(gid.as_str()).copied().unwrap_or(("", 0));
+            let latest_rev = latest.get(it.goal_id.as_str()).map_or(0, |l| l.1);
             ItemLine {
                 position: k + 1,
-                name: it["name"].as_str().unwrap_or(cur_name).to_string(),
-                revision: it["revision"].as_i64().unwrap_or(0),
+                name: it.name,
+                revision: it.revision,
                 latest: latest_rev,
-                goal_id: gid,
+                goal_id: it.goal_id,
             }
         })
         .collect();
@@ -256,18 +237,10 @@ pub(super) async fn update(
             .map(|(_, v)| v.as_str())
             .unwrap_or("")
     };
-    let doc: Value = serde_json::from_str(&row.document)
-        .map_err(|e| PageError::internal(format!("goal set unreadable: {e}")))?;
-    let mut items: Vec<(String, i64)> = doc["items"]
-        .as_array()
+    let mut items: Vec<(String, i64)> = goal_sets::parse(&row)?
+        .items
         .into_iter()
-        .flatten()
-        .map(|it| {
-            (
-                it["goal_id"].as_str().unwrap_or_default().to_string(),
-                it["revision"].as_i64().unwrap_or(1),
-            )
-        })
+        .map(|it| (it.goal_id, it.revision))
         .collect();
     let mut name = row.name.clone();
     let latest: HashMap<String, i64> = goal_choices(&state, &signed.who.team_id)
@@ -325,37 +298,16 @@ pub(super) async fn update(
         }
         _ => return Ok(redirect_flash(&here, "Nothing to do.", true, &headers)),
     };
-    let body = json!({
-        "name": name,
-        "items": items.iter().map(|(g, n)| json!({"goal_id": g, "revision": n})).collect::<Vec<_>>(),
-    });
-    let input: goal_sets::GoalSetInput =
-        serde_json::from_value(body).map_err(|e| PageError::internal(e.to_string()))?;
-    let mut put_headers = HeaderMap::new();
-    let Ok(tag) = HeaderValue::from_str(field("etag")) else {
-        return Ok(redirect_flash(
-            &here,
-            "The form was damaged; reload the page.",
-            true,
-            &headers,
-        ));
+    let input = GoalSetInput {
+        name,
+        items: items
+            .into_iter()
+            .map(|(goal_id, revision)| ItemInput { goal_id, revision })
+            .collect(),
     };
-    put_headers.insert(header::IF_MATCH, tag);
-    match goal_sets::update(
-        State(state.clone()),
-        signed.who.clone(),
-        Path(row.id.clone()),
-        put_headers,
-        JsonBody(input),
-    )
-    .await
-    {
+    let expected = Expected::Etags(vec![field("etag").to_string()]);
+    match goal_sets::update(&state, &signed.who, &row.id, &expected, input).await {
         Ok(_) => Ok(redirect_flash(&here, done, false, &headers)),
-        Err(e) => Ok(flash_api_error(
-            &here,
-            "The set was not changed",
-            e,
-            &headers,
-        )),
+        Err(e) => Ok(flash_refusal(&here, "The set was not changed", e, &headers)),
     }
 }

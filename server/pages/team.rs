@@ -3,32 +3,28 @@
 
 use super::error::PageError;
 use super::render::{Chrome, ok, page, redirect_flash, render, when};
-use super::session::{CsrfForm, Signed, random_secret};
-use crate::api::AppState;
-use crate::api::auth::{self, Role, hash_token};
-use crate::store;
+use super::session::{CsrfForm, Signed};
+use crate::service::auth::Role;
+use crate::service::team::{self, INVITE_DAYS};
+use crate::service::{AppState, ServiceError};
 use askama::Template;
 use axum::extract::{Path, State};
 use axum::http::{HeaderMap, StatusCode};
 use axum::response::Response;
-use goalsmith_core::names::{self, NameKind};
 use serde::Deserialize;
-
-/// How long an invite link stays valid.
-const INVITE_DAYS: i64 = 7;
 
 struct MemberLine {
     person_id: String,
     login: String,
     display_name: String,
-    role: String,
+    role: Role,
     joined: String,
     is_me: bool,
 }
 
 struct InviteLine {
     id: String,
-    role: String,
+    role: Role,
     note: String,
     by: String,
     expires: String,
@@ -37,7 +33,7 @@ struct InviteLine {
 struct TokenLine {
     id: String,
     label: String,
-    role: String,
+    role: Role,
     created: String,
     revoked: Option<String>,
 }
@@ -72,10 +68,9 @@ pub(super) async fn team(
     headers: HeaderMap,
     signed: Signed,
 ) -> Result<Response, PageError> {
-    let pool = state.store.pool();
-    let team = &signed.who.team_id;
-    let members = store::accounts::list_members(pool, team)
-        .await?
+    let overview = team::overview(&state, &signed.who).await?;
+    let members = overview
+        .members
         .into_iter()
         .map(|m| MemberLine {
             is_me: m.person_id == signed.info.person_id,
@@ -86,33 +81,28 @@ pub(super) async fn team(
             joined: when(m.joined_at),
         })
         .collect();
-    let (invites, tokens) = if signed.is_owner() {
-        let invites = store::accounts::pending_invites(pool, team)
-            .await?
-            .into_iter()
-            .map(|i| InviteLine {
-                id: i.id,
-                role: i.role,
-                note: i.note,
-                by: i.created_by,
-                expires: when(i.expires_at),
-            })
-            .collect();
-        let tokens = store::accounts::list_tokens(pool, team)
-            .await?
-            .into_iter()
-            .map(|t| TokenLine {
-                id: t.id,
-                label: t.label,
-                role: t.role,
-                created: when(t.created_at),
-                revoked: t.revoked_at.map(when),
-            })
-            .collect();
-        (invites, tokens)
-    } else {
-        (Vec::new(), Vec::new())
-    };
+    let invites = overview
+        .invites
+        .into_iter()
+        .map(|i| InviteLine {
+            id: i.id,
+            role: i.role,
+            note: i.note,
+            by: i.created_by,
+            expires: when(i.expires_at),
+        })
+        .collect();
+    let tokens = overview
+        .tokens
+        .into_iter()
+        .map(|t| TokenLine {
+            id: t.id,
+            label: t.label,
+            role: t.role,
+            created: when(t.created_at),
+            revoked: t.revoked_at.map(when),
+        })
+        .collect();
     let page = TeamPage {
         chrome: Chrome::signed(&state, &signed, &headers, "team").await,
         members,
@@ -141,23 +131,8 @@ pub(super) async fn invite(
     headers: HeaderMap,
     CsrfForm { signed, form }: CsrfForm<InviteForm>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
     let role = parse_role(&form.role)?;
-    let note: String = form.note.trim().chars().take(200).collect();
-    let secret = random_secret()?;
-    store::accounts::create_invite(
-        state.store.pool(),
-        &store::accounts::NewInvite {
-            team_id: &signed.who.team_id,
-            token_hash: &hash_token(&secret),
-            role: role.as_str(),
-            kind: "invite",
-            note: &note,
-            created_by: &signed.info.display_name,
-            expires_at: store::now_ms() + INVITE_DAYS * 24 * 3600 * 1000,
-        },
-    )
-    .await?;
+    let (secret, note) = team::invite(&state, &signed.who, role, &form.note).await?;
     let page = SecretPage {
         chrome: Chrome::signed(&state, &signed, &headers, "team").await,
         heading: "Invitation link".into(),
@@ -180,8 +155,7 @@ pub(super) async fn withdraw_invite(
     Path(id): Path<String>,
     CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
-    let done = store::accounts::revoke_invite(state.store.pool(), &signed.who.team_id, &id).await?;
+    let done = team::withdraw_invite(&state, &signed.who, &id).await?;
     Ok(if done {
         redirect_flash("/team", "Invitation withdrawn.", false, &headers)
     } else {
@@ -206,15 +180,8 @@ pub(super) async fn set_role(
     Path(person): Path<String>,
     CsrfForm { signed, form }: CsrfForm<RoleForm>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
     let role = parse_role(&form.role)?;
-    let done = store::accounts::set_role(
-        state.store.pool(),
-        &signed.who.team_id,
-        &person,
-        role.as_str(),
-    )
-    .await?;
+    let done = team::set_role(&state, &signed.who, &person, role).await?;
     Ok(if done {
         redirect_flash(
             "/team",
@@ -239,9 +206,7 @@ pub(super) async fn remove_member(
     Path(person): Path<String>,
     CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
-    let done =
-        store::accounts::remove_member(state.store.pool(), &signed.who.team_id, &person).await?;
+    let done = team::remove_member(&state, &signed.who, &person).await?;
     Ok(if done {
         redirect_flash("/team", "Member removed.", false, &headers)
     } else {
@@ -266,11 +231,10 @@ pub(super) async fn create_token(
     headers: HeaderMap,
     CsrfForm { signed, form }: CsrfForm<TokenForm>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
     let role = parse_role(&form.role)?;
-    let label = match names::check(NameKind::TokenLabel, &form.label) {
-        Ok(l) => l,
-        Err(e) => {
+    let made = match team::create_token(&state, &signed.who, role, &form.label).await {
+        Ok(t) => t,
+        Err(e @ ServiceError::Invalid { .. }) => {
             return Ok(redirect_flash(
                 "/team#tokens",
                 &format!("{e}, saying which robot or planner holds it."),
@@ -278,8 +242,9 @@ pub(super) async fn create_token(
                 &headers,
             ));
         }
+        Err(e) => return Err(e.into()),
     };
-    let token = auth::create_team_token(&state.store, &signed.who.team_id, role, &label).await?;
+    let label = &made.label;
     let page = SecretPage {
         chrome: Chrome::signed(&state, &signed, &headers, "team").await,
         heading: "New API token".into(),
@@ -288,7 +253,7 @@ pub(super) async fn create_token(
             role.as_str(),
             signed.info.team_name
         ),
-        secret: token,
+        secret: made.token,
         advice: "Copy it now: only its hash is stored, so this page is the only time it is shown. Revoke it on the members page when the robot or planner no longer needs it.".into(),
     };
     Ok(render(StatusCode::CREATED, &page))
@@ -301,8 +266,7 @@ pub(super) async fn revoke_token(
     Path(id): Path<String>,
     CsrfForm { signed, .. }: CsrfForm<serde::de::IgnoredAny>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
-    let done = store::accounts::revoke_token(state.store.pool(), &signed.who.team_id, &id).await?;
+    let done = team::revoke_token(&state, &signed.who, &id).await?;
     Ok(if done {
         redirect_flash(
             "/team#tokens",
@@ -331,19 +295,17 @@ pub(super) async fn rename(
     headers: HeaderMap,
     CsrfForm { signed, form }: CsrfForm<RenameForm>,
 ) -> Result<Response, PageError> {
-    signed.require(Role::Owner)?;
-    let name = match names::check(NameKind::Team, &form.name) {
-        Ok(n) => n,
-        Err(e) => return Ok(redirect_flash("/team", &format!("{e}."), true, &headers)),
-    };
-    match store::accounts::rename_team(state.store.pool(), &signed.who.team_id, &name).await {
-        Ok(()) => Ok(redirect_flash(
+    match team::rename(&state, &signed.who, &form.name).await {
+        Ok(name) => Ok(redirect_flash(
             "/team",
             &format!("The team is now called {name}."),
             false,
             &headers,
         )),
-        Err(store::StoreError::Constraint(_)) => Ok(redirect_flash(
+        Err(e @ ServiceError::Invalid { .. }) => {
+            Ok(redirect_flash("/team", &format!("{e}."), true, &headers))
+        }
+        Err(ServiceError::Conflict(_)) => Ok(redirect_flash(
             "/team",
             "Another team already has that name.",
             true,

@@ -3,8 +3,8 @@
 //! Secrets (session cookies, invite links) are stored as SHA-256 only; passwords as argon2id PHC
 //! strings made by the caller. Nothing here hashes or checks: it stores and loads.
 
-use super::{Result, StoreError, classify, now_ms};
-use sqlx::{AnyPool, Row};
+use super::{Result, Role, Store, StoreError, classify, now_ms};
+use sqlx::Row;
 
 /// A person who can sign in.
 #[derive(Debug, Clone)]
@@ -29,7 +29,7 @@ pub struct MemberRow {
     /// Display name.
     pub display_name: String,
     /// `viewer`, `editor` or `owner`.
-    pub role: String,
+    pub role: Role,
     /// When they joined (unix ms).
     pub joined_at: i64,
 }
@@ -42,7 +42,7 @@ pub struct TeamMembership {
     /// Team name.
     pub team_name: String,
     /// Role in that team.
-    pub role: String,
+    pub role: Role,
 }
 
 /// A live session with the person and the membership it acts through, looked up on every
@@ -62,7 +62,7 @@ pub struct SessionInfo {
     /// Its name.
     pub team_name: String,
     /// The person's current role in it.
-    pub role: String,
+    pub role: Role,
     /// The per-session CSRF token.
     pub csrf_token: String,
 }
@@ -92,7 +92,7 @@ pub struct InviteRow {
     /// Team name.
     pub team_name: String,
     /// Role granted.
-    pub role: String,
+    pub role: Role,
     /// `startup` or `invite`.
     pub kind: String,
     /// Who it is for, in the owner's words.
@@ -113,7 +113,7 @@ pub struct NewInvite<'a> {
     /// SHA-256 of the link's secret.
     pub token_hash: &'a str,
     /// Role granted.
-    pub role: &'a str,
+    pub role: Role,
     /// `startup` or `invite`.
     pub kind: &'a str,
     /// Who it is for.
@@ -130,7 +130,7 @@ pub struct TokenListRow {
     /// Token id.
     pub id: String,
     /// Role granted.
-    pub role: String,
+    pub role: Role,
     /// Who or what holds it.
     pub label: String,
     /// Creation time (unix ms).
@@ -140,27 +140,27 @@ pub struct TokenListRow {
 }
 
 /// How many people have accounts (0 until the first owner signs up).
-pub async fn count_people(pool: &AnyPool) -> Result<i64> {
+pub async fn count_people(store: &Store) -> Result<i64> {
     let row = sqlx::query("SELECT COUNT(*) FROM people")
-        .fetch_one(pool)
+        .fetch_one(store.pool())
         .await?;
     Ok(row.get::<i64, _>(0))
 }
 
 /// The oldest team, if any.
-pub async fn first_team(pool: &AnyPool) -> Result<Option<(String, String)>> {
+pub async fn first_team(store: &Store) -> Result<Option<(String, String)>> {
     let row = sqlx::query("SELECT id, name FROM teams ORDER BY created_at, id LIMIT 1")
-        .fetch_optional(pool)
+        .fetch_optional(store.pool())
         .await?;
     Ok(row.map(|r| (r.get(0), r.get(1))))
 }
 
 /// Renames a team; a taken name is `StoreError::Constraint`.
-pub async fn rename_team(pool: &AnyPool, team_id: &str, name: &str) -> Result<()> {
+pub async fn rename_team(store: &Store, team_id: &str, name: &str) -> Result<()> {
     sqlx::query("UPDATE teams SET name = $1 WHERE id = $2")
         .bind(name)
         .bind(team_id)
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?;
     Ok(())
@@ -176,31 +176,31 @@ fn person_from(r: &sqlx::any::AnyRow) -> PersonRow {
 }
 
 /// A person by login name.
-pub async fn find_person_by_login(pool: &AnyPool, login: &str) -> Result<Option<PersonRow>> {
+pub async fn find_person_by_login(store: &Store, login: &str) -> Result<Option<PersonRow>> {
     let row =
         sqlx::query("SELECT id, login, display_name, password_hash FROM people WHERE login = $1")
             .bind(login)
-            .fetch_optional(pool)
+            .fetch_optional(store.pool())
             .await?;
     Ok(row.as_ref().map(person_from))
 }
 
 /// A person by id.
-pub async fn get_person(pool: &AnyPool, id: &str) -> Result<Option<PersonRow>> {
+pub async fn get_person(store: &Store, id: &str) -> Result<Option<PersonRow>> {
     let row =
         sqlx::query("SELECT id, login, display_name, password_hash FROM people WHERE id = $1")
             .bind(id)
-            .fetch_optional(pool)
+            .fetch_optional(store.pool())
             .await?;
     Ok(row.as_ref().map(person_from))
 }
 
 /// Replaces a person's password hash.
-pub async fn set_password(pool: &AnyPool, person_id: &str, password_hash: &str) -> Result<()> {
+pub async fn set_password(store: &Store, person_id: &str, password_hash: &str) -> Result<()> {
     sqlx::query("UPDATE people SET password_hash = $1 WHERE id = $2")
         .bind(password_hash)
         .bind(person_id)
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?;
     Ok(())
@@ -210,12 +210,12 @@ pub async fn set_password(pool: &AnyPool, person_id: &str, password_hash: &str) 
 /// `new_person` is given, and adds the membership, all in one transaction. Returns the person id,
 /// or `None` when the invite was already used or has expired.
 pub async fn accept_invite(
-    pool: &AnyPool,
+    store: &Store,
     invite_id: &str,
     existing_person: Option<&str>,
     new_person: Option<(&str, &str, &str)>,
 ) -> Result<Option<String>> {
-    let mut tx = pool.begin().await?;
+    let mut tx = store.pool().begin().await?;
     let now = now_ms();
     // The UPDATE first: it takes SQLite's write lock at once and is the compare-and-set that lets
     // only one of two simultaneous acceptances through.
@@ -283,44 +283,46 @@ pub async fn accept_invite(
 }
 
 /// The teams a person belongs to, by name.
-pub async fn memberships_of(pool: &AnyPool, person_id: &str) -> Result<Vec<TeamMembership>> {
+pub async fn memberships_of(store: &Store, person_id: &str) -> Result<Vec<TeamMembership>> {
     let rows = sqlx::query(
         "SELECT m.team_id, t.name, m.role FROM memberships m JOIN teams t ON t.id = m.team_id \
          WHERE m.person_id = $1 ORDER BY t.name",
     )
     .bind(person_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
-    Ok(rows
-        .iter()
-        .map(|r| TeamMembership {
-            team_id: r.get(0),
-            team_name: r.get(1),
-            role: r.get(2),
+    rows.iter()
+        .map(|r| {
+            Ok(TeamMembership {
+                team_id: r.get(0),
+                team_name: r.get(1),
+                role: Role::column(r.get(2))?,
+            })
         })
-        .collect())
+        .collect()
 }
 
 /// A team's members, owners first.
-pub async fn list_members(pool: &AnyPool, team_id: &str) -> Result<Vec<MemberRow>> {
+pub async fn list_members(store: &Store, team_id: &str) -> Result<Vec<MemberRow>> {
     let rows = sqlx::query(
         "SELECT p.id, p.login, p.display_name, m.role, m.created_at FROM memberships m \
          JOIN people p ON p.id = m.person_id WHERE m.team_id = $1 \
          ORDER BY CASE m.role WHEN 'owner' THEN 0 WHEN 'editor' THEN 1 ELSE 2 END, p.login",
     )
     .bind(team_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
-    Ok(rows
-        .iter()
-        .map(|r| MemberRow {
-            person_id: r.get(0),
-            login: r.get(1),
-            display_name: r.get(2),
-            role: r.get(3),
-            joined_at: r.get(4),
+    rows.iter()
+        .map(|r| {
+            Ok(MemberRow {
+                person_id: r.get(0),
+                login: r.get(1),
+                display_name: r.get(2),
+                role: Role::column(r.get(3))?,
+                joined_at: r.get(4),
+            })
         })
-        .collect())
+        .collect()
 }
 
 /// Takes the team's row lock for the rest of the transaction, so that changes which must keep
@@ -339,15 +341,15 @@ async fn lock_team(tx: &mut sqlx::Transaction<'_, sqlx::Any>, team_id: &str) -> 
 
 /// Changes a member's role. Refuses (returns false) to take the owner role from the last owner,
 /// so a team can always be managed; also false when the person is not a member.
-pub async fn set_role(pool: &AnyPool, team_id: &str, person_id: &str, role: &str) -> Result<bool> {
-    let mut tx = pool.begin().await?;
+pub async fn set_role(store: &Store, team_id: &str, person_id: &str, role: Role) -> Result<bool> {
+    let mut tx = store.pool().begin().await?;
     lock_team(&mut tx, team_id).await?;
     let n = sqlx::query(
         "UPDATE memberships SET role = $1 WHERE team_id = $2 AND person_id = $3 \
          AND (role <> 'owner' OR $1 = 'owner' OR \
               (SELECT COUNT(*) FROM memberships o WHERE o.team_id = $2 AND o.role = 'owner') > 1)",
     )
-    .bind(role)
+    .bind(role.as_str())
     .bind(team_id)
     .bind(person_id)
     .execute(&mut *tx)
@@ -359,8 +361,8 @@ pub async fn set_role(pool: &AnyPool, team_id: &str, person_id: &str, role: &str
 }
 
 /// Removes a member and ends their sessions in this team. Refuses (false) for the last owner.
-pub async fn remove_member(pool: &AnyPool, team_id: &str, person_id: &str) -> Result<bool> {
-    let mut tx = pool.begin().await?;
+pub async fn remove_member(store: &Store, team_id: &str, person_id: &str) -> Result<bool> {
+    let mut tx = store.pool().begin().await?;
     lock_team(&mut tx, team_id).await?;
     let n = sqlx::query(
         "DELETE FROM memberships WHERE team_id = $1 AND person_id = $2 \
@@ -388,7 +390,7 @@ pub async fn remove_member(pool: &AnyPool, team_id: &str, person_id: &str) -> Re
 }
 
 /// Stores a new session; returns its id.
-pub async fn create_session(pool: &AnyPool, s: &NewSession<'_>) -> Result<String> {
+pub async fn create_session(store: &Store, s: &NewSession<'_>) -> Result<String> {
     let id = uuid::Uuid::new_v4().to_string();
     sqlx::query(
         "INSERT INTO sessions (id, token_hash, person_id, team_id, csrf_token, created_at, \
@@ -401,7 +403,7 @@ pub async fn create_session(pool: &AnyPool, s: &NewSession<'_>) -> Result<String
     .bind(s.csrf_token)
     .bind(now_ms())
     .bind(s.expires_at)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     Ok(id)
@@ -409,7 +411,7 @@ pub async fn create_session(pool: &AnyPool, s: &NewSession<'_>) -> Result<String
 
 /// The live session with this cookie hash, with the person's current role in the session's team;
 /// `None` when unknown, expired, or the person is no longer a member.
-pub async fn find_session(pool: &AnyPool, token_hash: &str) -> Result<Option<SessionInfo>> {
+pub async fn find_session(store: &Store, token_hash: &str) -> Result<Option<SessionInfo>> {
     let row = sqlx::query(
         "SELECT s.id, p.id, p.login, p.display_name, t.id, t.name, m.role, s.csrf_token \
          FROM sessions s JOIN people p ON p.id = s.person_id \
@@ -419,54 +421,57 @@ pub async fn find_session(pool: &AnyPool, token_hash: &str) -> Result<Option<Ses
     )
     .bind(token_hash)
     .bind(now_ms())
-    .fetch_optional(pool)
+    .fetch_optional(store.pool())
     .await?;
-    Ok(row.map(|r| SessionInfo {
-        id: r.get(0),
-        person_id: r.get(1),
-        login: r.get(2),
-        display_name: r.get(3),
-        team_id: r.get(4),
-        team_name: r.get(5),
-        role: r.get(6),
-        csrf_token: r.get(7),
-    }))
+    row.map(|r| {
+        Ok(SessionInfo {
+            id: r.get(0),
+            person_id: r.get(1),
+            login: r.get(2),
+            display_name: r.get(3),
+            team_id: r.get(4),
+            team_name: r.get(5),
+            role: Role::column(r.get(6))?,
+            csrf_token: r.get(7),
+        })
+    })
+    .transpose()
 }
 
 /// Ends one session.
-pub async fn delete_session(pool: &AnyPool, session_id: &str) -> Result<()> {
+pub async fn delete_session(store: &Store, session_id: &str) -> Result<()> {
     sqlx::query("DELETE FROM sessions WHERE id = $1")
         .bind(session_id)
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?;
     Ok(())
 }
 
 /// Ends every session of a person except `keep` (after a password change).
-pub async fn delete_other_sessions(pool: &AnyPool, person_id: &str, keep: &str) -> Result<()> {
+pub async fn delete_other_sessions(store: &Store, person_id: &str, keep: &str) -> Result<()> {
     sqlx::query("DELETE FROM sessions WHERE person_id = $1 AND id <> $2")
         .bind(person_id)
         .bind(keep)
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?;
     Ok(())
 }
 
 /// Moves a session to another team the person belongs to.
-pub async fn switch_team(pool: &AnyPool, session_id: &str, team_id: &str) -> Result<()> {
+pub async fn switch_team(store: &Store, session_id: &str, team_id: &str) -> Result<()> {
     sqlx::query("UPDATE sessions SET team_id = $1 WHERE id = $2")
         .bind(team_id)
         .bind(session_id)
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?;
     Ok(())
 }
 
 /// Stores an invite; returns its id.
-pub async fn create_invite(pool: &AnyPool, i: &NewInvite<'_>) -> Result<String> {
+pub async fn create_invite(store: &Store, i: &NewInvite<'_>) -> Result<String> {
     let id = uuid::Uuid::new_v4().to_string();
     sqlx::query(
         "INSERT INTO invites (id, team_id, token_hash, role, kind, note, created_by, created_at, \
@@ -475,13 +480,13 @@ pub async fn create_invite(pool: &AnyPool, i: &NewInvite<'_>) -> Result<String> 
     .bind(&id)
     .bind(i.team_id)
     .bind(i.token_hash)
-    .bind(i.role)
+    .bind(i.role.as_str())
     .bind(i.kind)
     .bind(i.note)
     .bind(i.created_by)
     .bind(now_ms())
     .bind(i.expires_at)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     Ok(id)
@@ -490,22 +495,22 @@ pub async fn create_invite(pool: &AnyPool, i: &NewInvite<'_>) -> Result<String> 
 const INVITE_COLUMNS: &str = "i.id, i.team_id, t.name, i.role, i.kind, i.note, i.created_by, \
                               i.created_at, i.expires_at";
 
-fn invite_from(r: &sqlx::any::AnyRow) -> InviteRow {
-    InviteRow {
+fn invite_from(r: &sqlx::any::AnyRow) -> Result<InviteRow> {
+    Ok(InviteRow {
         id: r.get(0),
         team_id: r.get(1),
         team_name: r.get(2),
-        role: r.get(3),
+        role: Role::column(r.get(3))?,
         kind: r.get(4),
         note: r.get(5),
         created_by: r.get(6),
         created_at: r.get(7),
         expires_at: r.get(8),
-    }
+    })
 }
 
 /// The unused, unexpired invite with this link hash.
-pub async fn find_invite(pool: &AnyPool, token_hash: &str) -> Result<Option<InviteRow>> {
+pub async fn find_invite(store: &Store, token_hash: &str) -> Result<Option<InviteRow>> {
     let sql = format!(
         "SELECT {INVITE_COLUMNS} FROM invites i JOIN teams t ON t.id = i.team_id \
          WHERE i.token_hash = $1 AND i.used_at IS NULL AND i.expires_at > $2"
@@ -513,13 +518,13 @@ pub async fn find_invite(pool: &AnyPool, token_hash: &str) -> Result<Option<Invi
     let row = sqlx::query(sqlx::AssertSqlSafe(sql))
         .bind(token_hash)
         .bind(now_ms())
-        .fetch_optional(pool)
+        .fetch_optional(store.pool())
         .await?;
-    Ok(row.as_ref().map(invite_from))
+    row.as_ref().map(invite_from).transpose()
 }
 
 /// A team's pending invites, newest first.
-pub async fn pending_invites(pool: &AnyPool, team_id: &str) -> Result<Vec<InviteRow>> {
+pub async fn pending_invites(store: &Store, team_id: &str) -> Result<Vec<InviteRow>> {
     let sql = format!(
         "SELECT {INVITE_COLUMNS} FROM invites i JOIN teams t ON t.id = i.team_id \
          WHERE i.team_id = $1 AND i.used_at IS NULL AND i.expires_at > $2 \
@@ -528,17 +533,17 @@ pub async fn pending_invites(pool: &AnyPool, team_id: &str) -> Result<Vec<Invite
     let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
         .bind(team_id)
         .bind(now_ms())
-        .fetch_all(pool)
+        .fetch_all(store.pool())
         .await?;
-    Ok(rows.iter().map(invite_from).collect())
+    rows.iter().map(invite_from).collect()
 }
 
 /// Withdraws a pending invite of a team; false when there was none.
-pub async fn revoke_invite(pool: &AnyPool, team_id: &str, id: &str) -> Result<bool> {
+pub async fn revoke_invite(store: &Store, team_id: &str, id: &str) -> Result<bool> {
     let n = sqlx::query("DELETE FROM invites WHERE team_id = $1 AND id = $2 AND used_at IS NULL")
         .bind(team_id)
         .bind(id)
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?
         .rows_affected();
@@ -546,44 +551,45 @@ pub async fn revoke_invite(pool: &AnyPool, team_id: &str, id: &str) -> Result<bo
 }
 
 /// Drops the unused start-up links, so only the one printed last works.
-pub async fn delete_startup_invites(pool: &AnyPool) -> Result<()> {
+pub async fn delete_startup_invites(store: &Store) -> Result<()> {
     sqlx::query("DELETE FROM invites WHERE kind = 'startup' AND used_at IS NULL")
-        .execute(pool)
+        .execute(store.pool())
         .await
         .map_err(classify)?;
     Ok(())
 }
 
 /// A team's API tokens, live ones first.
-pub async fn list_tokens(pool: &AnyPool, team_id: &str) -> Result<Vec<TokenListRow>> {
+pub async fn list_tokens(store: &Store, team_id: &str) -> Result<Vec<TokenListRow>> {
     let rows = sqlx::query(
         "SELECT id, role, label, created_at, revoked_at FROM tokens WHERE team_id = $1 \
          ORDER BY CASE WHEN revoked_at IS NULL THEN 0 ELSE 1 END, created_at DESC, id",
     )
     .bind(team_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
-    Ok(rows
-        .iter()
-        .map(|r| TokenListRow {
-            id: r.get(0),
-            role: r.get(1),
-            label: r.get(2),
-            created_at: r.get(3),
-            revoked_at: r.get(4),
+    rows.iter()
+        .map(|r| {
+            Ok(TokenListRow {
+                id: r.get(0),
+                role: Role::column(r.get(1))?,
+                label: r.get(2),
+                created_at: r.get(3),
+                revoked_at: r.get(4),
+            })
         })
-        .collect())
+        .collect()
 }
 
 /// Revokes a live token of a team; false when there was none.
-pub async fn revoke_token(pool: &AnyPool, team_id: &str, id: &str) -> Result<bool> {
+pub async fn revoke_token(store: &Store, team_id: &str, id: &str) -> Result<bool> {
     let n = sqlx::query(
         "UPDATE tokens SET revoked_at = $1 WHERE team_id = $2 AND id = $3 AND revoked_at IS NULL",
     )
     .bind(now_ms())
     .bind(team_id)
     .bind(id)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?
     .rows_affected();

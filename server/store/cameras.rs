@@ -1,7 +1,7 @@
 //! Cameras: size plus a JSON document of intrinsics, work plane, pose and zones.
 
-use super::{Result, classify};
-use sqlx::{AnyPool, Row, any::AnyRow};
+use super::{Result, Store, classify};
+use sqlx::{Row, any::AnyRow};
 
 /// A stored camera.
 #[derive(Debug, Clone)]
@@ -35,7 +35,7 @@ fn from_row(r: &AnyRow) -> CameraRow {
 }
 
 /// Inserts a camera.
-pub async fn insert(pool: &AnyPool, c: &CameraRow) -> Result<()> {
+pub async fn insert(store: &Store, c: &CameraRow) -> Result<()> {
     sqlx::query(
         "INSERT INTO cameras (id, team_id, name, width, height, document, created_at) \
          VALUES ($1, $2, $3, $4, $5, $6, $7)",
@@ -47,33 +47,33 @@ pub async fn insert(pool: &AnyPool, c: &CameraRow) -> Result<()> {
     .bind(c.height)
     .bind(&c.document)
     .bind(c.created_at)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     Ok(())
 }
 
 /// One camera of a team.
-pub async fn get(pool: &AnyPool, team_id: &str, id: &str) -> Result<Option<CameraRow>> {
+pub async fn get(store: &Store, team_id: &str, id: &str) -> Result<Option<CameraRow>> {
     let row = sqlx::query(
         "SELECT id, team_id, name, width, height, document, created_at FROM cameras \
          WHERE team_id = $1 AND id = $2",
     )
     .bind(team_id)
     .bind(id)
-    .fetch_optional(pool)
+    .fetch_optional(store.pool())
     .await?;
     Ok(row.as_ref().map(from_row))
 }
 
 /// All cameras of a team, newest first.
-pub async fn list(pool: &AnyPool, team_id: &str) -> Result<Vec<CameraRow>> {
+pub async fn list(store: &Store, team_id: &str) -> Result<Vec<CameraRow>> {
     let rows = sqlx::query(
         "SELECT id, team_id, name, width, height, document, created_at FROM cameras \
          WHERE team_id = $1 ORDER BY created_at DESC, id",
     )
     .bind(team_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
     Ok(rows.iter().map(from_row).collect())
 }

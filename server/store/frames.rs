@@ -1,7 +1,7 @@
 //! Frames and their image bytes (stored once per SHA-256).
 
-use super::{Result, classify, now_ms};
-use sqlx::{AnyPool, Row, any::AnyRow};
+use super::{Result, Store, classify, now_ms};
+use sqlx::{Row, any::AnyRow};
 
 /// A stored frame (without its bytes).
 #[derive(Debug, Clone)]
@@ -51,7 +51,7 @@ pub struct NewImage<'a> {
 /// Stores the image (if new) and a frame for it on the camera; returns the frame and whether it
 /// was new. Uploading the same bytes to the same camera again returns the existing frame.
 pub async fn insert(
-    pool: &AnyPool,
+    store: &Store,
     team_id: &str,
     camera_id: &str,
     image: &NewImage<'_>,
@@ -63,7 +63,7 @@ pub async fn insert(
         height,
         bytes,
     } = *image;
-    let mut tx = pool.begin().await?;
+    let mut tx = store.pool().begin().await?;
     let now = now_ms();
     sqlx::query(
         "INSERT INTO images (sha256, content_type, width, height, bytes, created_at) \
@@ -108,20 +108,20 @@ pub async fn insert(
 }
 
 /// One frame of a team.
-pub async fn get(pool: &AnyPool, team_id: &str, id: &str) -> Result<Option<FrameRow>> {
+pub async fn get(store: &Store, team_id: &str, id: &str) -> Result<Option<FrameRow>> {
     let row = sqlx::query(
         "SELECT id, team_id, camera_id, sha256, width, height, created_at FROM frames \
          WHERE team_id = $1 AND id = $2",
     )
     .bind(team_id)
     .bind(id)
-    .fetch_optional(pool)
+    .fetch_optional(store.pool())
     .await?;
     Ok(row.as_ref().map(from_row))
 }
 
 /// Frames of a team, newest first, optionally of one camera.
-pub async fn list(pool: &AnyPool, team_id: &str, camera_id: Option<&str>) -> Result<Vec<FrameRow>> {
+pub async fn list(store: &Store, team_id: &str, camera_id: Option<&str>) -> Result<Vec<FrameRow>> {
     let rows = match camera_id {
         Some(c) => {
             sqlx::query(
@@ -130,7 +130,7 @@ pub async fn list(pool: &AnyPool, team_id: &str, camera_id: Option<&str>) -> Res
             )
             .bind(team_id)
             .bind(c)
-            .fetch_all(pool)
+            .fetch_all(store.pool())
             .await?
         }
         None => {
@@ -139,7 +139,7 @@ pub async fn list(pool: &AnyPool, team_id: &str, camera_id: Option<&str>) -> Res
                  WHERE team_id = $1 ORDER BY created_at DESC, id",
             )
             .bind(team_id)
-            .fetch_all(pool)
+            .fetch_all(store.pool())
             .await?
         }
     };
@@ -147,10 +147,10 @@ pub async fn list(pool: &AnyPool, team_id: &str, camera_id: Option<&str>) -> Res
 }
 
 /// The stored bytes and content type of an image.
-pub async fn image_bytes(pool: &AnyPool, sha256: &str) -> Result<Option<(String, Vec<u8>)>> {
+pub async fn image_bytes(store: &Store, sha256: &str) -> Result<Option<(String, Vec<u8>)>> {
     let row = sqlx::query("SELECT content_type, bytes FROM images WHERE sha256 = $1")
         .bind(sha256)
-        .fetch_optional(pool)
+        .fetch_optional(store.pool())
         .await?;
     Ok(row.map(|r| (r.get(0), r.get(1))))
 }

@@ -1,7 +1,7 @@
 //! Goal sets: ordered lists of pinned goal revisions, saved with a version counter.
 
-use super::{Result, classify};
-use sqlx::{AnyPool, Row, any::AnyRow};
+use super::{Result, Store, classify};
+use sqlx::{Row, any::AnyRow};
 
 /// A stored goal set.
 #[derive(Debug, Clone)]
@@ -32,7 +32,7 @@ fn from_row(r: &AnyRow) -> GoalSetRow {
 }
 
 /// Inserts a new set (version 1).
-pub async fn insert(pool: &AnyPool, team_id: &str, row: &GoalSetRow) -> Result<()> {
+pub async fn insert(store: &Store, team_id: &str, row: &GoalSetRow) -> Result<()> {
     sqlx::query(
         "INSERT INTO goal_sets (id, team_id, name, version, document, created_at, updated_at) \
          VALUES ($1, $2, $3, $4, $5, $6, $7)",
@@ -44,19 +44,14 @@ pub async fn insert(pool: &AnyPool, team_id: &str, row: &GoalSetRow) -> Result<(
     .bind(&row.document)
     .bind(row.created_at)
     .bind(row.updated_at)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     Ok(())
 }
 
 /// Replaces a set if its version is still `expected`; false (nothing written) otherwise.
-pub async fn update(
-    pool: &AnyPool,
-    team_id: &str,
-    expected: i64,
-    row: &GoalSetRow,
-) -> Result<bool> {
+pub async fn update(store: &Store, team_id: &str, expected: i64, row: &GoalSetRow) -> Result<bool> {
     let n = sqlx::query(
         "UPDATE goal_sets SET name = $1, version = $2, document = $3, updated_at = $4 \
          WHERE id = $5 AND team_id = $6 AND version = $7",
@@ -68,7 +63,7 @@ pub async fn update(
     .bind(&row.id)
     .bind(team_id)
     .bind(expected)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?
     .rows_affected();
@@ -76,26 +71,26 @@ pub async fn update(
 }
 
 /// One set of a team.
-pub async fn get(pool: &AnyPool, team_id: &str, id: &str) -> Result<Option<GoalSetRow>> {
+pub async fn get(store: &Store, team_id: &str, id: &str) -> Result<Option<GoalSetRow>> {
     let row = sqlx::query(
         "SELECT id, name, version, document, created_at, updated_at FROM goal_sets \
          WHERE team_id = $1 AND id = $2",
     )
     .bind(team_id)
     .bind(id)
-    .fetch_optional(pool)
+    .fetch_optional(store.pool())
     .await?;
     Ok(row.as_ref().map(from_row))
 }
 
 /// A team's sets, most recently saved first.
-pub async fn list(pool: &AnyPool, team_id: &str) -> Result<Vec<GoalSetRow>> {
+pub async fn list(store: &Store, team_id: &str) -> Result<Vec<GoalSetRow>> {
     let rows = sqlx::query(
         "SELECT id, name, version, document, created_at, updated_at FROM goal_sets \
          WHERE team_id = $1 ORDER BY updated_at DESC, id",
     )
     .bind(team_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
     Ok(rows.iter().map(from_row).collect())
 }

@@ -3,8 +3,8 @@
 //! A new revision is a compare-and-set on `goals.latest_revision` followed by an insert, in one
 //! transaction: of any number of writers holding the same `If-Match`, exactly one wins.
 
-use super::{Result, classify};
-use sqlx::{AnyPool, Row, any::AnyRow};
+use super::{Result, Store, classify};
+use sqlx::{Row, any::AnyRow};
 
 /// One revision as stored: the served document bytes plus indexed metadata.
 #[derive(Debug, Clone)]
@@ -92,8 +92,8 @@ where
 }
 
 /// Creates a goal whose first revision is `rev` (which must have revision 1).
-pub async fn create(pool: &AnyPool, team_id: &str, rev: &RevisionRow) -> Result<()> {
-    let mut tx = pool.begin().await?;
+pub async fn create(store: &Store, team_id: &str, rev: &RevisionRow) -> Result<()> {
+    let mut tx = store.pool().begin().await?;
     sqlx::query(
         "INSERT INTO goals (id, team_id, frame_id, name, latest_revision, created_at, updated_at) \
          VALUES ($1, $2, $3, $4, $5, $6, $6)",
@@ -115,12 +115,12 @@ pub async fn create(pool: &AnyPool, team_id: &str, rev: &RevisionRow) -> Result<
 /// Appends `rev` (revision = expected_latest + 1) if the goal's latest revision is still
 /// `expected_latest`. Returns false, having written nothing, when someone else got there first.
 pub async fn append(
-    pool: &AnyPool,
+    store: &Store,
     team_id: &str,
     expected_latest: i64,
     rev: &RevisionRow,
 ) -> Result<bool> {
-    let mut tx = pool.begin().await?;
+    let mut tx = store.pool().begin().await?;
     // The UPDATE comes first so SQLite takes its write lock at once (a read-then-write
     // transaction could fail to upgrade instead of waiting).
     let updated = sqlx::query(
@@ -149,7 +149,7 @@ pub async fn append(
 
 /// One revision of a team's goal; `None` revision means the latest.
 pub async fn get_revision(
-    pool: &AnyPool,
+    store: &Store,
     team_id: &str,
     goal_id: &str,
     revision: Option<i64>,
@@ -165,7 +165,7 @@ pub async fn get_revision(
             .bind(team_id)
             .bind(goal_id)
             .bind(n)
-            .fetch_optional(pool)
+            .fetch_optional(store.pool())
             .await?
         }
         None => {
@@ -177,7 +177,7 @@ pub async fn get_revision(
             )
             .bind(team_id)
             .bind(goal_id)
-            .fetch_optional(pool)
+            .fetch_optional(store.pool())
             .await?
         }
     };
@@ -186,7 +186,7 @@ pub async fn get_revision(
 
 /// Every revision of a goal, oldest first (documents included).
 pub async fn list_revisions(
-    pool: &AnyPool,
+    store: &Store,
     team_id: &str,
     goal_id: &str,
 ) -> Result<Vec<RevisionRow>> {
@@ -198,13 +198,13 @@ pub async fn list_revisions(
     )
     .bind(team_id)
     .bind(goal_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
     Ok(rows.iter().map(revision_from_row).collect())
 }
 
 /// A team's goals with their latest revision, most recently changed first.
-pub async fn list(pool: &AnyPool, team_id: &str) -> Result<Vec<GoalSummary>> {
+pub async fn list(store: &Store, team_id: &str) -> Result<Vec<GoalSummary>> {
     let rows = sqlx::query(
         "SELECT g.id, g.name, g.frame_id, g.latest_revision, r.author, r.sha256, g.created_at, \
          g.updated_at FROM goals g \
@@ -212,7 +212,7 @@ pub async fn list(pool: &AnyPool, team_id: &str) -> Result<Vec<GoalSummary>> {
          WHERE g.team_id = $1 ORDER BY g.updated_at DESC, g.id",
     )
     .bind(team_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
     Ok(rows
         .iter()

@@ -24,15 +24,28 @@ pub enum Backend {
     Postgres,
 }
 
-/// A storage failure.
+/// A storage failure, in the store's own words: nothing above the store sees sqlx.
 #[derive(Debug, thiserror::Error)]
 pub enum StoreError {
-    /// A named constraint refused the write (unique keys, foreign keys, checks).
+    /// A unique key refused the write (a name or hash that is already taken); the constraint
+    /// or column named by the database.
+    #[error("{0} is already taken")]
+    Unique(String),
+    /// A foreign key refused the write: the row refers to something that does not exist.
+    #[error("a referenced row does not exist ({0})")]
+    MissingReference(String),
+    /// Another constraint (a check) refused the write.
     #[error("constraint {0} refused the write")]
-    Constraint(String),
+    Check(String),
+    /// The database cannot be reached or the pool is exhausted or closed.
+    #[error("the database is unavailable: {0}")]
+    Unavailable(String),
+    /// The URL or settings are unusable.
+    #[error("database configuration: {0}")]
+    Config(String),
     /// Anything else the database said.
-    #[error(transparent)]
-    Database(#[from] sqlx::Error),
+    #[error("database error: {0}")]
+    Database(String),
     /// A row that should parse did not (corruption or a bug).
     #[error("stored data is unreadable: {0}")]
     Corrupt(String),
@@ -41,18 +54,97 @@ pub enum StoreError {
 /// Shorthand for store results.
 pub type Result<T, E = StoreError> = std::result::Result<T, E>;
 
-/// Turns constraint violations into [`StoreError::Constraint`] so callers can map them to fields.
+impl From<sqlx::Error> for StoreError {
+    fn from(e: sqlx::Error) -> Self {
+        classify(e)
+    }
+}
+
+impl From<sqlx::migrate::MigrateError> for StoreError {
+    fn from(e: sqlx::migrate::MigrateError) -> Self {
+        StoreError::Database(format!("migration: {e}"))
+    }
+}
+
+/// Sorts a driver error into a [`StoreError`], so callers can map constraint violations to
+/// fields and an unreachable database to 503.
 pub(crate) fn classify(e: sqlx::Error) -> StoreError {
-    if let sqlx::Error::Database(db) = &e {
-        if let Some(c) = db.constraint() {
-            return StoreError::Constraint(c.to_string());
+    match &e {
+        sqlx::Error::Database(db) => {
+            let name = db
+                .constraint()
+                .map(str::to_string)
+                .unwrap_or_else(|| db.message().to_string());
+            let lower = name.to_ascii_lowercase();
+            if db.is_unique_violation() {
+                StoreError::Unique(name)
+            } else if db.is_foreign_key_violation()
+                || lower.contains("fkey")
+                || lower.contains("foreign")
+            {
+                StoreError::MissingReference(name)
+            } else if db.is_check_violation() {
+                StoreError::Check(name)
+            } else {
+                StoreError::Database(e.to_string())
+            }
         }
-        // SQLite reports "UNIQUE constraint failed: table.col" without a constraint name.
-        if db.is_unique_violation() {
-            return StoreError::Constraint(format!("unique: {}", db.message()));
+        sqlx::Error::PoolTimedOut | sqlx::Error::PoolClosed | sqlx::Error::Io(_) => {
+            StoreError::Unavailable(e.to_string())
+        }
+        sqlx::Error::Configuration(m) => StoreError::Config(m.to_string()),
+        _ => StoreError::Database(e.to_string()),
+    }
+}
+
+/// A member's or a token's role in a team, ordered by what it may do. Stored by name.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Role {
+    /// Reads everything of the team.
+    Viewer,
+    /// Also writes cameras, frames, goals and outcomes.
+    Editor,
+    /// Also manages members and tokens.
+    Owner,
+}
+
+impl std::fmt::Display for Role {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(self.as_str())
+    }
+}
+
+impl Default for Role {
+    /// The least a role may do.
+    fn default() -> Self {
+        Role::Viewer
+    }
+}
+
+impl Role {
+    /// Parses `viewer`, `editor` or `owner`.
+    pub fn parse(s: &str) -> Option<Self> {
+        match s {
+            "viewer" => Some(Role::Viewer),
+            "editor" => Some(Role::Editor),
+            "owner" => Some(Role::Owner),
+            _ => None,
         }
     }
-    StoreError::Database(e)
+
+    /// The stored name.
+    pub fn as_str(&self) -> &'static str {
+        match self {
+            Role::Viewer => "viewer",
+            Role::Editor => "editor",
+            Role::Owner => "owner",
+        }
+    }
+
+    /// Reads a stored role column; anything else is corrupt data.
+    pub(crate) fn column(s: String) -> Result<Self> {
+        Role::parse(&s).ok_or_else(|| StoreError::Corrupt(format!("unknown role {s:?}")))
+    }
 }
 
 /// The pool and what it talks to.
@@ -78,9 +170,8 @@ impl Store {
         } else if url.starts_with("postgres:") || url.starts_with("postgresql:") {
             Backend::Postgres
         } else {
-            return Err(StoreError::Database(sqlx::Error::Configuration(
-                format!("unsupported database URL scheme in {url:?}: use sqlite:// or postgres://")
-                    .into(),
+            return Err(StoreError::Config(format!(
+                "unsupported database URL scheme in {url:?}: use sqlite:// or postgres://"
             )));
         };
         let mut options = AnyPoolOptions::new()
@@ -103,12 +194,12 @@ impl Store {
         sqlx::migrate!("./migrations")
             .run(&pool)
             .await
-            .map_err(|e| StoreError::Database(e.into()))?;
+            .map_err(StoreError::from)?;
         Ok(Self { pool, backend })
     }
 
     /// The connection pool.
-    pub fn pool(&self) -> &AnyPool {
+    fn pool(&self) -> &AnyPool {
         &self.pool
     }
 
@@ -147,7 +238,7 @@ pub fn sqlite_url(url: &str) -> Result<String> {
     if path.is_empty() || path == ":memory:" {
         return Ok(url.to_string());
     }
-    let config = |m: String| StoreError::Database(sqlx::Error::Configuration(m.into()));
+    let config = StoreError::Config;
     let decoded = percent_encoding::percent_decode_str(path)
         .decode_utf8()
         .map_err(|e| config(format!("the database path in {url:?} is not UTF-8: {e}")))?;

@@ -1,7 +1,7 @@
 //! Outcomes reported by robots and planners.
 
-use super::{Result, classify};
-use sqlx::{AnyPool, Row};
+use super::{Result, Store, classify};
+use sqlx::Row;
 
 /// A stored outcome.
 #[derive(Debug, Clone)]
@@ -31,7 +31,7 @@ pub struct OutcomeRow {
 }
 
 /// Inserts an outcome of a team's goal.
-pub async fn insert(pool: &AnyPool, team_id: &str, o: &OutcomeRow) -> Result<()> {
+pub async fn insert(store: &Store, team_id: &str, o: &OutcomeRow) -> Result<()> {
     sqlx::query(
         "INSERT INTO outcomes (id, team_id, goal_id, revision, final_points, per_point, success, \
          cost, mean_residual_px, note, author, created_at) \
@@ -49,14 +49,14 @@ pub async fn insert(pool: &AnyPool, team_id: &str, o: &OutcomeRow) -> Result<()>
     .bind(&o.note)
     .bind(&o.author)
     .bind(o.created_at)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     Ok(())
 }
 
 /// A goal's outcomes over all revisions, oldest first.
-pub async fn list(pool: &AnyPool, team_id: &str, goal_id: &str) -> Result<Vec<OutcomeRow>> {
+pub async fn list(store: &Store, team_id: &str, goal_id: &str) -> Result<Vec<OutcomeRow>> {
     let rows = sqlx::query(
         "SELECT id, goal_id, revision, final_points, per_point, success, cost, mean_residual_px, \
          note, author, created_at FROM outcomes WHERE team_id = $1 AND goal_id = $2 \
@@ -64,7 +64,7 @@ pub async fn list(pool: &AnyPool, team_id: &str, goal_id: &str) -> Result<Vec<Ou
     )
     .bind(team_id)
     .bind(goal_id)
-    .fetch_all(pool)
+    .fetch_all(store.pool())
     .await?;
     Ok(rows
         .iter()

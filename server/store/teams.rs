@@ -1,7 +1,7 @@
 //! Teams and API tokens. Only the SHA-256 of a token is stored.
 
-use super::{Result, classify, now_ms};
-use sqlx::{AnyPool, Row};
+use super::{Result, Role, Store, classify, now_ms};
+use sqlx::Row;
 
 /// A team row.
 #[derive(Debug, Clone)]
@@ -20,7 +20,7 @@ pub struct TokenRow {
     /// Team the token acts for.
     pub team_id: String,
     /// `viewer`, `editor` or `owner`.
-    pub role: String,
+    pub role: Role,
     /// Who or what holds it; becomes the author of revisions.
     pub label: String,
     /// Creation time (unix ms).
@@ -28,8 +28,8 @@ pub struct TokenRow {
 }
 
 /// Finds a team by name, creating it when missing.
-pub async fn get_or_create_team(pool: &AnyPool, name: &str) -> Result<TeamRow> {
-    if let Some(t) = find_team_by_name(pool, name).await? {
+pub async fn get_or_create_team(store: &Store, name: &str) -> Result<TeamRow> {
+    if let Some(t) = find_team_by_name(store, name).await? {
         return Ok(t);
     }
     let id = uuid::Uuid::new_v4().to_string();
@@ -39,12 +39,12 @@ pub async fn get_or_create_team(pool: &AnyPool, name: &str) -> Result<TeamRow> {
     .bind(&id)
     .bind(name)
     .bind(now_ms())
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     if inserted.rows_affected() == 0 {
         // Another process created it between our read and write.
-        if let Some(t) = find_team_by_name(pool, name).await? {
+        if let Some(t) = find_team_by_name(store, name).await? {
             return Ok(t);
         }
     }
@@ -55,10 +55,10 @@ pub async fn get_or_create_team(pool: &AnyPool, name: &str) -> Result<TeamRow> {
 }
 
 /// A team by name.
-pub async fn find_team_by_name(pool: &AnyPool, name: &str) -> Result<Option<TeamRow>> {
+pub async fn find_team_by_name(store: &Store, name: &str) -> Result<Option<TeamRow>> {
     let row = sqlx::query("SELECT id, name FROM teams WHERE name = $1")
         .bind(name)
-        .fetch_optional(pool)
+        .fetch_optional(store.pool())
         .await?;
     Ok(row.map(|r| TeamRow {
         id: r.get(0),
@@ -67,19 +67,19 @@ pub async fn find_team_by_name(pool: &AnyPool, name: &str) -> Result<Option<Team
 }
 
 /// How many teams exist (0 means an empty database).
-pub async fn count_teams(pool: &AnyPool) -> Result<i64> {
+pub async fn count_teams(store: &Store) -> Result<i64> {
     let row = sqlx::query("SELECT COUNT(*) FROM teams")
-        .fetch_one(pool)
+        .fetch_one(store.pool())
         .await?;
     Ok(row.get::<i64, _>(0))
 }
 
 /// Stores a new token by its hash.
 pub async fn insert_token(
-    pool: &AnyPool,
+    store: &Store,
     team_id: &str,
     token_hash: &str,
-    role: &str,
+    role: Role,
     label: &str,
 ) -> Result<TokenRow> {
     let id = uuid::Uuid::new_v4().to_string();
@@ -91,35 +91,38 @@ pub async fn insert_token(
     .bind(&id)
     .bind(team_id)
     .bind(token_hash)
-    .bind(role)
+    .bind(role.as_str())
     .bind(label)
     .bind(created_at)
-    .execute(pool)
+    .execute(store.pool())
     .await
     .map_err(classify)?;
     Ok(TokenRow {
         id,
         team_id: team_id.to_string(),
-        role: role.to_string(),
+        role,
         label: label.to_string(),
         created_at,
     })
 }
 
 /// The live (not revoked) token with this hash.
-pub async fn find_token(pool: &AnyPool, token_hash: &str) -> Result<Option<TokenRow>> {
+pub async fn find_token(store: &Store, token_hash: &str) -> Result<Option<TokenRow>> {
     let row = sqlx::query(
         "SELECT id, team_id, role, label, created_at FROM tokens \
          WHERE token_hash = $1 AND revoked_at IS NULL",
     )
     .bind(token_hash)
-    .fetch_optional(pool)
+    .fetch_optional(store.pool())
     .await?;
-    Ok(row.map(|r| TokenRow {
-        id: r.get(0),
-        team_id: r.get(1),
-        role: r.get(2),
-        label: r.get(3),
-        created_at: r.get(4),
-    }))
+    row.map(|r| {
+        Ok(TokenRow {
+            id: r.get(0),
+            team_id: r.get(1),
+            role: Role::column(r.get(2))?,
+            label: r.get(3),
+            created_at: r.get(4),
+        })
+    })
+    .transpose()
 }

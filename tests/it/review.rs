@@ -394,8 +394,9 @@ async fn last_owner_survives(kind: Db) {
     let store = goalsmith::store::Store::connect(&db.url)
         .await
         .expect("connect");
-    let pool = store.pool().clone();
-    let team = goalsmith::store::teams::get_or_create_team(&pool, "potting shed")
+    // Raw SQL sets up the people; the store's own pool stays private to the store.
+    let pool = sqlx::AnyPool::connect(&db.url).await.expect("pool");
+    let team = goalsmith::store::teams::get_or_create_team(&store, "potting shed")
         .await
         .expect("team");
     for round in 0..30 {
@@ -428,14 +429,21 @@ async fn last_owner_survives(kind: Db) {
             .execute(&pool)
             .await
             .expect("reset");
-        let (p1, p2, t1, t2) = (pool.clone(), pool.clone(), team.id.clone(), team.id.clone());
+        let (p1, p2, t1, t2) = (
+            store.clone(),
+            store.clone(),
+            team.id.clone(),
+            team.id.clone(),
+        );
         let (a2, b2) = (a.clone(), b.clone());
         let demote_a = tokio::spawn(async move {
-            goalsmith::store::accounts::set_role(&p1, &t1, &a2, "viewer").await
+            goalsmith::store::accounts::set_role(&p1, &t1, &a2, goalsmith::store::Role::Viewer)
+                .await
         });
         let remove_b = tokio::spawn(async move {
             if round % 2 == 0 {
-                goalsmith::store::accounts::set_role(&p2, &t2, &b2, "editor").await
+                goalsmith::store::accounts::set_role(&p2, &t2, &b2, goalsmith::store::Role::Editor)
+                    .await
             } else {
                 goalsmith::store::accounts::remove_member(&p2, &t2, &b2).await
             }

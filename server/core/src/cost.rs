@@ -1,4 +1,4 @@
-//! The cost of candidate futures against a goal, exactly as the design's "Conventions" say.
+//! The cost of candidate futures against a goal, exactly as `docs/conventions.md` defines it.
 //!
 //! A goal contributes P source points, each with a target shape (a point, a polygon region or a
 //! painted mask), a weight w_p (a rigid term's weight already split over its points) and a

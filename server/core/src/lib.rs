@@ -8,6 +8,7 @@
 
 pub mod bench;
 pub mod camera;
+pub mod canonical;
 pub mod cost;
 pub mod distance;
 pub mod draw;

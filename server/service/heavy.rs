@@ -6,7 +6,7 @@
 //! `busy` with `Retry-After: 1`, so a burst is shed quickly instead of piling up memory and
 //! latency for everyone (light routes such as `/healthz` never wait here).
 
-use super::error::ApiError;
+use super::error::ServiceError;
 use std::sync::Arc;
 use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
 use tokio::sync::{OwnedSemaphorePermit, Semaphore};
@@ -29,13 +29,13 @@ impl Heavy {
     }
 
     /// A permit now, or after waiting in the queue; `busy` (503) when the queue is full.
-    pub async fn acquire(&self) -> Result<OwnedSemaphorePermit, ApiError> {
+    pub async fn acquire(&self) -> Result<OwnedSemaphorePermit, ServiceError> {
         if let Ok(p) = self.permits.clone().try_acquire_owned() {
             return Ok(p);
         }
         if self.waiting.fetch_add(1, Ordering::SeqCst) >= self.queue {
             self.waiting.fetch_sub(1, Ordering::SeqCst);
-            return Err(ApiError::Busy);
+            return Err(ServiceError::Busy);
         }
         // Decremented however the wait ends, also when the client hangs up meanwhile and the
         // handler future is dropped.
@@ -50,7 +50,7 @@ impl Heavy {
             .clone()
             .acquire_owned()
             .await
-            .map_err(|e| ApiError::Internal(format!("heavy permits closed: {e}")))
+            .map_err(|e| ServiceError::Internal(format!("heavy permits closed: {e}")))
     }
 }
 
@@ -104,7 +104,7 @@ mod tests {
             tokio::task::yield_now().await;
         }
         // … the next is refused.
-        assert!(matches!(h.acquire().await, Err(ApiError::Busy)));
+        assert!(matches!(h.acquire().await, Err(ServiceError::Busy)));
         drop(first);
         waiter
             .await

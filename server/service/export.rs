@@ -1,0 +1,753 @@
+//! What planners pull for one pinned revision: cost maps, batched costs (buffered or streamed),
+//! the overlay and the reproducible bundle, with the caches that keep repeats cheap.
+
+use super::auth::Principal;
+use super::cameras::{self, CameraDoc};
+use super::error::{ServiceError, ServiceResult};
+use super::goals::{load_revision, parse_revision};
+use super::heavy::Cancel;
+use super::{AppState, frames};
+use crate::config::Limits;
+use crate::scoring::{self, ScoreError};
+use crate::store::{self, goals::RevisionRow};
+use goalsmith_core::cost::{CostModel, PreparedMaps};
+use goalsmith_core::goal::GoalSpec;
+use goalsmith_core::npy;
+use serde_json::Value;
+use sha2::{Digest, Sha256};
+use std::sync::atomic::{AtomicBool, Ordering};
+
+impl From<ScoreError> for ServiceError {
+    fn from(e: ScoreError) -> Self {
+        match e {
+            ScoreError::Invalid {
+                code: "unsupported_media_type",
+                message,
+                ..
+            } => ServiceError::UnsupportedMediaType(message),
+            ScoreError::Invalid {
+                code,
+                message,
+                field,
+            } => ServiceError::Invalid {
+                code,
+                message,
+                field,
+            },
+            ScoreError::TooLarge(m) => ServiceError::TooLarge(m),
+            ScoreError::Internal(m) => ServiceError::Internal(m),
+        }
+    }
+}
+
+/// Checked goals and their cost models by (goal id, revision). A planner in a control loop
+/// scores the same revision many times a second; rebuilding the model (mask decoding and
+/// indexing included) each time would dominate small requests. Revisions are immutable, so an
+/// entry never goes stale; the cache only bounds its size, in bytes: a model with mask targets
+/// holds about 9 bytes per frame pixel per mask (the mask and its column index), so a count of
+/// entries says nothing about memory.
+pub struct ModelCache {
+    entries: std::sync::Mutex<ModelEntries>,
+    /// Prepared maps by (model identity, w, h), each holding its model alive so the identity
+    /// cannot be reused by another model while the entry exists; bounded in bytes.
+    prepared: std::sync::Mutex<PreparedCache>,
+}
+
+/// Least recently used first out: each entry records the tick of its last use.
+#[derive(Default)]
+struct ModelEntries {
+    map: std::collections::HashMap<(String, i64), (Checked, usize, u64)>,
+    bytes: usize,
+    tick: u64,
+    budget: usize,
+}
+
+#[derive(Default)]
+struct PreparedCache {
+    entries:
+        std::collections::HashMap<(usize, usize, usize), (std::sync::Arc<PreparedMaps>, Checked)>,
+    bytes: usize,
+}
+
+/// A checked goal with its cost model, shared between the cache and requests.
+pub type Checked = std::sync::Arc<(GoalSpec, CostModel)>;
+
+/// What one cached revision is taken to hold: the model's masks and indexes plus a fixed
+/// allowance for the goal document, labels and the map entry itself.
+fn checked_bytes(c: &Checked) -> usize {
+    c.1.approx_bytes() + 4096
+}
+
+impl Default for ModelCache {
+    fn default() -> Self {
+        Self::with_budget(crate::config::Limits::default().model_cache_bytes)
+    }
+}
+
+impl ModelCache {
+    /// A cache holding at most `budget` bytes of models (by [`checked_bytes`]).
+    pub fn with_budget(budget: usize) -> Self {
+        Self {
+            entries: std::sync::Mutex::new(ModelEntries {
+                budget,
+                ..ModelEntries::default()
+            }),
+            prepared: std::sync::Mutex::default(),
+        }
+    }
+
+    /// Bytes of models held now (read-only, for tests and logs).
+    pub fn bytes(&self) -> usize {
+        self.entries.lock().map_or(0, |e| e.bytes)
+    }
+
+    fn prepared(&self, key: &(usize, usize, usize)) -> Option<std::sync::Arc<PreparedMaps>> {
+        Some(self.prepared.lock().ok()?.entries.get(key)?.0.clone())
+    }
+
+    fn put_prepared(
+        &self,
+        key: (usize, usize, usize),
+        maps: std::sync::Arc<PreparedMaps>,
+        model: Checked,
+    ) {
+        let size = maps.points() * maps.width() * maps.height() * 4;
+        if size > PREPARED_CACHE_BYTES / 4 {
+            return; // large maps are rare; keeping them would crowd out the common sizes
+        }
+        let Ok(mut c) = self.prepared.lock() else {
+            return;
+        };
+        while c.bytes + size > PREPARED_CACHE_BYTES {
+            let Some(k) = c.entries.keys().next().copied() else {
+                break;
+            };
+            if let Some((m, _)) = c.entries.remove(&k) {
+                c.bytes -= m.points() * m.width() * m.height() * 4;
+            }
+        }
+        if c.entries.insert(key, (maps, model)).is_none() {
+            c.bytes += size;
+        }
+    }
+
+    fn get(&self, key: &(String, i64)) -> Option<Checked> {
+        let mut e = self.entries.lock().ok()?;
+        e.tick += 1;
+        let tick = e.tick;
+        let entry = e.map.get_mut(key)?;
+        entry.2 = tick;
+        Some(entry.0.clone())
+    }
+
+    fn put(&self, key: (String, i64), value: Checked) {
+        let size = checked_bytes(&value);
+        let Ok(mut e) = self.entries.lock() else {
+            return;
+        };
+        if size > e.budget {
+            return; // used by the request that built it, but not kept: it would evict all else
+        }
+        if let Some((_, old, _)) = e.map.remove(&key) {
+            e.bytes -= old;
+        }
+        while e.bytes + size > e.budget {
+            // A linear scan for the oldest: the cache holds tens of entries, not thousands, and
+            // an eviction follows a model build that costs far more.
+            let Some(oldest) = e
+                .map
+                .iter()
+                .min_by_key(|(_, (_, _, t))| *t)
+                .map(|(k, _)| k.clone())
+            else {
+                break;
+            };
+            if let Some((_, b, _)) = e.map.remove(&oldest) {
+                e.bytes -= b;
+            }
+        }
+        e.tick += 1;
+        let tick = e.tick;
+        e.bytes += size;
+        e.map.insert(key, (value, size, tick));
+    }
+}
+
+/// A pinned revision with everything needed to score or export it.
+pub struct Loaded {
+    /// The stored revision.
+    pub row: RevisionRow,
+    /// Its document.
+    pub doc: Value,
+    /// Its checked goal and cost model (shared with the cache).
+    pub checked: Checked,
+    /// The frame it is drawn on.
+    pub frame: store::frames::FrameRow,
+    /// The camera of that frame.
+    pub camera: CameraDoc,
+    /// The camera as served.
+    pub camera_json: Value,
+}
+
+impl Loaded {
+    /// The stored frame image: (content type, bytes).
+    pub async fn frame_image(&self, state: &AppState) -> ServiceResult<(String, Vec<u8>)> {
+        store::frames::image_bytes(&state.store, &self.frame.sha256)
+            .await?
+            .ok_or_else(|| {
+                ServiceError::Internal(format!("image of frame {} missing", self.frame.id))
+            })
+    }
+
+    /// The full-size cost maps as NPY (CPU work: call it off the async workers), given up
+    /// when `stop` is set (see [`super::heavy::Cancel`]).
+    pub fn full_size_maps(&self, stop: &AtomicBool) -> Result<Vec<u8>, ScoreError> {
+        let (w, h) = self.spec().frame_size();
+        scoring::cost_maps_npy_until(self.model(), w as usize, h as usize, &|| {
+            stop.load(Ordering::Relaxed)
+        })
+    }
+
+    /// Refuses (422 `map_too_large`) a bundle whose full-size maps are over the limit, before
+    /// anything is built.
+    pub fn check_full_size_maps(&self, limits: &Limits) -> ServiceResult<()> {
+        let (w, h) = self.spec().frame_size();
+        check_map_values(limits, self.model().len(), w as usize, h as usize, None)
+    }
+
+    /// What the bundle of this revision is made of.
+    pub fn bundle_parts<'a>(
+        &'a self,
+        content_type: &str,
+        frame: &'a [u8],
+        maps: &'a [u8],
+    ) -> scoring::BundleParts<'a> {
+        let (width, height) = self.spec().frame_size();
+        scoring::BundleParts {
+            goal_json: &self.row.document,
+            goal: &self.doc,
+            camera: &self.camera_json,
+            cost_maps_npy: maps,
+            frame,
+            frame_ext: if content_type == "image/png" {
+                "png"
+            } else {
+                "jpg"
+            },
+            points: self.model().len(),
+            width,
+            height,
+        }
+    }
+
+    /// The checked goal.
+    pub fn spec(&self) -> &GoalSpec {
+        &self.checked.0
+    }
+    /// The cost model.
+    pub fn model(&self) -> &CostModel {
+        &self.checked.1
+    }
+}
+
+/// Refuses maps of more than `limits.max_map_values` values (P · h · w) with a 422
+/// `map_too_large` naming the limit, before any of them is built.
+pub fn check_map_values(
+    limits: &Limits,
+    points: usize,
+    width: usize,
+    height: usize,
+    field: Option<&str>,
+) -> ServiceResult<()> {
+    let max = limits.max_map_values;
+    let values = points.saturating_mul(width).saturating_mul(height);
+    if values <= max {
+        return Ok(());
+    }
+    Err(ServiceError::Invalid {
+        code: "map_too_large",
+        message: format!(
+            "cost maps of {points} source point{} at {width} × {height} pixels are {values} \
+             values, over the limit of {max} values (P · h · w) per request; ask for a smaller \
+             width and height",
+            if points == 1 { "" } else { "s" }
+        ),
+        field: field.map(str::to_string),
+    })
+}
+
+/// Loads revision `n` of a team's goal and rebuilds its cost model (off the async workers).
+pub async fn load(state: &AppState, who: &Principal, id: &str, n: &str) -> ServiceResult<Loaded> {
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    load_row(state, who, row).await
+}
+
+/// [`load`] for a revision row already read (and authorised by its team).
+pub async fn load_row(
+    state: &AppState,
+    who: &Principal,
+    row: RevisionRow,
+) -> ServiceResult<Loaded> {
+    let frame = frames::load(state, who, &row.frame_id).await?;
+    let camera_row = cameras::load(state, who, &frame.camera_id).await?;
+    let camera = cameras::parse_doc(&camera_row)?;
+    let camera_json = cameras::camera_json(&camera_row)?;
+    let doc: Value = serde_json::from_str(&row.document)
+        .map_err(|e| ServiceError::Internal(format!("revision unreadable: {e}")))?;
+    let key = (row.goal_id.clone(), row.revision);
+    let checked = match state.models.get(&key) {
+        Some(c) => c,
+        None => {
+            let (w, h) = (camera.width, camera.height);
+            let doc2 = doc.clone();
+            let permit = state.heavy_permits.acquire().await?;
+            let built = tokio::task::spawn_blocking(move || {
+                let _permit = permit;
+                let spec = scoring::spec_from_revision(&doc2, w, h)?;
+                let model = scoring::model(&spec)?;
+                Ok::<_, ScoreError>(std::sync::Arc::new((spec, model)))
+            })
+            .await
+            .map_err(|e| ServiceError::Internal(e.to_string()))??;
+            state.models.put(key, built.clone());
+            built
+        }
+    };
+    Ok(Loaded {
+        row,
+        doc,
+        checked,
+        frame,
+        camera,
+        camera_json,
+    })
+}
+
+/// The strong ETag of a bundle, known before it is built: the bytes of a bundle depend only on
+/// the revision document bytes (which name the frame; frames and cameras never change) and on
+/// the bundle format, so a hash of those two names the bundle exactly.
+pub fn bundle_etag(kind: &str, document: &str) -> String {
+    let mut h = Sha256::new();
+    h.update(format!(
+        "{kind} bundle format {}\n",
+        scoring::BUNDLE_FORMAT_VERSION
+    ));
+    h.update(document.as_bytes());
+    format!("\"{}\"", hex::encode(h.finalize()))
+}
+
+/// Scores a whole buffered body (JSON points, NPY points, or anything the full check must
+/// explain) off the async workers.
+pub async fn score_buffered(
+    checked: Checked,
+    content_type: String,
+    body: impl AsRef<[u8]> + Send + 'static,
+    max: usize,
+) -> ServiceResult<goalsmith_core::cost::CostResult> {
+    Ok(tokio::task::spawn_blocking(move || {
+        scoring::evaluate(&checked.1, &content_type, body.as_ref(), max)
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))??)
+}
+
+/// The checked goal and cost model of revision `n`: one query to find (and authorise) the
+/// revision, then the cache; the frame and camera are read only when the model must be built.
+pub async fn checked_model(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+) -> ServiceResult<Checked> {
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    if let Some(c) = state.models.get(&(row.goal_id.clone(), row.revision)) {
+        return Ok(c);
+    }
+    Ok(load_row(state, who, row).await?.checked)
+}
+
+/// Largest prepared map set kept in the cache (P·h·w float32 values and weights).
+const PREPARED_CACHE_BYTES: usize = 64 << 20;
+
+/// The model's maps at (w, h), from the cache or built off the async workers. A planner scores
+/// the same revision at the same size many times a second; building the maps (exact distances
+/// at every map pixel) on each request would cost more than scoring.
+pub async fn prepared_maps(
+    state: &AppState,
+    checked: &Checked,
+    w: usize,
+    h: usize,
+) -> ServiceResult<std::sync::Arc<PreparedMaps>> {
+    let key = (std::sync::Arc::as_ptr(checked) as usize, w, h);
+    if let Some(p) = state.models.prepared(&key) {
+        return Ok(p);
+    }
+    let c = checked.clone();
+    // Part of the handler's future: a client that hangs up drops it and the build stops.
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
+    let (built, done) = tokio::task::spawn_blocking(move || {
+        c.1.prepare_maps_until(w, h, &|| stop.load(Ordering::Relaxed))
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))?
+    .map_err(|e| ServiceError::from(ScoreError::from_cost(e)))?;
+    drop(cancel);
+    if !done {
+        return Err(ServiceError::Internal(
+            "map building stopped: the client hung up".into(),
+        ));
+    }
+    let built = std::sync::Arc::new(built);
+    state
+        .models
+        .put_prepared(key, built.clone(), checked.clone());
+    Ok(built)
+}
+
+/// Where the pieces of a streamed request body come from: the API feeds the cost route's body
+/// through this, so the scoring of a stream lives here and the transport stays at the edge.
+pub trait ChunkSource: Send {
+    /// The next piece, `None` at the end; a body over the route's limit is a 413.
+    fn next_chunk(
+        &mut self,
+    ) -> impl std::future::Future<Output = ServiceResult<Option<bytes::Bytes>>> + Send;
+}
+
+/// A file to download: its media type, a file name, the bytes and their strong ETag.
+pub struct Download {
+    /// The media type.
+    pub content_type: &'static str,
+    /// The name a browser saves it under.
+    pub filename: String,
+    /// The content.
+    pub bytes: Vec<u8>,
+    /// Strong ETag (quoted).
+    pub etag: String,
+}
+
+impl Download {
+    /// A download whose ETag is the SHA-256 of its bytes.
+    pub fn hashed(content_type: &'static str, filename: String, bytes: Vec<u8>) -> Self {
+        let etag = format!("\"{}\"", hex::encode(Sha256::digest(&bytes)));
+        Download {
+            content_type,
+            filename,
+            bytes,
+            etag,
+        }
+    }
+}
+
+/// A download that may be answered without building it: the client's copy (by its ETag) is
+/// current.
+pub enum Fetched {
+    /// The client already has these bytes; the ETag.
+    Current(String),
+    /// The file.
+    File(Download),
+}
+
+/// Cost maps of revision `n` as NPY float32 (P, h, w), at the frame's size or at `size`
+/// (width, height).
+pub async fn cost_maps(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+    size: Option<(usize, usize)>,
+) -> ServiceResult<Download> {
+    let l = load(state, who, id, n).await?;
+    let (fw, fh) = l.spec().frame_size();
+    let (w, h) = size.unwrap_or((fw as usize, fh as usize));
+    check_map_values(
+        &state.limits,
+        l.model().len(),
+        w,
+        h,
+        size.is_some().then_some("width"),
+    )?;
+    let rev = l.row.revision;
+    let permit = state.heavy_permits.acquire().await?;
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
+    let bytes = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
+        scoring::cost_maps_npy_until(l.model(), w, h, &|| stop.load(Ordering::Relaxed))
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))??;
+    drop(cancel);
+    Ok(Download::hashed(
+        "application/x-npy",
+        format!("goal-{id}-r{rev}-cost-maps-{w}x{h}.npy"),
+        bytes,
+    ))
+}
+
+/// The frame of revision `n` with the goal drawn on it, as PNG.
+pub async fn overlay(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+) -> ServiceResult<Download> {
+    let l = load(state, who, id, n).await?;
+    let (_, bytes) = l.frame_image(state).await?;
+    let rev = l.row.revision;
+    let permit = state.heavy_permits.acquire().await?;
+    let png = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
+        scoring::overlay_png(
+            l.spec(),
+            &bytes,
+            scoring::Zones {
+                safe: l.camera.safe_zone.as_deref(),
+                no_go: &l.camera.no_go_zones,
+            },
+        )
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))??;
+    Ok(Download::hashed(
+        "image/png",
+        format!("goal-{id}-r{rev}-overlay.png"),
+        png,
+    ))
+}
+
+/// The reproducible bundle of revision `n` (the same bytes for the same revision), or
+/// [`Fetched::Current`] when `is_current` says the client holds its ETag.
+pub async fn bundle(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+    is_current: impl Fn(&str) -> bool,
+) -> ServiceResult<Fetched> {
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    let etag = bundle_etag("goal", &row.document);
+    if is_current(&etag) {
+        return Ok(Fetched::Current(etag));
+    }
+    let l = load_row(state, who, row).await?;
+    l.check_full_size_maps(&state.limits)?;
+    let (content_type, frame) = l.frame_image(state).await?;
+    let rev = l.row.revision;
+    let permit = state.heavy_permits.acquire().await?;
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
+    let zip = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
+        let maps = l.full_size_maps(&stop)?;
+        scoring::bundle_zip(&l.bundle_parts(&content_type, &frame, &maps))
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))??;
+    drop(cancel);
+    Ok(Fetched::File(Download {
+        content_type: "application/zip",
+        filename: format!("goal-{id}-r{rev}.zip"),
+        bytes: zip,
+        etag,
+    }))
+}
+
+/// Scores an NPY body as it arrives (from any [`ChunkSource`]): probability maps block by block, points (small) buffered.
+pub async fn score_npy<B: ChunkSource>(
+    state: &AppState,
+    checked: Checked,
+    content_type: String,
+    declared: Option<usize>,
+    body: &mut B,
+) -> ServiceResult<goalsmith_core::cost::CostResult> {
+    let max = state.limits.cost_body_bytes;
+    // The NPY header first: it says whether these are maps, which are scored as they arrive.
+    let mut head = Vec::new();
+    let header = loop {
+        match npy::parse_header_prefix(&head, max) {
+            Ok(h) => break h,
+            Err(npy::NpyError::TruncatedHeader { .. }) => {}
+            Err(e) => return Err(ScoreError::from_npy(e).into()),
+        }
+        match body.next_chunk().await? {
+            Some(chunk) => head.extend_from_slice(&chunk),
+            None => {
+                // The whole body was shorter than its header: let the buffered path say why.
+                return score_buffered(checked, content_type, head, max).await;
+            }
+        }
+    };
+    let total = header.data_offset + header.data_len;
+    if let Some(d) = declared
+        && d != total
+    {
+        return Err(ScoreError::from_npy(npy::NpyError::DataLength {
+            expected: header.data_len,
+            got: d.saturating_sub(header.data_offset),
+        })
+        .into());
+    }
+    let p = checked.1.len();
+    let maps = match header.shape.as_slice() {
+        [n, t, pp, h, w] if *pp == p && header.dtype != npy::Dtype::F64 => Some((*n, *t, *h, *w)),
+        _ => None,
+    };
+    let Some((n, t, h, w)) = maps else {
+        // Only points are buffered, and only up to their own limit: anything else would be
+        // refused after buffering anyway, so it is refused from its header alone.
+        match header.shape.as_slice() {
+            [n, t, pp, 2] if *pp == p => {
+                let points = n.saturating_mul(*t).saturating_mul(p);
+                let limit = state.limits.max_npy_points;
+                if points > limit {
+                    return Err(ServiceError::TooLarge(format!(
+                        "NPY points of shape ({n}, {t}, {p}, 2) are {points} points, over the \
+                         limit of {limit} points (N · T · P) per request; send smaller batches"
+                    )));
+                }
+            }
+            [_, _, pp, _, _] if *pp == p => {
+                return Err(ServiceError::invalid_body(
+                    "bad_npy",
+                    "probability maps must be float32 or float16, not float64",
+                ));
+            }
+            other => {
+                return Err(ServiceError::invalid_body(
+                    "bad_shape",
+                    format!(
+                        "this goal has P = {p} source points: send maps of shape (N, T, {p}, h, \
+                         w) or points of shape (N, T, {p}, 2), not {other:?}"
+                    ),
+                ));
+            }
+        }
+        // Points are small: buffer them and use the one full check.
+        while let Some(chunk) = body.next_chunk().await? {
+            if head.len() + chunk.len() > total {
+                return Err(ScoreError::from_npy(npy::NpyError::DataLength {
+                    expected: header.data_len,
+                    got: head.len() + chunk.len() - header.data_offset,
+                })
+                .into());
+            }
+            head.extend_from_slice(&chunk);
+        }
+        return score_buffered(checked, content_type, head, max).await;
+    };
+    check_map_values(&state.limits, p, w, h, None)?;
+    let prepared = prepared_maps(state, &checked, w, h).await?;
+    let scorer = scoring::MapScorer::new(prepared, header.dtype, n, t)?;
+    let block_bytes = scorer.block_candidates() * scorer.candidate_bytes();
+    // Blocks go to one blocking worker through a channel of two: the upload goes on while a
+    // block is scored, and at most three blocks are held at once.
+    let (tx, mut rx) = tokio::sync::mpsc::channel::<Vec<u8>>(2);
+    let worker = tokio::task::spawn_blocking(move || {
+        let mut scorer = scorer;
+        while let Some(block) = rx.blocking_recv() {
+            scorer.block(&block)?;
+        }
+        Ok::<_, ScoreError>(scorer)
+    });
+    let mut block = Vec::with_capacity(block_bytes.min(header.data_len));
+    block.extend_from_slice(&head[header.data_offset..]);
+    let mut received = head.len() - header.data_offset;
+    drop(head);
+    let mut sent_all = true;
+    'read: loop {
+        while block.len() >= block_bytes {
+            let rest = block.split_off(block_bytes);
+            if tx.send(std::mem::replace(&mut block, rest)).await.is_err() {
+                sent_all = false; // the worker stopped on an error; it says which below
+                break 'read;
+            }
+            block.reserve(block_bytes.saturating_sub(block.len()));
+        }
+        match body.next_chunk().await {
+            Ok(Some(chunk)) => {
+                received += chunk.len();
+                if received > header.data_len {
+                    break 'read;
+                }
+                block.extend_from_slice(&chunk);
+            }
+            Ok(None) => break 'read,
+            Err(e) => {
+                drop(tx);
+                let _ = worker.await;
+                return Err(e);
+            }
+        }
+    }
+    if sent_all && received == header.data_len && !block.is_empty() && tx.send(block).await.is_err()
+    {
+        sent_all = false;
+    }
+    drop(tx);
+    let scorer = worker
+        .await
+        .map_err(|e| ServiceError::Internal(e.to_string()))??;
+    if sent_all && received != header.data_len {
+        return Err(ScoreError::from_npy(npy::NpyError::DataLength {
+            expected: header.data_len,
+            got: received,
+        })
+        .into());
+    }
+    Ok(scorer.finish()?)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A checked 2-term goal on a 64×48 frame; `mask` adds a fully painted mask term.
+    fn checked(mask: bool) -> Checked {
+        let mut terms = vec![serde_json::json!({
+            "kind": "point", "source": [1.0, 1.0], "target": [5.0, 5.0]
+        })];
+        if mask {
+            let png = crate::images::encode_mask(64, 48, &vec![true; 64 * 48]).expect("png");
+            use base64::Engine;
+            terms.push(serde_json::json!({
+                "kind": "mask", "source": [2.0, 2.0],
+                "mask_png_base64": base64::engine::general_purpose::STANDARD.encode(png)
+            }));
+        }
+        let doc = serde_json::json!({"name": "g", "frame_id": "f", "terms": terms});
+        let spec = scoring::spec_from_revision(&doc, 64, 48).expect("spec");
+        let model = scoring::model(&spec).expect("model");
+        std::sync::Arc::new((spec, model))
+    }
+
+    #[test]
+    fn the_model_cache_stays_within_its_byte_budget_least_recently_used_out() {
+        let one = checked_bytes(&checked(false));
+        let cache = ModelCache::with_budget(3 * one);
+        for r in 0..20 {
+            cache.put(("g".into(), r), checked(false));
+            assert!(cache.bytes() <= 3 * one, "{} > {}", cache.bytes(), 3 * one);
+        }
+        assert_eq!(cache.bytes(), 3 * one, "full, not emptied");
+        // The three most recent are kept; using the oldest of them keeps it past the next put.
+        assert!(cache.get(&("g".into(), 16)).is_none());
+        assert!(cache.get(&("g".into(), 17)).is_some());
+        cache.put(("g".into(), 20), checked(false));
+        assert!(
+            cache.get(&("g".into(), 17)).is_some(),
+            "recently used stays"
+        );
+        assert!(
+            cache.get(&("g".into(), 18)).is_none(),
+            "least recently used went"
+        );
+        // A model with a mask index is counted by its bytes: larger than this budget, it is not
+        // kept, and nothing else is evicted for it.
+        let big = checked(true);
+        assert!(checked_bytes(&big) > 3 * one, "a mask index is W·H·8 bytes");
+        cache.put(("g".into(), 99), big);
+        assert!(cache.get(&("g".into(), 99)).is_none());
+        assert_eq!(cache.bytes(), 3 * one);
+    }
+}
