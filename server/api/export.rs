@@ -114,24 +114,35 @@ pub async fn cost(
         ));
         return Err(refuse(req, e).await);
     }
-    let checked = match export::checked_model(&state, &who, &id, &n).await {
-        Ok(c) => c,
-        Err(e) => return Err(refuse(req, e).await),
-    };
     let max = state.limits.cost_body_bytes;
     if content_type == "application/json" {
+        // The body first (it is small and bounded), then the model: no permit is held while a
+        // client uploads, and a model built here keeps the permit it was built under for the
+        // scoring, so it never waits in the queue holding a model.
         let body = read_json_cost_body(req, state.limits.cost_json_bytes).await?;
-        let _permit = state.heavy_permits.acquire().await?;
+        let (checked, permit) = export::checked_model(&state, &who, &id, &n).await?;
+        let _permit = match permit {
+            Some(p) => p,
+            None => state.heavy_permits.acquire().await?,
+        };
         let result = export::score_buffered(checked, content_type, body, max).await?;
         return Ok(Json(scoring::cost_response(&result)));
     }
+    let (checked, permit) = match export::checked_model(&state, &who, &id, &n).await {
+        Ok(c) => c,
+        Err(e) => return Err(refuse(req, e).await),
+    };
     let declared = req
         .headers()
         .get(header::CONTENT_LENGTH)
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<usize>().ok());
     let mut body = req.into_body();
-    let result = match state.heavy_permits.acquire().await {
+    let permit = match permit {
+        Some(p) => Ok(p),
+        None => state.heavy_permits.acquire().await,
+    };
+    let result = match permit {
         Ok(_permit) => {
             export::score_npy(
                 &state,

@@ -47,26 +47,55 @@ impl From<ScoreError> for ServiceError {
 /// holds about 9 bytes per frame pixel per mask (the mask and its column index), so a count of
 /// entries says nothing about memory.
 pub struct ModelCache {
-    entries: std::sync::Mutex<ModelEntries>,
+    models: std::sync::Mutex<ByteLru<(String, i64), Checked>>,
     /// Prepared maps by (model identity, w, h), each holding its model alive so the identity
     /// cannot be reused by another model while the entry exists; bounded in bytes.
-    prepared: std::sync::Mutex<PreparedCache>,
+    prepared: std::sync::Mutex<ByteLru<(usize, usize, usize), PreparedEntry>>,
 }
 
-/// Least recently used first out: each entry records the tick of its last use.
-#[derive(Default)]
-struct ModelEntries {
-    map: std::collections::HashMap<(String, i64), (Checked, usize, u64)>,
+/// Prepared maps and the model they were made from (held so its identity stays unique).
+type PreparedEntry = (std::sync::Arc<PreparedMaps>, Checked);
+
+/// A least-recently-used cache bounded by the bytes its entries are said to hold (the `lru`
+/// crate keeps the order; this keeps the count of bytes).
+struct ByteLru<K: std::hash::Hash + Eq, V> {
+    entries: lru::LruCache<K, (V, usize)>,
     bytes: usize,
-    tick: u64,
     budget: usize,
 }
 
-#[derive(Default)]
-struct PreparedCache {
-    entries:
-        std::collections::HashMap<(usize, usize, usize), (std::sync::Arc<PreparedMaps>, Checked)>,
-    bytes: usize,
+impl<K: std::hash::Hash + Eq, V: Clone> ByteLru<K, V> {
+    fn new(budget: usize) -> Self {
+        Self {
+            entries: lru::LruCache::unbounded(),
+            bytes: 0,
+            budget,
+        }
+    }
+
+    /// The entry, now the most recently used.
+    fn get(&mut self, key: &K) -> Option<V> {
+        self.entries.get(key).map(|(v, _)| v.clone())
+    }
+
+    /// Keeps `value` (of `size` bytes), dropping the least recently used entries until it fits.
+    /// A value larger than the whole budget is not kept: it would evict everything else.
+    fn put(&mut self, key: K, value: V, size: usize) {
+        if size > self.budget {
+            return;
+        }
+        if let Some((_, old)) = self.entries.pop(&key) {
+            self.bytes -= old;
+        }
+        while self.bytes + size > self.budget {
+            let Some((_, (_, b))) = self.entries.pop_lru() else {
+                break;
+            };
+            self.bytes -= b;
+        }
+        self.entries.put(key, (value, size));
+        self.bytes += size;
+    }
 }
 
 /// A checked goal with its cost model, shared between the cache and requests.
@@ -88,21 +117,19 @@ impl ModelCache {
     /// A cache holding at most `budget` bytes of models (by [`checked_bytes`]).
     pub fn with_budget(budget: usize) -> Self {
         Self {
-            entries: std::sync::Mutex::new(ModelEntries {
-                budget,
-                ..ModelEntries::default()
-            }),
-            prepared: std::sync::Mutex::default(),
+            models: std::sync::Mutex::new(ByteLru::new(budget)),
+            // Large prepared maps are rare; keeping one would crowd out the common sizes.
+            prepared: std::sync::Mutex::new(ByteLru::new(PREPARED_CACHE_BYTES)),
         }
     }
 
     /// Bytes of models held now (read-only, for tests and logs).
     pub fn bytes(&self) -> usize {
-        self.entries.lock().map_or(0, |e| e.bytes)
+        self.models.lock().map_or(0, |e| e.bytes)
     }
 
     fn prepared(&self, key: &(usize, usize, usize)) -> Option<std::sync::Arc<PreparedMaps>> {
-        Some(self.prepared.lock().ok()?.entries.get(key)?.0.clone())
+        Some(self.prepared.lock().ok()?.get(key)?.0)
     }
 
     fn put_prepared(
@@ -115,61 +142,20 @@ impl ModelCache {
         if size > PREPARED_CACHE_BYTES / 4 {
             return; // large maps are rare; keeping them would crowd out the common sizes
         }
-        let Ok(mut c) = self.prepared.lock() else {
-            return;
-        };
-        while c.bytes + size > PREPARED_CACHE_BYTES {
-            let Some(k) = c.entries.keys().next().copied() else {
-                break;
-            };
-            if let Some((m, _)) = c.entries.remove(&k) {
-                c.bytes -= m.points() * m.width() * m.height() * 4;
-            }
-        }
-        if c.entries.insert(key, (maps, model)).is_none() {
-            c.bytes += size;
+        if let Ok(mut c) = self.prepared.lock() {
+            c.put(key, (maps, model), size);
         }
     }
 
     fn get(&self, key: &(String, i64)) -> Option<Checked> {
-        let mut e = self.entries.lock().ok()?;
-        e.tick += 1;
-        let tick = e.tick;
-        let entry = e.map.get_mut(key)?;
-        entry.2 = tick;
-        Some(entry.0.clone())
+        self.models.lock().ok()?.get(key)
     }
 
     fn put(&self, key: (String, i64), value: Checked) {
         let size = checked_bytes(&value);
-        let Ok(mut e) = self.entries.lock() else {
-            return;
-        };
-        if size > e.budget {
-            return; // used by the request that built it, but not kept: it would evict all else
+        if let Ok(mut e) = self.models.lock() {
+            e.put(key, value, size);
         }
-        if let Some((_, old, _)) = e.map.remove(&key) {
-            e.bytes -= old;
-        }
-        while e.bytes + size > e.budget {
-            // A linear scan for the oldest: the cache holds tens of entries, not thousands, and
-            // an eviction follows a model build that costs far more.
-            let Some(oldest) = e
-                .map
-                .iter()
-                .min_by_key(|(_, (_, _, t))| *t)
-                .map(|(k, _)| k.clone())
-            else {
-                break;
-            };
-            if let Some((_, b, _)) = e.map.remove(&oldest) {
-                e.bytes -= b;
-            }
-        }
-        e.tick += 1;
-        let tick = e.tick;
-        e.bytes += size;
-        e.map.insert(key, (value, size, tick));
     }
 }
 
@@ -187,9 +173,23 @@ pub struct Loaded {
     pub camera: CameraDoc,
     /// The camera as served.
     pub camera_json: Value,
+    /// The heavy-work permit the model was built under, kept for the work that follows.
+    pub permit: Option<Permit>,
 }
 
+/// A heavy-work permit (see [`super::heavy`]).
+pub type Permit = tokio::sync::OwnedSemaphorePermit;
+
 impl Loaded {
+    /// The permit for this request's heavy work: the one the model was built under, or a new
+    /// one when the model came from the cache.
+    pub async fn work_permit(&mut self, state: &AppState) -> ServiceResult<Permit> {
+        match self.permit.take() {
+            Some(p) => Ok(p),
+            None => state.heavy_permits.acquire().await,
+        }
+    }
+
     /// The stored frame image: (content type, bytes).
     pub async fn frame_image(&self, state: &AppState) -> ServiceResult<(String, Vec<u8>)> {
         store::frames::image_bytes(&state.store, &self.frame.sha256)
@@ -295,22 +295,27 @@ pub async fn load_row(
     let doc: Value = serde_json::from_str(&row.document)
         .map_err(|e| ServiceError::Internal(format!("revision unreadable: {e}")))?;
     let key = (row.goal_id.clone(), row.revision);
-    let checked = match state.models.get(&key) {
-        Some(c) => c,
+    let (checked, permit) = match state.models.get(&key) {
+        Some(c) => (c, None),
         None => {
             let (w, h) = (camera.width, camera.height);
             let doc2 = doc.clone();
             let permit = state.heavy_permits.acquire().await?;
-            let built = tokio::task::spawn_blocking(move || {
-                let _permit = permit;
-                let spec = scoring::spec_from_revision(&doc2, w, h)?;
-                let model = scoring::model(&spec)?;
-                Ok::<_, ScoreError>(std::sync::Arc::new((spec, model)))
+            // The permit comes back with the model: a model too large for the cache is held by
+            // this request alone, and it must not wait in the queue for a second permit while
+            // holding it (the memory envelope counts one model per permit).
+            let (built, permit) = tokio::task::spawn_blocking(move || {
+                let built = scoring::spec_from_revision(&doc2, w, h).and_then(|spec| {
+                    let model = scoring::model(&spec)?;
+                    Ok(std::sync::Arc::new((spec, model)))
+                });
+                (built, permit)
             })
             .await
-            .map_err(|e| ServiceError::Internal(e.to_string()))??;
+            .map_err(|e| ServiceError::Internal(e.to_string()))?;
+            let built = built?;
             state.models.put(key, built.clone());
-            built
+            (built, Some(permit))
         }
     };
     Ok(Loaded {
@@ -320,6 +325,7 @@ pub async fn load_row(
         frame,
         camera,
         camera_json,
+        permit,
     })
 }
 
@@ -353,17 +359,19 @@ pub async fn score_buffered(
 
 /// The checked goal and cost model of revision `n`: one query to find (and authorise) the
 /// revision, then the cache; the frame and camera are read only when the model must be built.
+/// When it was built, the permit it was built under comes with it (see [`Loaded::permit`]).
 pub async fn checked_model(
     state: &AppState,
     who: &Principal,
     id: &str,
     n: &str,
-) -> ServiceResult<Checked> {
+) -> ServiceResult<(Checked, Option<Permit>)> {
     let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
     if let Some(c) = state.models.get(&(row.goal_id.clone(), row.revision)) {
-        return Ok(c);
+        return Ok((c, None));
     }
-    Ok(load_row(state, who, row).await?.checked)
+    let l = load_row(state, who, row).await?;
+    Ok((l.checked, l.permit))
 }
 
 /// Largest prepared map set kept in the cache (P·h·w float32 values and weights).
@@ -457,7 +465,7 @@ pub async fn cost_maps(
     n: &str,
     size: Option<(usize, usize)>,
 ) -> ServiceResult<Download> {
-    let l = load(state, who, id, n).await?;
+    let mut l = load(state, who, id, n).await?;
     let (fw, fh) = l.spec().frame_size();
     let (w, h) = size.unwrap_or((fw as usize, fh as usize));
     check_map_values(
@@ -468,7 +476,7 @@ pub async fn cost_maps(
         size.is_some().then_some("width"),
     )?;
     let rev = l.row.revision;
-    let permit = state.heavy_permits.acquire().await?;
+    let permit = l.work_permit(state).await?;
     let cancel = Cancel::new();
     let stop = cancel.flag();
     let bytes = tokio::task::spawn_blocking(move || {
@@ -492,10 +500,10 @@ pub async fn overlay(
     id: &str,
     n: &str,
 ) -> ServiceResult<Download> {
-    let l = load(state, who, id, n).await?;
+    let mut l = load(state, who, id, n).await?;
     let (_, bytes) = l.frame_image(state).await?;
     let rev = l.row.revision;
-    let permit = state.heavy_permits.acquire().await?;
+    let permit = l.work_permit(state).await?;
     let png = tokio::task::spawn_blocking(move || {
         let _permit = permit;
         scoring::overlay_png(
@@ -530,11 +538,11 @@ pub async fn bundle(
     if is_current(&etag) {
         return Ok(Fetched::Current(etag));
     }
-    let l = load_row(state, who, row).await?;
+    let mut l = load_row(state, who, row).await?;
     l.check_full_size_maps(&state.limits)?;
     let (content_type, frame) = l.frame_image(state).await?;
     let rev = l.row.revision;
-    let permit = state.heavy_permits.acquire().await?;
+    let permit = l.work_permit(state).await?;
     let cancel = Cancel::new();
     let stop = cancel.flag();
     let zip = tokio::task::spawn_blocking(move || {

@@ -246,7 +246,10 @@ pub async fn bundle(
     // heavy request.
     let mut values = 0usize;
     for item in &doc.items {
-        let l = export::load(state, who, &item.goal_id, &item.revision.to_string()).await?;
+        let mut l = export::load(state, who, &item.goal_id, &item.revision.to_string()).await?;
+        // One permit for the whole set below: an item's build permit is given back at once, or
+        // a set of more items than permits would wait for itself.
+        l.permit = None;
         l.check_full_size_maps(&state.limits)?;
         let (w, h) = l.spec().frame_size();
         values = values.saturating_add(l.model().len() * w as usize * h as usize);

@@ -11,7 +11,6 @@ use goalsmith_core::canonical;
 use goalsmith_core::geometry::Polygon;
 use goalsmith_core::goal::{
     CheckContext, CostDocument, GoalDocument, GoalSpec, Term, TermDocument, check_zone,
-    polygon_centroid,
 };
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
@@ -91,26 +90,14 @@ fn target_pixels(term: &Term) -> Vec<(String, [f64; 2])> {
             .enumerate()
             .map(|(k, t)| (format!("targets[{k}]"), t.to_array()))
             .collect(),
-        Term::Region { polygon, .. } => polygon_centroid(polygon)
+        Term::Region { polygon, .. } => polygon
+            .centroid()
             .map(|c| vec![("centroid".to_string(), c)])
             .unwrap_or_default(),
-        Term::Mask { mask, .. } => {
-            let (mut sx, mut sy, mut n) = (0.0, 0.0, 0.0);
-            for j in 0..mask.height() {
-                for i in 0..mask.width() {
-                    if mask.is_inside(i, j) {
-                        sx += i as f64;
-                        sy += j as f64;
-                        n += 1.0;
-                    }
-                }
-            }
-            if n > 0.0 {
-                vec![("centroid".into(), [sx / n, sy / n])]
-            } else {
-                vec![]
-            }
-        }
+        Term::Mask { mask, .. } => mask
+            .centroid()
+            .map(|c| vec![("centroid".to_string(), c)])
+            .unwrap_or_default(),
         Term::Learned { .. } => vec![],
     }
 }

@@ -51,6 +51,22 @@ impl Mask {
             inside,
         })
     }
+    /// The mean of the painted pixel centres; `None` when nothing is painted.
+    pub fn centroid(&self) -> Option<[f64; 2]> {
+        let (mut sx, mut sy, mut n) = (0.0, 0.0, 0.0);
+        for (k, _) in self
+            .inside
+            .iter()
+            .enumerate()
+            .filter(|(_, inside)| **inside)
+        {
+            sx += (k % self.width) as f64;
+            sy += (k / self.width) as f64;
+            n += 1.0;
+        }
+        (n > 0.0).then(|| [sx / n, sy / n])
+    }
+
     /// Width in pixels.
     pub fn width(&self) -> usize {
         self.width
@@ -746,6 +762,20 @@ mod tests {
     use super::*;
     use proptest::prelude::*;
     use serde_json::Value;
+
+    /// The centroid is the mean of the painted pixel centres (x = i, y = j), none when empty.
+    #[test]
+    fn mask_centroid_is_the_mean_of_painted_centres() {
+        let mut inside = vec![false; 5 * 4];
+        inside[4 + 5] = true; // (4, 1)
+        inside[3 * 5] = true; // (0, 3)
+        let m = Mask::new(5, 4, inside).expect("mask");
+        assert_eq!(m.centroid(), Some([2.0, 2.0]));
+        assert_eq!(
+            Mask::new(2, 2, vec![false; 4]).expect("mask").centroid(),
+            None
+        );
+    }
 
     /// The obvious O(N·M) reference: nearest painted pixel centre by exhaustive search.
     fn brute(mask: &Mask, x: f64, y: f64) -> f64 {

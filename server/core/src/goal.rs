@@ -359,23 +359,6 @@ impl CheckedTerm {
     }
 }
 
-/// The area centroid of a simple polygon (shoelace formula); `None` for zero area.
-pub fn polygon_centroid(polygon: &Polygon) -> Option<[f64; 2]> {
-    let v = polygon.vertices();
-    let (mut a, mut cx, mut cy) = (0.0, 0.0, 0.0);
-    for k in 0..v.len() {
-        let (p, q) = (v[k], v[(k + 1) % v.len()]);
-        let cross = p.x() * q.y() - q.x() * p.y();
-        a += cross;
-        cx += (p.x() + q.x()) * cross;
-        cy += (p.y() + q.y()) * cross;
-    }
-    if a.abs() < f64::EPSILON {
-        return None;
-    }
-    Some([cx / (3.0 * a), cy / (3.0 * a)])
-}
-
 /// A goal that satisfies every rule of the contract for its frame and camera.
 #[derive(Debug, Clone)]
 pub struct GoalSpec {
