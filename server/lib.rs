@@ -14,6 +14,7 @@ pub mod pages;
 pub mod scoring;
 pub mod security;
 pub mod store;
+pub mod strict_json;
 
 /// The caution carried by the README, every export and the editor.
 pub const SAFETY_CAUTION: &str = "Goals move real robots. Check every new goal in simulation or at \
