@@ -13,6 +13,7 @@ mod limits;
 mod openapi;
 mod pages;
 mod probe;
+mod resources;
 mod restart;
 mod review;
 mod routes;
