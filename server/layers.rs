@@ -12,53 +12,26 @@ mod tests {
     use std::path::Path;
 
     /// What each part of the crate may name, by the first segment after `crate::`.
-    fn allowed(part: &str) -> &'static [&'static str] {
+    fn allowed(part: &str) -> Vec<&'static str> {
+        // The modules below the service: what any layer above them may use.
         const BELOW: &[&str] = &[
-            "store",
             "scoring",
             "images",
             "config",
             "security",
             "cookies",
+            "strict_json",
             "SAFETY_CAUTION",
         ];
+        let above = |own: &[&'static str]| [own, &["store"], BELOW].concat();
         match part {
-            "api" => &[
-                "api",
-                "service",
-                "store",
-                "scoring",
-                "images",
-                "config",
-                "security",
-                "cookies",
-                "SAFETY_CAUTION",
-            ],
-            "pages" => &[
-                "pages",
-                "service",
-                "store",
-                "scoring",
-                "images",
-                "config",
-                "security",
-                "cookies",
-                "SAFETY_CAUTION",
-            ],
-            "service" => &[
-                "service",
-                "store",
-                "scoring",
-                "images",
-                "config",
-                "security",
-                "cookies",
-                "SAFETY_CAUTION",
-            ],
-            "store" => &["store"],
-            "scoring" | "images" | "config" | "cookies" => BELOW,
-            "security" => &["security", "config", "SAFETY_CAUTION"],
-            _ => &[],
+            "api" => above(&["api", "service"]),
+            "pages" => above(&["pages", "service"]),
+            "service" => above(&["service"]),
+            "store" => vec!["store"],
+            "scoring" | "images" | "config" | "cookies" | "strict_json" => BELOW.to_vec(),
+            "security" => vec!["security", "config", "SAFETY_CAUTION"],
+            _ => Vec::new(),
         }
     }
 

@@ -18,6 +18,7 @@ pub mod scoring;
 pub mod security;
 pub mod service;
 pub mod store;
+pub mod strict_json;
 
 /// The caution carried by the README, every export and the editor.
 pub const SAFETY_CAUTION: &str = "Goals move real robots. Check every new goal in simulation or at \

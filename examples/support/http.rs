@@ -17,7 +17,46 @@ pub fn request(
     headers: &[(&str, &str)],
     body: &[u8],
 ) -> Result<(u16, Vec<u8>), Error> {
-    let mut s = TcpStream::connect(addr)?;
+    request_with_timeout(addr, method, path, headers, body, None)
+}
+
+/// [`request`] with a bound on connecting and on each read and write of the socket (`None`:
+/// wait as long as it takes).
+///
+/// A server may answer before it has read the whole body (a 413 from `Content-Length`) and
+/// close: as curl does, a failed write is not the end, the answer is still read, and only when
+/// there is none (a reset, a timeout) is the write's failure returned.
+pub fn request_with_timeout(
+    addr: &str,
+    method: &str,
+    path: &str,
+    headers: &[(&str, &str)],
+    body: &[u8],
+    timeout: Option<std::time::Duration>,
+) -> Result<(u16, Vec<u8>), Error> {
+    let mut s = match timeout {
+        Some(t) => {
+            let mut last = None;
+            let mut found = None;
+            for a in std::net::ToSocketAddrs::to_socket_addrs(addr)? {
+                match TcpStream::connect_timeout(&a, t) {
+                    Ok(s) => {
+                        found = Some(s);
+                        break;
+                    }
+                    Err(e) => last = Some(e),
+                }
+            }
+            match (found, last) {
+                (Some(s), _) => s,
+                (None, Some(e)) => return Err(e.into()),
+                (None, None) => return Err(format!("{addr} resolves to nothing").into()),
+            }
+        }
+        None => TcpStream::connect(addr)?,
+    };
+    s.set_read_timeout(timeout)?;
+    s.set_write_timeout(timeout)?;
     s.set_nodelay(true)?;
     let mut head = format!(
         "{method} {path} HTTP/1.1\r\nHost: {addr}\r\nConnection: close\r\nContent-Length: {}\r\n",
@@ -27,11 +66,22 @@ pub fn request(
         head.push_str(&format!("{k}: {v}\r\n"));
     }
     head.push_str("\r\n");
-    s.write_all(head.as_bytes())?;
-    s.write_all(body)?;
+    let sent = s
+        .write_all(head.as_bytes())
+        .and_then(|()| s.write_all(body));
     let mut r = BufReader::new(s);
     let mut status_line = String::new();
-    r.read_line(&mut status_line)?;
+    if let Err(read) = r.read_line(&mut status_line) {
+        return Err(match sent {
+            Err(write) => format!("sending: {write}; then no answer: {read}").into(),
+            Ok(()) => read.into(),
+        });
+    }
+    if status_line.is_empty()
+        && let Err(write) = sent
+    {
+        return Err(format!("sending: {write}; then the connection closed unanswered").into());
+    }
     let status: u16 = status_line
         .split_whitespace()
         .nth(1)

@@ -68,8 +68,9 @@ where
 
 /// Parses JSON with the path of the failing field in the error.
 ///
-/// Strict: the body must be one JSON object (serde would also take an array for a struct, by
-/// position) with nothing after it but whitespace.
+/// Strict: the body must be one JSON object with nothing after it but whitespace, and an array
+/// is refused wherever a struct is expected, at any depth (serde would take it by position; see
+/// [`crate::strict_json`]).
 pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ServiceError> {
     if bytes.iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'{') {
         return Err(ServiceError::invalid_body(
@@ -77,31 +78,28 @@ pub fn parse_json<T: DeserializeOwned>(bytes: &[u8]) -> Result<T, ServiceError> 
             "the body must be one JSON object {…}",
         ));
     }
-    let de = &mut serde_json::Deserializer::from_slice(bytes);
-    let value: T = serde_path_to_error::deserialize(&mut *de).map_err(|e| {
-        let path = e.path().to_string();
-        let inner = e.into_inner();
-        let message = match inner.classify() {
-            serde_json::error::Category::Syntax | serde_json::error::Category::Eof => {
-                format!("the body is not valid JSON: {inner}")
+    crate::strict_json::from_slice(bytes).map_err(|e| {
+        use serde_json::error::Category;
+        if e.is_trailing() {
+            return ServiceError::invalid_body(
+                "bad_json",
+                format!("the body holds more after its JSON object: {}", e.inner()),
+            );
+        }
+        let message = match e.classify() {
+            Category::Syntax | Category::Eof => {
+                format!("the body is not valid JSON: {}", e.inner())
             }
-            _ => format!("{inner}"),
+            // Names the path too: "terms[0]: expected an object, got an array at …".
+            _ => e.to_string(),
         };
-        let code = match inner.classify() {
-            serde_json::error::Category::Data => "bad_field",
+        let code = match e.classify() {
+            Category::Data => "bad_field",
             _ => "bad_json",
         };
-        if path == "." || path.is_empty() {
-            ServiceError::invalid_body(code, message)
-        } else {
-            ServiceError::invalid(code, path, message)
+        match e.path() {
+            Some(path) => ServiceError::invalid(code, path, message),
+            None => ServiceError::invalid_body(code, message),
         }
-    })?;
-    de.end().map_err(|e| {
-        ServiceError::invalid_body(
-            "bad_json",
-            format!("the body holds more after its JSON object: {e}"),
-        )
-    })?;
-    Ok(value)
+    })
 }

@@ -170,12 +170,12 @@ impl CameraDoc {
 fn parse_intrinsics(v: Value, width: u32, height: u32) -> ServiceResult<IntrinsicsDoc> {
     let direct = v.get("fx").is_some();
     let intr = if direct {
-        let d: IntrinsicsDoc = serde_json::from_value(v)
+        let d: IntrinsicsDoc = crate::strict_json::from_value(v)
             .map_err(|e| ServiceError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?;
         Intrinsics::new(d.fx, d.fy, d.cx, d.cy, d.distortion)
             .map_err(|e| ServiceError::invalid("bad_intrinsics", "intrinsics", e.to_string()))?
     } else {
-        let ros: CameraInfoInput = serde_json::from_value(v).map_err(|e| {
+        let ros: CameraInfoInput = crate::strict_json::from_value(v).map_err(|e| {
             ServiceError::invalid(
                 "bad_intrinsics",
                 "intrinsics",

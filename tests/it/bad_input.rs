@@ -540,3 +540,220 @@ async fn raw_upload(
     .await
     .unwrap()
 }
+
+/// A 422 with the contract's error body for an array sent where an object belongs: code
+/// `bad_field`, the field the path of the array, and a message naming that path.
+fn assert_array_refused(what: &str, st: StatusCode, err: &Value, field: &str) {
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{what}: {err}");
+    let Some(error) = err["error"].as_object() else {
+        panic!("{what}: no error object in {err}");
+    };
+    let mut keys: Vec<&str> = error.keys().map(String::as_str).collect();
+    keys.sort_unstable();
+    assert_eq!(keys, ["code", "field", "message"], "{what}: {err}");
+    assert_eq!(error["code"], "bad_field", "{what}: {err}");
+    assert_eq!(error["field"], field, "{what}: {err}");
+    let message = error["message"].as_str().unwrap_or("");
+    assert!(
+        message.starts_with(&format!("{field}: expected an object, got an array")),
+        "{what}: {err}"
+    );
+}
+
+/// serde takes a JSON array for a struct, field by field; the contract says objects. Every
+/// body below would be accepted by position without `strict_json`.
+async fn arrays_for_objects(s: Server) {
+    let (editor, cam, frame) = camera_and_frame(&s, "positional", json!({})).await;
+    let (st, rev) = s
+        .post("/api/goals", Some(&editor), &point_goal(&frame, "pot"))
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{rev}");
+    let goal = rev["goal_id"].as_str().unwrap().to_string();
+    let etag_1 = {
+        let resp = s
+            .client
+            .get(s.url(&format!("/api/goals/{goal}")))
+            .bearer_auth(&editor)
+            .send()
+            .await
+            .unwrap();
+        etag(&resp).unwrap()
+    };
+
+    // Goals: a term (internally tagged, `kind` first by position) and the cost settings.
+    let goals: Vec<(&str, Value, &str)> = vec![
+        (
+            "term as an array",
+            json!({"name": "x", "frame_id": frame, "terms": [["point", null, [1.0, 1.0], [2.0, 2.0]]]}),
+            "terms[0]",
+        ),
+        (
+            "second term as an array",
+            json!({"name": "x", "frame_id": frame, "terms": [
+                {"kind": "point", "source": [1.0, 1.0], "target": [2.0, 2.0]},
+                ["region", null, [5.0, 5.0], [[1.0, 1.0], [10.0, 1.0], [10.0, 10.0]]]]}),
+            "terms[1]",
+        ),
+        (
+            "cost as an array",
+            json!({"name": "x", "frame_id": frame,
+                   "terms": [{"kind": "point", "source": [1.0, 1.0], "target": [2.0, 2.0]}],
+                   "cost": ["squared", null, "all", "expected"]}),
+            "cost",
+        ),
+    ];
+    for (what, body, field) in &goals {
+        let (st, err) = s.post("/api/goals", Some(&editor), body).await;
+        assert_array_refused(what, st, &err, field);
+        let (st, err, _) = s.put_goal(&goal, &editor, Some(&etag_1), body).await;
+        assert_array_refused(&format!("PUT, {what}"), st, &err, field);
+    }
+
+    // Cameras: the work plane and the pose are objects.
+    let cameras: Vec<(&str, Value, &str)> = vec![
+        (
+            "work plane as [normal, offset]",
+            json!({"name": "c", "width": 64, "height": 48, "work_plane": [[0.0, 0.0, 1.0], 0.85]}),
+            "work_plane",
+        ),
+        (
+            "pose as [rotation, translation]",
+            json!({"name": "c", "width": 64, "height": 48, "pose_in_base": [
+                [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]], [0.0, 0.0, 0.5]]}),
+            "pose_in_base",
+        ),
+    ];
+    for (what, body, field) in &cameras {
+        let (st, err) = s.post("/api/cameras", Some(&editor), body).await;
+        assert_array_refused(what, st, &err, field);
+    }
+
+    // Goal sets: each pinned item is an object.
+    let (st, err) = s
+        .post(
+            "/api/goal-sets",
+            Some(&editor),
+            &json!({"name": "tidy-up", "items": [{"goal_id": goal, "revision": 1}, [goal, 1]]}),
+        )
+        .await;
+    assert_array_refused("goal-set item as [goal_id, revision]", st, &err, "items[1]");
+
+    // Whole bodies as arrays: the camera as [name, width, height], an outcome as
+    // [final_points, note], a goal set as [name, items]. Refused before any field is read.
+    let outcomes = format!("/api/goals/{goal}/revisions/1/outcomes");
+    for (what, path, body) in [
+        ("camera", "/api/cameras", json!(["c", 640, 480])),
+        (
+            "outcome",
+            outcomes.as_str(),
+            json!([[[41.0, 31.0]], "trial 1"]),
+        ),
+        (
+            "goal set",
+            "/api/goal-sets",
+            json!(["tidy-up", [{"goal_id": goal, "revision": 1}]]),
+        ),
+        ("goal", "/api/goals", json!(["x", frame, []])),
+    ] {
+        let (st, err) = s.post(path, Some(&editor), &body).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{what}: {err}");
+        assert_eq!(err["error"]["code"], "bad_json", "{what}: {err}");
+        assert!(err["error"]["field"].is_null(), "{what}: {err}");
+        assert!(err["error"]["message"].is_string(), "{what}: {err}");
+    }
+
+    // Nothing of it was written: one camera, one goal at revision 1, no outcome, no set.
+    let (_, list) = s.get("/api/cameras", Some(&editor)).await;
+    assert_eq!(list["items"].as_array().map(Vec::len), Some(1), "{list}");
+    assert_eq!(list["items"][0]["id"], cam.as_str());
+    let (_, list) = s.get("/api/goals", Some(&editor)).await;
+    assert_eq!(list["items"].as_array().map(Vec::len), Some(1), "{list}");
+    let (_, latest) = s.get(&format!("/api/goals/{goal}"), Some(&editor)).await;
+    assert_eq!(latest["revision"], 1, "{latest}");
+    let (_, o) = s
+        .get(&format!("/api/goals/{goal}/outcomes"), Some(&editor))
+        .await;
+    assert_eq!(o["summary"]["trials"], 0, "{o}");
+    let (_, sets) = s.get("/api/goal-sets", Some(&editor)).await;
+    assert_eq!(sets["items"].as_array().map(Vec::len), Some(0), "{sets}");
+
+    // The same bodies as objects are taken: the refusal is about the shape, not the values.
+    let (st, c) = s
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &json!({"name": "c", "width": 64, "height": 48,
+                    "work_plane": {"normal": [0.0, 0.0, 1.0], "offset_m": 0.85},
+                    "pose_in_base": {"rotation": [[1.0, 0.0, 0.0], [0.0, 1.0, 0.0], [0.0, 0.0, 1.0]],
+                                     "translation_m": [0.0, 0.0, 0.5]}}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{c}");
+    let (st, set) = s
+        .post(
+            "/api/goal-sets",
+            Some(&editor),
+            &json!({"name": "tidy-up", "items": [{"goal_id": goal, "revision": 1}]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{set}");
+    let (st, o) = s
+        .post(
+            &outcomes,
+            Some(&editor),
+            &json!({"final_points": [[41.0, 31.0]], "note": "trial 1"}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{o}");
+    let (st, rev) = s
+        .post(
+            "/api/goals",
+            Some(&editor),
+            &json!({"name": "x", "frame_id": frame,
+                    "terms": [{"kind": "point", "source": [1.0, 1.0], "target": [2.0, 2.0]}],
+                    "cost": {"metric": "squared", "steps": "all", "mode": "expected"}}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{rev}");
+
+    // Deep nesting ends in a 422 (serde_json's recursion limit), not a crashed server.
+    let deep = format!(
+        r#"{{"name": "x", "frame_id": "{frame}", "terms": [{{"kind": "point", "source": {}1{}, "target": [1, 1]}}]}}"#,
+        "[".repeat(100_000),
+        "]".repeat(100_000)
+    );
+    let (st, err) = s
+        .post_bytes(
+            "/api/goals",
+            Some(&editor),
+            "application/json",
+            deep.into_bytes(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+    let (st, _) = s.get("/healthz", None).await;
+    assert_eq!(st, StatusCode::OK);
+}
+
+on_both_databases!(arrays_for_objects_are_refused, arrays_for_objects);
+
+/// `intrinsics` is kept as a `serde_json::Value` by the request type and typed later (direct
+/// form or CameraInfo form) by `parse_intrinsics` in server/service/cameras.rs, through
+/// `strict_json::from_value`, so `[K, D]` is not taken by position as a CameraInfo.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn camera_intrinsics_as_an_array_are_refused() {
+    let Some((s, _db)) = server(Db::Sqlite, "camera_intrinsics_as_an_array").await else {
+        return;
+    };
+    let editor = s.token("positional", "editor");
+    let (st, err) = s
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &json!({"name": "c", "width": 640, "height": 480, "intrinsics": [
+                [560.0, 0.0, 319.5, 0.0, 560.0, 239.5, 0.0, 0.0, 1.0], []]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+    assert_eq!(err["error"]["field"], "intrinsics", "{err}");
+}

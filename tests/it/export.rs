@@ -23,10 +23,92 @@ async fn post_npy(s: &Server, path: &str, token: &str, body: Vec<u8>) -> (Status
         .await
 }
 
-/// A goal with a point term (target (40, 30)) and a region term, on a 64×48 frame.
-async fn goal(s: &Server) -> (String, String, String) {
-    let (editor, _cam, frame) = camera_and_frame(s, "planners", json!({})).await;
-    let body = json!({
+/// Costs computed outside goalsmith, in numpy, by tests/reference/gen_route_cost.py (see its
+/// docstring for the formulas and the goals).
+fn numpy_reference() -> Value {
+    serde_json::from_str(include_str!("../reference/route_cost.json"))
+        .expect("tests/reference/route_cost.json parses")
+}
+
+/// `got` equals `want` to 1e-9 relative: |got − want| ≤ 1e-9 · max(|got|, |want|), so a 0 must
+/// be exactly 0. Why not exactly: goalsmith and shapely reach the distance to a slanted polygon
+/// edge through different sequences of float64 operations, and serde_json's default float
+/// parsing (of the reference file and of the responses) is best-effort rather than correctly
+/// rounded; each of these costs an ulp or two (when this was written the route and the CLI
+/// matched numpy bit for bit except on the slanted region's costs, within 3e-16 relative), so
+/// 1e-9 leaves a wide margin and still catches any error in a formula.
+fn assert_close(what: &str, got: &Value, want: &Value) {
+    match (got.as_f64(), want.as_f64()) {
+        (Some(g), Some(w)) => {
+            let scale = g.abs().max(w.abs());
+            assert!((g - w).abs() <= 1e-9 * scale, "{what}: got {g}, numpy {w}");
+        }
+        _ => match (got.as_array(), want.as_array()) {
+            (Some(g), Some(w)) => {
+                assert_eq!(g.len(), w.len(), "{what}: lengths differ: {got} vs {want}");
+                for (k, (g, w)) in g.iter().zip(w).enumerate() {
+                    assert_close(&format!("{what}[{k}]"), g, w);
+                }
+            }
+            _ => panic!("{what}: got {got}, numpy {want}"),
+        },
+    }
+}
+
+/// A cost response against the numpy reference `want` ({costs, per_point, best}): `costs` and
+/// `per_point` to 1e-9 relative ([`assert_close`]), `best` exactly (the generator checks that
+/// the least cost is ahead of every other candidate's by far more than that, apart from an
+/// exact copy of the best candidate placed after it).
+fn assert_costs_close(what: &str, got: &Value, want: &Value) {
+    assert_close(&format!("{what}: costs"), &got["costs"], &want["costs"]);
+    assert_close(
+        &format!("{what}: per_point"),
+        &got["per_point"],
+        &want["per_point"],
+    );
+    assert_eq!(got["best"], want["best"], "{what}: best: {got}");
+}
+
+/// Runs `goalsmith cost --bundle B --points|--maps F` and returns its JSON output.
+fn offline_cost(bundle: &[u8], flag: &str, input: &[u8]) -> Value {
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("b.zip"), bundle).unwrap();
+    std::fs::write(dir.path().join("input"), input).unwrap();
+    let out = std::process::Command::new(bin())
+        .args(["cost", "--bundle"])
+        .arg(dir.path().join("b.zip"))
+        .arg(flag)
+        .arg(dir.path().join("input"))
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    serde_json::from_slice(&out.stdout).unwrap()
+}
+
+/// The reference's probability maps of the export goal as a float32 NPY body.
+fn reference_maps_npy(maps: &Value) -> Vec<u8> {
+    let dim = |k: &str| maps[k].as_u64().unwrap() as usize;
+    let values: Vec<f32> = maps["values"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|v| v.as_f64().unwrap() as f32)
+        .collect();
+    npy::write_f32(
+        &[dim("n"), dim("t"), dim("p"), dim("height"), dim("width")],
+        &values,
+    )
+    .unwrap()
+}
+
+/// The terms and cost of [`goal`]; gen_route_cost.py's `export_goal` holds the same, and the
+/// numpy checks below assert that it still does.
+fn goal_body(frame: &str) -> Value {
+    json!({
         "name": "pot to the mat corner",
         "frame_id": frame,
         "terms": [
@@ -34,7 +116,26 @@ async fn goal(s: &Server) -> (String, String, String) {
             {"kind": "region", "source": [20.0, 5.0], "polygon": [[30.0, 5.0], [50.0, 5.0], [50.0, 20.0], [30.0, 20.0]], "weight": 2.0}
         ],
         "cost": {"metric": "squared", "steps": "all"}
-    });
+    })
+}
+
+/// The numpy reference of the export goal, checked to be about [`goal_body`]'s goal.
+fn export_reference() -> Value {
+    let reference = numpy_reference();
+    let ours = goal_body("");
+    let theirs = &reference["export_goal"];
+    assert_eq!(
+        (&ours["terms"], &ours["cost"]),
+        (&theirs["terms"], &theirs["cost"]),
+        "goal() and gen_route_cost.py's export_goal describe the same goal"
+    );
+    theirs.clone()
+}
+
+/// A goal with a point term (target (40, 30)) and a region term, on a 64×48 frame.
+async fn goal(s: &Server) -> (String, String, String) {
+    let (editor, _cam, frame) = camera_and_frame(s, "planners", json!({})).await;
+    let body = goal_body(&frame);
     let (st, rev) = s.post("/api/goals", Some(&editor), &body).await;
     assert_eq!(st, StatusCode::CREATED, "{rev}");
     (editor, rev["goal_id"].as_str().unwrap().to_string(), frame)
@@ -118,17 +219,27 @@ async fn maps_costs_and_bad_input(s: Server) {
     .await;
     assert_eq!(st, StatusCode::OK, "{r16}");
     assert_eq!(r16["costs"], r["costs"]);
-    // Smaller maps are scored against exactly evaluated maps of their size.
-    let small = vec![1.0f32 / (24.0 * 32.0); 2 * 24 * 32];
+    // Smaller maps are scored against cost maps evaluated exactly at their size (not
+    // interpolated), and used as sent (these sum to 0.04 to 1.17, not 1). Compared
+    // exactly with the numpy reference, tests/reference/gen_route_cost.py (`export_goal.maps`):
+    // the map values are multiples of 2^-10 and the 24×32 sample points half-integers, so every
+    // cost-map value is a multiple of 1/4 and every product and partial sum is held exactly in
+    // float32, whatever the order of summation; the script asserts that bound.
+    let reference = export_reference();
     let (st, r) = post_npy(
         &s,
         &format!("{base}/cost"),
         &editor,
-        npy::write_f32(&[1, 1, 2, 24, 32], &small).unwrap(),
+        reference_maps_npy(&reference["maps"]),
     )
     .await;
     assert_eq!(st, StatusCode::OK, "{r}");
-    assert!(r["costs"][0].as_f64().unwrap() > 0.0);
+    for key in ["costs", "per_point", "best"] {
+        assert_eq!(
+            r[key], reference["maps"][key],
+            "{key}, numpy reference (tests/reference/gen_route_cost.py)"
+        );
+    }
 
     // Bad input, each a 4xx with our error body, and the server keeps serving.
     let f64_maps = {
@@ -273,26 +384,24 @@ async fn bundle_overlay_outcomes(s: Server) {
         "goal.json is the served revision, byte for byte"
     );
 
-    // The offline CLI scores the bundle exactly like the route.
-    let dir = tempfile::tempdir().unwrap();
-    std::fs::write(dir.path().join("b.zip"), &a).unwrap();
-    let pts = json!({"points": [[[[37.0, 30.0], [40.0, 12.0]]], [[[0.0, 0.0], [63.0, 47.0]]]]});
-    std::fs::write(dir.path().join("p.json"), pts.to_string()).unwrap();
-    let out = std::process::Command::new(bin())
-        .args(["cost", "--bundle"])
-        .arg(dir.path().join("b.zip"))
-        .arg("--points")
-        .arg(dir.path().join("p.json"))
-        .output()
-        .unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let cli: Value = serde_json::from_slice(&out.stdout).unwrap();
-    let (_, route) = s.post(&format!("{base}/cost"), Some(&editor), &pts).await;
-    assert_eq!(cli, route);
+    // The route and the offline CLI on this bundle both give numpy's costs (numpy reference,
+    // tests/reference/gen_route_cost.py, `export_goal`): points to 1e-9 relative (see
+    // `assert_close`), the maps exactly (see `maps_costs_and_bad_input`).
+    let reference = export_reference();
+    let want = &reference["points"];
+    let pts = json!({"points": want["points"]});
+    let (st, route) = s.post(&format!("{base}/cost"), Some(&editor), &pts).await;
+    assert_eq!(st, StatusCode::OK, "{route}");
+    assert_costs_close("route, points (numpy reference)", &route, want);
+    let cli = offline_cost(&a, "--points", pts.to_string().as_bytes());
+    assert_costs_close("goalsmith cost --points (numpy reference)", &cli, want);
+    let cli = offline_cost(&a, "--maps", &reference_maps_npy(&reference["maps"]));
+    for key in ["costs", "per_point", "best"] {
+        assert_eq!(
+            cli[key], reference["maps"][key],
+            "goalsmith cost --maps: {key}, numpy reference (tests/reference/gen_route_cost.py)"
+        );
+    }
 
     // A second process serving the same database gives the same bundle bytes.
     let s2 = Server::start(&s.db_url, &s.data_dir, &[]);
@@ -345,3 +454,64 @@ async fn bundle_overlay_outcomes(s: Server) {
 }
 
 on_both_databases!(bundles_overlays_outcomes, bundle_overlay_outcomes);
+
+/// Every scorable term kind (point, region with slanted edges, mask, rigid with three sources)
+/// under three cost settings, created over HTTP, scored by the route and by `goalsmith cost` on
+/// the exported bundle, and both compared with numpy (numpy reference,
+/// tests/reference/gen_route_cost.py, `goals`) to 1e-9 relative, `best` exactly.
+async fn route_and_cli_match_numpy(s: Server) {
+    use base64::Engine;
+    let reference = numpy_reference();
+    let (editor, _cam, frame) = camera_and_frame(&s, "numpy", json!({})).await;
+    assert_eq!(
+        (reference["width"].as_u64(), reference["height"].as_u64()),
+        (Some(64), Some(48)),
+        "the reference is for camera_and_frame's 64×48 frame"
+    );
+    let goals = reference["goals"].as_array().unwrap();
+    assert_eq!(goals.len(), 3);
+    for want in goals {
+        let name = want["name"].as_str().unwrap();
+        // Masks travel as rows of 0/1 in the reference and as a PNG in the goal document.
+        let mut terms = want["terms"].clone();
+        for term in terms.as_array_mut().unwrap() {
+            if let Some(rows) = term.as_object_mut().unwrap().remove("mask_rows") {
+                let painted: Vec<bool> = rows
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .flat_map(|r| r.as_str().unwrap().chars().map(|c| c == '1'))
+                    .collect();
+                assert_eq!(painted.len(), 64 * 48);
+                let png = goalsmith::images::encode_mask(64, 48, &painted).unwrap();
+                term["mask_png_base64"] =
+                    json!(base64::engine::general_purpose::STANDARD.encode(png));
+            }
+        }
+        let body = json!({"name": name, "frame_id": frame, "terms": terms, "cost": want["cost"]});
+        let (st, rev) = s.post("/api/goals", Some(&editor), &body).await;
+        assert_eq!(st, StatusCode::CREATED, "{name}: {rev}");
+        // P = 1 + 1 + 1 + 3 source points, in the reference's order.
+        let p = want["points"][0][0].as_array().unwrap().len();
+        assert_eq!(rev["derived"]["points"].as_array().map(Vec::len), Some(p));
+        let base = format!(
+            "/api/goals/{}/revisions/1",
+            rev["goal_id"].as_str().unwrap()
+        );
+        let pts = json!({"points": want["points"]});
+        let (st, route) = s.post(&format!("{base}/cost"), Some(&editor), &pts).await;
+        assert_eq!(st, StatusCode::OK, "{name}: {route}");
+        assert_costs_close(&format!("{name}: route (numpy reference)"), &route, want);
+
+        let (st, bundle) = get_bytes(&s, &format!("{base}/bundle.zip"), &editor).await;
+        assert_eq!(st, StatusCode::OK);
+        let cli = offline_cost(&bundle, "--points", pts.to_string().as_bytes());
+        assert_costs_close(
+            &format!("{name}: goalsmith cost (numpy reference)"),
+            &cli,
+            want,
+        );
+    }
+}
+
+on_both_databases!(costs_match_numpy, route_and_cli_match_numpy);

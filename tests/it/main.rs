@@ -13,6 +13,9 @@ mod limits;
 mod openapi;
 mod pages;
 mod probe;
+// Reads the server's peak memory from /proc/<pid>/status.
+#[cfg(target_os = "linux")]
+mod resources;
 mod restart;
 mod review;
 mod routes;

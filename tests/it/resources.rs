@@ -1,0 +1,189 @@
+//! Bounded work, asserted: the resource probe's burst (examples/support/probe.rs, shared with
+//! `cargo run --release --example resource_probe`, which reports the figures) against one real
+//! server, and what README.md's "Limits" promise about it: the server's peak resident memory
+//! stays within the documented envelope, every heavy request ends with its documented status
+//! and error body (never a reset, never a 5xx other than 503 `busy`), and `/healthz` keeps
+//! answering 200 throughout.
+//!
+//! No timing is asserted (speed belongs to the benchmarks): `/healthz` must answer within a
+//! client timeout of a few seconds, a liveness bound, and its latencies are printed.
+
+#[path = "../../examples/support/probe.rs"]
+mod probe;
+
+use crate::support::*;
+use std::time::Duration;
+
+/// Heavy permits and queue of the server under test, set explicitly so the envelope does not
+/// depend on the number of cores of the machine running the test (the defaults are the cores
+/// and four times that; this is the 2-core machine of README.md's figures).
+const PERMITS: u64 = 2;
+const QUEUE: u64 = 8;
+
+/// README.md, "Limits": at most about 600 MiB per heavy request (a frame decode at its 512 MiB
+/// limit plus the 64 MiB upload), 64 MiB per waiting request (the largest body one holds while
+/// it waits, a frame upload), and the caches, 256 MiB of goals and models plus 64 MiB of
+/// prepared maps: "2 × 600 MiB + 8 × 64 MiB + 320 MiB ≈ 2 GiB at worst" on 2 cores.
+fn envelope_mib(permits: u64, queue: u64) -> u64 {
+    permits * 600 + queue * 64 + 320
+}
+
+/// `/healthz` must answer within this during the burst; a liveness bound, not a speed target.
+const HEALTHZ_TIMEOUT: Duration = Duration::from_secs(5);
+
+/// A heavy request that has not answered by then counts as no answer.
+const REQUEST_TIMEOUT: Duration = Duration::from_secs(180);
+
+/// A server with [`PERMITS`] and [`QUEUE`] on a fresh SQLite database, an editor token, and
+/// the address and process id the probe needs.
+async fn probe_server(test: &str) -> Option<(Server, TestDb, String, String, u32)> {
+    let db = fresh_db(Db::Sqlite, test).await?;
+    let (permits, queue) = (PERMITS.to_string(), QUEUE.to_string());
+    let s = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[
+            ("GOALSMITH_HEAVY_PERMITS", &permits),
+            ("GOALSMITH_HEAVY_QUEUE", &queue),
+        ],
+    );
+    let token = s.token("probe", "editor");
+    let addr = s.base.trim_start_matches("http://").to_string();
+    let pid = s.child.id();
+    Some((s, db, token, addr, pid))
+}
+
+/// Runs `set_up` (which makes the cases) and the burst off the async workers, and prints the
+/// figures past the test harness's capture, as `skip` lines are.
+async fn run_probe(
+    test: &'static str,
+    addr: String,
+    token: String,
+    pid: u32,
+    set_up: fn(&str, &str) -> Result<Vec<probe::Case>, probe::http::Error>,
+) -> probe::Report {
+    let report = tokio::task::spawn_blocking(move || {
+        let cases = set_up(&addr, &token).map_err(|e| e.to_string())?;
+        Ok::<_, String>(probe::burst(
+            &addr,
+            &token,
+            pid,
+            cases,
+            HEALTHZ_TIMEOUT,
+            REQUEST_TIMEOUT,
+        ))
+    })
+    .await
+    .expect("the probe thread")
+    .unwrap_or_else(|e| panic!("setting up the probe: {e}"));
+    skip(&format!("{test}: {}", report.summary(test)));
+    report
+}
+
+/// Every request answered, with one of its documented statuses and, for a refusal, the
+/// contract's error body with the documented code.
+fn assert_documented_answers(report: &probe::Report) {
+    for o in &report.outcomes {
+        let body = String::from_utf8_lossy(&o.body);
+        assert!(
+            o.status != 0,
+            "{}: no answer (reset or timeout): {}",
+            o.name,
+            o.failure.as_deref().unwrap_or("")
+        );
+        assert!(
+            o.allowed.contains(&o.status),
+            "{}: {} is not one of its documented statuses {:?}: {body}",
+            o.name,
+            o.status,
+            o.allowed
+        );
+        if let Some(code) = probe::documented_code(o.status) {
+            assert_eq!(
+                o.error_code().as_deref(),
+                Some(code),
+                "{}: {}: {body}",
+                o.name,
+                o.status
+            );
+        }
+    }
+}
+
+/// The peak resident memory of the server's whole life (set-up included) within the envelope
+/// README.md documents.
+fn assert_within_envelope(report: &probe::Report) {
+    let envelope = envelope_mib(PERMITS, QUEUE);
+    assert!(report.peak_kib > 0, "VmHWM unreadable");
+    assert!(
+        report.peak_kib / 1024 <= envelope,
+        "peak resident memory {} MiB is over README.md's envelope of {envelope} MiB: {:?}",
+        report.peak_kib / 1024,
+        report.statuses()
+    );
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_burst_of_heavy_requests_stays_within_the_envelope() {
+    let Some((s, _db, token, addr, pid)) = probe_server("resources").await else {
+        return;
+    };
+    let report = run_probe("resources", addr, token, pid, probe::prepare).await;
+    assert_documented_answers(&report);
+
+    // The burst was heavy, not shed whole. A request passes the heavy queue once to build its
+    // goal's model (when not cached) and again for its work, so which ones get 503 depends on
+    // timing; but past the first arrivals nothing new joins the queue, so once the first stages
+    // finish the rest are admitted: several always do their work. Without this check a server
+    // that answered everything 503 would pass.
+    let done = report
+        .outcomes
+        .iter()
+        .filter(|o| o.allowed.contains(&503) && (o.status == 200 || o.status == 201))
+        .count();
+    assert!(
+        done as u64 >= PERMITS,
+        "only {done} heavy requests did their work: {:?}",
+        report.statuses()
+    );
+
+    assert_within_envelope(&report);
+
+    // /healthz answered 200 every time it was asked, within the client's timeout.
+    assert!(
+        report.healthz.len() >= 5,
+        "/healthz was asked only {} times",
+        report.healthz.len()
+    );
+    let failed: Vec<_> = report.healthz.iter().filter(|x| x.0 != 200).collect();
+    assert!(
+        failed.is_empty(),
+        "/healthz did not answer 200 (0: no answer within {HEALTHZ_TIMEOUT:?}) during the burst: \
+         {failed:?}"
+    );
+    let (st, _) = s.get("/healthz", None).await;
+    assert_eq!(
+        st,
+        reqwest::StatusCode::OK,
+        "the server serves after the burst"
+    );
+}
+
+/// Several first scorings of one goal whose cost model is larger than the model cache (the
+/// mask limit: about 580 MiB) each build their own model. Each keeps the permit it built under
+/// for its scoring, so a request waiting in the heavy queue holds at most its body, as the
+/// envelope counts it. (Before that, each kept its model while it waited for a second permit:
+/// six at once peaked near 3.5 GiB and ten at 5.2 GiB, debug build, 2 permits, queue 8.)
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn first_scorings_of_a_large_model_stay_within_the_envelope() {
+    let Some((_s, _db, token, addr, pid)) = probe_server("first_scorings").await else {
+        return;
+    };
+    let report = run_probe("first scorings", addr, token, pid, |addr, token| {
+        Ok(probe::scorings(&probe::mask_limit_goal(addr, token)?, 6))
+    })
+    .await;
+    assert_documented_answers(&report);
+    assert_within_envelope(&report);
+}
