@@ -21,6 +21,7 @@ mod tests {
             "security",
             "cookies",
             "strict_json",
+            "demo_archive",
             "SAFETY_CAUTION",
         ];
         let above = |own: &[&'static str]| [own, &["store"], BELOW].concat();
@@ -29,7 +30,9 @@ mod tests {
             "pages" => above(&["pages", "service"]),
             "service" => above(&["service"]),
             "store" => vec!["store"],
-            "scoring" | "images" | "config" | "cookies" | "strict_json" => BELOW.to_vec(),
+            "scoring" | "images" | "config" | "cookies" | "strict_json" | "demo_archive" => {
+                BELOW.to_vec()
+            }
             "security" => vec!["security", "config", "SAFETY_CAUTION"],
             _ => Vec::new(),
         }

@@ -11,6 +11,7 @@ pub mod cli;
 pub mod config;
 pub mod cookies;
 pub mod demo;
+pub mod demo_archive;
 pub mod images;
 mod layers;
 pub mod pages;
