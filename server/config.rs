@@ -32,6 +32,8 @@ pub struct Limits {
     pub model_cache_bytes: usize,
     /// Sign-in throttle and password-hashing bounds.
     pub signin: SignInLimits,
+    /// Demonstration uploads: frames, upload size, decoded bytes, ZIP entry bounds.
+    pub demo: crate::demo_archive::DemoLimits,
 }
 
 /// How hard the sign-in form may be pushed. The defaults are documented in README.md
@@ -92,6 +94,7 @@ impl Default for Limits {
             heavy_queue: 4 * cores(),
             model_cache_bytes: 256 << 20,
             signin: SignInLimits::default(),
+            demo: crate::demo_archive::DemoLimits::default(),
         }
     }
 }
@@ -99,7 +102,8 @@ impl Default for Limits {
 impl Limits {
     /// The defaults with `GOALSMITH_HEAVY_PERMITS`, `GOALSMITH_HEAVY_QUEUE`,
     /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES` and
-    /// `GOALSMITH_MODEL_CACHE_BYTES` applied where set (whole numbers; permits at least 1; the
+    /// `GOALSMITH_MODEL_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
+    /// `GOALSMITH_DEMO_MAX_BYTES` and `GOALSMITH_DEMO_MAX_DECODED_BYTES`, applied where set (whole numbers; permits at least 1; the
     /// queue defaults to 4 × permits). A value that does not parse is an error rather
     /// than silently the default, so a typo in a deployment is seen at start-up.
     pub fn from_env() -> Result<Self, String> {
@@ -131,10 +135,15 @@ impl Limits {
             ("GOALSMITH_MAX_NPY_POINTS", &mut l.max_npy_points),
             ("GOALSMITH_COST_JSON_BYTES", &mut l.cost_json_bytes),
             ("GOALSMITH_MODEL_CACHE_BYTES", &mut l.model_cache_bytes),
+            ("GOALSMITH_DEMO_MAX_FRAMES", &mut l.demo.max_frames),
+            ("GOALSMITH_DEMO_MAX_BYTES", &mut l.demo.max_archive_bytes),
         ] {
             if let Some(v) = read(name)? {
                 *slot = v;
             }
+        }
+        if let Some(v) = read("GOALSMITH_DEMO_MAX_DECODED_BYTES")? {
+            l.demo.max_decoded_bytes = v as u64;
         }
         Ok(l)
     }

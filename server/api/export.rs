@@ -198,7 +198,7 @@ async fn read_json_cost_body(req: Request, max: usize) -> ServiceResult<Vec<u8>>
 /// An early refusal of a request whose body has not been read: the body is read and dropped
 /// first (the route's limit bounds it), so a client still uploading a large batch reads the
 /// error (a 404, a 415, a 503 `busy`) rather than a reset connection.
-async fn refuse(req: Request, e: ServiceError) -> ServiceError {
+pub(super) async fn refuse(req: Request, e: ServiceError) -> ServiceError {
     drain(&mut req.into_body()).await;
     e
 }

@@ -5,6 +5,7 @@
 
 pub mod auth;
 pub mod cameras;
+pub mod demos;
 pub mod error;
 pub mod export;
 pub mod extract;
@@ -37,6 +38,7 @@ pub fn router(state: AppState) -> Router<AppState> {
             routes::BodyLimit::Frame => Some(limits.frame_upload_bytes),
             routes::BodyLimit::Cost => Some(limits.cost_body_bytes),
             routes::BodyLimit::Preview => Some(routes::PREVIEW_BODY_BYTES),
+            routes::BodyLimit::Demo => Some(limits.demo.max_archive_bytes),
         };
         // Both layers: `DefaultBodyLimit` sets what the body extractors accept, and
         // `RequestBodyLimitLayer` refuses an oversized body before it is read at all.

@@ -6,7 +6,7 @@
 
 use super::openapi::{Content, Header, Operation, Reply, SchemaFn};
 use super::preview;
-use super::{AppState, cameras, export, frames, goal_sets, goals, openapi};
+use super::{AppState, cameras, demos, export, frames, goal_sets, goals, openapi};
 use crate::service;
 use axum::handler::Handler;
 use axum::routing::{MethodFilter, MethodRouter, on};
@@ -55,6 +55,8 @@ pub enum BodyLimit {
     Cost,
     /// A fixed 16 MiB: the editor's preview sends a whole unsaved goal, masks included.
     Preview,
+    /// `demo.max_archive_bytes`.
+    Demo,
 }
 
 /// Largest preview body.
@@ -232,6 +234,16 @@ pub fn table() -> Vec<Route> {
         Route::get("/api/frames/{id}/image", "The frame's stored image bytes", frames::image)
             .conditional()
             .ok_binary(&["image/png", "image/jpeg"], "the image exactly as uploaded", STORED),
+        Route::post("/api/cameras/{id}/demos", "Upload a demonstration: application/zip of PNG or JPEG frames of the camera's size in name order (optional timestamps.csv, one time in seconds per frame) or an animated image/gif; limits on frames, upload size and decoded bytes answer 413", demos::upload)
+            .heavy()
+            .limit(BodyLimit::Demo)
+            .binary_body(&["application/zip", "image/gif"])
+            .ok::<service::demos::DemoView>(201, "the demo as stored", &[]),
+        Route::get("/api/demos/{id}", "A demonstration and its frames", demos::get_one)
+            .ok::<service::demos::DemoView>(200, "the demo", &[]),
+        Route::get("/api/demos/{id}/frames/{i}/image", "Frame i (from 0) of a demonstration", demos::frame_image)
+            .conditional()
+            .ok_binary(&["image/png", "image/jpeg"], "the frame's image (GIF frames are stored as PNG)", STORED),
         Route::post("/api/goals", "Create a goal; the body becomes revision 1", goals::create)
             .json_body::<GoalDocument>()
             .ok::<service::goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),

@@ -10,6 +10,7 @@
 pub mod accounts;
 pub mod auth;
 pub mod cameras;
+pub mod demos;
 pub mod error;
 pub mod export;
 pub mod frames;

@@ -5,6 +5,7 @@
 
 pub mod accounts;
 pub mod cameras;
+pub mod demos;
 pub mod frames;
 pub mod goal_sets;
 pub mod goals;

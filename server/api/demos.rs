@@ -1,0 +1,70 @@
+//! Demo routes: upload a demonstration, read it back, and its frames' images.
+
+use super::error::ServiceResult;
+use super::export::refuse;
+use super::extract::{media_type, read_body};
+use super::goals::if_none_match;
+use crate::service::AppState;
+use crate::service::auth::Principal;
+use crate::service::demos::{self, DemoView};
+use axum::Json;
+use axum::extract::{Path, Request, State};
+use axum::http::{HeaderMap, StatusCode, header};
+use axum::response::{IntoResponse, Response};
+
+/// `POST /api/cameras/{id}/demos` with an `application/zip` or `image/gif` body → 201.
+pub async fn upload(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+    req: Request,
+) -> ServiceResult<(StatusCode, Json<DemoView>)> {
+    let content_type = media_type(&req).unwrap_or_default();
+    // Role, camera, type and a heavy-work permit before the body (up to the demo limit) is
+    // read; a refusal still reads and drops the body, so the uploader gets the error.
+    let ticket = match demos::begin_upload(&state, &who, &id, &content_type).await {
+        Ok(t) => t,
+        Err(e) => return Err(refuse(req, e).await),
+    };
+    let bytes = read_body(req, &state).await?;
+    let row = ticket.finish(&state, bytes.to_vec()).await?;
+    Ok((
+        StatusCode::CREATED,
+        Json(demos::view(&state, &who, &row.id).await?),
+    ))
+}
+
+/// `GET /api/demos/{id}`.
+pub async fn get_one(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+) -> ServiceResult<Json<DemoView>> {
+    Ok(Json(demos::view(&state, &who, &id).await?))
+}
+
+/// `GET /api/demos/{id}/frames/{i}/image`: the frame's image, immutable, SHA-256 as ETag.
+pub async fn frame_image(
+    State(state): State<AppState>,
+    who: Principal,
+    Path((id, i)): Path<(String, String)>,
+    headers: HeaderMap,
+) -> ServiceResult<Response> {
+    let (sha, content_type, bytes) = demos::frame_image(&state, &who, &id, &i).await?;
+    let etag = format!("\"{sha}\"");
+    if if_none_match(&headers, &etag) {
+        return Ok((StatusCode::NOT_MODIFIED, [(header::ETAG, etag)]).into_response());
+    }
+    Ok((
+        [
+            (header::CONTENT_TYPE, content_type),
+            (header::ETAG, etag),
+            (
+                header::CACHE_CONTROL,
+                "private, max-age=31536000, immutable".into(),
+            ),
+        ],
+        bytes,
+    )
+        .into_response())
+}

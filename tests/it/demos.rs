@@ -1,0 +1,244 @@
+//! Demonstration uploads: a ZIP of frames or an animated GIF of the camera's size, stored as
+//! ordered frames; every limit answered at and past it, and the unsafe archives refused.
+
+use crate::on_both_databases;
+use crate::support::*;
+use reqwest::StatusCode;
+use serde_json::{Value, json};
+use std::io::Write;
+
+fn zip_of(entries: &[(&str, &[u8])]) -> Vec<u8> {
+    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+    let opts = zip::write::SimpleFileOptions::default()
+        .compression_method(zip::CompressionMethod::Deflated);
+    for (name, data) in entries {
+        z.start_file(*name, opts).expect("entry");
+        z.write_all(data).expect("write");
+    }
+    z.finish().expect("finish").into_inner()
+}
+
+fn frames(n: usize, w: u32, h: u32) -> Vec<(String, Vec<u8>)> {
+    (0..n)
+        .map(|k| (format!("clip/{k:04}.png"), png(w, h, k as u8 * 40)))
+        .collect()
+}
+
+fn zip_frames(f: &[(String, Vec<u8>)], extra: &[(&str, &[u8])]) -> Vec<u8> {
+    let mut entries: Vec<(&str, &[u8])> =
+        f.iter().map(|(n, d)| (n.as_str(), d.as_slice())).collect();
+    entries.extend_from_slice(extra);
+    zip_of(&entries)
+}
+
+async fn demo_upload(
+    s: &Server,
+    cam: &str,
+    token: &str,
+    ct: &str,
+    body: Vec<u8>,
+) -> (StatusCode, Value) {
+    s.post_bytes(&format!("/api/cameras/{cam}/demos"), Some(token), ct, body)
+        .await
+}
+
+async fn get_bytes(s: &Server, path: &str, token: &str) -> (StatusCode, Vec<u8>) {
+    let resp = s
+        .client
+        .get(s.url(path))
+        .bearer_auth(token)
+        .send()
+        .await
+        .expect("GET");
+    let st = resp.status();
+    (st, resp.bytes().await.expect("body").to_vec())
+}
+
+fn code(v: &Value) -> &str {
+    v["error"]["code"].as_str().unwrap_or("")
+}
+
+async fn uploads(s: Server) {
+    let (editor, cam, _frame) = camera_and_frame(&s, "bench demos", json!({})).await;
+    let viewer = s.token("bench demos", "viewer");
+    let f = frames(3, 64, 48);
+    let body = zip_frames(&f, &[("clip/timestamps.csv", b"t\n0\n0.04\n0.08\n")]);
+    let (st, demo) = demo_upload(&s, &cam, &editor, "application/zip", body.clone()).await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    assert_eq!(demo["frame_count"], 3);
+    assert_eq!(
+        (demo["width"].as_i64(), demo["height"].as_i64()),
+        (Some(64), Some(48))
+    );
+    let times: Vec<f64> = demo["frames"]
+        .as_array()
+        .expect("frames")
+        .iter()
+        .map(|f| f["time_s"].as_f64().expect("time"))
+        .collect();
+    assert_eq!(times, vec![0.0, 0.04, 0.08]);
+    let id = demo["id"].as_str().expect("id").to_string();
+    // Frames come back byte for byte, in name order; a viewer may read them.
+    for (k, (_, bytes)) in f.iter().enumerate() {
+        let (st, got) = get_bytes(&s, &format!("/api/demos/{id}/frames/{k}/image"), &viewer).await;
+        assert_eq!(st, StatusCode::OK);
+        assert_eq!(&got, bytes, "frame {k}");
+    }
+    for bad in ["3", "01", "-1", "x"] {
+        let (st, _) = get_bytes(&s, &format!("/api/demos/{id}/frames/{bad}/image"), &viewer).await;
+        assert_eq!(st, StatusCode::NOT_FOUND, "frame {bad}");
+    }
+    let (st, again) = s.get(&format!("/api/demos/{id}"), Some(&viewer)).await;
+    assert_eq!(st, StatusCode::OK);
+    assert_eq!(again, demo);
+
+    // Who and what may upload.
+    let (st, _) = demo_upload(&s, &cam, &viewer, "application/zip", body.clone()).await;
+    assert_eq!(st, StatusCode::FORBIDDEN);
+    let (st, err) = demo_upload(&s, &cam, &editor, "application/x-tar", body.clone()).await;
+    assert_eq!(st, StatusCode::UNSUPPORTED_MEDIA_TYPE, "{err}");
+    let other = s.token("another bench", "editor");
+    let (st, _) = demo_upload(&s, &cam, &other, "application/zip", body.clone()).await;
+    assert_eq!(st, StatusCode::NOT_FOUND, "another team's camera");
+    let (st, _) = s.get(&format!("/api/demos/{id}"), Some(&other)).await;
+    assert_eq!(st, StatusCode::NOT_FOUND, "another team's demo");
+
+    // Archives that must not be opened, and frames that do not fit the camera.
+    let one = png(64, 48, 7);
+    let cases: Vec<(Vec<u8>, StatusCode, &str)> = vec![
+        (
+            zip_of(&[("../escape.png", &one)]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "unsafe_entry_name",
+        ),
+        (
+            zip_of(&[("/abs/0.png", &one)]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "unsafe_entry_name",
+        ),
+        (
+            zip_of(&[("inner.zip", &zip_of(&[("0.png", &one)]))]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "nested_archive",
+        ),
+        (
+            zip_of(&[("0.png", &one), ("run.sh", b"echo")]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "not_an_image",
+        ),
+        (
+            zip_of(&[("0.png", &png(32, 48, 1))]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "wrong_size",
+        ),
+        (
+            zip_of(&[("0.png", &vec![0u8; 16 << 20])]),
+            StatusCode::PAYLOAD_TOO_LARGE,
+            "too_large",
+        ),
+        (
+            b"not a zip".to_vec(),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "bad_archive",
+        ),
+        (zip_of(&[]), StatusCode::UNPROCESSABLE_ENTITY, "no_frames"),
+    ];
+    for (body, status, want) in cases {
+        let (st, err) = demo_upload(&s, &cam, &editor, "application/zip", body).await;
+        assert_eq!((st, code(&err)), (status, want), "{err}");
+    }
+
+    // An animated GIF: PNG frames, times from its delays.
+    let mut gif = Vec::new();
+    {
+        let mut enc = image::codecs::gif::GifEncoder::new(&mut gif);
+        for shade in [20u8, 200] {
+            let buf = image::RgbaImage::from_pixel(64, 48, image::Rgba([shade, 90, 30, 255]));
+            let frame =
+                image::Frame::from_parts(buf, 0, 0, image::Delay::from_numer_denom_ms(100, 1));
+            enc.encode_frame(frame).expect("gif frame");
+        }
+    }
+    let (st, demo) = demo_upload(&s, &cam, &editor, "image/gif", gif).await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    assert_eq!(demo["frame_count"], 2);
+    assert_eq!(demo["frames"][1]["time_s"], 0.1);
+    let gid = demo["id"].as_str().expect("id");
+    let (st, png1) = get_bytes(&s, &format!("/api/demos/{gid}/frames/1/image"), &editor).await;
+    assert_eq!(st, StatusCode::OK);
+    assert!(png1.starts_with(b"\x89PNG"));
+}
+
+on_both_databases!(demo_uploads, uploads);
+
+/// The frame-count and upload-size limits, at and past each, with small limits set through the
+/// environment; each refusal names its limit.
+async fn limits(kind: Db) {
+    let Some(db) = fresh_db(kind, "demo_limits").await else {
+        return;
+    };
+    let s = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[("GOALSMITH_DEMO_MAX_FRAMES", "3")],
+    );
+    let (editor, cam, _) = camera_and_frame(&s, "limits", json!({})).await;
+    let (st, demo) = demo_upload(
+        &s,
+        &cam,
+        &editor,
+        "application/zip",
+        zip_frames(&frames(3, 64, 48), &[]),
+    )
+    .await;
+    assert_eq!(st, StatusCode::CREATED, "at the frame limit: {demo}");
+    let (st, err) = demo_upload(
+        &s,
+        &cam,
+        &editor,
+        "application/zip",
+        zip_frames(&frames(4, 64, 48), &[]),
+    )
+    .await;
+    assert_eq!(st, StatusCode::PAYLOAD_TOO_LARGE);
+    assert!(
+        err["error"]["message"]
+            .as_str()
+            .unwrap_or("")
+            .contains("3 frames"),
+        "{err}"
+    );
+    drop(s);
+    // The upload size: a limit of exactly the two-frame archive's bytes.
+    let small = zip_frames(&frames(2, 64, 48), &[]);
+    let limit = small.len().to_string();
+    let s = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[("GOALSMITH_DEMO_MAX_BYTES", &limit)],
+    );
+    let (st, demo) = demo_upload(&s, &cam, &editor, "application/zip", small).await;
+    assert_eq!(st, StatusCode::CREATED, "at the size limit: {demo}");
+    let (st, err) = demo_upload(
+        &s,
+        &cam,
+        &editor,
+        "application/zip",
+        zip_frames(&frames(3, 64, 48), &[]),
+    )
+    .await;
+    assert_eq!(st, StatusCode::PAYLOAD_TOO_LARGE, "{err}");
+    assert_eq!(code(&err), "too_large");
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn demo_limits_sqlite() {
+    limits(Db::Sqlite).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn demo_limits_postgres() {
+    limits(Db::Postgres).await;
+}
