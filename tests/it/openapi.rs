@@ -269,6 +269,48 @@ async fn scenario(s: &Server) -> Vec<Sample> {
     )
     .await;
 
+    // A demonstration of two frames, read back with one of its frames.
+    let demo_zip = {
+        use std::io::Write;
+        let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+        let opts = zip::write::SimpleFileOptions::default();
+        for (k, seed) in [(0, 3u8), (1, 9)] {
+            z.start_file(format!("{k}.png"), opts).expect("entry");
+            z.write_all(&png(64, 48, seed)).expect("write");
+        }
+        z.finish().expect("zip").into_inner()
+    };
+    let (st, demo, _) = c
+        .call(
+            M::POST,
+            "/api/cameras/{id}/demos",
+            &format!("/api/cameras/{cam}/demos"),
+            e,
+            Req::Bytes("application/zip", demo_zip),
+            &[],
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = str_of(&demo, "id");
+    c.call(
+        M::GET,
+        "/api/demos/{id}",
+        &format!("/api/demos/{demo}"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::GET,
+        "/api/demos/{id}/frames/{i}/image",
+        &format!("/api/demos/{demo}/frames/1/image"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+
     // A goal with every term kind that needs no reward fit.
     let mask = {
         let mut painted = vec![false; 64 * 48];
