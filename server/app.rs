@@ -28,6 +28,10 @@ pub fn app(state: AppState) -> Router {
                 crate::pages::not_found_page()
             }
         })
+        .route(
+            "/static/marks.js",
+            axum::routing::get(crate::draw::marks::serve_browser_module),
+        )
         .nest_service(
             "/static",
             // A missing file gets the contract's error body, not an empty 404.

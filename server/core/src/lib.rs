@@ -10,7 +10,6 @@ pub mod bench;
 pub mod camera;
 pub mod cost;
 pub mod distance;
-pub mod draw;
 pub mod geometry;
 pub mod goal;
 pub mod names;
