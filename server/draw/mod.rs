@@ -28,6 +28,7 @@ mod canvas;
 pub mod marks;
 mod overlay;
 pub mod palette;
+mod place;
 pub mod text;
 
 pub use overlay::{OverlayItem, ZoneKind, goal_items, render_overlay, unit_for_frame};

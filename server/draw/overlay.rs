@@ -3,7 +3,8 @@
 
 use super::canvas::{Canvas, Pen, circle, finite, polyline};
 use super::marks::{self, ARROW_HEAD, FITTED, Rgba, SIZES, SOURCE, TARGET};
-use super::text::{Anchor, Line, draw_label};
+use super::place::{Anchor, Obstacles, place};
+use super::text::{Line, box_size, draw_label};
 use goalsmith_core::distance::Mask;
 use goalsmith_core::goal::{GoalSpec, Term};
 use std::sync::Arc;
@@ -167,14 +168,13 @@ pub fn unit_for_frame(width: u32, height: u32) -> f64 {
     (f64::from(width.min(height)) / 480.0).clamp(1.0, 4.0)
 }
 
-/// The drawing order: fills first, labels last, so nothing hides a label.
+/// The drawing order: zones, fills, lines, marks; then the labels, so nothing hides a label.
 #[derive(Clone, Copy, PartialEq, Eq)]
 enum Layer {
     Zones,
     Fills,
     Lines,
     Marks,
-    Labels,
 }
 
 /// Draws `items` over a copy of `frame`. Items with coordinates that are not finite are left
@@ -184,16 +184,13 @@ pub fn render_overlay(frame: &image::RgbaImage, items: &[OverlayItem]) -> image:
         return frame.clone();
     };
     let u = unit_for_frame(canvas.width(), canvas.height());
-    for layer in [
-        Layer::Zones,
-        Layer::Fills,
-        Layer::Lines,
-        Layer::Marks,
-        Layer::Labels,
-    ] {
+    for layer in [Layer::Zones, Layer::Fills, Layer::Lines, Layer::Marks] {
         for item in items {
             draw_item(&mut canvas, item, layer, u);
         }
+    }
+    for (line, min, _) in place_labels(canvas.width(), canvas.height(), items, u) {
+        draw_label(&mut canvas, &line, min, u);
     }
     canvas.into_image().unwrap_or_else(|| frame.clone())
 }
@@ -204,7 +201,7 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
             source,
             target,
             tolerance_px,
-            label,
+            ..
         } => {
             let colour = marks::POINT;
             match layer {
@@ -217,7 +214,6 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
                     mark(c, TARGET, *target, colour, u);
                     mark(c, SOURCE, *source, colour, u);
                 }
-                Layer::Labels => label_at(c, Anchor::Beside(*source), label, u),
                 Layer::Zones => {}
             }
         }
@@ -225,10 +221,10 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
             source,
             polygon,
             tolerance_px,
-            label,
+            ..
         } => {
             let colour = marks::REGION;
-            let Some(outline) = polyline(polygon, true) else {
+            let Some(outline) = polygon_path(polygon) else {
                 return;
             };
             match layer {
@@ -260,27 +256,22 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
                     }
                 }
                 Layer::Marks => mark(c, SOURCE, *source, colour, u),
-                Layer::Labels => label_at(c, Anchor::Beside(*source), label, u),
                 Layer::Zones => {}
             }
         }
-        OverlayItem::Mask {
-            source,
-            mask,
-            label,
-        } => {
+        OverlayItem::Mask { source, mask, .. } => {
             let colour = marks::MASK;
             match layer {
                 Layer::Fills => mask_tint(c, mask, colour),
                 Layer::Lines => {
-                    if !painted_at(c, mask, *source)
-                        && let Some(centre) = mask_centroid(c, mask)
+                    let (w, h) = (c.width(), c.height());
+                    if !painted_at(w, h, mask, *source)
+                        && let Some(centre) = mask_centroid(w, h, mask)
                     {
                         arrow(c, *source, centre, colour, true, false, u);
                     }
                 }
                 Layer::Marks => mark(c, SOURCE, *source, colour, u),
-                Layer::Labels => label_at(c, Anchor::Beside(*source), label, u),
                 Layer::Zones => {}
             }
         }
@@ -289,7 +280,7 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
             targets,
             fitted,
             tolerance_px,
-            label,
+            ..
         } => {
             if sources.is_empty() || sources.len() != targets.len() {
                 return;
@@ -332,21 +323,16 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
                         mark(c, SOURCE, *s, colour, u);
                     }
                 }
-                Layer::Labels => label_at(c, Anchor::Beside(sources[0]), label, u),
                 Layer::Zones => {}
             }
         }
-        OverlayItem::Learned { source, label } => match layer {
-            Layer::Marks => mark(c, SOURCE, *source, marks::LEARNED, u),
-            Layer::Labels => label_at(c, Anchor::Beside(*source), label, u),
-            _ => {}
-        },
-        OverlayItem::Zone {
-            polygon,
-            kind,
-            label,
-        } => {
-            let Some(outline) = polyline(polygon, true) else {
+        OverlayItem::Learned { source, .. } => {
+            if layer == Layer::Marks {
+                mark(c, SOURCE, *source, marks::LEARNED, u);
+            }
+        }
+        OverlayItem::Zone { polygon, kind, .. } => {
+            let Some(outline) = polygon_path(polygon) else {
                 return;
             };
             match (layer, kind) {
@@ -368,15 +354,143 @@ fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {
                     };
                     c.cased(&outline, pen, SIZES.casing * u);
                 }
-                (Layer::Labels, _) => {
-                    if let Some(centre) = centroid(polygon) {
-                        label_at(c, Anchor::Centred(centre), label, u);
-                    }
-                }
                 _ => {}
             }
         }
     }
+}
+
+/// Where each item's label goes, in drawing order: its text laid out and its box `min..max`.
+/// Every mark and drawn arrow is an obstacle, and so is each label once placed (see
+/// [`super::place`]).
+pub(crate) fn place_labels(
+    w: u32,
+    h: u32,
+    items: &[OverlayItem],
+    u: f64,
+) -> Vec<(Line, [f64; 2], [f64; 2])> {
+    let mut obstacles = Obstacles::default();
+    let (source_r, target_r) = (
+        (SIZES.source_radius + SIZES.casing) * u,
+        (SIZES.target_radius + SIZES.casing) * u,
+    );
+    let fitted_r = (SIZES.fitted_half * std::f64::consts::SQRT_2 + SIZES.casing) * u;
+    let half_line = (SIZES.line / 2.0 + SIZES.casing) * u;
+    let arrow_obstacle = |o: &mut Obstacles, a: [f64; 2], b: [f64; 2], to_mark: bool| {
+        if let Some(g) = arrow_geometry(a, b, to_mark, u) {
+            o.segment(g.from, g.tip, half_line);
+        }
+    };
+    let mut anchors = Vec::new();
+    for item in items {
+        let anchor = match item {
+            OverlayItem::PointMove {
+                source,
+                target,
+                label,
+                ..
+            } => {
+                obstacles.disc(*source, source_r);
+                obstacles.disc(*target, target_r);
+                arrow_obstacle(&mut obstacles, *source, *target, true);
+                Some((
+                    Anchor::Beside {
+                        at: *source,
+                        away: Some(*target),
+                    },
+                    label,
+                ))
+            }
+            OverlayItem::Region {
+                source,
+                polygon,
+                label,
+                ..
+            } if polygon_path(polygon).is_some() => {
+                obstacles.disc(*source, source_r);
+                let away = (!point_in_polygon(polygon, *source))
+                    .then(|| centroid(polygon))
+                    .flatten();
+                if let Some(c) = away {
+                    arrow_obstacle(&mut obstacles, *source, c, false);
+                }
+                Some((Anchor::Beside { at: *source, away }, label))
+            }
+            OverlayItem::Mask {
+                source,
+                mask,
+                label,
+            } => {
+                obstacles.disc(*source, source_r);
+                let away = (!painted_at(w, h, mask, *source))
+                    .then(|| mask_centroid(w, h, mask))
+                    .flatten();
+                if let Some(c) = away {
+                    arrow_obstacle(&mut obstacles, *source, c, false);
+                }
+                Some((Anchor::Beside { at: *source, away }, label))
+            }
+            OverlayItem::RigidMove {
+                sources,
+                targets,
+                fitted,
+                label,
+                ..
+            } => {
+                if sources.is_empty() || sources.len() != targets.len() {
+                    None
+                } else {
+                    for (s, t) in sources.iter().zip(targets) {
+                        obstacles.disc(*s, source_r);
+                        obstacles.disc(*t, target_r);
+                        arrow_obstacle(&mut obstacles, *s, *t, true);
+                    }
+                    for f in fitted {
+                        obstacles.disc(*f, fitted_r);
+                    }
+                    Some((
+                        Anchor::Beside {
+                            at: sources[0],
+                            away: Some(targets[0]),
+                        },
+                        label,
+                    ))
+                }
+            }
+            OverlayItem::Learned { source, label } => {
+                obstacles.disc(*source, source_r);
+                Some((
+                    Anchor::Beside {
+                        at: *source,
+                        away: None,
+                    },
+                    label,
+                ))
+            }
+            OverlayItem::Region { .. } => None,
+            OverlayItem::Zone { polygon, label, .. } => polygon_path(polygon)
+                .and(centroid(polygon))
+                .map(|c| (Anchor::Centred(c), label)),
+        };
+        anchors.extend(anchor);
+    }
+    let mut placed = Vec::new();
+    for (anchor, label) in anchors {
+        if label.is_empty() || !finite(anchor.point()) {
+            continue;
+        }
+        let line = Line::new(label);
+        let Some((bw, bh)) = box_size(&line, u) else {
+            continue;
+        };
+        let Some(min) = place(anchor, bw, bh, u, w, h, &obstacles) else {
+            continue;
+        };
+        let max = [min[0] + bw, min[1] + bh];
+        obstacles.add_box(min, max);
+        placed.push((line, min, max));
+    }
+    placed
 }
 
 fn mark(c: &mut Canvas, parts: &[marks::Part], at: [f64; 2], colour: Rgba, u: f64) {
@@ -385,13 +499,12 @@ fn mark(c: &mut Canvas, parts: &[marks::Part], at: [f64; 2], colour: Rgba, u: f6
     }
 }
 
-fn label_at(c: &mut Canvas, anchor: Anchor, label: &str, u: f64) {
-    let at = match anchor {
-        Anchor::Beside(p) | Anchor::Centred(p) => p,
-    };
-    if !label.is_empty() && finite(at) {
-        draw_label(c, &Line::new(label), anchor, u);
+/// The outline of an area or zone: at least three corners, all finite.
+fn polygon_path(pts: &[[f64; 2]]) -> Option<tiny_skia::Path> {
+    if pts.len() < 3 {
+        return None;
     }
+    polyline(pts, true)
 }
 
 fn tolerance_disc(c: &mut Canvas, at: [f64; 2], r: f64, colour: Rgba) {
@@ -560,19 +673,21 @@ fn mask_tint(c: &mut Canvas, m: &Mask, colour: Rgba) {
     });
 }
 
-fn painted_at(c: &Canvas, m: &Mask, p: [f64; 2]) -> bool {
+/// Whether the painted area covers frame point `p` (the pixel whose square holds it) in a
+/// `w × h` frame.
+fn painted_at(w: u32, h: u32, m: &Mask, p: [f64; 2]) -> bool {
     if !finite(p) {
         return false;
     }
     let (i, j) = ((p[0] + 0.5).floor(), (p[1] + 0.5).floor());
-    if i < 0.0 || j < 0.0 || i >= f64::from(c.width()) || j >= f64::from(c.height()) {
+    if i < 0.0 || j < 0.0 || i >= f64::from(w) || j >= f64::from(h) {
         return false;
     }
-    mask_cell(i as u32, j as u32, c.width(), c.height(), m)
+    mask_cell(i as u32, j as u32, w, h, m)
 }
 
-/// The mean of the painted pixels' centres, in frame coordinates.
-fn mask_centroid(c: &Canvas, m: &Mask) -> Option<[f64; 2]> {
+/// The mean of the painted pixels' centres, in the coordinates of a `w × h` frame.
+fn mask_centroid(w: u32, h: u32, m: &Mask) -> Option<[f64; 2]> {
     let (mw, mh) = (m.width(), m.height());
     let (mut sx, mut sy, mut n) = (0.0, 0.0, 0usize);
     for (k, _) in m.data().iter().enumerate().filter(|(_, p)| **p) {
@@ -581,10 +696,7 @@ fn mask_centroid(c: &Canvas, m: &Mask) -> Option<[f64; 2]> {
         n += 1;
     }
     (n > 0).then(|| {
-        let (fx, fy) = (
-            f64::from(c.width()) / mw as f64,
-            f64::from(c.height()) / mh as f64,
-        );
+        let (fx, fy) = (f64::from(w) / mw as f64, f64::from(h) / mh as f64);
         [
             (sx / n as f64 + 0.5) * fx - 0.5,
             (sy / n as f64 + 0.5) * fy - 0.5,

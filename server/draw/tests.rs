@@ -3,7 +3,8 @@
 
 use super::canvas::{Canvas, Pen, circle, polyline, rect, to_skia};
 use super::marks;
-use super::text::{Anchor, Line, glyph_id, label_box};
+use super::overlay::place_labels;
+use super::text::{Line, glyph_id};
 use super::{OverlayItem, ZoneKind, render_overlay};
 use ab_glyph::GlyphId;
 use image::{Rgba, RgbaImage};
@@ -168,8 +169,8 @@ fn scene_goal() -> Value {
                  (dx / 40.0).powi(2) + (dy / 24.0).powi(2) <= 1.0
              })},
             {"kind": "rigid", "label": "trowel",
-             "sources": [[40.0, 96.0], [76.0, 96.0], [58.0, 124.0]],
-             "targets": [[196.0, 84.0], [236.0, 100.0], [190.0, 126.0]],
+             "sources": [[40.0, 112.0], [76.0, 112.0], [58.0, 140.0]],
+             "targets": [[196.0, 98.0], [236.0, 114.0], [190.0, 140.0]],
              "tolerance_px": 4.0},
             {"kind": "learned", "label": "reward", "source": [276.0, 120.0], "reward_fit_id": "r"}
         ]
@@ -253,7 +254,7 @@ fn the_scene_wears_the_marking_code() {
         ("point", [36, 44]),
         ("region", [28, 206]),
         ("mask", [176, 176]),
-        ("rigid", [40, 96]),
+        ("rigid", [40, 112]),
         ("learned", [276, 120]),
     ] {
         assert_eq!(
@@ -302,7 +303,7 @@ fn odd_items_draw_nothing_and_labels_stay_inside() {
         },
     ];
     assert_eq!(differing(&render_overlay(&f, &odd), &f), 0);
-    // A label by a source in the top-right corner is pushed left and down into the frame.
+    // A label by a source in the top-right corner goes down and left, into the frame.
     let corner = render_overlay(
         &f,
         &[OverlayItem::Learned {
@@ -310,9 +311,16 @@ fn odd_items_draw_nothing_and_labels_stay_inside() {
             label: "12b a long label".into(),
         }],
     );
-    let line = Line::new("12b a long label");
-    let (min, max) = label_box(&line, Anchor::Beside([198.0, 1.0]), 1.0, 200, 150).unwrap();
+    let item = OverlayItem::Learned {
+        source: [198.0, 1.0],
+        label: "12b a long label".into(),
+    };
+    let placed = place_labels(200, 150, std::slice::from_ref(&item), 1.0);
+    let (line, min, max) = &placed[0];
+    assert_eq!(*line, Line::new("12b a long label"));
     assert!(min[0] >= -0.5 && min[1] >= -0.5 && max[0] <= 199.5 && max[1] <= 149.5);
+    // Below the source, where it fits, and clear of the source's disc.
+    assert!(min[1] > 1.0 + marks::SIZES.source_radius, "{min:?}");
     let ink = corner
         .pixels()
         .filter(|p| p.0 == marks::LABEL_INK.0)
@@ -358,14 +366,14 @@ fn labels_in_three_scripts_are_drawn_with_real_glyphs() {
     let drawn = render_overlay(&f, &items(&real));
     let as_boxes = render_overlay(&f, &items(&boxes));
     save_for_eyes(&drawn, "overlay-labels");
-    for ((s, l), b) in sources.iter().zip(labels).zip(&boxes) {
-        let line = Line::new(l);
+    let placed = place_labels(320, 200, &items(&real), 1.0);
+    for ((l, b), (line, min, max)) in labels.iter().zip(&boxes).zip(&placed) {
+        assert_eq!(*line, Line::new(l));
         // The comparison draws exactly as many missing-glyph boxes as the label has characters.
         assert_eq!(
             Line::new(b),
             Line::of_glyphs(&vec![GlyphId(0); l.chars().count()])
         );
-        let (min, max) = label_box(&line, Anchor::Beside(*s), 1.0, 320, 200).unwrap();
         let (mut inked, mut differ, mut all) = (0, 0, 0);
         for j in (min[1] + 0.5) as u32..(max[1] + 0.5) as u32 {
             for i in (min[0] + 0.5) as u32..(max[0] + 0.5) as u32 {

@@ -147,61 +147,27 @@ pub(crate) fn draw_line(canvas: &mut Canvas, line: &Line, x: f64, y: f64, size_p
     }
 }
 
-/// Where a label goes.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub(crate) enum Anchor {
-    /// Up and to the right of a mark at this point.
-    Beside([f64; 2]),
-    /// Centred on this point.
-    Centred([f64; 2]),
-}
-
-/// The box a label takes, `min..max` in frame coordinates, moved inside the frame and onto
-/// whole pixels.
-pub(crate) fn label_box(
-    line: &Line,
-    anchor: Anchor,
-    unit: f64,
-    w: u32,
-    h: u32,
-) -> Option<([f64; 2], [f64; 2])> {
+/// The size of `line`'s label box (text plus padding), whole pixels, at `unit` pixels to a
+/// mark unit.
+pub(crate) fn box_size(line: &Line, unit: f64) -> Option<(f64, f64)> {
     let (k, asc, desc) = metrics(SIZES.label_size * unit)?;
     let pad = SIZES.label_pad * unit;
     let bw = (f64::from(line.width) * k + 2.0 * pad).ceil();
     let bh = ((asc - desc) * k + 2.0 * pad).ceil();
-    let (left, top) = match anchor {
-        Anchor::Beside([x, y]) => {
-            let off = SIZES.label_offset * unit;
-            (x + off, y - off - bh)
-        }
-        Anchor::Centred([x, y]) => (x - bw / 2.0, y - bh / 2.0),
-    };
-    if !(left.is_finite() && top.is_finite()) {
-        return None;
-    }
-    // Inside the frame, whose edges are at −½ and W − ½; a label wider than the frame starts at
-    // its left edge.
-    let inside = |v: f64, size: f64, room: u32| {
-        let hi = f64::from(room) - 0.5 - size;
-        if hi < -0.5 { -0.5 } else { v.clamp(-0.5, hi) }
-    };
-    let left = (inside(left, bw, w) + 0.5).round() - 0.5;
-    let top = (inside(top, bh, h) + 0.5).round() - 0.5;
-    Some(([left, top], [left + bw, top + bh]))
+    Some((bw, bh))
 }
 
-/// Draws `line` on its dark box at `anchor`.
-pub(crate) fn draw_label(canvas: &mut Canvas, line: &Line, anchor: Anchor, unit: f64) {
+/// Draws `line` on its dark box with the box's top-left corner at `min`.
+pub(crate) fn draw_label(canvas: &mut Canvas, line: &Line, min: [f64; 2], unit: f64) {
+    let (Some((k, asc, _)), Some((bw, bh))) =
+        (metrics(SIZES.label_size * unit), box_size(line, unit))
+    else {
+        return;
+    };
     if line.is_empty() {
         return;
     }
-    let Some((k, asc, _)) = metrics(SIZES.label_size * unit) else {
-        return;
-    };
-    let Some((min, max)) = label_box(line, anchor, unit, canvas.width(), canvas.height()) else {
-        return;
-    };
-    if let Some(path) = rect(min, max) {
+    if let Some(path) = rect(min, [min[0] + bw, min[1] + bh]) {
         canvas.fill(&path, LABEL_BOX, None);
     }
     let pad = SIZES.label_pad * unit;

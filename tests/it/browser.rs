@@ -758,8 +758,8 @@ async fn editor_and_overlay_wear_the_same_marks() {
          "polygon": [[110, 150], [190, 145], [200, 215], [120, 222]]},
         {"kind": "mask", "label": "mat", "source": [200, 110], "mask_png_base64": mask},
         {"kind": "rigid", "label": "trowel",
-         "sources": [[40, 100], [80, 100], [60, 130]],
-         "targets": [[215, 70], [250, 88], [222, 110]]}
+         "sources": [[40, 112], [80, 112], [60, 142]],
+         "targets": [[215, 82], [250, 100], [222, 122]]}
     ]);
     let (st, rev) = s
         .post(

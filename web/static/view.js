@@ -203,11 +203,75 @@ export function polygonPath(ctx, view, pts, closed = true) {
 
 // ---------- labels ----------
 
+/** Whether the segment a–b meets the box min..max (Liang–Barsky clipping). */
+function segmentMeetsBox(a, b, min, max) {
+  let t0 = 0;
+  let t1 = 1;
+  const d = [b[0] - a[0], b[1] - a[1]];
+  for (let k = 0; k < 2; k++) {
+    for (const [p, q] of [[-d[k], a[k] - min[k]], [d[k], max[k] - a[k]]]) {
+      if (p === 0) {
+        if (q < 0) return false;
+      } else if (p < 0) {
+        t0 = Math.max(t0, q / p);
+      } else {
+        t1 = Math.min(t1, q / p);
+      }
+    }
+  }
+  return t0 <= t1;
+}
+
 /**
- * A label on its dark box: up and to the right of `at` (or centred on it), kept inside the
- * frame's rectangle on the canvas. Returns the box [x0, y0, x1, y1].
+ * What labels should not cover, in canvas pixels: marks (discs), arrows (segments with a half
+ * width) and the labels already placed (boxes). The same rule as server/draw/place.rs.
  */
-export function drawLabel(ctx, view, at, text, centred = false, unit = 1) {
+export class Obstacles {
+  constructor() {
+    this.discs = [];
+    this.segments = [];
+    this.boxes = [];
+  }
+
+  disc(c, r) {
+    this.discs.push([c, r]);
+  }
+
+  segment(a, b, hw) {
+    this.segments.push([a, b, hw]);
+  }
+
+  box(min, max) {
+    this.boxes.push([min, max]);
+  }
+
+  /**
+   * How bad a label box at min..max is, 0 when free: for each mark covered, 4 times how far
+   * into it the box reaches (as a share of its radius); 2 for each earlier label overlapped;
+   * 1 for each arrow crossed.
+   */
+  cost(min, max) {
+    let marks = 0;
+    for (const [c, r] of this.discs) {
+      const dx = c[0] - Math.min(max[0], Math.max(min[0], c[0]));
+      const dy = c[1] - Math.min(max[1], Math.max(min[1], c[1]));
+      marks += Math.max(0, (r - Math.hypot(dx, dy)) / r);
+    }
+    const labels = this.boxes.filter(([lo, hi]) => lo[0] < max[0] && min[0] < hi[0] && lo[1] < max[1] && min[1] < hi[1]).length;
+    const arrows = this.segments.filter(([a, b, hw]) => segmentMeetsBox(a, b, [min[0] - hw, min[1] - hw], [max[0] + hw, max[1] + hw])).length;
+    return 4 * marks + 2 * labels + arrows;
+  }
+}
+
+/**
+ * A label on its dark box beside the mark at canvas point `at`, or centred on it, as the
+ * overlay places it (server/draw/place.rs): the first choice is the corner facing away from
+ * `away` (where the mark's arrow heads; up and to the right without one), then the other corner
+ * on the same level, the one on the same side, the opposite one; of those that fit in the
+ * frame, the one of least cost against `obstacles`; none fitting, the first choice moved inside
+ * the frame. The box placed joins `obstacles`. Returns the box [x0, y0, x1, y1].
+ */
+export function drawLabel(ctx, view, at, text, { centred = false, away = null, obstacles = null, unit = 1 } = {}) {
   if (!text) return null;
   ctx.save();
   ctx.font = `${SIZES.label_size * unit}px "DejaVu Sans", sans-serif`;
@@ -219,17 +283,35 @@ export function drawLabel(ctx, view, at, text, centred = false, unit = 1) {
   const bw = Math.ceil(m.width + 2 * pad);
   const bh = Math.ceil(asc + desc + 2 * pad);
   const off = SIZES.label_offset * unit;
-  let left = centred ? at[0] - bw / 2 : at[0] + off;
-  let top = centred ? at[1] - bh / 2 : at[1] - off - bh;
   const [fx0, fy0] = view.toCanvas(-0.5, -0.5);
   const [fx1, fy1] = view.toCanvas(view.W - 0.5, view.H - 0.5);
-  left = Math.max(fx0, Math.min(fx1 - bw, left));
-  top = Math.max(fy0, Math.min(fy1 - bh, top));
+  const fits = ([x, y]) => x >= fx0 && x + bw <= fx1 && y >= fy0 && y + bh <= fy1;
+  let [left, top] = [at[0] - bw / 2, at[1] - bh / 2];
+  if (!centred) {
+    const right = away ? away[0] <= at[0] : true;
+    const above = away ? away[1] >= at[1] : true;
+    const corner = (r, a) => [r ? at[0] + off : at[0] - off - bw, a ? at[1] - off - bh : at[1] + off];
+    const candidates = [corner(right, above), corner(!right, above), corner(right, !above), corner(!right, !above)];
+    let best = null;
+    let bestCost = Infinity;
+    for (const c of candidates) {
+      if (!fits(c)) continue;
+      const cost = obstacles ? obstacles.cost(c, [c[0] + bw, c[1] + bh]) : 0;
+      if (cost < bestCost) {
+        best = c;
+        bestCost = cost;
+      }
+    }
+    [left, top] = best || candidates[0];
+  }
+  left = fx1 - bw < fx0 ? fx0 : Math.max(fx0, Math.min(fx1 - bw, left));
+  top = fy1 - bh < fy0 ? fy0 : Math.max(fy0, Math.min(fy1 - bh, top));
   ctx.fillStyle = css(INKS.label_box);
   ctx.fillRect(left, top, bw, bh);
   ctx.fillStyle = css(INKS.label);
   ctx.fillText(text, left + pad, top + pad + asc);
   ctx.restore();
+  if (obstacles) obstacles.box([left, top], [left + bw, top + bh]);
   return [left, top, left + bw, top + bh];
 }
 
@@ -275,11 +357,11 @@ function hatch(ctx, view, zone) {
 }
 
 /** Labels the no-go zones "no-go 1", "no-go 2", … at their centres, as the overlay does. */
-export function drawZoneLabels(ctx, view, camera) {
+export function drawZoneLabels(ctx, view, camera, obstacles = null) {
   if (!camera) return;
   (camera.no_go_zones || []).forEach((zone, k) => {
-    const c = centroid(zone);
-    if (c) drawLabel(ctx, view, view.toCanvas(c[0], c[1]), `no-go ${k + 1}`, true);
+    const c = zone.length >= 3 && centroid(zone);
+    if (c) drawLabel(ctx, view, view.toCanvas(c[0], c[1]), `no-go ${k + 1}`, { centred: true, obstacles });
   });
 }
 
@@ -520,13 +602,49 @@ export function drawGoal(ctx, view, terms, opts = {}) {
     if (t.target) targetMark(ctx, ...at(t.target), colour, isSel(i, ['target']));
     if (t.source) sourceMark(ctx, ...at(t.source), colour, isSel(i, ['source']));
   });
-  // Labels.
+  // Labels: every mark and drawn arrow is an obstacle, then each label as it is placed.
   if (opts.labels !== false) {
-    if (opts.camera) drawZoneLabels(ctx, view, opts.camera);
-    list.forEach((t, i) => {
-      // Up and to the right of the source (a whole object's first one).
-      const s = t.kind === 'rigid' ? (t.sources || [])[0] : t.source;
-      if (s) drawLabel(ctx, view, at(s), termLabel(t, i));
+    const obstacles = new Obstacles();
+    const rs = SIZES.source_radius + SIZES.casing;
+    const rt = SIZES.target_radius + SIZES.casing;
+    const rf = SIZES.fitted_half * Math.SQRT2 + SIZES.casing;
+    const hl = SIZES.line / 2 + SIZES.casing;
+    const arrowObstacle = (a, b, toMark) => {
+      const g = arrowGeometry(at(a), at(b), toMark);
+      if (g) obstacles.segment(g.from, g.tip, hl);
+    };
+    const anchors = list.map((t, i) => {
+      if (t.kind === 'rigid') {
+        const [ss, ts] = [t.sources || [], t.targets || []];
+        if (!ss.length || ss.length !== ts.length) return null;
+        ss.forEach((s, k) => {
+          obstacles.disc(at(s), rs);
+          obstacles.disc(at(ts[k]), rt);
+          arrowObstacle(s, ts[k], true);
+        });
+        for (const f of (opts.fitted ? opts.fitted(i, t) : null) || []) obstacles.disc(at(f), rf);
+        return [ss[0], ts[0]];
+      }
+      if (!t.source) return null;
+      if (t.kind === 'region' && (!t.polygon || t.polygon.length < 3)) return null;
+      obstacles.disc(at(t.source), rs);
+      let away = null;
+      if (t.kind === 'point' && t.target) {
+        obstacles.disc(at(t.target), rt);
+        away = t.target;
+        arrowObstacle(t.source, t.target, true);
+      }
+      if (t.kind === 'region' && !pointInPolygon(t.polygon, t.source)) away = centroid(t.polygon);
+      if (t.kind === 'mask' && opts.mask) {
+        const m = opts.mask(i, t);
+        if (m && m.centre && !m.covers(t.source[0], t.source[1])) away = m.centre;
+      }
+      if (away && (t.kind === 'region' || t.kind === 'mask')) arrowObstacle(t.source, away, false);
+      return [t.source, away];
+    });
+    if (opts.camera) drawZoneLabels(ctx, view, opts.camera, obstacles);
+    anchors.forEach((a, i) => {
+      if (a) drawLabel(ctx, view, at(a[0]), termLabel(list[i], i), { away: a[1] && at(a[1]), obstacles });
     });
   }
   ctx.restore();
