@@ -29,7 +29,7 @@ pub mod marks;
 mod overlay;
 pub mod palette;
 mod place;
-pub mod text;
+mod text;
 
 pub use overlay::{OverlayItem, ZoneKind, goal_items, render_overlay, unit_for_frame};
 

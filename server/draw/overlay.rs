@@ -18,8 +18,8 @@ pub enum ZoneKind {
     NoGo,
 }
 
-/// One thing to draw, in frame pixel coordinates. A label is drawn on its dark box up and to
-/// the right of the source (empty for none).
+/// One thing to draw, in frame pixel coordinates. A label (empty for none) is drawn on its
+/// dark box beside the source, where it covers least (see [`super::place`]).
 #[derive(Debug, Clone, PartialEq)]
 pub enum OverlayItem {
     /// A point that should reach a target point, within `tolerance_px`.
