@@ -18,7 +18,7 @@
 //!   when the source already lies inside.
 //! - **Tolerance** is the area within the term's tolerance of its target, tinted faintly in the
 //!   kind colour; around a point target it is also ringed by a thin dashed circle. For an area it
-//!   is the band outside the outline.
+//!   is the band outside the outline. A painted area's tolerance is not drawn.
 //! - An **area** is its outline plus a light tint; a **painted area** its painted pixels tinted,
 //!   with the pixels on its edge in full colour. The points of a **whole object** are joined by
 //!   a thin dashed line, before and after.
