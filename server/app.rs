@@ -33,6 +33,12 @@ pub fn app(state: AppState) -> Router {
             "/static",
             // A missing file gets the contract's error body, not an empty 404.
             Router::new()
+                // The marking code, generated from `draw::marks` so the browser and the overlay
+                // draw from the same values.
+                .route(
+                    "/marks.js",
+                    axum::routing::get(crate::draw::marks::serve_browser_module),
+                )
                 .route("/{name}", axum::routing::get(crate::assets::serve))
                 .fallback(|| async { api::not_found() })
                 .layer(axum::middleware::map_response(api::contract_errors)),

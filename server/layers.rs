@@ -22,6 +22,7 @@ mod tests {
             "cookies",
             "strict_json",
             "demo_archive",
+            "draw",
             "SAFETY_CAUTION",
         ];
         let above = |own: &[&'static str]| [own, &["store"], BELOW].concat();
@@ -30,9 +31,8 @@ mod tests {
             "pages" => above(&["pages", "service"]),
             "service" => above(&["service"]),
             "store" => vec!["store"],
-            "scoring" | "images" | "config" | "cookies" | "strict_json" | "demo_archive" => {
-                BELOW.to_vec()
-            }
+            "scoring" | "images" | "config" | "cookies" | "strict_json" | "demo_archive"
+            | "draw" => BELOW.to_vec(),
             "security" => vec!["security", "config", "SAFETY_CAUTION"],
             _ => Vec::new(),
         }

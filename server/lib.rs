@@ -12,6 +12,7 @@ pub mod config;
 pub mod cookies;
 pub mod demo;
 pub mod demo_archive;
+pub mod draw;
 pub mod images;
 mod layers;
 pub mod pages;

@@ -1,10 +1,10 @@
 //! Scoring and export of a stored revision, shared by the HTTP routes and the offline CLI
 //! (`goalsmith cost --bundle …`), so both give the same numbers from the same code.
 
+use crate::draw;
 use crate::images;
 use goalsmith_core::cost::{CostModel, CostResult, MapBatch, PreparedMaps};
-use goalsmith_core::draw::{self, OverlayItem, Rgba8Image, ZoneKind};
-use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec, Term};
+use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec};
 use goalsmith_core::npy;
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
@@ -566,7 +566,7 @@ pub struct Zones<'a> {
     pub no_go: &'a [Vec<[f64; 2]>],
 }
 
-/// The frame with the goal drawn on it, as PNG.
+/// The frame with the goal drawn on it, as PNG (the marking code is `draw::marks`).
 pub fn overlay_png(
     spec: &GoalSpec,
     frame_bytes: &[u8],
@@ -575,79 +575,9 @@ pub fn overlay_png(
     let frame = image::load_from_memory(frame_bytes)
         .map_err(|e| ScoreError::Internal(format!("stored frame unreadable: {e}")))?
         .to_rgba8();
-    let (w, h) = frame.dimensions();
-    let canvas = Rgba8Image::from_rgba(w as usize, h as usize, frame.into_raw())
-        .map_err(|e| ScoreError::Internal(e.to_string()))?;
-    let mut items = Vec::new();
-    if let Some(z) = zones.safe {
-        items.push(OverlayItem::Zone {
-            polygon: z.to_vec(),
-            kind: ZoneKind::Safe,
-            label: String::new(),
-        });
-    }
-    for (k, z) in zones.no_go.iter().enumerate() {
-        items.push(OverlayItem::Zone {
-            polygon: z.clone(),
-            kind: ZoneKind::NoGo,
-            label: format!("no-go {}", k + 1),
-        });
-    }
-    for (i, t) in spec.terms().iter().enumerate() {
-        let label = match &t.label {
-            Some(l) if !l.is_empty() => format!("{} {}", i + 1, l),
-            _ => format!("{}", i + 1),
-        };
-        items.push(match &t.term {
-            Term::Point { source, target } => OverlayItem::PointMove {
-                source: source.to_array(),
-                target: target.to_array(),
-                tolerance_px: t.tolerance_px,
-                label,
-            },
-            Term::Region { source, polygon } => OverlayItem::Region {
-                source: source.to_array(),
-                polygon: polygon.vertices().iter().map(|v| v.to_array()).collect(),
-                tolerance_px: t.tolerance_px,
-                label,
-            },
-            Term::Mask { source, mask } => OverlayItem::Mask {
-                source: source.to_array(),
-                width: mask.width(),
-                height: mask.height(),
-                mask: mask.data().to_vec(),
-                label,
-            },
-            Term::Rigid {
-                sources,
-                targets,
-                fit,
-            } => OverlayItem::RigidMove {
-                sources: sources.iter().map(|s| s.to_array()).collect(),
-                targets: targets.iter().map(|s| s.to_array()).collect(),
-                fitted: sources
-                    .iter()
-                    .map(|s| {
-                        let [x, y] = s.to_array();
-                        let r = fit.rotation;
-                        [
-                            fit.scale * (r[0][0] * x + r[0][1] * y) + fit.translation[0],
-                            fit.scale * (r[1][0] * x + r[1][1] * y) + fit.translation[1],
-                        ]
-                    })
-                    .collect(),
-                label,
-            },
-            Term::Learned { source, .. } => OverlayItem::PointMove {
-                source: source.to_array(),
-                target: source.to_array(),
-                tolerance_px: 0.0,
-                label,
-            },
-        });
-    }
-    let drawn = draw::render_overlay(&canvas, &items);
-    encode_png_with_caution(w, h, &drawn.into_raw())
+    let items = draw::goal_items(spec, zones.safe, zones.no_go);
+    let drawn = draw::render_overlay(&frame, &items);
+    encode_png_with_caution(drawn.width(), drawn.height(), drawn.as_raw())
 }
 
 /// PNG keyword under which overlays carry the safety caution. `Warning` is one of the keywords

@@ -89,7 +89,7 @@ pub async fn cost_map_png(
         let mut rgba = Vec::with_capacity(w * h * 4);
         for (c, dv) in cost.iter().zip(&d) {
             // A square root spreads the near range, where a person decides.
-            rgba.extend_from_slice(&goalsmith_core::draw::palette::heat(
+            rgba.extend_from_slice(&crate::draw::palette::heat(
                 (c / max).sqrt(),
                 *dv <= tolerance,
             ));

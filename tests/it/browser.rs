@@ -685,3 +685,280 @@ async fn editor_end_to_end() {
     b.quit().await.ok();
     a.quit().await.ok();
 }
+
+/// The editor's canvas and the overlay PNG of the same goal, side by side in
+/// `target/screenshots/editor-vs-overlay.png`: both draw in the marking code of
+/// `goalsmith::draw::marks`, so each kind's colour and the zone colours appear in both.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn editor_and_overlay_wear_the_same_marks() {
+    use goalsmith::draw::marks;
+    let Some(driver) = chromedriver("editor_and_overlay_wear_the_same_marks") else {
+        return;
+    };
+    let db = fresh_db(Db::Sqlite, "editor_vs_overlay")
+        .await
+        .expect("sqlite");
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+    let work = tempfile::tempdir().unwrap();
+    let a = browser(&driver, &work.path().join("a")).await;
+    a.goto(&link).await.unwrap();
+    fill(&a, "#display_name", "Ilse Marten").await;
+    fill(&a, "#login", "ilse").await;
+    fill(&a, "#password", "seed trays at noon").await;
+    fill(&a, "#password_again", "seed trays at noon").await;
+    click(&a, "form.stack button.primary").await;
+    wait_js(&a, "return location.pathname === '/';", "home").await;
+    let api = s.token("my team", "editor");
+
+    // A 320 × 240 frame, dark to light, with a camera that has both kinds of zone.
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&api),
+            &json!({"name": "bench", "width": 320, "height": 240,
+                    "safe_zone": [[6, 6], [313, 6], [313, 233], [6, 233]],
+                    "no_go_zones": [[[250, 14], [304, 14], [304, 60], [250, 60]]]}),
+        )
+        .await;
+    assert_eq!(st.as_u16(), 201, "{cam}");
+    let frame_png = {
+        let img = image::RgbImage::from_fn(320, 240, |x, y| {
+            let v = (50 + x * 120 / 320 + y * 30 / 240) as u8;
+            image::Rgb([v, v.saturating_add(8), v])
+        });
+        let mut out = std::io::Cursor::new(Vec::new());
+        img.write_to(&mut out, image::ImageFormat::Png).unwrap();
+        out.into_inner()
+    };
+    let cam_id = cam["id"].as_str().unwrap();
+    let (st, frame) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam_id}/frames"),
+            Some(&api),
+            "image/png",
+            frame_png,
+        )
+        .await;
+    assert_eq!(st.as_u16(), 201, "{frame}");
+    let painted: Vec<bool> = (0..320 * 240)
+        .map(|k| {
+            let (i, j) = ((k % 320) as f64, (k / 320) as f64);
+            ((i - 250.0) / 34.0).powi(2) + ((j - 180.0) / 22.0).powi(2) <= 1.0
+        })
+        .collect();
+    let mask = {
+        use base64::Engine;
+        let png = goalsmith::images::encode_mask(320, 240, &painted).unwrap();
+        base64::engine::general_purpose::STANDARD.encode(png)
+    };
+    let mut terms = json!([
+        {"kind": "point", "label": "pot", "source": [40, 50], "target": [150, 40],
+         "tolerance_px": 10},
+        {"kind": "region", "label": "tray", "source": [40, 200],
+         "polygon": [[110, 150], [190, 145], [200, 215], [120, 222]]},
+        {"kind": "mask", "label": "mat", "source": [200, 110], "mask_png_base64": mask},
+        {"kind": "rigid", "label": "trowel",
+         "sources": [[40, 112], [80, 112], [60, 142]],
+         "targets": [[215, 82], [250, 100], [222, 122]]}
+    ]);
+    let (st, rev) = s
+        .post(
+            "/api/goals",
+            Some(&api),
+            &json!({"name": "one of each", "frame_id": frame["id"], "terms": terms}),
+        )
+        .await;
+    assert_eq!(st.as_u16(), 201, "{rev}");
+    let goal = rev["goal_id"].as_str().unwrap().to_string();
+
+    // The editor at 1:1 without the cost heat: one frame pixel per CSS pixel, as the overlay
+    // of a frame this size draws one mark unit per pixel.
+    a.goto(format!("{}/goals/{goal}", s.base)).await.unwrap();
+    wait_js(
+        &a,
+        "return document.getElementById('editor')?.dataset.ready === '1';",
+        "editor ready",
+    )
+    .await;
+    click(&a, "[data-view=one]").await;
+    js(
+        &a,
+        "const h = document.getElementById('heat-toggle'); if (h.checked) h.click(); return true;",
+    )
+    .await;
+    tokio::time::sleep(Duration::from_millis(300)).await;
+    let shot = a
+        .find(By::Id("stage-canvas"))
+        .await
+        .unwrap()
+        .screenshot_as_png()
+        .await
+        .unwrap();
+    let canvas = image::load_from_memory(&shot).unwrap().to_rgba8();
+    // The frame's part of the canvas: at 1:1 it starts at the view's pan (px, py).
+    let [z, px, py, _, _] = view(&a).await;
+    assert_eq!(z, 1.0);
+    let editor = image::imageops::crop_imm(&canvas, px as u32, py as u32, 320, 240).to_image();
+    let overlay = {
+        let resp = s
+            .client
+            .get(s.url(&format!("/api/goals/{goal}/revisions/1/overlay.png")))
+            .bearer_auth(&api)
+            .send()
+            .await
+            .unwrap();
+        assert_eq!(resp.status().as_u16(), 200);
+        image::load_from_memory(&resp.bytes().await.unwrap())
+            .unwrap()
+            .to_rgba8()
+    };
+
+    // Side by side: the editor's canvas on the left, the overlay on the right.
+    let gap = 12;
+    let (w, h) = (
+        editor.width() + gap + overlay.width(),
+        editor.height().max(overlay.height()),
+    );
+    let mut both = image::RgbaImage::from_pixel(w, h, image::Rgba([255, 255, 255, 255]));
+    image::imageops::overlay(&mut both, &editor, 0, 0);
+    image::imageops::overlay(&mut both, &overlay, i64::from(editor.width() + gap), 0);
+    both.save(screenshots().join("editor-vs-overlay.png"))
+        .unwrap();
+    image::imageops::resize(&both, w * 2, h * 2, image::imageops::FilterType::Nearest)
+        .save(screenshots().join("editor-vs-overlay-x2.png"))
+        .unwrap();
+    // How close the two pictures are, pixel by pixel (text and anti-aliasing differ a little
+    // between the browser and tiny-skia; the marks must not).
+    let close = editor
+        .pixels()
+        .zip(overlay.pixels())
+        .filter(|(p, q)| (0..3).all(|k| p.0[k].abs_diff(q.0[k]) <= 16))
+        .count();
+    let share = close as f64 / f64::from(320 * 240);
+    eprintln!(
+        "editor and overlay agree within 16 levels on {:.1} % of the pixels",
+        share * 100.0
+    );
+
+    // Every kind's colour and both zone colours, solid, in both pictures (a few levels of
+    // slack for the browser's colour handling).
+    let count = |img: &image::RgbaImage, c: marks::Rgba| {
+        img.pixels()
+            .filter(|p| (0..3).all(|k| p.0[k].abs_diff(c.0[k]) <= 2))
+            .count()
+    };
+    for (what, c) in [
+        ("point", marks::POINT),
+        ("region", marks::REGION),
+        ("mask", marks::MASK),
+        ("rigid", marks::RIGID),
+        ("safe zone", marks::SAFE),
+        ("no-go zone", marks::NO_GO),
+        ("label", marks::LABEL_INK),
+    ] {
+        let (in_editor, in_overlay) = (count(&editor, c), count(&overlay, c));
+        assert!(
+            in_editor >= 20 && in_overlay >= 20,
+            "{what} {}: {in_editor} pixels in the editor, {in_overlay} in the overlay",
+            c.hex()
+        );
+    }
+    // The browser loads the same constants the overlay used.
+    let module = s
+        .client
+        .get(s.url("/static/marks.js"))
+        .send()
+        .await
+        .unwrap();
+    assert_eq!(module.status().as_u16(), 200);
+    assert!(
+        module.headers()["content-type"]
+            .to_str()
+            .unwrap()
+            .starts_with("text/javascript")
+    );
+    assert_eq!(
+        module.text().await.unwrap(),
+        goalsmith::draw::marks::browser_module()
+    );
+
+    // Revision 2 moves the pot's target; the comparison draws both, and its legend's swatches
+    // are drawn with the same marks: each kind's swatch is a source disc in that kind's colour.
+    let resp = s
+        .client
+        .get(s.url(&format!("/api/goals/{goal}")))
+        .bearer_auth(&api)
+        .send()
+        .await
+        .unwrap();
+    let tag = etag(&resp).expect("etag");
+    terms[0]["target"] = json!([160, 70]);
+    let (st, _, _) = s
+        .put_goal(
+            &goal,
+            &api,
+            Some(&tag),
+            &json!({"name": "one of each", "frame_id": frame["id"], "terms": terms,
+                    "note": "pot further down"}),
+        )
+        .await;
+    assert_eq!(st.as_u16(), 200);
+    a.set_window_rect(0, 0, 1280, 1300).await.unwrap();
+    a.goto(format!("{}/goals/{goal}/compare?a=1&b=2", s.base))
+        .await
+        .unwrap();
+    wait_js(
+        &a,
+        "return document.getElementById('compare-canvas')?.dataset.ready === '1';",
+        "comparison drawn",
+    )
+    .await;
+    let swatches = js(
+        &a,
+        "return [...document.querySelectorAll('#compare-legend li')].map((li) => [li.dataset.swatch, li.textContent.trim(), [...li.querySelector('canvas').getContext('2d').getImageData(26, 12, 1, 1).data]]);",
+    )
+    .await;
+    let rows = swatches.as_array().expect("legend rows");
+    for (kind, c) in marks::KIND_COLOURS.iter().take(4) {
+        let row = rows
+            .iter()
+            .find(|r| r[0] == "kind" && r[1].as_str().is_some_and(|t| t.contains(kind_words(kind))))
+            .unwrap_or_else(|| panic!("no legend row for {kind}: {swatches}"));
+        assert_eq!(row[2], json!(c.0), "{kind} swatch");
+    }
+    for what in [
+        "older",
+        "newer",
+        "source",
+        "target",
+        "tolerance",
+        "fitted",
+        "area",
+        "painted",
+        "safe",
+        "no_go",
+    ] {
+        assert!(
+            rows.iter().any(|r| r[0] == what),
+            "no legend row {what}: {swatches}"
+        );
+    }
+    a.find(By::Css(".compare-grid section:last-child"))
+        .await
+        .unwrap()
+        .screenshot(&screenshots().join("compare-legend.png"))
+        .await
+        .unwrap();
+    a.quit().await.ok();
+}
+
+/// How the legend names each kind (the editor's tool names).
+fn kind_words(kind: &str) -> &'static str {
+    match kind {
+        "point" => "point to point",
+        "region" => "into an area",
+        "mask" => "onto paint",
+        "rigid" => "whole object",
+        _ => "learned reward",
+    }
+}

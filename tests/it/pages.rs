@@ -661,7 +661,7 @@ async fn preview_and_sets(kind: Db) {
         .to_rgba8();
     assert_eq!(img.dimensions(), (64, 48));
     // The target (40, 30) is within tolerance; a far corner is not.
-    use goalsmith_core::draw::palette;
+    use goalsmith::draw::palette;
     let within = palette::heat(0.0, true);
     assert_eq!(img.get_pixel(40, 30).0, within);
     assert_ne!(img.get_pixel(0, 0).0, within);

@@ -102,6 +102,7 @@ async fn contract_is_strict(s: Server) {
         ("/api/cameras".to_string(), StatusCode::OK),
         (format!("/api/frames/{frame}/image"), StatusCode::OK),
         ("/static/editor.js".to_string(), StatusCode::OK),
+        ("/static/marks.js".to_string(), StatusCode::OK),
         ("/static/no-such-file.js".to_string(), StatusCode::NOT_FOUND),
         ("/api/no-such-route".to_string(), StatusCode::NOT_FOUND),
         ("/healthz".to_string(), StatusCode::OK),

@@ -1,4 +1,4 @@
-"""Reference pixel coverages for goalsmith-core's anti-aliased drawing (server/core/src/draw/raster.rs).
+"""Reference pixel coverages for goalsmith's anti-aliased drawing (tiny-skia, checked in server/draw/tests.rs).
 
 Pixel (i, j) is the square [i - 0.5, i + 0.5] x [j - 0.5, j + 0.5] (the centre of the top-left
 pixel is (0, 0)). The coverage of a pixel by a shape is the area of their intersection, computed

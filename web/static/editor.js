@@ -2,7 +2,10 @@
 // targets, a term list, cost settings, the live cost heat of the selected term, and saving as a
 // new revision with If-Match. Terms are kept exactly in the API's JSON form, so what is saved is
 // what is shown.
-import { View, KIND_COLOUR, arrow, sourceMark, targetMark, polygonPath, drawZones } from './view.js';
+import {
+  View, INKS, KIND_NAME, SIZES, css, kindColour, cased, drawArrow, drawGoal, drawZones, sourceMark, targetMark,
+  polygonPath, retint as retintArea, paintedAt, paintedCentroid, fittedSources,
+} from './view.js';
 import { csrfToken, apiErrorText } from './site.js';
 
 const HIT_PX = 9; // how close (CSS px) a pointer must be to grab a point
@@ -92,13 +95,13 @@ function blankMask() {
   const paint = document.createElement('canvas');
   paint.width = frame.width;
   paint.height = frame.height;
-  const p = paint.getContext('2d');
+  const p = paint.getContext('2d', { willReadFrequently: true });
   p.fillStyle = '#000';
   p.fillRect(0, 0, frame.width, frame.height);
   const tint = document.createElement('canvas');
   tint.width = frame.width;
   tint.height = frame.height;
-  return { paint, tint };
+  return { paint, tint, centre: undefined };
 }
 
 function maskOf(term) {
@@ -119,32 +122,31 @@ function maskOf(term) {
   return m;
 }
 
-function retint(m) {
-  const src = m.paint.getContext('2d').getImageData(0, 0, frame.width, frame.height);
-  const out = m.tint.getContext('2d').createImageData(frame.width, frame.height);
-  for (let i = 0; i < src.data.length; i += 4) {
-    if (src.data[i] >= 128) {
-      out.data[i] = 162;
-      out.data[i + 1] = 119;
-      out.data[i + 2] = 224;
-      out.data[i + 3] = 120;
-    }
-  }
-  m.tint.getContext('2d').putImageData(out, 0, 0);
+/** Redoes the tint of a painted area (all of it, or the frame-pixel box given). */
+function retint(m, box) {
+  const b = box || [0, 0, frame.width, frame.height];
+  retintArea(m.paint, m.tint, kindColour('mask'), b[0], b[1], b[2], b[3]);
+  m.centre = undefined;
+}
+
+/** What the shared goal drawing needs to know of a painted area. */
+function maskInfo(_, term) {
+  const m = maskOf(term);
+  if (m.centre === undefined) m.centre = paintedCentroid(m.paint);
+  return { tint: m.tint, centre: m.centre, covers: (x, y) => paintedAt(m.paint, x, y) };
 }
 
 function paintAt(term, x, y, erase) {
   const m = maskOf(term);
   // Frame point (x, y) is the centre of pixel (x, y): canvas pixel coordinates are offset 0.5.
-  for (const c of [m.paint.getContext('2d'), m.tint.getContext('2d')]) {
-    c.save();
-    if (erase) c.globalCompositeOperation = c === m.paint.getContext('2d') ? 'source-over' : 'destination-out';
-    c.fillStyle = c === m.paint.getContext('2d') ? (erase ? '#000' : '#fff') : 'rgba(162,119,224,.47)';
-    c.beginPath();
-    c.arc(x + 0.5, y + 0.5, brush, 0, Math.PI * 2);
-    c.fill();
-    c.restore();
-  }
+  const c = m.paint.getContext('2d');
+  c.save();
+  c.fillStyle = erase ? '#000' : '#fff';
+  c.beginPath();
+  c.arc(x + 0.5, y + 0.5, brush, 0, Math.PI * 2);
+  c.fill();
+  c.restore();
+  retint(m, [x + 0.5 - brush, y + 0.5 - brush, x + 0.5 + brush, y + 0.5 + brush]);
   term.mask_png_base64 = null; // re-encoded when needed
 }
 
@@ -152,6 +154,22 @@ function encodeMask(term) {
   if (term.kind !== 'mask' || term.mask_png_base64) return;
   const url = maskOf(term).paint.toDataURL('image/png');
   term.mask_png_base64 = url.slice(url.indexOf(',') + 1);
+}
+
+// ---------- fitted positions ----------
+
+// Where a whole-object fit puts the sources is the server's to compute; it comes with the
+// revision (`derived.rigid`). It is shown while the term's points are as saved, and hidden
+// once they are moved, until the next save.
+const fitKey = (t) => JSON.stringify([t.kind, t.sources, t.targets, !!t.allow_scale]);
+let saved = { derived: null, keys: [] };
+
+function rememberSaved(doc) {
+  saved = doc ? { derived: doc.derived, keys: (doc.terms || []).map(fitKey) } : { derived: null, keys: [] };
+}
+
+function fitted(i, t) {
+  return saved.keys[i] === fitKey(t) ? fittedSources(saved.derived, i, t.sources) : null;
 }
 
 // ---------- drawing ----------
@@ -194,135 +212,76 @@ function draw() {
     ctx.drawImage(state.heatImage, view.px, view.py, frame.width * view.z, frame.height * view.z);
   }
   drawZones(ctx, view, camera);
-  state.terms.forEach((t, i) => drawTerm(t, i));
+  drawGoal(ctx, view, state.terms, { camera, fitted, mask: maskInfo, selected: state.selected });
+  drawSelection();
   drawPending();
 }
 
-function drawTerm(t, i) {
-  const sel = state.selected && state.selected.term === i;
-  const colour = KIND_COLOUR[t.kind] || '#ccc';
-  if (t.kind === 'mask') {
-    ctx.imageSmoothingEnabled = false;
-    ctx.drawImage(maskOf(t).tint, view.px, view.py, frame.width * view.z, frame.height * view.z);
-  }
-  if (t.polygon) {
-    polygonPath(ctx, view, t.polygon);
-    ctx.fillStyle = sel ? 'rgba(43,179,185,.28)' : 'rgba(43,179,185,.16)';
-    ctx.fill();
-    ctx.strokeStyle = 'rgba(10,14,16,.8)';
-    ctx.lineWidth = 4;
-    ctx.stroke();
-    ctx.strokeStyle = colour;
-    ctx.lineWidth = sel ? 2.5 : 1.8;
-    ctx.stroke();
-    if (sel) {
-      for (const p of t.polygon) {
-        const [x, y] = view.toCanvas(p[0], p[1]);
-        ctx.fillStyle = '#fff';
-        ctx.fillRect(x - 3.5, y - 3.5, 7, 7);
-        ctx.strokeStyle = '#111';
-        ctx.strokeRect(x - 3.5, y - 3.5, 7, 7);
-      }
-    }
-  }
-  const selH = sel ? state.selected.handle : null;
-  const pairs = [];
-  if (t.source && t.target) pairs.push([t.source, t.target, ['source'], ['target']]);
-  if (t.sources && t.targets) t.sources.forEach((s, k) => pairs.push([s, t.targets[k], ['sources', k], ['targets', k]]));
-  for (const [s, g, hs, hg] of pairs) {
-    const [sx, sy] = view.toCanvas(s[0], s[1]);
-    const [gx, gy] = view.toCanvas(g[0], g[1]);
-    arrow(ctx, sx, sy, gx, gy, colour, sel ? 2.5 : 2);
-    targetMark(ctx, gx, gy, colour, sameHandle(selH, hg));
-    sourceMark(ctx, sx, sy, colour, sameHandle(selH, hs));
-  }
-  if (t.sources && t.sources.length > 1) {
-    // Object moves: outline the object's points so they read as one thing.
+/** Editor only: the corners of the selected area as handles, and a refused point ringed. */
+function drawSelection() {
+  const sel = state.selected && state.terms[state.selected.term];
+  if (sel && sel.polygon) {
     ctx.save();
-    ctx.setLineDash([3, 4]);
-    ctx.strokeStyle = colour;
-    ctx.lineWidth = 1.2;
-    polygonPath(ctx, view, t.sources);
-    ctx.stroke();
-    polygonPath(ctx, view, t.targets);
-    ctx.stroke();
+    ctx.lineWidth = 1;
+    for (const p of sel.polygon) {
+      const [x, y] = view.toCanvas(p[0], p[1]);
+      ctx.fillStyle = css(INKS.selected);
+      ctx.fillRect(x - 3.5, y - 3.5, 7, 7);
+      ctx.strokeStyle = css(INKS.casing);
+      ctx.strokeRect(x - 3.5, y - 3.5, 7, 7);
+    }
     ctx.restore();
   }
-  if (t.source && !t.target) {
-    const [sx, sy] = view.toCanvas(t.source[0], t.source[1]);
-    if (t.polygon && t.polygon.length) {
-      const c = centroid(t.polygon);
-      const [cx, cy] = view.toCanvas(c[0], c[1]);
-      arrow(ctx, sx, sy, cx, cy, colour, 1.6, true);
-    }
-    sourceMark(ctx, sx, sy, colour, sameHandle(selH, ['source']));
-  }
-  if (state.refused && state.refused.term === i) {
-    const h = handlesOf(t).find(([hh]) => hh[0] === state.refused.handle) || handlesOf(t)[0];
+  const r = state.refused;
+  const t = r && state.terms[r.term];
+  if (t) {
+    const h = handlesOf(t).find(([hh]) => hh[0] === r.handle) || handlesOf(t)[0];
     if (h) {
       const [x, y] = view.toCanvas(h[1][0], h[1][1]);
       ctx.save();
-      ctx.strokeStyle = '#ff5a36';
-      ctx.lineWidth = 3;
       ctx.beginPath();
-      ctx.arc(x, y, 15, 0, Math.PI * 2);
-      ctx.stroke();
+      ctx.arc(x, y, 2 * SIZES.target_radius, 0, Math.PI * 2);
+      cased(ctx, SIZES.line * 1.5, INKS.refused, null);
       ctx.restore();
     }
   }
-}
-
-function centroid(pts) {
-  let x = 0;
-  let y = 0;
-  for (const p of pts) {
-    x += p[0];
-    y += p[1];
-  }
-  return [x / pts.length, y / pts.length];
 }
 
 function drawPending() {
   const p = state.pending;
   if (!p) return;
-  const colour = KIND_COLOUR[p.kind];
+  const colour = kindColour(p.kind);
   const cur = cursor ? view.toFrame(cursor[0], cursor[1]) : null;
+  const at = (q) => view.toCanvas(q[0], q[1]);
   if (p.kind === 'point' && p.source) {
-    const [sx, sy] = view.toCanvas(p.source[0], p.source[1]);
-    if (cursor) arrow(ctx, sx, sy, cursor[0], cursor[1], colour, 2, true);
-    sourceMark(ctx, sx, sy, colour, true);
+    if (cursor) drawArrow(ctx, at(p.source), cursor, colour, { dashed: true, toMark: false });
+    sourceMark(ctx, ...at(p.source), colour, true);
   }
   if (p.kind === 'region' && p.source) {
-    const [sx, sy] = view.toCanvas(p.source[0], p.source[1]);
-    sourceMark(ctx, sx, sy, colour, true);
     const pts = cur ? [...p.polygon, cur] : p.polygon;
-    if (pts.length) {
+    if (pts.length > 1) {
       ctx.save();
-      ctx.setLineDash([5, 4]);
-      ctx.strokeStyle = colour;
-      ctx.lineWidth = 2;
-      polygonPath(ctx, view, pts);
-      ctx.stroke();
+      polygonPath(ctx, view, pts, false);
+      cased(ctx, SIZES.line, colour, SIZES.dash);
       ctx.restore();
-      for (const q of p.polygon) {
-        const [x, y] = view.toCanvas(q[0], q[1]);
-        ctx.fillStyle = colour;
-        ctx.fillRect(x - 3, y - 3, 6, 6);
-      }
     }
+    for (const q of p.polygon) {
+      const [x, y] = at(q);
+      ctx.fillStyle = css(colour);
+      ctx.fillRect(x - 3, y - 3, 6, 6);
+    }
+    sourceMark(ctx, ...at(p.source), colour, true);
   }
   if (p.kind === 'rigid') {
     p.sources.forEach((s, k) => {
-      const [sx, sy] = view.toCanvas(s[0], s[1]);
       const g = p.targets[k];
       if (g) {
-        const [gx, gy] = view.toCanvas(g[0], g[1]);
-        arrow(ctx, sx, sy, gx, gy, colour, 2);
-        targetMark(ctx, gx, gy, colour, false);
+        drawArrow(ctx, at(s), at(g), colour);
+        targetMark(ctx, ...at(g), colour, false);
       } else if (p.phase === 'targets' && k === p.targets.length && cursor) {
-        arrow(ctx, sx, sy, cursor[0], cursor[1], colour, 2, true);
+        drawArrow(ctx, at(s), cursor, colour, { dashed: true, toMark: false });
       }
-      sourceMark(ctx, sx, sy, colour, p.phase === 'targets' && k === p.targets.length);
+      sourceMark(ctx, ...at(s), colour, p.phase === 'targets' && k === p.targets.length);
     });
   }
 }
@@ -339,8 +298,6 @@ function describe(t) {
     default: return t.source ? f(t.source) : '';
   }
 }
-
-const KIND_NAME = { point: 'point to point', region: 'into an area', mask: 'onto paint', rigid: 'whole object', learned: 'learned reward' };
 
 function numberField(t, key, labelText, fallback, i) {
   const label = document.createElement('label');
@@ -372,6 +329,7 @@ function renderList() {
   state.terms.forEach((t, i) => {
     const li = document.createElement('li');
     li.className = `term kind-${t.kind}`;
+    li.style.setProperty('--k', css(kindColour(t.kind)));
     if (state.selected && state.selected.term === i) li.classList.add('selected');
     if (state.refused && state.refused.term === i) li.classList.add('refused');
     li.dataset.index = i;
@@ -767,12 +725,16 @@ function finishRigid() {
   hint(HINTS.rigid);
 }
 
+function meanOf(pts) {
+  return [pts.reduce((a, p) => a + p[0], 0) / pts.length, pts.reduce((a, p) => a + p[1], 0) / pts.length];
+}
+
 function rotateTargets(deg) {
   const s = state.selected;
   const t = s && state.terms[s.term];
   if (!t || !t.targets) return;
   remember();
-  const c = centroid(t.targets);
+  const c = meanOf(t.targets);
   const a = (deg * Math.PI) / 180;
   const [cs, sn] = [Math.cos(a), Math.sin(a)];
   t.targets = t.targets.map(([x, y]) => view.clamp(c[0] + (x - c[0]) * cs - (y - c[1]) * sn, c[1] + (x - c[0]) * sn + (y - c[1]) * cs).map(round));
@@ -1016,6 +978,7 @@ async function save(note) {
   });
   if (resp.ok) {
     const rev = await resp.json();
+    rememberSaved(rev);
     state.goalId = rev.goal_id;
     state.etag = resp.headers.get('ETag');
     state.revision = rev.revision;
@@ -1064,6 +1027,7 @@ async function loadLatest(keepMine) {
     openSave();
   } else {
     state.terms = rev.terms;
+    rememberSaved(rev);
     state.cost = rev.cost;
     masks.clear();
     state.selected = null;
@@ -1119,6 +1083,7 @@ function describeZones() {
 // ---------- start ----------
 
 function start() {
+  rememberSaved(data.document);
   syncCost();
   bindCost();
   describeZones();

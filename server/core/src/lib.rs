@@ -11,7 +11,6 @@ pub mod camera;
 pub mod canonical;
 pub mod cost;
 pub mod distance;
-pub mod draw;
 pub mod geometry;
 pub mod goal;
 pub mod names;

@@ -1,7 +1,6 @@
 //! A floating-point painting canvas and signed-distance helpers for the demo scene.
 
-use crate::draw::image::{DrawError, Rgba8Image};
-use crate::draw::raster::{Patch, crossings, finite, segment_distance};
+use crate::raster::{Image, Patch, crossings, finite, segment_distance};
 
 /// Linear RGB-ish working colour, 0..=255 per channel (values are sRGB, mixed naively).
 pub(crate) type Rgb = [f32; 3];
@@ -29,7 +28,7 @@ impl Canvas {
         hi: [f64; 2],
         mut f: impl FnMut(f64, f64, Rgb) -> Option<(Rgb, f32)>,
     ) {
-        let Some(p) = Patch::covering(self.w, self.h, lo, hi, 0.0) else {
+        let Some(p) = Patch::covering(self.w, self.h, lo, hi) else {
             return;
         };
         for j in p.y0..p.y0 + p.h {
@@ -56,7 +55,7 @@ impl Canvas {
         });
     }
 
-    pub fn into_image(self) -> Result<Rgba8Image, DrawError> {
+    pub fn into_image(self) -> Image {
         let mut data = Vec::with_capacity(self.w * self.h * 4);
         for p in &self.px {
             for c in p {
@@ -64,7 +63,11 @@ impl Canvas {
             }
             data.push(255);
         }
-        Rgba8Image::from_rgba(self.w, self.h, data)
+        Image {
+            width: self.w,
+            height: self.h,
+            data,
+        }
     }
 }
 

@@ -12,8 +12,7 @@ mod objects;
 
 use serde::Serialize;
 
-use super::image::MAX_SIDE;
-use super::image::{DrawError, Rgba8Image};
+use crate::raster::{BadSize, Image, check_size};
 use canvas::Box2;
 
 /// Where a seed tray lies.
@@ -106,14 +105,6 @@ pub struct BenchLayout {
     pub spare_spot: Spot,
 }
 
-/// Knobs for painting variations of the bench.
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
-pub struct SceneOptions {
-    /// Moves the small pot (`pots[0]`) by this many frame pixels, e.g. to paint it being slid
-    /// across the bench in a short demo sequence.
-    pub pot_offset: [f64; 2],
-}
-
 /// Design grid size; layouts are stretched from it.
 const DESIGN: [f64; 2] = [640.0, 480.0];
 
@@ -154,17 +145,7 @@ pub(crate) struct Geometry {
     pub trowel_axis: ([f64; 2], [f64; 2]), // tip and unit direction tip → handle
 }
 
-fn check(w: usize, h: usize) -> Result<(), DrawError> {
-    if w == 0 || h == 0 || w > MAX_SIDE || h > MAX_SIDE {
-        return Err(DrawError::BadSize {
-            width: w,
-            height: h,
-        });
-    }
-    Ok(())
-}
-
-pub(crate) fn geometry(w: usize, h: usize, seed: u64, opts: &SceneOptions) -> Geometry {
+pub(crate) fn geometry(w: usize, h: usize, seed: u64) -> Geometry {
     let f = Fit::new(w, h);
     let deg = |d: f64| d.to_radians();
     let mat = Box2 {
@@ -178,7 +159,7 @@ pub(crate) fn geometry(w: usize, h: usize, seed: u64, opts: &SceneOptions) -> Ge
     ];
     let cell = f.l(33.0);
     let rim = f.l(7.0);
-    let mut rng = super::noise::XorShift::new(seed ^ 0x7e11);
+    let mut rng = crate::noise::XorShift::new(seed ^ 0x7e11);
     let mut trays = Vec::new();
     let mut tray_boxes = Vec::new();
     for (name, c, a, rows, cols, sown) in tray_specs {
@@ -220,10 +201,6 @@ pub(crate) fn geometry(w: usize, h: usize, seed: u64, opts: &SceneOptions) -> Ge
         on_mat,
     };
     let mut small = pot("pot_small", 318.0, 380.0, 26.0, false);
-    small.center = [
-        small.center[0] + opts.pot_offset[0],
-        small.center[1] + opts.pot_offset[1],
-    ];
     small.on_mat = mat.sd(small.center[0], small.center[1], 0.0) < -small.radius;
     let pots = vec![
         small,
@@ -287,57 +264,16 @@ pub(crate) fn geometry(w: usize, h: usize, seed: u64, opts: &SceneOptions) -> Ge
     }
 }
 
-/// Where everything is on a `width × height` bench painted with `seed` and `opts`.
-pub fn bench_layout(
-    width: usize,
-    height: usize,
-    seed: u64,
-    opts: &SceneOptions,
-) -> Result<BenchLayout, DrawError> {
-    check(width, height)?;
-    Ok(geometry(width, height, seed, opts).layout)
+/// Where everything is on a `width × height` bench painted with `seed`.
+pub fn bench_layout(width: usize, height: usize, seed: u64) -> Result<BenchLayout, BadSize> {
+    check_size(width, height)?;
+    Ok(geometry(width, height, seed).layout)
 }
 
 /// Paints the potting bench (640 × 480 is the designed size).
-pub fn paint_potting_bench(
-    width: usize,
-    height: usize,
-    seed: u64,
-) -> Result<Rgba8Image, DrawError> {
-    paint_potting_bench_with(width, height, seed, &SceneOptions::default())
-}
-
-/// Paints the potting bench with options (e.g. the small pot moved).
-pub fn paint_potting_bench_with(
-    width: usize,
-    height: usize,
-    seed: u64,
-    opts: &SceneOptions,
-) -> Result<Rgba8Image, DrawError> {
-    check(width, height)?;
-    let g = geometry(width, height, seed, opts);
-    objects::paint(&g, seed)
-}
-
-/// Offsets for a short demo of the small pot being slid from where it stands onto the spare
-/// spot on the mat: `frames` offsets (for [`SceneOptions::pot_offset`]), the first 0 and the
-/// last putting the pot on the spot, easing in and out.
-pub fn slide_offsets(width: usize, height: usize, frames: usize) -> Vec<[f64; 2]> {
-    let g = geometry(width.max(1), height.max(1), 0, &SceneOptions::default());
-    let from = g.layout.pots[0].center;
-    let to = g.layout.spare_spot.center;
-    (0..frames)
-        .map(|k| {
-            let t = if frames > 1 {
-                k as f64 / (frames - 1) as f64
-            } else {
-                0.0
-            };
-            // Gentle ease: mostly steady speed, slower at the start and the end.
-            let e = 0.5 * t + 0.5 * canvas::smoothstep(0.0, 1.0, t);
-            [(to[0] - from[0]) * e, (to[1] - from[1]) * e]
-        })
-        .collect()
+pub fn paint_potting_bench(width: usize, height: usize, seed: u64) -> Result<Image, BadSize> {
+    check_size(width, height)?;
+    Ok(objects::paint(&geometry(width, height, seed), seed))
 }
 
 #[cfg(test)]
@@ -346,7 +282,7 @@ mod tests {
 
     #[test]
     fn layout_is_inside_the_frame_and_consistent() {
-        let l = bench_layout(640, 480, 1, &SceneOptions::default()).unwrap();
+        let l = bench_layout(640, 480, 1).unwrap();
         let inside = |p: [f64; 2]| p[0] > -0.5 && p[0] < 639.5 && p[1] > -0.5 && p[1] < 479.5;
         assert!(l.mat.iter().all(|p| inside(*p)));
         for t in &l.trays {
@@ -382,27 +318,9 @@ mod tests {
         assert!(l.trays[0].seedlings.len() > 10);
         assert!(l.trays[1].seedlings.is_empty());
         // The spare spot lies on the mat.
-        let g = geometry(640, 480, 1, &SceneOptions::default());
+        let g = geometry(640, 480, 1);
         let c = l.spare_spot.center;
         assert!(g.mat.sd(c[0], c[1], 0.0) < -l.spare_spot.radius);
-    }
-
-    #[test]
-    fn slide_ends_on_the_spare_spot_with_the_pot_on_the_mat() {
-        let offs = slide_offsets(640, 480, 12);
-        assert_eq!(offs.len(), 12);
-        assert_eq!(offs[0], [0.0, 0.0]);
-        let last = offs[11];
-        let l = bench_layout(640, 480, 1, &SceneOptions { pot_offset: last }).unwrap();
-        let d = (l.pots[0].center[0] - l.spare_spot.center[0])
-            .hypot(l.pots[0].center[1] - l.spare_spot.center[1]);
-        assert!(d < 1e-9);
-        assert!(l.pots[0].on_mat);
-        let steps: Vec<f64> = offs
-            .windows(2)
-            .map(|w| (w[1][0] - w[0][0]).hypot(w[1][1] - w[0][1]))
-            .collect();
-        assert!(steps.iter().all(|s| *s < 30.0), "{steps:?}");
     }
 
     #[test]
@@ -413,17 +331,6 @@ mod tests {
         assert_eq!(a, b);
         assert_ne!(a, c);
         assert!(paint_potting_bench(0, 10, 1).is_err());
-        assert!(bench_layout(10, 0, 1, &SceneOptions::default()).is_err());
-        // Moving the pot changes the picture.
-        let moved = paint_potting_bench_with(
-            160,
-            120,
-            5,
-            &SceneOptions {
-                pot_offset: [10.0, -8.0],
-            },
-        )
-        .unwrap();
-        assert_ne!(a, moved);
+        assert!(bench_layout(10, 0, 1).is_err());
     }
 }

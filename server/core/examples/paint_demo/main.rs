@@ -1,35 +1,41 @@
-//! Writes the demo scenario's pictures: `cargo run -p goalsmith-core --example paint_demo -- DIR`
+//! Writes the demo scenario: `cargo run -p goalsmith-core --example paint_demo -- DIR`
 //!
-//! DIR/bench.png (the potting bench, 640 × 480), DIR/scene.json (where everything is, in
-//! frame pixels, plus suggested goals) and DIR/slide/0000.png … 0011.png (the small pot slid
-//! onto the spare spot on the mat). Deterministic: the same seed gives the same files.
+//! DIR/bench.png (the potting bench, 640 × 480) and DIR/scene.json (where everything is, in
+//! frame pixels, plus suggested goals), which `serve --demo` loads. Deterministic: the same
+//! seed gives the same files.
+//!
+//! The painter lives here rather than in goalsmith-core, which keeps computation only; it has
+//! its own small raster helpers (`raster.rs`, `lettering.rs`) so the pictures stay exactly
+//! what they were when they were first painted.
+
+mod lettering;
+mod noise;
+mod raster;
+mod scene;
 
 use std::error::Error;
 use std::fs::File;
 use std::io::BufWriter;
 use std::path::Path;
 
-use goalsmith_core::draw::scene::{
-    BenchLayout, SceneOptions, bench_layout, paint_potting_bench_with, slide_offsets,
-};
-use goalsmith_core::draw::{OverlayItem, Rgba8Image, ZoneKind, render_overlay};
 use image::ImageEncoder;
 use image::codecs::png::{CompressionType, FilterType, PngEncoder};
+use raster::Image;
+use scene::{BenchLayout, bench_layout, paint_potting_bench};
 use serde_json::json;
 
 const W: usize = 640;
 const H: usize = 480;
 const SEED: u64 = 20_240_611;
-const SLIDE_FRAMES: usize = 12;
 
-fn write_png(img: &Rgba8Image, path: &Path) -> Result<u64, Box<dyn Error>> {
+fn write_png(img: &Image, path: &Path) -> Result<u64, Box<dyn Error>> {
     let out = BufWriter::new(File::create(path)?);
     let enc = PngEncoder::new_with_quality(out, CompressionType::Best, FilterType::Adaptive);
     // The bench is opaque, so RGB keeps the files a quarter smaller.
     enc.write_image(
         &img.to_rgb(),
-        img.width() as u32,
-        img.height() as u32,
+        img.width as u32,
+        img.height as u32,
         image::ExtendedColorType::Rgb8,
     )?;
     Ok(std::fs::metadata(path)?.len())
@@ -81,7 +87,11 @@ fn pretty(v: &serde_json::Value, indent: usize, out: &mut String) {
     match v {
         Value::Object(o) => {
             out.push_str("{\n");
-            for (k, (key, val)) in o.iter().enumerate() {
+            // Keys sorted, whether or not another crate in the build turned on serde_json's
+            // `preserve_order`.
+            let mut entries: Vec<_> = o.iter().collect();
+            entries.sort_by(|a, b| a.0.cmp(b.0));
+            for (k, (key, val)) in entries.into_iter().enumerate() {
                 out.push_str(&format!("{pad}{}: ", Value::from(key.as_str())));
                 pretty(val, indent + 1, out);
                 out.push_str(if k + 1 < o.len() { ",\n" } else { "\n" });
@@ -156,84 +166,21 @@ fn main() -> Result<(), Box<dyn Error>> {
         .nth(1)
         .unwrap_or_else(|| "demo-data".into());
     let dir = Path::new(&dir);
-    std::fs::create_dir_all(dir.join("slide"))?;
+    std::fs::create_dir_all(dir)?;
 
-    let still = SceneOptions::default();
-    let bench = paint_potting_bench_with(W, H, SEED, &still)?;
+    let bench = paint_potting_bench(W, H, SEED)?;
     let size = write_png(&bench, &dir.join("bench.png"))?;
     println!("bench.png {size} bytes");
 
-    let layout = bench_layout(W, H, SEED, &still)?;
-    let offsets = slide_offsets(W, H, SLIDE_FRAMES);
-    let mut slide = Vec::new();
-    let mut total = size;
-    for (k, off) in offsets.iter().enumerate() {
-        let opts = SceneOptions { pot_offset: *off };
-        let frame = paint_potting_bench_with(W, H, SEED, &opts)?;
-        let name = format!("{k:04}.png");
-        total += write_png(&frame, &dir.join("slide").join(&name))?;
-        let l = bench_layout(W, H, SEED, &opts)?;
-        slide
-            .push(json!({"file": format!("slide/{name}"), "pot_center": round2(l.pots[0].center)}));
-    }
+    let layout = bench_layout(W, H, SEED)?;
     let mut scene = serde_json::to_value(&layout)?;
     scene["image"] = json!("bench.png");
     scene["convention"] =
         json!("pixel coordinates [x, y], x right, y down, centre of the top-left pixel at (0, 0)");
-    scene["slide"] = json!({"pot": layout.pots[0].name, "frames": slide});
     scene["suggested_goals"] = suggestions(&layout);
     let mut text = String::new();
     pretty(&rounded(scene), 0, &mut text);
     std::fs::write(dir.join("scene.json"), text + "\n")?;
-    println!(
-        "{} slide frames, {total} bytes of PNG in all",
-        offsets.len()
-    );
-
-    // A sample overlay for eyeballing (not part of the demo data).
-    if let Some(sample) = std::env::args().nth(2) {
-        let goals = suggestions(&layout);
-        let pt = |v: &serde_json::Value| -> [f64; 2] {
-            [v[0].as_f64().unwrap_or(0.0), v[1].as_f64().unwrap_or(0.0)]
-        };
-        let list = |v: &serde_json::Value| -> Vec<[f64; 2]> {
-            v.as_array()
-                .map(|a| a.iter().map(pt).collect())
-                .unwrap_or_default()
-        };
-        let g = &goals["move_small_pot_onto_mat"];
-        let r = &goals["slide_tray_2_by_mat_edge"];
-        let t = &goals["trowel_to_new_pose"];
-        let targets = list(&t["targets"]);
-        let fitted: Vec<[f64; 2]> = targets.iter().map(|p| [p[0] + 2.0, p[1] - 1.5]).collect();
-        let items = vec![
-            OverlayItem::Zone {
-                polygon: layout.trays[0].corners.to_vec(),
-                kind: ZoneKind::NoGo,
-                label: "no-go".into(),
-            },
-            OverlayItem::PointMove {
-                source: pt(&g["source"]),
-                target: pt(&g["target"]),
-                tolerance_px: 12.0,
-                label: "1".into(),
-            },
-            OverlayItem::Region {
-                source: pt(&r["source"]),
-                polygon: list(&r["polygon"]),
-                tolerance_px: 10.0,
-                label: "2".into(),
-            },
-            OverlayItem::RigidMove {
-                sources: list(&t["sources"]),
-                targets,
-                fitted,
-                label: "3a".into(),
-            },
-        ];
-        let over = render_overlay(&bench, &items);
-        write_png(&over, Path::new(&sample))?;
-        println!("sample overlay written to {sample}");
-    }
+    println!("scene.json written");
     Ok(())
 }

@@ -3,10 +3,9 @@
 
 use super::Geometry;
 use super::canvas::{Box2, Canvas, Rgb, edge, lerp, polygon_sd, scale, smoothstep};
-use crate::draw::font::TextStyle;
-use crate::draw::image::{Color, DrawError, Rgba8Image};
-use crate::draw::noise::{XorShift, fbm, lattice, value_noise};
-use crate::draw::raster::Patch;
+use crate::lettering;
+use crate::noise::{XorShift, fbm, lattice, value_noise};
+use crate::raster::{Image, Patch};
 
 /// Trowel blade: distance from the tip to the shoulders and their half width (design px).
 pub(crate) const SHOULDER_T: f64 = 56.0;
@@ -90,7 +89,7 @@ fn shadow(
     });
 }
 
-pub(crate) fn paint(g: &Geometry, seed: u64) -> Result<Rgba8Image, DrawError> {
+pub(crate) fn paint(g: &Geometry, seed: u64) -> Image {
     let l = &g.layout;
     let mut cv = Canvas::new(l.width, l.height);
     let s = g.fit.s;
@@ -129,24 +128,16 @@ pub(crate) fn paint(g: &Geometry, seed: u64) -> Result<Rgba8Image, DrawError> {
             &mut rng,
         );
     }
-    let mut img = cv.into_image()?;
-    // The stake's writing, in marker pen.
-    let (w, h) = crate::draw::font::text_size(&l.stake.text, 2);
+    let mut img = cv.into_image();
+    // The stake's writing, in marker pen: letter cells on whole pixels, so they stay crisp.
+    let (w, h) = lettering::text_size(&l.stake.text, 2);
     let scale = ((2.0 * s).round() as usize).max(1);
     let c = g.stake.world(g.stake.half[0] * 0.22, 0.0);
     let (w, h) = (w as f64 * scale as f64 / 2.0, h as f64 * scale as f64 / 2.0);
-    let style = TextStyle {
-        scale,
-        color: Color::rgba(52, 56, 72, 235),
-        halo: 0.0,
-        halo_color: Color::rgba(0, 0, 0, 0),
-    };
-    let origin = [
-        (c[0] - w / 2.0).round() - 0.5,
-        (c[1] - h / 2.0 + scale as f64).round() - 0.5,
-    ];
-    img.draw_text(origin, &l.stake.text, &style);
-    Ok(img)
+    let x0 = (c[0] - w / 2.0).round() as i64;
+    let y0 = (c[1] - h / 2.0 + scale as f64).round() as i64;
+    lettering::write(&mut img, x0, y0, &l.stake.text, scale, [52, 56, 72, 235]);
+    img
 }
 
 fn paint_wood(cv: &mut Canvas, s: f64, seed: u64) {
