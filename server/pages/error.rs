@@ -97,12 +97,6 @@ impl From<ServiceError> for PageError {
     }
 }
 
-impl From<crate::store::StoreError> for PageError {
-    fn from(e: crate::store::StoreError) -> Self {
-        ServiceError::from(e).into()
-    }
-}
-
 /// Only local paths are followed after sign-in, so a crafted link cannot bounce a person to
 /// another site; anything else becomes the home page.
 pub fn safe_next(next: &str) -> &str {

@@ -192,8 +192,7 @@ pub(super) async fn history(
     Path(id): Path<String>,
 ) -> Result<Response, PageError> {
     let latest = load_revision(&state, &signed.who, &id, None).await?;
-    let rows =
-        store::goals::list_revisions(&state.store, &signed.who.team_id, &latest.goal_id).await?;
+    let rows = goals::revision_rows(&state, &signed.who, &latest.goal_id).await?;
     let revisions = rows
         .iter()
         .rev()

@@ -5,7 +5,7 @@ use super::error::PageError;
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
 use crate::service::auth::{Role, same_secret};
-use crate::service::{AppState, ServiceError, cameras, frames};
+use crate::service::{AppState, ServiceError, cameras, frames, goals, outcomes};
 use crate::store;
 use askama::Template;
 use axum::extract::{FromRequest, Multipart, Path, Query, Request, State};
@@ -99,12 +99,11 @@ pub(super) async fn home(
     signed: Signed,
     Query(query): Query<HomeQuery>,
 ) -> Result<Response, PageError> {
-    let pool = &state.store;
-    let team = &signed.who.team_id;
+    let who = &signed.who;
     let q = query.q.unwrap_or_default().trim().to_lowercase();
-    let camera_rows = store::cameras::list(pool, team).await?;
-    let frame_rows = store::frames::list(pool, team, None).await?;
-    let goal_rows = store::goals::list(pool, team).await?;
+    let camera_rows = cameras::rows(&state, who).await?;
+    let frame_rows = frames::rows(&state, who).await?;
+    let goal_rows = goals::summaries(&state, who).await?;
     let mut frames_per_camera: HashMap<&str, usize> = HashMap::new();
     for f in &frame_rows {
         *frames_per_camera.entry(f.camera_id.as_str()).or_default() += 1;
@@ -174,7 +173,7 @@ pub(super) async fn home(
         .collect();
     let mut goals = Vec::new();
     for g in goal_rows.iter().filter(|g| matches(&q, &g.name)) {
-        let outcomes = store::outcomes::list(pool, team, &g.id).await?;
+        let outcomes = outcomes::rows(&state, who, &g.id).await?;
         let (status, status_class) = outcome_status(&outcomes);
         goals.push(GoalRow {
             id: g.id.clone(),
@@ -186,7 +185,7 @@ pub(super) async fn home(
             status_class,
         });
     }
-    let sets = super::sets::summaries(&state, team)
+    let sets = super::sets::summaries(&state, who)
         .await?
         .into_iter()
         .filter(|s| matches(&q, &s.name))

@@ -71,7 +71,7 @@ impl Chrome {
         headers: &HeaderMap,
         section: &'static str,
     ) -> Self {
-        let teams = crate::store::accounts::memberships_of(&state.store, &signed.info.person_id)
+        let teams = crate::service::accounts::teams_of(state, &signed.info.person_id)
             .await
             .unwrap_or_default()
             .into_iter()

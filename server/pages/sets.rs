@@ -6,9 +6,10 @@ use super::error::PageError;
 use super::home::SetRow;
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
+use crate::service::auth::Principal;
 use crate::service::auth::Role;
 use crate::service::goal_sets::{self, GoalSetInput, ItemInput};
-use crate::service::goals::{Expected, etag_of};
+use crate::service::goals::{self, Expected, etag_of};
 use crate::service::{AppState, ServiceError};
 use crate::store;
 use askama::Template;
@@ -58,8 +59,8 @@ struct SetPage {
 page!(SetsPage, SetPage);
 
 /// The team's goal sets for lists.
-pub(super) async fn summaries(state: &AppState, team: &str) -> Result<Vec<SetRow>, PageError> {
-    let rows = store::goal_sets::list(&state.store, team).await?;
+pub(super) async fn summaries(state: &AppState, who: &Principal) -> Result<Vec<SetRow>, PageError> {
+    let rows = goal_sets::rows(state, who).await?;
     rows.iter()
         .map(|r| {
             Ok(SetRow {
@@ -72,8 +73,8 @@ pub(super) async fn summaries(state: &AppState, team: &str) -> Result<Vec<SetRow
         .collect()
 }
 
-async fn goal_choices(state: &AppState, team: &str) -> Result<Vec<GoalChoice>, PageError> {
-    Ok(store::goals::list(&state.store, team)
+async fn goal_choices(state: &AppState, who: &Principal) -> Result<Vec<GoalChoice>, PageError> {
+    Ok(goals::summaries(state, who)
         .await?
         .into_iter()
         .map(|g| GoalChoice {
@@ -92,8 +93,8 @@ pub(super) async fn list(
 ) -> Result<Response, PageError> {
     let page = SetsPage {
         chrome: Chrome::signed(&state, &signed, &headers, "sets").await,
-        sets: summaries(&state, &signed.who.team_id).await?,
-        goals: goal_choices(&state, &signed.who.team_id).await?,
+        sets: summaries(&state, &signed.who).await?,
+        goals: goal_choices(&state, &signed.who).await?,
         can_edit: signed.can_edit(),
     };
     Ok(ok(&page))
@@ -120,7 +121,7 @@ pub(super) async fn create(
         .find(|(k, _)| k == "name")
         .map(|(_, v)| v.clone())
         .unwrap_or_default();
-    let latest: HashMap<String, i64> = goal_choices(&state, &signed.who.team_id)
+    let latest: HashMap<String, i64> = goal_choices(&state, &signed.who)
         .await?
         .into_iter()
         .map(|g| (g.id, g.revision))
@@ -183,7 +184,7 @@ pub(super) async fn show(
 ) -> Result<Response, PageError> {
     let row = load(&state, &signed, &id).await?;
     let doc = goal_sets::parse(&row)?;
-    let goals = goal_choices(&state, &signed.who.team_id).await?;
+    let goals = goal_choices(&state, &signed.who).await?;
     let latest: HashMap<&str, (&str, i64)> = goals
         .iter()
         .map(|g| (g.id.as_str(), (g.name.as_str(), g.revision)))
@@ -243,7 +244,7 @@ pub(super) async fn update(
         .map(|it| (it.goal_id, it.revision))
         .collect();
     let mut name = row.name.clone();
-    let latest: HashMap<String, i64> = goal_choices(&state, &signed.who.team_id)
+    let latest: HashMap<String, i64> = goal_choices(&state, &signed.who)
         .await?
         .into_iter()
         .map(|g| (g.id, g.revision))

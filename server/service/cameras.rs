@@ -454,3 +454,8 @@ pub async fn resized_intrinsics(
         width: w,
     })
 }
+
+/// The team's cameras as stored (for lists).
+pub async fn rows(state: &AppState, who: &Principal) -> ServiceResult<Vec<CameraRow>> {
+    Ok(store::cameras::list(&state.store, &who.team_id).await?)
+}

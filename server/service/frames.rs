@@ -186,3 +186,8 @@ pub async fn image(
         })?;
     Ok((frame, content_type, bytes))
 }
+
+/// The team's frames as stored, newest first (for lists).
+pub async fn rows(state: &AppState, who: &Principal) -> ServiceResult<Vec<FrameRow>> {
+    Ok(store::frames::list(&state.store, &who.team_id, None).await?)
+}

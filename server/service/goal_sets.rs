@@ -294,6 +294,11 @@ pub async fn bundle(
     }))
 }
 
+/// The team's goal sets as stored (for lists).
+pub async fn rows(state: &AppState, who: &Principal) -> ServiceResult<Vec<GoalSetRow>> {
+    Ok(store::goal_sets::list(&state.store, &who.team_id).await?)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

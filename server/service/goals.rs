@@ -565,6 +565,23 @@ pub async fn list(state: &AppState, who: &Principal) -> ServiceResult<Vec<GoalLi
         .collect())
 }
 
+/// The team's goals as stored, most recently changed first (for lists).
+pub async fn summaries(
+    state: &AppState,
+    who: &Principal,
+) -> ServiceResult<Vec<store::goals::GoalSummary>> {
+    Ok(store::goals::list(&state.store, &who.team_id).await?)
+}
+
+/// Every revision of a team's goal as stored, oldest first.
+pub async fn revision_rows(
+    state: &AppState,
+    who: &Principal,
+    goal_id: &str,
+) -> ServiceResult<Vec<RevisionRow>> {
+    Ok(store::goals::list_revisions(&state.store, &who.team_id, goal_id).await?)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -188,3 +188,12 @@ pub async fn list(state: &AppState, who: &Principal, id: &str) -> ServiceResult<
         },
     })
 }
+
+/// The outcomes of a team's goal as stored.
+pub async fn rows(
+    state: &AppState,
+    who: &Principal,
+    goal_id: &str,
+) -> ServiceResult<Vec<OutcomeRow>> {
+    Ok(store::outcomes::list(&state.store, &who.team_id, goal_id).await?)
+}
