@@ -15,6 +15,20 @@ enum Body {
     Outcome,
     Set,
     Preview,
+    Demo,
+}
+
+/// A ZIP of two frames of the potting camera.
+fn demo_zip(seed: u8) -> Vec<u8> {
+    use std::io::Write;
+    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+    let opts = zip::write::SimpleFileOptions::default();
+    for k in 0..2u8 {
+        z.start_file(format!("{k}.png"), opts).expect("entry");
+        z.write_all(&png(64, 48, seed.wrapping_add(k)))
+            .expect("write");
+    }
+    z.finish().expect("zip").into_inner()
 }
 
 async fn matrix(s: Server) {
@@ -45,6 +59,16 @@ async fn matrix(s: Server) {
         .await;
     assert_eq!(st, StatusCode::CREATED, "{set}");
     let set = set["id"].as_str().unwrap().to_string();
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(&editor),
+            "application/zip",
+            demo_zip(1),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().unwrap().to_string();
 
     // Columns: no token, other team, viewer, editor, owner.
     use StatusCode as S;
@@ -227,6 +251,24 @@ async fn matrix(s: Server) {
             Body::None,
             [unauth, nf, ok, ok, ok],
         ),
+        (
+            Method::POST,
+            format!("/api/cameras/{cam}/demos"),
+            Body::Demo,
+            [unauth, nf, forbidden, created, created],
+        ),
+        (
+            Method::GET,
+            format!("/api/demos/{demo}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/demos/{demo}/frames/1/image"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
         // The editor's live cost preview writes nothing, so viewers may use it.
         (
             Method::POST,
@@ -244,7 +286,9 @@ async fn matrix(s: Server) {
                     .replace(&frame, "{id}")
                     .replace(&goal, "{id}")
                     .replace(&set, "{id}")
-                    .replacen("/revisions/1", "/revisions/{n}", 1),
+                    .replace(&demo, "{id}")
+                    .replacen("/revisions/1", "/revisions/{n}", 1)
+                    .replacen("/frames/1/", "/frames/{i}/", 1),
             )
         })
         .collect();
@@ -290,6 +334,11 @@ async fn matrix(s: Server) {
                         req = req.header("if-match", etag(&resp).unwrap());
                     }
                     req.json(&json!({"name": "suite", "items": [{"goal_id": goal, "revision": 1}]}))
+                }
+                Body::Demo => {
+                    seed += 1;
+                    req.header("content-type", "application/zip")
+                        .body(demo_zip(seed))
                 }
                 Body::Preview => {
                     req.json(&json!({"goal": point_goal(&frame, "pot to mat"), "point": 0}))
