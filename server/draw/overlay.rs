@@ -6,6 +6,7 @@ use super::marks::{self, ARROW_HEAD, FITTED, Rgba, SIZES, SOURCE, TARGET};
 use super::place::{Anchor, Obstacles, place};
 use super::text::{Line, box_size, draw_label};
 use goalsmith_core::distance::Mask;
+use goalsmith_core::geometry::{PixelPoint, Polygon};
 use goalsmith_core::goal::{GoalSpec, Term};
 use std::sync::Arc;
 
@@ -139,17 +140,7 @@ pub fn goal_items(
             } => OverlayItem::RigidMove {
                 sources: sources.iter().map(|s| s.to_array()).collect(),
                 targets: targets.iter().map(|s| s.to_array()).collect(),
-                fitted: sources
-                    .iter()
-                    .map(|s| {
-                        let [x, y] = s.to_array();
-                        let r = fit.rotation;
-                        [
-                            fit.scale * (r[0][0] * x + r[0][1] * y) + fit.translation[0],
-                            fit.scale * (r[1][0] * x + r[1][1] * y) + fit.translation[1],
-                        ]
-                    })
-                    .collect(),
+                fitted: sources.iter().map(|s| fit.apply(s.to_array())).collect(),
                 tolerance_px,
                 label,
             },
@@ -686,22 +677,15 @@ fn painted_at(w: u32, h: u32, m: &Mask, p: [f64; 2]) -> bool {
     mask_cell(i as u32, j as u32, w, h, m)
 }
 
-/// The mean of the painted pixels' centres, in the coordinates of a `w × h` frame.
+/// The mean of the painted pixels' centres (the core's [`Mask::centroid`]), in the coordinates
+/// of a `w × h` frame.
 fn mask_centroid(w: u32, h: u32, m: &Mask) -> Option<[f64; 2]> {
-    let (mw, mh) = (m.width(), m.height());
-    let (mut sx, mut sy, mut n) = (0.0, 0.0, 0usize);
-    for (k, _) in m.data().iter().enumerate().filter(|(_, p)| **p) {
-        sx += (k % mw) as f64;
-        sy += (k / mw) as f64;
-        n += 1;
-    }
-    (n > 0).then(|| {
-        let (fx, fy) = (f64::from(w) / mw as f64, f64::from(h) / mh as f64);
-        [
-            (sx / n as f64 + 0.5) * fx - 0.5,
-            (sy / n as f64 + 0.5) * fy - 0.5,
-        ]
-    })
+    let (fx, fy) = (
+        f64::from(w) / m.width() as f64,
+        f64::from(h) / m.height() as f64,
+    );
+    m.centroid()
+        .map(|[x, y]| [(x + 0.5) * fx - 0.5, (y + 0.5) * fy - 0.5])
 }
 
 fn mean(pts: &[[f64; 2]]) -> Option<[f64; 2]> {
@@ -715,37 +699,25 @@ fn mean(pts: &[[f64; 2]]) -> Option<[f64; 2]> {
     ])
 }
 
-/// The area centroid of a polygon; the vertex mean when it encloses (almost) no area.
-fn centroid(pts: &[[f64; 2]]) -> Option<[f64; 2]> {
-    let m = mean(pts)?;
-    let n = pts.len();
-    let (mut a, mut cx, mut cy) = (0.0, 0.0, 0.0);
-    for k in 0..n {
-        // Relative to the mean, for precision far from the origin.
-        let (p, q) = (pts[k], pts[(k + 1) % n]);
-        let (px, py, qx, qy) = (p[0] - m[0], p[1] - m[1], q[0] - m[0], q[1] - m[1]);
-        let cross = px * qy - qx * py;
-        a += cross;
-        cx += (px + qx) * cross;
-        cy += (py + qy) * cross;
-    }
-    if a.abs() < 1e-9 {
-        return Some(m);
-    }
-    let c = [m[0] + cx / (3.0 * a), m[1] + cy / (3.0 * a)];
-    finite(c).then_some(c)
+/// The core's polygon of a point list, when it is a valid (simple, non-degenerate) polygon.
+fn checked_polygon(pts: &[[f64; 2]]) -> Option<Polygon> {
+    let vertices = pts
+        .iter()
+        .map(|p| PixelPoint::new(p[0], p[1]).ok())
+        .collect::<Option<Vec<_>>>()?;
+    Polygon::new(vertices).ok()
 }
 
+/// The area centroid of a polygon (the core's [`Polygon::centroid`]); the vertex mean, where a
+/// label still needs an anchor, when the points make no valid polygon.
+fn centroid(pts: &[[f64; 2]]) -> Option<[f64; 2]> {
+    checked_polygon(pts)
+        .and_then(|p| p.centroid())
+        .or_else(|| mean(pts))
+        .filter(|c| finite(*c))
+}
+
+/// Whether `p` is inside or on the polygon (the core's [`Polygon::contains`]).
 fn point_in_polygon(pts: &[[f64; 2]], p: [f64; 2]) -> bool {
-    let mut inside = false;
-    for k in 0..pts.len() {
-        let (a, b) = (pts[k], pts[(k + 1) % pts.len()]);
-        if (a[1] <= p[1]) != (b[1] <= p[1]) {
-            let x = a[0] + (p[1] - a[1]) * (b[0] - a[0]) / (b[1] - a[1]);
-            if x < p[0] {
-                inside = !inside;
-            }
-        }
-    }
-    inside
+    checked_polygon(pts).is_some_and(|poly| poly.contains(p[0], p[1]))
 }

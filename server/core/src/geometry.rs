@@ -155,7 +155,6 @@ impl Polygon {
             |b, v| [b[0].min(v.x), b[1].min(v.y), b[2].max(v.x), b[3].max(v.y)],
         )
     }
-    /// True when `(x, y)` is inside or on the boundary (closed polygon). Exact: points on an
     /// The area centroid (shoelace formula), the centre of mass of the enclosed area; `None`
     /// for a polygon of (numerically) zero area, whose centroid is not defined. The one
     /// centroid of the project: 3-D targets of regions and the overlay's labels use it.
@@ -175,6 +174,7 @@ impl Polygon {
         Some([cx / (3.0 * a), cy / (3.0 * a)])
     }
 
+    /// True when `(x, y)` is inside or on the boundary (closed polygon). Exact: points on an
     /// edge or vertex count as inside whatever the polygon's shape. False for non-finite input.
     pub fn contains(&self, x: f64, y: f64) -> bool {
         if !(x.is_finite() && y.is_finite()) {

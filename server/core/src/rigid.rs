@@ -49,6 +49,15 @@ pub struct RigidFit {
 }
 
 impl RigidFit {
+    /// Where the fitted transform takes `p`: scale · R · p + translation.
+    pub fn apply(&self, p: [f64; 2]) -> [f64; 2] {
+        let r = self.rotation;
+        [
+            self.scale * (r[0][0] * p[0] + r[0][1] * p[1]) + self.translation[0],
+            self.scale * (r[1][0] * p[0] + r[1][1] * p[1]) + self.translation[1],
+        ]
+    }
+
     /// atan2(R10, R00) in degrees, in image coordinates (x right, y down).
     pub fn rotation_deg(&self) -> f64 {
         self.rotation[1][0].atan2(self.rotation[0][0]).to_degrees()
@@ -272,6 +281,24 @@ mod tests {
             .iter()
             .map(|p| [p[0].as_f64().unwrap(), p[1].as_f64().unwrap()])
             .collect()
+    }
+
+    /// `apply` is the transform the fit reports: on Umeyama's worked example (below) it takes
+    /// (1, 0) to c·R·(1, 0) + t = (0.721·0.832 − 0.8, 0.721·(−0.555) + 0.4) = (−0.2, 0.0),
+    /// exactly (3/5 − 4/5, −2/5 + 2/5), and each residual is |apply(source) − target|.
+    #[test]
+    fn apply_is_the_reported_transform() {
+        let (s, d) = (
+            [[0.0, 0.0], [1.0, 0.0], [0.0, 2.0]],
+            [[0.0, 0.0], [-1.0, 0.0], [0.0, 2.0]],
+        );
+        let f = fit(&s, &d, true).unwrap();
+        let p = f.apply([1.0, 0.0]);
+        assert!((p[0] + 0.2).abs() < 1e-12 && p[1].abs() < 1e-12, "{p:?}");
+        for ((src, dst), r) in s.iter().zip(&d).zip(&f.residuals) {
+            let q = f.apply(*src);
+            assert!(((q[0] - dst[0]).hypot(q[1] - dst[1]) - r).abs() < 1e-12);
+        }
     }
 
     /// Umeyama 1991, section IV ("Examples"): sources (0,0), (1,0), (0,2) onto (0,0), (−1,0),
