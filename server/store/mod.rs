@@ -9,6 +9,7 @@ pub mod demos;
 pub mod frames;
 pub mod goal_sets;
 pub mod goals;
+pub mod operations;
 pub mod outcomes;
 pub mod teams;
 

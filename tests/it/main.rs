@@ -12,6 +12,7 @@ mod export;
 mod goal_sets;
 mod limits;
 mod openapi;
+mod operations;
 mod pages;
 mod probe;
 // Reads the server's peak memory from /proc/<pid>/status.

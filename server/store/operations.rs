@@ -1,0 +1,274 @@
+//! Durable operations: queued, claimed by one worker of one process, with heartbeats.
+
+use super::{Backend, Result, Store, classify, now_ms};
+use sqlx::{Row, any::AnyRow};
+
+/// Where an operation is in its life.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum OpState {
+    /// Waiting for a worker.
+    Queued,
+    /// A worker has it.
+    Running,
+    /// Done, with a result.
+    Succeeded,
+    /// Done, with an error.
+    Failed,
+    /// Stopped on request.
+    Cancelled,
+}
+
+impl OpState {
+    /// The stored name.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            OpState::Queued => "queued",
+            OpState::Running => "running",
+            OpState::Succeeded => "succeeded",
+            OpState::Failed => "failed",
+            OpState::Cancelled => "cancelled",
+        }
+    }
+
+    fn column(s: String) -> Result<Self> {
+        Ok(match s.as_str() {
+            "queued" => OpState::Queued,
+            "running" => OpState::Running,
+            "succeeded" => OpState::Succeeded,
+            "failed" => OpState::Failed,
+            "cancelled" => OpState::Cancelled,
+            _ => return Err(super::StoreError::Corrupt(format!("operation state {s:?}"))),
+        })
+    }
+
+    /// Whether the operation has ended (succeeded, failed or cancelled).
+    pub fn is_done(self) -> bool {
+        matches!(
+            self,
+            OpState::Succeeded | OpState::Failed | OpState::Cancelled
+        )
+    }
+}
+
+/// A stored operation.
+#[derive(Debug, Clone)]
+pub struct OperationRow {
+    /// Operation id.
+    pub id: String,
+    /// Its team.
+    pub team_id: String,
+    /// What kind of work (`track`, …).
+    pub kind: String,
+    /// Where it is.
+    pub state: OpState,
+    /// What to do, JSON.
+    pub input: String,
+    /// 0..1.
+    pub progress: f64,
+    /// The result, JSON, once succeeded.
+    pub result: Option<String>,
+    /// Why it failed.
+    pub error: Option<String>,
+    /// Times it was claimed.
+    pub attempts: i64,
+    /// Whether someone asked to cancel it.
+    pub cancel_requested: bool,
+    /// Created, unix ms.
+    pub created_at: i64,
+}
+
+const COLUMNS: &str = "id, team_id, kind, state, input, progress, result, error, attempts, \
+                       cancel_requested, created_at";
+
+fn from_row(r: &AnyRow) -> Result<OperationRow> {
+    Ok(OperationRow {
+        id: r.get(0),
+        team_id: r.get(1),
+        kind: r.get(2),
+        state: OpState::column(r.get(3))?,
+        input: r.get(4),
+        progress: r.get(5),
+        result: r.get(6),
+        error: r.get(7),
+        attempts: r.get(8),
+        cancel_requested: r.get::<i64, _>(9) != 0,
+        created_at: r.get(10),
+    })
+}
+
+/// Queues an operation; returns its id.
+pub async fn create(store: &Store, team_id: &str, kind: &str, input: &str) -> Result<String> {
+    let id = uuid::Uuid::new_v4().to_string();
+    sqlx::query(
+        "INSERT INTO operations (id, team_id, kind, state, input, progress, attempts, \
+         cancel_requested, created_at) VALUES ($1, $2, $3, 'queued', $4, 0, 0, 0, $5)",
+    )
+    .bind(&id)
+    .bind(team_id)
+    .bind(kind)
+    .bind(input)
+    .bind(now_ms())
+    .execute(store.pool())
+    .await
+    .map_err(classify)?;
+    Ok(id)
+}
+
+/// A team's operation.
+pub async fn get(store: &Store, team_id: &str, id: &str) -> Result<Option<OperationRow>> {
+    let sql = format!("SELECT {COLUMNS} FROM operations WHERE team_id = $1 AND id = $2");
+    let row = sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(team_id)
+        .bind(id)
+        .fetch_optional(store.pool())
+        .await?;
+    row.as_ref().map(from_row).transpose()
+}
+
+/// Claims the oldest queued operation for `worker`, if any. On PostgreSQL the row is locked
+/// with `FOR UPDATE SKIP LOCKED`, so workers of several processes never claim the same one; on
+/// SQLite the one statement runs under the database's single writer.
+pub async fn claim(store: &Store, worker: &str) -> Result<Option<OperationRow>> {
+    let lock = match store.backend() {
+        Backend::Postgres => " FOR UPDATE SKIP LOCKED",
+        Backend::Sqlite => "",
+    };
+    let now = now_ms();
+    let sql = format!(
+        "UPDATE operations SET state = 'running', worker = $1, heartbeat_at = $2, \
+         started_at = COALESCE(started_at, $2), attempts = attempts + 1 \
+         WHERE id = (SELECT id FROM operations WHERE state = 'queued' \
+                     ORDER BY created_at, id LIMIT 1{lock}) \
+         AND state = 'queued' RETURNING {COLUMNS}"
+    );
+    let row = sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(worker)
+        .bind(now)
+        .fetch_optional(store.pool())
+        .await
+        .map_err(classify)?;
+    row.as_ref().map(from_row).transpose()
+}
+
+/// Records progress and that `worker` is alive; returns whether a cancel was asked for, or
+/// `None` when the operation is no longer this worker's (it was given up as stale).
+pub async fn heartbeat(
+    store: &Store,
+    id: &str,
+    worker: &str,
+    progress: f64,
+) -> Result<Option<bool>> {
+    let row = sqlx::query(
+        "UPDATE operations SET heartbeat_at = $1, progress = $2 \
+         WHERE id = $3 AND worker = $4 AND state = 'running' RETURNING cancel_requested",
+    )
+    .bind(now_ms())
+    .bind(progress)
+    .bind(id)
+    .bind(worker)
+    .fetch_optional(store.pool())
+    .await
+    .map_err(classify)?;
+    Ok(row.map(|r| r.get::<i64, _>(0) != 0))
+}
+
+/// Ends an operation `worker` holds: `Succeeded` with a result, `Failed` with an error, or
+/// `Cancelled`. Returns false when it was not this worker's any more.
+pub async fn finish(
+    store: &Store,
+    id: &str,
+    worker: &str,
+    state: OpState,
+    result: Option<&str>,
+    error: Option<&str>,
+) -> Result<bool> {
+    let progress = if state == OpState::Succeeded {
+        1.0
+    } else {
+        -1.0
+    };
+    let n = sqlx::query(
+        "UPDATE operations SET state = $1, result = $2, error = $3, finished_at = $4, \
+         progress = CASE WHEN $5 >= 0 THEN $5 ELSE progress END \
+         WHERE id = $6 AND worker = $7 AND state = 'running'",
+    )
+    .bind(state.as_str())
+    .bind(result)
+    .bind(error)
+    .bind(now_ms())
+    .bind(progress)
+    .bind(id)
+    .bind(worker)
+    .execute(store.pool())
+    .await
+    .map_err(classify)?
+    .rows_affected();
+    Ok(n == 1)
+}
+
+/// Asks for an operation to stop: a queued one is cancelled at once, a running one when its
+/// worker next sends a heartbeat. Returns false when there is no such operation of the team.
+pub async fn request_cancel(store: &Store, team_id: &str, id: &str) -> Result<bool> {
+    let now = now_ms();
+    let n = sqlx::query(
+        "UPDATE operations SET state = 'cancelled', finished_at = $1, cancel_requested = 1 \
+         WHERE team_id = $2 AND id = $3 AND state = 'queued'",
+    )
+    .bind(now)
+    .bind(team_id)
+    .bind(id)
+    .execute(store.pool())
+    .await
+    .map_err(classify)?
+    .rows_affected();
+    if n == 1 {
+        return Ok(true);
+    }
+    let n =
+        sqlx::query("UPDATE operations SET cancel_requested = 1 WHERE team_id = $1 AND id = $2")
+            .bind(team_id)
+            .bind(id)
+            .execute(store.pool())
+            .await
+            .map_err(classify)?
+            .rows_affected();
+    Ok(n == 1)
+}
+
+/// Gives up operations whose worker stopped sending heartbeats before `stale_before` (unix
+/// ms): each is queued again while it has had fewer than `max_attempts` claims, else failed
+/// with a reason. Returns how many were queued again and how many failed.
+pub async fn recover_stale(
+    store: &Store,
+    stale_before: i64,
+    max_attempts: i64,
+) -> Result<(u64, u64)> {
+    let requeued = sqlx::query(
+        "UPDATE operations SET state = 'queued', worker = NULL \
+         WHERE state = 'running' AND heartbeat_at < $1 AND attempts < $2 \
+         AND cancel_requested = 0",
+    )
+    .bind(stale_before)
+    .bind(max_attempts)
+    .execute(store.pool())
+    .await
+    .map_err(classify)?
+    .rows_affected();
+    let failed = sqlx::query(
+        "UPDATE operations SET state = CASE WHEN cancel_requested = 1 THEN 'cancelled' \
+         ELSE 'failed' END, \
+         error = CASE WHEN cancel_requested = 1 THEN NULL ELSE $1 END, finished_at = $2 \
+         WHERE state = 'running' AND heartbeat_at < $3",
+    )
+    .bind(format!(
+        "the server running it stopped, {max_attempts} times; the input may be too large \
+         for this server"
+    ))
+    .bind(now_ms())
+    .bind(stale_before)
+    .execute(store.pool())
+    .await
+    .map_err(classify)?
+    .rows_affected();
+    Ok((requeued, failed))
+}
