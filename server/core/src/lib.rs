@@ -2,7 +2,8 @@
 //!
 //! Geometry in pixel coordinates (x right, y down, the centre of the top-left pixel at (0, 0)),
 //! camera models, exact distance transforms, rigid fits, the cost of candidate futures against a
-//! goal, and the NPY array format. Nothing here knows about HTTP, databases or async runtimes;
+//! goal, point tracking through a demonstration (pyramidal Lucas–Kanade), and the NPY array
+//! format. Nothing here knows about HTTP, databases or async runtimes;
 //! the crate boundary keeps it that way.
 #![deny(missing_docs)]
 
@@ -16,3 +17,4 @@ pub mod goal;
 pub mod names;
 pub mod npy;
 pub mod rigid;
+pub mod track;
