@@ -13,8 +13,10 @@ pub mod frames;
 pub mod goal_sets;
 pub mod goals;
 pub mod openapi;
+pub mod operations;
 pub mod preview;
 pub mod routes;
+pub mod tracks;
 
 use crate::service::AppState;
 use axum::extract::{DefaultBodyLimit, State};

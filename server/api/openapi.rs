@@ -326,6 +326,8 @@ fn operation(s: &mut Schemas, route: &Route) -> Value {
         ("id", "The id of the object the path names"),
         ("n", "Revision number, from 1"),
         ("i", "Frame number of a demonstration, from 0"),
+        ("track_id", "The id of a track of the demonstration"),
+        ("frame", "Frame number of a demonstration, from 0"),
     ] {
         if path.contains(&format!("{{{name}}}")) {
             params.push(json!({"name": name, "in": "path", "required": true, "description": what, "schema": {"type": "string"}}));

@@ -6,7 +6,9 @@
 
 use super::openapi::{Content, Header, Operation, Reply, SchemaFn};
 use super::preview;
-use super::{AppState, cameras, demos, export, frames, goal_sets, goals, openapi};
+use super::{
+    AppState, cameras, demos, export, frames, goal_sets, goals, openapi, operations, tracks,
+};
 use crate::service;
 use axum::handler::Handler;
 use axum::routing::{MethodFilter, MethodRouter, on};
@@ -244,6 +246,25 @@ pub fn table() -> Vec<Route> {
         Route::get("/api/demos/{id}/frames/{i}/image", "Frame i (from 0) of a demonstration", demos::frame_image)
             .conditional()
             .ok_binary(&["image/png", "image/jpeg"], "the frame's image (GIF frames are stored as PNG)", STORED),
+        Route::post("/api/demos/{id}/tracks", "Start a track: a labelled point placed on one frame, followed through the demo (both ways) by a tracking operation", tracks::start)
+            .json_body::<service::tracks::NewTrack>()
+            .ok::<service::tracks::Started>(202, "the track, with the operation that tracks it", &[]),
+        Route::get("/api/demos/{id}/tracks/{track_id}", "A track: one sample per frame, manual or tracked, with confidence and lost flag", tracks::get_one)
+            .ok::<service::tracks::TrackView>(200, "the track", &[]),
+        Route::put("/api/demos/{id}/tracks/{track_id}/samples/{frame}", "Correct a track at a frame: the sample becomes manual and the frames after it are tracked again, up to the next manual sample", tracks::correct)
+            .json_body::<service::tracks::Correction>()
+            .ok::<service::tracks::Started>(202, "the operation that tracks the frames after it", &[]),
+        Route::get("/api/demos/{id}/tracks.json", "Every track of a demo", tracks::export_json)
+            .ok::<super::Items<service::tracks::TrackView>>(200, "the demo's tracks", &[]),
+        Route::get("/api/demos/{id}/tracks.csv", "Every sample of every track of a demo as CSV: track_id, label, frame, time_s, x, y, origin, confidence, lost", tracks::export_csv)
+            .ok_binary(&["text/csv; charset=utf-8"], "the samples, one row each", &[]),
+        Route::get("/api/operations/{id}", "A long-running operation: kind, progress 0..1, done, error or result", operations::get_one)
+            .ok::<service::operations::OperationView>(200, "the operation", &[]),
+        Route::get("/api/operations/{id}/events", "The operation as server-sent events (event `operation`, data as GET), each time it changes, until it is done", operations::events)
+            .ok_binary(&["text/event-stream"], "a stream of `operation` events", &[]),
+        Route::post("/api/operations/{id}/cancel", "Cancel an operation: at once when queued, at its next heartbeat when running", operations::cancel)
+            .limit(BodyLimit::Default)
+            .ok::<service::operations::OperationView>(202, "the operation as it is now", &[]),
         Route::post("/api/goals", "Create a goal; the body becomes revision 1", goals::create)
             .json_body::<GoalDocument>()
             .ok::<service::goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),

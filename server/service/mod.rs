@@ -17,8 +17,10 @@ pub mod frames;
 pub mod goal_sets;
 pub mod goals;
 pub mod heavy;
+pub mod operations;
 pub mod outcomes;
 pub mod team;
+pub mod tracks;
 
 use crate::config::Limits;
 use crate::store::Store;

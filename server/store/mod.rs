@@ -12,6 +12,7 @@ pub mod goals;
 pub mod operations;
 pub mod outcomes;
 pub mod teams;
+pub mod tracks;
 
 use sqlx::any::{AnyPoolOptions, install_default_drivers};
 use sqlx::{AnyPool, Executor};

@@ -16,6 +16,8 @@ enum Body {
     Set,
     Preview,
     Demo,
+    Track,
+    Sample,
 }
 
 /// A ZIP of two frames of the potting camera.
@@ -69,12 +71,23 @@ async fn matrix(s: Server) {
         .await;
     assert_eq!(st, StatusCode::CREATED, "{demo}");
     let demo = demo["id"].as_str().unwrap().to_string();
+    let (st, started) = s
+        .post(
+            &format!("/api/demos/{demo}/tracks"),
+            Some(&editor),
+            &json!({"label": "rim", "frame": 0, "x": 10.0, "y": 10.0}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let track = started["track_id"].as_str().unwrap().to_string();
+    let op = started["operation_id"].as_str().unwrap().to_string();
 
     // Columns: no token, other team, viewer, editor, owner.
     use StatusCode as S;
-    let (ok, created, unauth, forbidden, nf, invalid) = (
+    let (ok, created, accepted, unauth, forbidden, nf, invalid) = (
         S::OK,
         S::CREATED,
+        S::ACCEPTED,
         S::UNAUTHORIZED,
         S::FORBIDDEN,
         S::NOT_FOUND,
@@ -269,6 +282,54 @@ async fn matrix(s: Server) {
             Body::None,
             [unauth, nf, ok, ok, ok],
         ),
+        (
+            Method::POST,
+            format!("/api/demos/{demo}/tracks"),
+            Body::Track,
+            [unauth, nf, forbidden, accepted, accepted],
+        ),
+        (
+            Method::GET,
+            format!("/api/demos/{demo}/tracks/{track}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::PUT,
+            format!("/api/demos/{demo}/tracks/{track}/samples/1"),
+            Body::Sample,
+            [unauth, nf, forbidden, accepted, accepted],
+        ),
+        (
+            Method::GET,
+            format!("/api/demos/{demo}/tracks.json"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/demos/{demo}/tracks.csv"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/operations/{op}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/operations/{op}/events"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::POST,
+            format!("/api/operations/{op}/cancel"),
+            Body::None,
+            [unauth, nf, forbidden, accepted, accepted],
+        ),
         // The editor's live cost preview writes nothing, so viewers may use it.
         (
             Method::POST,
@@ -287,8 +348,11 @@ async fn matrix(s: Server) {
                     .replace(&goal, "{id}")
                     .replace(&set, "{id}")
                     .replace(&demo, "{id}")
+                    .replace(&op, "{id}")
+                    .replace(&track, "{track_id}")
                     .replacen("/revisions/1", "/revisions/{n}", 1)
-                    .replacen("/frames/1/", "/frames/{i}/", 1),
+                    .replacen("/frames/1/", "/frames/{i}/", 1)
+                    .replacen("/samples/1", "/samples/{frame}", 1),
             )
         })
         .collect();
@@ -340,6 +404,8 @@ async fn matrix(s: Server) {
                     req.header("content-type", "application/zip")
                         .body(demo_zip(seed))
                 }
+                Body::Track => req.json(&json!({"label": "rim", "frame": 1, "x": 12.0, "y": 12.0})),
+                Body::Sample => req.json(&json!({"x": 11.0, "y": 11.0})),
                 Body::Preview => {
                     req.json(&json!({"goal": point_goal(&frame, "pot to mat"), "point": 0}))
                 }

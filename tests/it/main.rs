@@ -21,3 +21,4 @@ mod resources;
 mod restart;
 mod review;
 mod routes;
+mod tracks;

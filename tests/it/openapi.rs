@@ -311,6 +311,92 @@ async fn scenario(s: &Server) -> Vec<Sample> {
     )
     .await;
 
+    // A track on it, its operation (polled until done, then its events), a correction, the
+    // exports, and a cancel of the finished operation.
+    let (st, started, _) = c
+        .call(
+            M::POST,
+            "/api/demos/{id}/tracks",
+            &format!("/api/demos/{demo}/tracks"),
+            e,
+            Req::Json(json!({"label": "rim", "frame": 0, "x": 30.0, "y": 20.0})),
+            &[],
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let track = str_of(&started, "track_id");
+    let op = str_of(&started, "operation_id");
+    loop {
+        let (_, v, _) = c
+            .call(
+                M::GET,
+                "/api/operations/{id}",
+                &format!("/api/operations/{op}"),
+                v,
+                Req::None,
+                &[],
+            )
+            .await;
+        if v["done"] == true {
+            break;
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+    }
+    c.call(
+        M::GET,
+        "/api/operations/{id}/events",
+        &format!("/api/operations/{op}/events"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::POST,
+        "/api/operations/{id}/cancel",
+        &format!("/api/operations/{op}/cancel"),
+        e,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::PUT,
+        "/api/demos/{id}/tracks/{track_id}/samples/{frame}",
+        &format!("/api/demos/{demo}/tracks/{track}/samples/1"),
+        e,
+        Req::Json(json!({"x": 31.0, "y": 20.5})),
+        &[],
+    )
+    .await;
+    c.call(
+        M::GET,
+        "/api/demos/{id}/tracks/{track_id}",
+        &format!("/api/demos/{demo}/tracks/{track}"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::GET,
+        "/api/demos/{id}/tracks.json",
+        &format!("/api/demos/{demo}/tracks.json"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::GET,
+        "/api/demos/{id}/tracks.csv",
+        &format!("/api/demos/{demo}/tracks.csv"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+
     // A goal with every term kind that needs no reward fit.
     let mask = {
         let mut painted = vec![false; 64 * 48];

@@ -22,6 +22,8 @@ pub enum NameKind {
     Person,
     /// The label of an API token (which robot or planner holds it).
     TokenLabel,
+    /// The label of a track (which point of a demonstration it follows).
+    TrackLabel,
 }
 
 /// Longest name of a goal, goal set or camera, in characters.
@@ -35,7 +37,9 @@ impl NameKind {
     pub const fn max_chars(self) -> usize {
         match self {
             NameKind::Goal | NameKind::GoalSet | NameKind::Camera => MAX_THING_NAME_CHARS,
-            NameKind::Team | NameKind::Person | NameKind::TokenLabel => MAX_SHORT_NAME_CHARS,
+            NameKind::Team | NameKind::Person | NameKind::TokenLabel | NameKind::TrackLabel => {
+                MAX_SHORT_NAME_CHARS
+            }
         }
     }
 
@@ -48,6 +52,7 @@ impl NameKind {
             NameKind::Team => "a team",
             NameKind::Person => "a person",
             NameKind::TokenLabel => "a token",
+            NameKind::TrackLabel => "a track",
         }
     }
 }

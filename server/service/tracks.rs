@@ -1,0 +1,452 @@
+//! Tracks: the path of one labelled point through a demonstration. A person places the point
+//! on any frame; a durable operation follows it forwards and backwards with pyramidal
+//! Lucas–Kanade and the forward–backward check (`goalsmith_core::track`); a correction at frame
+//! k re-tracks the frames after k up to the next correction. Tracking never overwrites a sample
+//! a person placed.
+
+use super::auth::{Principal, Role};
+use super::demos;
+use super::error::{ServiceError, ServiceResult};
+use super::operations::{self, Progress, RunError};
+use super::{AppState, parse_id};
+use crate::images;
+use crate::store::{
+    self,
+    tracks::{Origin, SampleRow, TrackRow},
+};
+use goalsmith_core::names::{self, NameKind};
+use goalsmith_core::track::{GrayFrame, Pyramid, TrackParams, TrackSample, track_step};
+use schemars::JsonSchema;
+use serde::{Deserialize, Serialize};
+use serde_json::{Value, json};
+
+/// The operation kind of tracking.
+pub const KIND: &str = "track";
+/// Pyramid levels (level 0 included): four, as the tracker's default window and levels are set.
+pub const LEVELS: usize = 4;
+
+/// Body of `POST /api/demos/{id}/tracks`.
+#[derive(Debug, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct NewTrack {
+    /// What the point is, 1 to 100 characters.
+    pub label: String,
+    /// The frame the point is placed on, from 0.
+    pub frame: i64,
+    /// x of the point there, pixels.
+    pub x: f64,
+    /// y of the point there, pixels.
+    pub y: f64,
+}
+
+/// Body of `PUT /api/demos/{id}/tracks/{track_id}/samples/{frame}`.
+#[derive(Debug, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct Correction {
+    /// x of the point in that frame, pixels.
+    pub x: f64,
+    /// y of the point in that frame, pixels.
+    pub y: f64,
+}
+
+/// What starting or correcting a track answers (202): the track, and the operation that
+/// tracks it.
+#[derive(Debug, Serialize, JsonSchema)]
+pub struct Started {
+    /// The operation; poll `GET /api/operations/{id}` or stream its events.
+    pub operation_id: String,
+    /// The track.
+    pub track_id: String,
+}
+
+/// A track as served.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct TrackView {
+    /// Its demo.
+    pub demo_id: String,
+    /// Track id.
+    pub id: String,
+    /// What the point is.
+    pub label: String,
+    /// One sample per frame reached so far, by frame.
+    pub samples: Vec<SampleView>,
+}
+
+/// One sample of a [`TrackView`].
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct SampleView {
+    /// In [0, 1]: 1 where a person placed it, from the forward–backward check where tracked,
+    /// 0 where lost.
+    pub confidence: f64,
+    /// Frame index, from 0.
+    pub frame: i64,
+    /// Whether the point was lost there (it keeps its last seen position).
+    pub lost: bool,
+    /// `manual` (placed by a person) or `tracked`.
+    pub origin: &'static str,
+    /// Seconds from the first frame, when the demo says.
+    pub time_s: Option<f64>,
+    /// x, pixels.
+    pub x: f64,
+    /// y, pixels.
+    pub y: f64,
+}
+
+/// Checks a position a person placed on a demo's frame: finite and on the frame.
+fn check_position(demo: &store::demos::DemoRow, x: f64, y: f64) -> ServiceResult<()> {
+    let on = |v: f64, side: i64| v.is_finite() && v >= -0.5 && v <= side as f64 - 0.5;
+    if !on(x, demo.width) {
+        return Err(ServiceError::invalid(
+            "off_frame",
+            "x",
+            format!(
+                "x must be a number from -0.5 to {}",
+                demo.width as f64 - 0.5
+            ),
+        ));
+    }
+    if !on(y, demo.height) {
+        return Err(ServiceError::invalid(
+            "off_frame",
+            "y",
+            format!(
+                "y must be a number from -0.5 to {}",
+                demo.height as f64 - 0.5
+            ),
+        ));
+    }
+    Ok(())
+}
+
+fn check_frame(demo: &store::demos::DemoRow, frame: i64, field: &str) -> ServiceResult<()> {
+    if frame < 0 || frame >= demo.frame_count {
+        return Err(ServiceError::invalid(
+            "bad_frame",
+            field,
+            format!("the demo has frames 0 to {}", demo.frame_count - 1),
+        ));
+    }
+    Ok(())
+}
+
+/// Starts a track: the point as placed on `frame`, tracked through the rest of the demo by an
+/// operation.
+pub async fn start(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+    input: NewTrack,
+) -> ServiceResult<Started> {
+    who.require(Role::Editor)?;
+    let demo = demos::load(state, who, demo_id).await?;
+    let label = names::check(NameKind::TrackLabel, &input.label)
+        .map_err(|e| ServiceError::invalid(e.code(), "label", e.to_string()))?;
+    check_frame(&demo, input.frame, "frame")?;
+    check_position(&demo, input.x, input.y)?;
+    let row = TrackRow {
+        id: uuid::Uuid::new_v4().to_string(),
+        team_id: who.team_id.clone(),
+        demo_id: demo.id.clone(),
+        label,
+        author: who.author.clone(),
+        created_at: store::now_ms(),
+    };
+    let seed = SampleRow {
+        frame: input.frame,
+        x: input.x,
+        y: input.y,
+        origin: Origin::Manual,
+        confidence: 1.0,
+        lost: false,
+    };
+    store::tracks::insert(&state.store, &row, &seed).await?;
+    let operation_id = operations::queue(
+        state,
+        &who.team_id,
+        KIND,
+        &json!({"track_id": row.id, "from": input.frame, "both_ways": true}),
+    )
+    .await?;
+    Ok(Started {
+        operation_id,
+        track_id: row.id,
+    })
+}
+
+async fn load(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+    track_id: &str,
+) -> ServiceResult<(store::demos::DemoRow, TrackRow)> {
+    let demo = demos::load(state, who, demo_id).await?;
+    let id = parse_id(track_id, "track")?;
+    let track = store::tracks::get(&state.store, &who.team_id, &id)
+        .await?
+        .filter(|t| t.demo_id == demo.id)
+        .ok_or_else(|| ServiceError::NotFound(format!("demo {} has no track {id}", demo.id)))?;
+    Ok((demo, track))
+}
+
+/// A person's correction at frame `frame`: the sample becomes manual there, and the frames
+/// after it are tracked again up to the next manual sample.
+pub async fn correct(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+    track_id: &str,
+    frame: &str,
+    c: Correction,
+) -> ServiceResult<Started> {
+    who.require(Role::Editor)?;
+    let (demo, track) = load(state, who, demo_id, track_id).await?;
+    let frame = Some(frame)
+        .filter(|s| !s.is_empty() && s.bytes().all(|b| b.is_ascii_digit()))
+        .filter(|s| *s == "0" || !s.starts_with('0'))
+        .and_then(|s| s.parse::<i64>().ok())
+        .ok_or_else(|| ServiceError::NotFound(format!("{frame:?} is not a frame number")))?;
+    check_frame(&demo, frame, "frame")?;
+    check_position(&demo, c.x, c.y)?;
+    let sample = SampleRow {
+        frame,
+        x: c.x,
+        y: c.y,
+        origin: Origin::Manual,
+        confidence: 1.0,
+        lost: false,
+    };
+    store::tracks::put_manual(&state.store, &track.id, &sample).await?;
+    let operation_id = operations::queue(
+        state,
+        &who.team_id,
+        KIND,
+        &json!({"track_id": track.id, "from": frame, "both_ways": false}),
+    )
+    .await?;
+    Ok(Started {
+        operation_id,
+        track_id: track.id,
+    })
+}
+
+async fn view_of(
+    state: &AppState,
+    track: TrackRow,
+    times: &[Option<f64>],
+) -> ServiceResult<TrackView> {
+    let samples = store::tracks::samples(&state.store, &track.id).await?;
+    Ok(TrackView {
+        demo_id: track.demo_id,
+        id: track.id,
+        label: track.label,
+        samples: samples
+            .into_iter()
+            .map(|s| SampleView {
+                confidence: s.confidence,
+                frame: s.frame,
+                lost: s.lost,
+                origin: s.origin.as_str(),
+                time_s: usize::try_from(s.frame)
+                    .ok()
+                    .and_then(|k| times.get(k).copied().flatten()),
+                x: s.x,
+                y: s.y,
+            })
+            .collect(),
+    })
+}
+
+async fn frame_times(state: &AppState, demo_id: &str) -> ServiceResult<Vec<Option<f64>>> {
+    Ok(store::demos::frames(&state.store, demo_id)
+        .await?
+        .into_iter()
+        .map(|f| f.time_s)
+        .collect())
+}
+
+/// One track of a demo.
+pub async fn view(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+    track_id: &str,
+) -> ServiceResult<TrackView> {
+    let (demo, track) = load(state, who, demo_id, track_id).await?;
+    let times = frame_times(state, &demo.id).await?;
+    view_of(state, track, &times).await
+}
+
+/// Every track of a demo, oldest first.
+pub async fn all(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+) -> ServiceResult<Vec<TrackView>> {
+    let demo = demos::load(state, who, demo_id).await?;
+    let times = frame_times(state, &demo.id).await?;
+    let mut out = Vec::new();
+    for t in store::tracks::of_demo(&state.store, &demo.id).await? {
+        out.push(view_of(state, t, &times).await?);
+    }
+    Ok(out)
+}
+
+/// The tracks as CSV: one row per sample, `track_id,label,frame,time_s,x,y,origin,confidence,
+/// lost` (RFC 4180 quoting for the label; an unknown time is an empty field).
+pub fn csv(tracks: &[TrackView]) -> String {
+    let mut out = String::from("track_id,label,frame,time_s,x,y,origin,confidence,lost\n");
+    for t in tracks {
+        let label = format!("\"{}\"", t.label.replace('"', "\"\""));
+        for s in &t.samples {
+            let time = s.time_s.map(|v| v.to_string()).unwrap_or_default();
+            out.push_str(&format!(
+                "{},{label},{},{time},{},{},{},{},{}\n",
+                t.id, s.frame, s.x, s.y, s.origin, s.confidence, s.lost
+            ));
+        }
+    }
+    out
+}
+
+/// Runs a tracking operation: `{track_id, from, both_ways}`. Frames are decoded and their
+/// pyramids built one at a time (two are held), so a long demo needs little memory; the result
+/// is written in one transaction, never over a manual sample.
+pub(super) async fn run(
+    state: &AppState,
+    team_id: &str,
+    input: &Value,
+    progress: Progress,
+) -> Result<Value, RunError> {
+    let bad = |what: &str| RunError::Failed(format!("the operation's input lacks {what}"));
+    let track_id = input["track_id"]
+        .as_str()
+        .ok_or_else(|| bad("track_id"))?
+        .to_string();
+    let from = input["from"].as_i64().ok_or_else(|| bad("from"))?;
+    let both_ways = input["both_ways"].as_bool().unwrap_or(false);
+    let track = store::tracks::get(&state.store, team_id, &track_id)
+        .await
+        .map_err(|e| RunError::Failed(e.to_string()))?
+        .ok_or_else(|| RunError::Failed("the track no longer exists".into()))?;
+    let frames = store::demos::frames(&state.store, &track.demo_id)
+        .await
+        .map_err(|e| RunError::Failed(e.to_string()))?;
+    let samples = store::tracks::samples(&state.store, &track.id)
+        .await
+        .map_err(|e| RunError::Failed(e.to_string()))?;
+    let seed = samples
+        .iter()
+        .find(|s| s.frame == from && s.origin == Origin::Manual)
+        .copied()
+        .ok_or_else(|| RunError::Failed(format!("no manual sample at frame {from}")))?;
+    let manual: Vec<i64> = samples
+        .iter()
+        .filter(|s| s.origin == Origin::Manual)
+        .map(|s| s.frame)
+        .collect();
+    let n = frames.len() as i64;
+    // Up to the next manual sample each way (exclusive): those frames have their own seed.
+    let next_manual = manual
+        .iter()
+        .copied()
+        .filter(|&f| f > from)
+        .min()
+        .unwrap_or(n);
+    let prev_manual = manual
+        .iter()
+        .copied()
+        .filter(|&f| f < from)
+        .max()
+        .unwrap_or(-1);
+    let forward: Vec<i64> = (from + 1..next_manual).collect();
+    let backward: Vec<i64> = if both_ways {
+        (prev_manual + 1..from).rev().collect()
+    } else {
+        Vec::new()
+    };
+    let shas: Vec<String> = frames.into_iter().map(|f| f.sha256).collect();
+    let store = state.store.clone();
+    let limits = state.limits.clone();
+    let handle = tokio::runtime::Handle::current();
+    let total = (forward.len() + backward.len()).max(1) as f64;
+    let p = progress.clone();
+    let out = tokio::task::spawn_blocking(move || -> Result<Vec<SampleRow>, RunError> {
+        let load = |k: i64| -> Result<Pyramid, RunError> {
+            let sha = usize::try_from(k)
+                .ok()
+                .and_then(|k| shas.get(k))
+                .ok_or_else(|| RunError::Failed(format!("frame {k} is not in the demo")))?;
+            let (content_type, bytes) = handle
+                .block_on(store::frames::image_bytes(&store, sha))
+                .map_err(|e| RunError::Failed(e.to_string()))?
+                .ok_or_else(|| RunError::Failed(format!("the image of frame {k} is missing")))?;
+            let format = if content_type == "image/png" {
+                image::ImageFormat::Png
+            } else {
+                image::ImageFormat::Jpeg
+            };
+            let img = images::decode(
+                &bytes,
+                format,
+                limits.max_image_side,
+                limits.max_decode_bytes,
+            )
+            .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))?;
+            let luma = img.to_luma8();
+            let frame =
+                GrayFrame::from_u8(luma.width() as usize, luma.height() as usize, luma.as_raw())
+                    .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))?;
+            Ok(Pyramid::build(&frame, LEVELS))
+        };
+        let params = TrackParams::default();
+        let mut out = Vec::new();
+        let mut done = 0.0;
+        for order in [&forward, &backward] {
+            if order.is_empty() {
+                continue;
+            }
+            let mut prev = load(from)?;
+            let mut at = vec![TrackSample {
+                x: seed.x,
+                y: seed.y,
+                confidence: 1.0,
+                lost: seed.lost,
+            }];
+            for &k in order.iter() {
+                if p.stopped() {
+                    return Err(RunError::Stopped);
+                }
+                let next = load(k)?;
+                at = track_step(&prev, &next, &at, &params)
+                    .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))?;
+                let s = at[0];
+                out.push(SampleRow {
+                    frame: k,
+                    x: s.x,
+                    y: s.y,
+                    origin: Origin::Tracked,
+                    confidence: s.confidence,
+                    lost: s.lost,
+                });
+                prev = next;
+                done += 1.0;
+                p.set(done / total);
+            }
+        }
+        Ok(out)
+    })
+    .await
+    .map_err(|e| RunError::Failed(format!("the tracker failed: {e}")))??;
+    if progress.stopped() {
+        return Err(RunError::Stopped);
+    }
+    store::tracks::put_tracked(&state.store, &track.id, &out)
+        .await
+        .map_err(|e| RunError::Failed(e.to_string()))?;
+    let lost_from = out
+        .iter()
+        .filter(|s| s.lost && s.frame > from)
+        .map(|s| s.frame)
+        .min();
+    Ok(json!({"track_id": track.id, "frames": out.len(), "lost_from": lost_from}))
+}

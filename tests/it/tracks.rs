@@ -1,0 +1,311 @@
+//! Tracks through a demonstration: a point placed on one frame is followed both ways by a
+//! durable operation, a correction re-tracks the frames after it and is never overwritten, and
+//! the samples export as JSON and CSV. The frames are a smooth texture moved by a known
+//! sub-pixel shift per frame, so the tracked positions are checked against the truth.
+
+use crate::on_both_databases;
+use crate::support::*;
+use reqwest::StatusCode;
+use serde_json::{Value, json};
+use std::io::Write;
+use std::time::{Duration, Instant};
+
+const W: u32 = 160;
+const H: u32 = 120;
+/// The shift of the texture per frame, px (the truth the tracker is held to).
+const STEP: [f64; 2] = [1.5, 0.75];
+const FRAMES: usize = 8;
+
+/// A smooth texture (three Gaussian blobs and a gentle ripple) shifted by `d`.
+fn frame(d: [f64; 2]) -> Vec<u8> {
+    let img = image::RgbImage::from_fn(W, H, |i, j| {
+        let (x, y) = (f64::from(i) - d[0], f64::from(j) - d[1]);
+        let blob = |cx: f64, cy: f64, s: f64| {
+            (-((x - cx).powi(2) + (y - cy).powi(2)) / (2.0 * s * s)).exp()
+        };
+        let v = 60.0
+            + 120.0 * blob(70.0, 55.0, 9.0)
+            + 80.0 * blob(95.0, 70.0, 6.0)
+            + 60.0 * blob(60.0, 75.0, 7.0)
+            + 15.0 * ((x * 0.21).sin() * (y * 0.17).cos());
+        let g = v.round().clamp(0.0, 255.0) as u8;
+        image::Rgb([g, g, g])
+    });
+    let mut out = std::io::Cursor::new(Vec::new());
+    img.write_to(&mut out, image::ImageFormat::Png)
+        .expect("png");
+    out.into_inner()
+}
+
+fn demo_zip() -> Vec<u8> {
+    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+    let opts = zip::write::SimpleFileOptions::default();
+    for k in 0..FRAMES {
+        let d = [STEP[0] * k as f64, STEP[1] * k as f64];
+        z.start_file(format!("{k:03}.png"), opts).expect("entry");
+        z.write_all(&frame(d)).expect("write");
+    }
+    z.start_file("timestamps.csv", opts).expect("entry");
+    for k in 0..FRAMES {
+        writeln!(z, "{}", k as f64 * 0.05).expect("write");
+    }
+    z.finish().expect("zip").into_inner()
+}
+
+/// Waits for an operation to end (the tracker needs well under a second here; the bound is a
+/// liveness guard, not a speed check).
+async fn finished(s: &Server, token: &str, op: &str) -> Value {
+    let until = Instant::now() + Duration::from_secs(120);
+    loop {
+        let (st, v) = s.get(&format!("/api/operations/{op}"), Some(token)).await;
+        assert_eq!(st, StatusCode::OK, "{v}");
+        if v["done"] == true {
+            return v;
+        }
+        assert!(Instant::now() < until, "operation {op} still {v}");
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+}
+
+fn sample(track: &Value, frame: i64) -> Value {
+    track["samples"]
+        .as_array()
+        .expect("samples")
+        .iter()
+        .find(|s| s["frame"] == frame)
+        .cloned()
+        .unwrap_or_else(|| panic!("no sample at frame {frame} in {track}"))
+}
+
+fn near(s: &Value, want: [f64; 2], tol: f64) {
+    let (x, y) = (s["x"].as_f64().expect("x"), s["y"].as_f64().expect("y"));
+    assert!(
+        (x - want[0]).abs() <= tol && (y - want[1]).abs() <= tol,
+        "{s} is not within {tol} px of {want:?}"
+    );
+}
+
+async fn tracking(s: Server) {
+    let editor = s.token("bench tracks", "editor");
+    let viewer = s.token("bench tracks", "viewer");
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &json!({"name": "side", "width": W, "height": H}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{cam}");
+    let cam = cam["id"].as_str().expect("camera").to_string();
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(&editor),
+            "application/zip",
+            demo_zip(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().expect("demo").to_string();
+    let base = format!("/api/demos/{demo}/tracks");
+
+    // The point on frame 3 at the big blob's centre; the truth moves by STEP per frame.
+    let seed = [70.0 + 3.0 * STEP[0], 55.0 + 3.0 * STEP[1]];
+    let truth = |k: i64| [70.0 + k as f64 * STEP[0], 55.0 + k as f64 * STEP[1]];
+    let (st, started) = s
+        .post(
+            &base,
+            Some(&editor),
+            &json!({"label": "pot rim", "frame": 3, "x": seed[0], "y": seed[1]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let track = started["track_id"].as_str().expect("track").to_string();
+    let op = started["operation_id"]
+        .as_str()
+        .expect("operation")
+        .to_string();
+    let done = finished(&s, &viewer, &op).await;
+    assert_eq!(done["state"], "succeeded", "{done}");
+    assert_eq!(done["kind"], "track");
+    assert_eq!(done["progress"], 1.0);
+    assert_eq!(done["result"]["frames"], FRAMES as i64 - 1);
+    let (st, t) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
+    assert_eq!(st, StatusCode::OK);
+    assert_eq!(t["label"], "pot rim");
+    assert_eq!(t["samples"].as_array().map(Vec::len), Some(FRAMES));
+    assert_eq!(sample(&t, 3)["origin"], "manual");
+    // Tolerance: the texture is rounded to 8-bit grey levels, which moves the Lucas–Kanade
+    // optimum by a few hundredths of a pixel per frame; 0.25 px over 5 frames is generous.
+    for k in 0..FRAMES as i64 {
+        let s_k = sample(&t, k);
+        assert_eq!(s_k["lost"], false, "{s_k}");
+        if k != 3 {
+            assert_eq!(s_k["origin"], "tracked");
+            assert!(s_k["confidence"].as_f64().unwrap_or(0.0) > 0.0);
+        }
+        near(&s_k, truth(k), 0.25);
+        assert_eq!(s_k["time_s"].as_f64(), Some(k as f64 * 0.05));
+    }
+
+    // A correction at frame 5, 3 px to the right of the truth: frames 6 and 7 follow it, the
+    // frames before keep theirs, and the correction itself is never overwritten.
+    let moved = [truth(5)[0] + 3.0, truth(5)[1]];
+    let (st, again) = s
+        .send_json(
+            reqwest::Method::PUT,
+            &format!("{base}/{track}/samples/5"),
+            Some(&editor),
+            &json!({"x": moved[0], "y": moved[1]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{again}");
+    let done = finished(&s, &editor, again["operation_id"].as_str().expect("op")).await;
+    assert_eq!(done["state"], "succeeded", "{done}");
+    assert_eq!(
+        done["result"]["frames"], 2,
+        "only the frames after the correction"
+    );
+    let (_, t2) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
+    let s5 = sample(&t2, 5);
+    assert_eq!(
+        (s5["origin"].as_str(), s5["x"].as_f64()),
+        (Some("manual"), Some(moved[0]))
+    );
+    for k in 6..FRAMES as i64 {
+        let want = [
+            moved[0] + (k - 5) as f64 * STEP[0],
+            moved[1] + (k - 5) as f64 * STEP[1],
+        ];
+        near(&sample(&t2, k), want, 0.5);
+    }
+    for k in 0..5 {
+        assert_eq!(sample(&t2, k), sample(&t, k), "frame {k} kept");
+    }
+    // Tracking from the seed again (a correction at 3) stops before the manual sample at 5.
+    let (st, again) = s
+        .send_json(
+            reqwest::Method::PUT,
+            &format!("{base}/{track}/samples/3"),
+            Some(&editor),
+            &json!({"x": seed[0], "y": seed[1]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED);
+    let done = finished(&s, &editor, again["operation_id"].as_str().expect("op")).await;
+    assert_eq!(done["result"]["frames"], 1, "frame 4 only: 5 is manual");
+    let (_, t3) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
+    assert_eq!(
+        sample(&t3, 5)["x"].as_f64(),
+        Some(moved[0]),
+        "manual sample kept"
+    );
+
+    // Exports: JSON of every track, CSV of every sample.
+    let (st, all) = s
+        .get(&format!("/api/demos/{demo}/tracks.json"), Some(&viewer))
+        .await;
+    assert_eq!(st, StatusCode::OK);
+    assert_eq!(all["items"][0]["id"], track.as_str());
+    let resp = s
+        .client
+        .get(s.url(&format!("/api/demos/{demo}/tracks.csv")))
+        .bearer_auth(&viewer)
+        .send()
+        .await
+        .expect("csv");
+    assert_eq!(resp.status(), StatusCode::OK);
+    let csv = resp.text().await.expect("text");
+    let lines: Vec<&str> = csv.lines().collect();
+    assert_eq!(
+        lines[0],
+        "track_id,label,frame,time_s,x,y,origin,confidence,lost"
+    );
+    assert_eq!(lines.len(), 1 + FRAMES);
+    assert!(
+        lines[6].starts_with(&format!("{track},\"pot rim\",5,0.25,")),
+        "{}",
+        lines[6]
+    );
+    assert!(lines[6].contains(",manual,1,false"), "{}", lines[6]);
+
+    // The events of a finished operation: one `operation` event, done, and the stream ends.
+    let resp = s
+        .client
+        .get(s.url(&format!("/api/operations/{op}/events")))
+        .bearer_auth(&viewer)
+        .send()
+        .await
+        .expect("events");
+    assert_eq!(resp.status(), StatusCode::OK);
+    assert!(
+        resp.headers()["content-type"]
+            .to_str()
+            .unwrap_or("")
+            .starts_with("text/event-stream")
+    );
+    let body = resp.text().await.expect("stream ends");
+    assert!(body.contains("event: operation"), "{body}");
+    assert!(body.contains("\"done\":true"), "{body}");
+
+    // Who may do what, and bad input.
+    let (st, _) = s
+        .post(
+            &base,
+            Some(&viewer),
+            &json!({"label": "x", "frame": 0, "x": 5.0, "y": 5.0}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::FORBIDDEN);
+    for (body, field) in [
+        (
+            json!({"label": "x", "frame": 8, "x": 5.0, "y": 5.0}),
+            "frame",
+        ),
+        (
+            json!({"label": "x", "frame": -1, "x": 5.0, "y": 5.0}),
+            "frame",
+        ),
+        (json!({"label": "x", "frame": 0, "x": 159.6, "y": 5.0}), "x"),
+        (json!({"label": "x", "frame": 0, "x": 5.0, "y": -0.6}), "y"),
+        (
+            json!({"label": "  ", "frame": 0, "x": 5.0, "y": 5.0}),
+            "label",
+        ),
+    ] {
+        let (st, err) = s.post(&base, Some(&editor), &body).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{body}: {err}");
+        assert_eq!(err["error"]["field"], field, "{err}");
+    }
+    let (st, _) = s
+        .post(
+            &base,
+            Some(&editor),
+            &json!({"label": "edge", "frame": 7, "x": 159.5, "y": 119.5}),
+        )
+        .await;
+    assert_eq!(
+        st,
+        StatusCode::ACCEPTED,
+        "the last pixel centre's far edge is on the frame"
+    );
+    let other = s.token("another bench", "editor");
+    let (st, _) = s.get(&format!("/api/operations/{op}"), Some(&other)).await;
+    assert_eq!(st, StatusCode::NOT_FOUND, "another team's operation");
+    let (st, _) = s.get(&format!("{base}/{track}"), Some(&other)).await;
+    assert_eq!(st, StatusCode::NOT_FOUND);
+    let (st, v) = s
+        .post(
+            &format!("/api/operations/{op}/cancel"),
+            Some(&editor),
+            &json!({}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED);
+    assert_eq!(
+        v["state"], "succeeded",
+        "a finished operation stays as it ended"
+    );
+}
+
+on_both_databases!(tracks_through_a_demo, tracking);
