@@ -112,8 +112,9 @@ pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>
     if let Some(lines) = announce {
         eprintln!("{lines}");
     }
-    // Long work (tracking) runs in durable operations: a worker for every two cores.
-    crate::service::operations::start(state.clone(), crate::config::cores().div_ceil(2));
+    // Long work (tracking) runs in durable operations; the sweeper runs in every process, the
+    // workers where configured (by default one for every two cores).
+    crate::service::operations::start(state.clone(), config.limits.operation_workers);
     let store = state.store.clone();
     // With the peer address on each request: the sign-in throttle counts attempts per client.
     let server = axum::serve(

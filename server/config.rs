@@ -34,6 +34,9 @@ pub struct Limits {
     pub signin: SignInLimits,
     /// Demonstration uploads: frames, upload size, decoded bytes, ZIP entry bounds.
     pub demo: crate::demo_archive::DemoLimits,
+    /// Durable operations (tracking) this process runs at once; 0 runs none (another process
+    /// sharing the database does the work).
+    pub operation_workers: usize,
 }
 
 /// How hard the sign-in form may be pushed. The defaults are documented in README.md
@@ -95,6 +98,7 @@ impl Default for Limits {
             model_cache_bytes: 256 << 20,
             signin: SignInLimits::default(),
             demo: crate::demo_archive::DemoLimits::default(),
+            operation_workers: cores().div_ceil(2),
         }
     }
 }
@@ -103,7 +107,8 @@ impl Limits {
     /// The defaults with `GOALSMITH_HEAVY_PERMITS`, `GOALSMITH_HEAVY_QUEUE`,
     /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES` and
     /// `GOALSMITH_MODEL_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
-    /// `GOALSMITH_DEMO_MAX_BYTES` and `GOALSMITH_DEMO_MAX_DECODED_BYTES`, applied where set (whole numbers; permits at least 1; the
+    /// `GOALSMITH_DEMO_MAX_BYTES`, `GOALSMITH_DEMO_MAX_DECODED_BYTES`, and
+    /// `GOALSMITH_OPERATION_WORKERS`, applied where set (whole numbers; permits at least 1; the
     /// queue defaults to 4 × permits). A value that does not parse is an error rather
     /// than silently the default, so a typo in a deployment is seen at start-up.
     pub fn from_env() -> Result<Self, String> {
@@ -137,6 +142,7 @@ impl Limits {
             ("GOALSMITH_MODEL_CACHE_BYTES", &mut l.model_cache_bytes),
             ("GOALSMITH_DEMO_MAX_FRAMES", &mut l.demo.max_frames),
             ("GOALSMITH_DEMO_MAX_BYTES", &mut l.demo.max_archive_bytes),
+            ("GOALSMITH_OPERATION_WORKERS", &mut l.operation_workers),
         ] {
             if let Some(v) = read(name)? {
                 *slot = v;

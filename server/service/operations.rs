@@ -131,10 +131,11 @@ impl From<ServiceError> for RunError {
     }
 }
 
-/// Starts `workers` workers and the sweeper on the current runtime; they run as long as it.
+/// Starts `workers` workers (none for 0) and the sweeper on the current runtime; they run as
+/// long as it.
 pub fn start(state: AppState, workers: usize) {
     let process = uuid::Uuid::new_v4().to_string();
-    for w in 0..workers.max(1) {
+    for w in 0..workers {
         let state = state.clone();
         let worker = format!("{process}/{w}");
         tokio::spawn(async move {

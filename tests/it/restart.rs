@@ -79,3 +79,97 @@ async fn sigterm_exits_cleanly() {
     let code = s.child.wait().unwrap();
     assert!(code.success(), "exit status after SIGTERM: {code:?}");
 }
+
+/// An operation that was running in a process that died is taken up again at the next start
+/// (its heartbeats stopped), and one that has used up its attempts is failed with the reason:
+/// none stays `running` for ever. The dead worker is set up in the database directly.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn operations_of_a_dead_process_are_resumed_or_failed() {
+    let db = fresh_db(Db::Sqlite, "operations_restart").await.unwrap();
+    // No workers: the operations stay queued while the test arranges them.
+    let mut s = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[("GOALSMITH_OPERATION_WORKERS", "0")],
+    );
+    let editor = s.token("durable", "editor");
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &json!({"name": "side", "width": 64, "height": 48}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED);
+    let cam = cam["id"].as_str().unwrap().to_string();
+    let zip = {
+        use std::io::Write;
+        let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+        for k in 0..3u8 {
+            z.start_file(format!("{k}.png"), zip::write::SimpleFileOptions::default())
+                .unwrap();
+            z.write_all(&png(64, 48, k * 30)).unwrap();
+        }
+        z.finish().unwrap().into_inner()
+    };
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(&editor),
+            "application/zip",
+            zip,
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().unwrap().to_string();
+    let mut ops = Vec::new();
+    for label in ["resumed", "given up"] {
+        let (st, v) = s
+            .post(
+                &format!("/api/demos/{demo}/tracks"),
+                Some(&editor),
+                &json!({"label": label, "frame": 0, "x": 20.0, "y": 20.0}),
+            )
+            .await;
+        assert_eq!(st, StatusCode::ACCEPTED, "{v}");
+        ops.push(v["operation_id"].as_str().unwrap().to_string());
+    }
+    s.kill();
+    // Both were running in the dead process a minute ago; the second had used its attempts.
+    sqlx::any::install_default_drivers();
+    let pool = sqlx::AnyPool::connect(&db.url).await.expect("pool");
+    let old = goalsmith::store::now_ms() - 60_000;
+    for (op, attempts) in [(&ops[0], 1i64), (&ops[1], 3)] {
+        sqlx::query("UPDATE operations SET state = 'running', worker = 'dead', heartbeat_at = $1, attempts = $2 WHERE id = $3")
+            .bind(old)
+            .bind(attempts)
+            .bind(op)
+            .execute(&pool)
+            .await
+            .expect("arrange");
+    }
+    pool.close().await;
+    let s = Server::start(&db.url, &db.data_dir, &[]);
+    let until = std::time::Instant::now() + std::time::Duration::from_secs(60);
+    let mut ended = Vec::new();
+    for op in &ops {
+        loop {
+            let (st, v) = s.get(&format!("/api/operations/{op}"), Some(&editor)).await;
+            assert_eq!(st, StatusCode::OK);
+            if v["done"] == true {
+                ended.push(v);
+                break;
+            }
+            assert!(std::time::Instant::now() < until, "still not done: {v}");
+            tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+        }
+    }
+    assert_eq!(ended[0]["state"], "succeeded", "{}", ended[0]);
+    assert_eq!(ended[1]["state"], "failed", "{}", ended[1]);
+    assert!(
+        ended[1]["error"].as_str().unwrap_or("").contains("stopped"),
+        "{}",
+        ended[1]
+    );
+}
