@@ -68,3 +68,19 @@ pub async fn frame_image(
     )
         .into_response())
 }
+
+/// `POST /api/demos/{id}/goal` → 201 with revision 1 of a goal made from the demo's tracks.
+pub async fn make_goal(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+    super::extract::JsonBody(input): super::extract::JsonBody<crate::service::tracks::DemoGoal>,
+) -> ServiceResult<Response> {
+    let rev = crate::service::tracks::make_goal(&state, &who, &id, input).await?;
+    let mut resp = super::goals::revision_response(StatusCode::CREATED, &rev);
+    let location = format!("/api/goals/{}/revisions/1", rev.goal_id);
+    if let Ok(v) = axum::http::HeaderValue::from_str(&location) {
+        resp.headers_mut().insert(header::LOCATION, v);
+    }
+    Ok(resp)
+}

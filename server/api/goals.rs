@@ -45,7 +45,7 @@ pub fn if_none_match(headers: &HeaderMap, etag: &str) -> bool {
         .any(|t| t == "*" || t == etag || t.strip_prefix("W/") == Some(etag))
 }
 
-fn revision_response(status: StatusCode, rev: &RevisionRow) -> Response {
+pub(super) fn revision_response(status: StatusCode, rev: &RevisionRow) -> Response {
     let mut resp = (
         status,
         [(

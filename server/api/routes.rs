@@ -258,6 +258,9 @@ pub fn table() -> Vec<Route> {
             .ok::<super::Items<service::tracks::TrackView>>(200, "the demo's tracks", &[]),
         Route::get("/api/demos/{id}/tracks.csv", "Every sample of every track of a demo as CSV: track_id, label, frame, time_s, x, y, origin, confidence, lost", tracks::export_csv)
             .ok_binary(&["text/csv; charset=utf-8"], "the samples, one row each", &[]),
+        Route::post("/api/demos/{id}/goal", "Make a goal from a demo: its start frame becomes a frame of the camera, each chosen track a point term from its position there to its position at the end frame (or one rigid term over them); checked like any goal, the revision records from_demo", demos::make_goal)
+            .json_body::<service::tracks::DemoGoal>()
+            .ok::<service::goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),
         Route::get("/api/operations/{id}", "A long-running operation: kind, progress 0..1, done, error or result", operations::get_one)
             .ok::<service::operations::OperationView>(200, "the operation", &[]),
         Route::get("/api/operations/{id}/events", "The operation as server-sent events (event `operation`, data as GET), each time it changes, until it is done", operations::events)

@@ -119,6 +119,9 @@ pub struct RevisionDocument {
     pub derived: Derived,
     /// The frame the goal is drawn on.
     pub frame_id: String,
+    /// Present on a revision made from a demonstration (`POST /api/demos/{id}/goal`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub from_demo: Option<FromDemo>,
     /// The goal's id.
     pub goal_id: String,
     /// The goal's name, trimmed.
@@ -280,6 +283,33 @@ pub fn build_revision(
     author: &str,
     created_at: i64,
 ) -> ServiceResult<RevisionRow> {
+    build_revision_from(goal_id, revision, spec, camera, author, created_at, None)
+}
+
+/// Where a goal made from a demonstration came from, recorded in its first revision.
+#[derive(Debug, Clone, Serialize, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct FromDemo {
+    /// The demo.
+    pub demo_id: String,
+    /// Its frame that became the goal's frame (the sources are the tracks' positions there).
+    pub start_frame: i64,
+    /// Its frame whose positions became the targets.
+    pub end_frame: i64,
+    /// The tracks, in term order.
+    pub tracks: Vec<String>,
+}
+
+/// [`build_revision`] of a goal made from a demonstration (`from_demo` is kept in the document).
+pub fn build_revision_from(
+    goal_id: &str,
+    revision: i64,
+    spec: &GoalSpec,
+    camera: &CameraDoc,
+    author: &str,
+    created_at: i64,
+    from_demo: Option<&FromDemo>,
+) -> ServiceResult<RevisionRow> {
     let doc = spec.normalized_document();
     let spec_value = json!({
         "name": doc.name,
@@ -303,6 +333,9 @@ pub fn build_revision(
     m.insert("created_at".into(), json!(rfc3339(created_at)));
     m.insert("sha256".into(), json!(sha256));
     m.insert("derived".into(), to_value(&derived(spec, camera))?);
+    if let Some(f) = from_demo {
+        m.insert("from_demo".into(), to_value(f)?);
+    }
     Ok(RevisionRow {
         goal_id: goal_id.to_string(),
         revision,

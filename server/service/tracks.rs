@@ -450,3 +450,156 @@ pub(super) async fn run(
         .min();
     Ok(json!({"track_id": track.id, "frames": out.len(), "lost_from": lost_from}))
 }
+
+/// Body of `POST /api/demos/{id}/goal`.
+#[derive(Debug, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct DemoGoal {
+    /// The goal's name.
+    pub name: String,
+    /// Tracks of the demo, 1 to 64: one `point` term each, or one `rigid` term over them all.
+    pub tracks: Vec<String>,
+    /// The frame that becomes the goal's frame; the tracks' positions there are the sources.
+    pub start_frame: i64,
+    /// The frame whose positions are the targets.
+    pub end_frame: i64,
+    /// Join the tracks into one `rigid` term (at least 2 tracks) instead of a `point` each.
+    #[serde(default)]
+    pub rigid: bool,
+    /// Why.
+    #[serde(default)]
+    pub note: Option<String>,
+    /// Take targets outside the safe zone or inside a no-go zone anyway (recorded).
+    #[serde(default)]
+    pub override_safety: bool,
+}
+
+/// Most tracks joined into one goal.
+pub const MAX_GOAL_TRACKS: usize = 64;
+
+/// Makes a goal from a demonstration: its start frame becomes a frame of the camera, each
+/// track's position there a source and its position at the end frame the target. The goal is
+/// checked like any other (zones included) and its revision records where it came from.
+pub async fn make_goal(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+    input: DemoGoal,
+) -> ServiceResult<store::goals::RevisionRow> {
+    who.require(Role::Editor)?;
+    let demo = demos::load(state, who, demo_id).await?;
+    check_frame(&demo, input.start_frame, "start_frame")?;
+    check_frame(&demo, input.end_frame, "end_frame")?;
+    if input.tracks.is_empty() || input.tracks.len() > MAX_GOAL_TRACKS {
+        return Err(ServiceError::invalid(
+            "bad_tracks",
+            "tracks",
+            format!("choose 1 to {MAX_GOAL_TRACKS} tracks"),
+        ));
+    }
+    if input.rigid && input.tracks.len() < 2 {
+        return Err(ServiceError::invalid(
+            "bad_tracks",
+            "tracks",
+            "a rigid term needs at least 2 tracks",
+        ));
+    }
+    let mut pairs = Vec::new();
+    let mut ids = Vec::new();
+    for (k, id) in input.tracks.iter().enumerate() {
+        let field = format!("tracks[{k}]");
+        let (_, track) = match load(state, who, &demo.id, id).await {
+            Ok(t) => t,
+            Err(ServiceError::NotFound(m)) => {
+                return Err(ServiceError::invalid("unknown_track", field, m));
+            }
+            Err(e) => return Err(e),
+        };
+        let samples = store::tracks::samples(&state.store, &track.id).await?;
+        let at = |f: i64| -> ServiceResult<[f64; 2]> {
+            match samples.iter().find(|s| s.frame == f) {
+                Some(s) if !s.lost => Ok([s.x, s.y]),
+                Some(_) => Err(ServiceError::invalid(
+                    "lost_sample",
+                    field.clone(),
+                    format!(
+                        "track {:?} is lost at frame {f}; correct it there first",
+                        track.label
+                    ),
+                )),
+                None => Err(ServiceError::invalid(
+                    "no_sample",
+                    field.clone(),
+                    format!("track {:?} has no sample at frame {f} yet", track.label),
+                )),
+            }
+        };
+        pairs.push((
+            track.label.clone(),
+            at(input.start_frame)?,
+            at(input.end_frame)?,
+        ));
+        ids.push(track.id);
+    }
+    // The start frame becomes a frame of the camera (the image is stored once already).
+    let f = store::demos::frame(&state.store, &demo.id, input.start_frame)
+        .await?
+        .ok_or_else(|| ServiceError::Internal("demo frame missing".into()))?;
+    let (content_type, bytes) = store::frames::image_bytes(&state.store, &f.sha256)
+        .await?
+        .ok_or_else(|| ServiceError::Internal(format!("image {} missing", f.sha256)))?;
+    let (frame, _) = store::frames::insert(
+        &state.store,
+        &who.team_id,
+        &demo.camera_id,
+        &store::frames::NewImage {
+            sha256: &f.sha256,
+            content_type: &content_type,
+            width: demo.width,
+            height: demo.height,
+            bytes: &bytes,
+        },
+    )
+    .await?;
+    let terms: Vec<Value> = if input.rigid {
+        vec![json!({
+            "kind": "rigid",
+            "label": pairs.iter().map(|p| p.0.as_str()).collect::<Vec<_>>().join(" + "),
+            "sources": pairs.iter().map(|p| p.1).collect::<Vec<_>>(),
+            "targets": pairs.iter().map(|p| p.2).collect::<Vec<_>>(),
+            "allow_scale": false,
+        })]
+    } else {
+        pairs
+            .iter()
+            .map(|(label, s, t)| json!({"kind": "point", "label": label, "source": s, "target": t}))
+            .collect()
+    };
+    let doc: goalsmith_core::goal::GoalDocument = crate::strict_json::from_value(json!({
+        "name": input.name,
+        "frame_id": frame.id,
+        "terms": terms,
+        "note": input.note,
+        "override_safety": input.override_safety,
+    }))
+    .map_err(|e| ServiceError::invalid_body("bad_goal", e.to_string()))?;
+    let (spec, camera) = super::goals::check_document(state, who, doc).await?;
+    let goal_id = uuid::Uuid::new_v4().to_string();
+    let from = super::goals::FromDemo {
+        demo_id: demo.id.clone(),
+        start_frame: input.start_frame,
+        end_frame: input.end_frame,
+        tracks: ids,
+    };
+    let rev = super::goals::build_revision_from(
+        &goal_id,
+        1,
+        &spec,
+        &camera,
+        &who.author,
+        store::now_ms(),
+        Some(&from),
+    )?;
+    store::goals::create(&state.store, &who.team_id, &rev).await?;
+    Ok(rev)
+}

@@ -18,6 +18,7 @@ enum Body {
     Demo,
     Track,
     Sample,
+    DemoGoal,
 }
 
 /// A ZIP of two frames of the potting camera.
@@ -301,6 +302,12 @@ async fn matrix(s: Server) {
             [unauth, nf, forbidden, accepted, accepted],
         ),
         (
+            Method::POST,
+            format!("/api/demos/{demo}/goal"),
+            Body::DemoGoal,
+            [unauth, nf, forbidden, created, created],
+        ),
+        (
             Method::GET,
             format!("/api/demos/{demo}/tracks.json"),
             Body::None,
@@ -406,6 +413,9 @@ async fn matrix(s: Server) {
                 }
                 Body::Track => req.json(&json!({"label": "rim", "frame": 1, "x": 12.0, "y": 12.0})),
                 Body::Sample => req.json(&json!({"x": 11.0, "y": 11.0})),
+                Body::DemoGoal => req.json(
+                    &json!({"name": "rim", "tracks": [track], "start_frame": 0, "end_frame": 0}),
+                ),
                 Body::Preview => {
                     req.json(&json!({"goal": point_goal(&frame, "pot to mat"), "point": 0}))
                 }

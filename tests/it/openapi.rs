@@ -378,6 +378,17 @@ async fn scenario(s: &Server) -> Vec<Sample> {
         &[],
     )
     .await;
+    let (st, made, _) = c
+        .call(
+            M::POST,
+            "/api/demos/{id}/goal",
+            &format!("/api/demos/{demo}/goal"),
+            e,
+            Req::Json(json!({"name": "rim to the mat", "tracks": [track], "start_frame": 0, "end_frame": 0})),
+            &[],
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{made}");
     c.call(
         M::GET,
         "/api/demos/{id}/tracks.json",

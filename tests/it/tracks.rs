@@ -248,6 +248,72 @@ async fn tracking(s: Server) {
     assert!(body.contains("event: operation"), "{body}");
     assert!(body.contains("\"done\":true"), "{body}");
 
+    // A goal from the demo: frame 0 becomes a frame of the camera, the track's positions at 0
+    // and 7 the source and the target; its cost maps are served like any goal's.
+    let (_, t4) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
+    let (src, dst) = (sample(&t4, 0), sample(&t4, 7));
+    let body = json!({"name": "rim to the mat", "tracks": [track], "start_frame": 0, "end_frame": 7, "note": "from the clip"});
+    let (st, rev) = s
+        .post(&format!("/api/demos/{demo}/goal"), Some(&editor), &body)
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{rev}");
+    assert_eq!(
+        rev["from_demo"],
+        json!({"demo_id": demo, "start_frame": 0, "end_frame": 7, "tracks": [track]})
+    );
+    assert_eq!(rev["terms"][0]["kind"], "point");
+    assert_eq!(rev["terms"][0]["label"], "pot rim");
+    assert_eq!(rev["terms"][0]["source"], json!([src["x"], src["y"]]));
+    assert_eq!(rev["terms"][0]["target"], json!([dst["x"], dst["y"]]));
+    let goal = rev["goal_id"].as_str().expect("goal");
+    let (st, frame) = s
+        .get(
+            &format!("/api/frames/{}", rev["frame_id"].as_str().expect("frame")),
+            Some(&viewer),
+        )
+        .await;
+    assert_eq!(st, StatusCode::OK);
+    assert_eq!(
+        frame["sha256"],
+        json!(sample_sha(&s, &viewer, &demo, 0).await)
+    );
+    let resp = s
+        .client
+        .get(s.url(&format!("/api/goals/{goal}/revisions/1/cost-maps.npy")))
+        .bearer_auth(&viewer)
+        .send()
+        .await
+        .expect("maps");
+    assert_eq!(resp.status(), StatusCode::OK);
+    let npy = resp.bytes().await.expect("bytes");
+    let maps = goalsmith_core::npy::read(&npy, 1 << 30).expect("npy");
+    assert_eq!(maps.header.shape, vec![1, H as usize, W as usize]);
+    assert_eq!(maps.as_f32().expect("f32").len(), (W * H) as usize);
+    for (body, field) in [
+        (
+            json!({"name": "x", "tracks": [track], "start_frame": 0, "end_frame": 8}),
+            "end_frame",
+        ),
+        (
+            json!({"name": "x", "tracks": [track], "start_frame": 0, "end_frame": 7, "rigid": true}),
+            "tracks",
+        ),
+        (
+            json!({"name": "x", "tracks": [], "start_frame": 0, "end_frame": 7}),
+            "tracks",
+        ),
+        (
+            json!({"name": "x", "tracks": ["00000000-0000-4000-8000-000000000000"], "start_frame": 0, "end_frame": 7}),
+            "tracks[0]",
+        ),
+    ] {
+        let (st, err) = s
+            .post(&format!("/api/demos/{demo}/goal"), Some(&editor), &body)
+            .await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{body}: {err}");
+        assert_eq!(err["error"]["field"], field, "{err}");
+    }
+
     // Who may do what, and bad input.
     let (st, _) = s
         .post(
@@ -306,6 +372,15 @@ async fn tracking(s: Server) {
         v["state"], "succeeded",
         "a finished operation stays as it ended"
     );
+}
+
+/// The SHA-256 of a demo frame, from the demo's own listing.
+async fn sample_sha(s: &Server, token: &str, demo: &str, frame: usize) -> String {
+    let (_, d) = s.get(&format!("/api/demos/{demo}"), Some(token)).await;
+    d["frames"][frame]["sha256"]
+        .as_str()
+        .expect("sha")
+        .to_string()
 }
 
 on_both_databases!(tracks_through_a_demo, tracking);
