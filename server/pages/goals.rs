@@ -43,6 +43,8 @@ struct RevisionLine {
     terms: usize,
     override_safety: bool,
     is_latest: bool,
+    /// "made from demo D, frames a to b, n tracks", for a revision made from a demo.
+    from_demo: Option<String>,
 }
 
 #[derive(Template)]
@@ -197,11 +199,22 @@ pub(super) async fn history(
         .iter()
         .rev()
         .map(|r| {
-            let terms = serde_json::from_str::<Value>(&r.document)
-                .ok()
-                .and_then(|d| d["terms"].as_array().map(Vec::len))
-                .unwrap_or(0);
+            // The stored document, typed: a revision that does not parse is shown without the
+            // parts read from it rather than failing the whole page.
+            let doc = serde_json::from_str::<goals::RevisionDocument>(&r.document).ok();
+            let terms = doc.as_ref().map_or(0, |d| d.terms.len());
+            let from_demo = doc.and_then(|d| d.from_demo).map(|f| {
+                format!(
+                    "made from demo {}, frames {} to {}, {} track{}",
+                    f.demo_id,
+                    f.start_frame,
+                    f.end_frame,
+                    f.tracks.len(),
+                    if f.tracks.len() == 1 { "" } else { "s" }
+                )
+            });
             RevisionLine {
+                from_demo,
                 revision: r.revision,
                 author: r.author.clone(),
                 when: when(r.created_at),
