@@ -128,6 +128,8 @@ enum Command {
 enum BenchName {
     Cost,
     Edt,
+    /// Point tracking: pyramids, and a frame step of 16 and 100 points (640×480, one thread)
+    Track,
 }
 
 fn run_cost(
@@ -273,6 +275,7 @@ pub fn main() -> ExitCode {
             let name = match name {
                 BenchName::Cost => "cost",
                 BenchName::Edt => "edt",
+                BenchName::Track => "track",
             };
             goalsmith_core::bench::run(name)
                 .map(|rows| {

@@ -19,6 +19,12 @@
 //! the 128×128 float32 batch's 262 MB part of it may stay cached between repeats; the
 //! `bench_cost cold` example alternates two such batches to rule that out.
 //!
+//! `track` times point tracking on 30 frames of 640×480 (see [`track_bench_frame`]), one
+//! thread: building a frame's pyramid from its 8-bit pixels (4 levels with gradients), and one
+//! frame step of 16 and of 100 points with the forward–backward check (two Lucas–Kanade runs
+//! per point), each per frame. `tests/reference/bench_track_compare.py` times OpenCV on the
+//! same frames in turns with it.
+//!
 //! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is
 //! shared with `tests/reference/bench_edt_compare.py`: pixel k (row-major) is painted when
 //! u_k < 1 %, u_k = (z_k >> 11)·2⁻⁵³, z_k the k-th output of SplitMix64 seeded with 20261201
@@ -107,13 +113,14 @@ fn json_string(s: &str) -> String {
 }
 
 /// The benchmarks [`run`] knows.
-pub const NAMES: [&str; 2] = ["cost", "edt"];
+pub const NAMES: [&str; 3] = ["cost", "edt", "track"];
 
-/// Runs the named benchmark (`cost` or `edt`) and returns its rows.
+/// Runs the named benchmark (`cost`, `edt` or `track`) and returns its rows.
 pub fn run(name: &str) -> Result<Vec<BenchRow>, String> {
     match name {
         "cost" => cost_bench(),
         "edt" => edt_bench(),
+        "track" => track_bench(),
         other => Err(format!(
             "unknown benchmark {other:?}; known: {}",
             NAMES.join(", ")
@@ -407,9 +414,131 @@ fn edt_bench() -> Result<Vec<BenchRow>, String> {
     }])
 }
 
+/// Frame `k` of the tracking benchmark: a smooth texture shifted by (0.37 k, 0.21 k) px,
+/// rounded to 8 bits. The formula is repeated in `tests/reference/bench_track_compare.py`.
+pub fn track_bench_frame(k: usize) -> Vec<u8> {
+    let (w, h) = (640usize, 480usize);
+    let (dx, dy) = (0.37 * k as f64, 0.21 * k as f64);
+    let mut out = Vec::with_capacity(w * h);
+    for j in 0..h {
+        for i in 0..w {
+            let (x, y) = (i as f64 - dx, j as f64 - dy);
+            let v = 128.0
+                + 40.0 * (0.11 * x + 0.07 * y).sin()
+                + 30.0 * (0.05 * x - 0.13 * y + 1.3).sin()
+                + 25.0 * (0.17 * x).cos() * (0.19 * y).sin();
+            out.push(v.round().clamp(0.0, 255.0) as u8);
+        }
+    }
+    out
+}
+
+/// `n` points on a grid over the middle of the 640×480 frame.
+pub fn track_bench_points(n: usize) -> Vec<[f64; 2]> {
+    let side = (n as f64).sqrt().ceil() as usize;
+    (0..n)
+        .map(|k| {
+            let (i, j) = ((k % side) as f64, (k / side) as f64);
+            let step = 400.0 / side as f64;
+            [120.0 + (i + 0.5) * step, 90.0 + (j + 0.5) * step * 0.75]
+        })
+        .collect()
+}
+
+fn track_bench() -> Result<Vec<BenchRow>, String> {
+    use crate::track::{GrayFrame, Pyramid, TrackParams, TrackSample, track_step};
+    let (w, h, frames, levels) = (640usize, 480usize, 30usize, 4usize);
+    let pixels: Vec<Vec<u8>> = (0..frames).map(track_bench_frame).collect();
+    let build = |p: &[u8]| -> Result<Pyramid, String> {
+        let f = GrayFrame::from_u8(w, h, p).map_err(|e| e.to_string())?;
+        Ok(Pyramid::build(&f, levels))
+    };
+    let pool = pool(1)?;
+    let common = |stage: &str| {
+        vec![
+            (String::from("stage"), ParamValue::Text(stage.into())),
+            num("width", w as f64),
+            num("height", h as f64),
+            num("frames", frames as f64),
+            num("levels", levels as f64),
+        ]
+    };
+    let mut rows = Vec::new();
+    let pyr_ms = pool.install(|| {
+        median_ms(5, Duration::from_secs(3), || {
+            for p in &pixels {
+                black_box(build(black_box(p)).ok());
+            }
+        })
+    }) / frames as f64;
+    let mut params = common("pyramid");
+    params.push(num("threads", 1.0));
+    rows.push(BenchRow {
+        bench: "track".into(),
+        median_ms: round4(pyr_ms),
+        params,
+    });
+    let pyramids = pixels
+        .iter()
+        .map(|p| build(p))
+        .collect::<Result<Vec<_>, _>>()?;
+    let track_params = TrackParams::default();
+    for n in [16usize, 100] {
+        let seeds: Vec<TrackSample> = track_bench_points(n)
+            .into_iter()
+            .map(|[x, y]| TrackSample {
+                x,
+                y,
+                confidence: 1.0,
+                lost: false,
+            })
+            .collect();
+        let ms = pool.install(|| {
+            median_ms(5, Duration::from_secs(3), || {
+                let mut at = seeds.clone();
+                for pair in pyramids.windows(2) {
+                    if let Ok(next) = track_step(&pair[0], &pair[1], &at, &track_params) {
+                        at = next;
+                    }
+                }
+                black_box(&at);
+            })
+        }) / (frames - 1) as f64;
+        let mut params = common("track");
+        params.push(num("points", n as f64));
+        params.push(num("threads", 1.0));
+        rows.push(BenchRow {
+            bench: "track".into(),
+            median_ms: round4(ms),
+            params,
+        });
+    }
+    Ok(rows)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The tracking benchmark's points lie inside the frame, away from its edges by more than
+    /// half a window, and its frames are the texture moved by the stated shift: frame 10 at
+    /// (x, y) is frame 0 at (x − 3.7, y − 2.1), checked where both land on whole pixels.
+    #[test]
+    fn track_bench_data() {
+        for n in [16, 100] {
+            let p = track_bench_points(n);
+            assert_eq!(p.len(), n);
+            assert!(
+                p.iter()
+                    .all(|q| (11.0..629.0).contains(&q[0]) && (11.0..469.0).contains(&q[1]))
+            );
+        }
+        let (f0, f100) = (track_bench_frame(0), track_bench_frame(100));
+        // 100 frames shift by exactly (37, 21) px.
+        for (x, y) in [(100usize, 80usize), (300, 200), (500, 400)] {
+            assert_eq!(f100[y * 640 + x], f0[(y - 21) * 640 + (x - 37)]);
+        }
+    }
 
     #[test]
     fn rows_print_as_json_lines() {
