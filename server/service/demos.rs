@@ -4,7 +4,7 @@
 use super::auth::{Principal, Role};
 use super::error::{ServiceError, ServiceResult};
 use super::export::Permit;
-use super::{AppState, cameras, parse_id, rfc3339};
+use super::{AppState, cameras, parse_frame_index, parse_id, rfc3339};
 use crate::demo_archive::{self, DemoRejection, FrameRules};
 use crate::store::{self, cameras::CameraRow, demos::DemoRow};
 use schemars::JsonSchema;
@@ -194,12 +194,7 @@ pub async fn frame_image(
     index: &str,
 ) -> ServiceResult<(String, String, Vec<u8>)> {
     let d = load(state, who, id).await?;
-    // Canonical numbers only, as for revisions: one frame, one URL.
-    let i = Some(index)
-        .filter(|s| !s.is_empty() && s.bytes().all(|b| b.is_ascii_digit()))
-        .filter(|s| *s == "0" || !s.starts_with('0'))
-        .and_then(|s| s.parse::<i64>().ok())
-        .ok_or_else(|| ServiceError::NotFound(format!("{index:?} is not a frame number")))?;
+    let i = parse_frame_index(index)?;
     let f = store::demos::frame(&state.store, &d.id, i)
         .await?
         .ok_or_else(|| {

@@ -59,3 +59,13 @@ pub fn parse_id(raw: &str, what: &str) -> ServiceResult<String> {
         .map(|u| u.to_string())
         .map_err(|_| ServiceError::NotFound(format!("no {what} with id {raw:?}")))
 }
+
+/// Parses a frame number of a path (from 0): canonical decimals only (`0`, `12`; not `01` or
+/// `+1`), so one frame has one URL; anything else is a 404.
+pub fn parse_frame_index(raw: &str) -> ServiceResult<i64> {
+    Some(raw)
+        .filter(|s| !s.is_empty() && s.bytes().all(|b| b.is_ascii_digit()))
+        .filter(|s| *s == "0" || !s.starts_with('0'))
+        .and_then(|s| s.parse::<i64>().ok())
+        .ok_or_else(|| ServiceError::NotFound(format!("{raw:?} is not a frame number")))
+}

@@ -8,7 +8,7 @@ use super::auth::{Principal, Role};
 use super::demos;
 use super::error::{ServiceError, ServiceResult};
 use super::operations::{self, Progress, RunError};
-use super::{AppState, parse_id};
+use super::{AppState, parse_frame_index, parse_id};
 use crate::images;
 use crate::store::{
     self,
@@ -200,11 +200,7 @@ pub async fn correct(
 ) -> ServiceResult<Started> {
     who.require(Role::Editor)?;
     let (demo, track) = load(state, who, demo_id, track_id).await?;
-    let frame = Some(frame)
-        .filter(|s| !s.is_empty() && s.bytes().all(|b| b.is_ascii_digit()))
-        .filter(|s| *s == "0" || !s.starts_with('0'))
-        .and_then(|s| s.parse::<i64>().ok())
-        .ok_or_else(|| ServiceError::NotFound(format!("{frame:?} is not a frame number")))?;
+    let frame = parse_frame_index(frame)?;
     check_frame(&demo, frame, "frame")?;
     check_position(&demo, c.x, c.y)?;
     let sample = SampleRow {

@@ -23,15 +23,8 @@ enum Body {
 
 /// A ZIP of two frames of the potting camera.
 fn demo_zip(seed: u8) -> Vec<u8> {
-    use std::io::Write;
-    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
-    let opts = zip::write::SimpleFileOptions::default();
-    for k in 0..2u8 {
-        z.start_file(format!("{k}.png"), opts).expect("entry");
-        z.write_all(&png(64, 48, seed.wrapping_add(k)))
-            .expect("write");
-    }
-    z.finish().expect("zip").into_inner()
+    let (a, b) = (png(64, 48, seed), png(64, 48, seed.wrapping_add(1)));
+    zip_of(&[("0.png", &a), ("1.png", &b)])
 }
 
 async fn matrix(s: Server) {

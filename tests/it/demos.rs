@@ -5,18 +5,6 @@ use crate::on_both_databases;
 use crate::support::*;
 use reqwest::StatusCode;
 use serde_json::{Value, json};
-use std::io::Write;
-
-fn zip_of(entries: &[(&str, &[u8])]) -> Vec<u8> {
-    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
-    let opts = zip::write::SimpleFileOptions::default()
-        .compression_method(zip::CompressionMethod::Deflated);
-    for (name, data) in entries {
-        z.start_file(*name, opts).expect("entry");
-        z.write_all(data).expect("write");
-    }
-    z.finish().expect("finish").into_inner()
-}
 
 fn frames(n: usize, w: u32, h: u32) -> Vec<(String, Vec<u8>)> {
     (0..n)
@@ -40,18 +28,6 @@ async fn demo_upload(
 ) -> (StatusCode, Value) {
     s.post_bytes(&format!("/api/cameras/{cam}/demos"), Some(token), ct, body)
         .await
-}
-
-async fn get_bytes(s: &Server, path: &str, token: &str) -> (StatusCode, Vec<u8>) {
-    let resp = s
-        .client
-        .get(s.url(path))
-        .bearer_auth(token)
-        .send()
-        .await
-        .expect("GET");
-    let st = resp.status();
-    (st, resp.bytes().await.expect("body").to_vec())
 }
 
 fn code(v: &Value) -> &str {

@@ -6,18 +6,6 @@ use goalsmith_core::npy;
 use reqwest::StatusCode;
 use serde_json::{Value, json};
 
-async fn get_bytes(s: &Server, path: &str, token: &str) -> (StatusCode, Vec<u8>) {
-    let resp = s
-        .client
-        .get(s.url(path))
-        .bearer_auth(token)
-        .send()
-        .await
-        .unwrap();
-    let st = resp.status();
-    (st, resp.bytes().await.unwrap().to_vec())
-}
-
 async fn post_npy(s: &Server, path: &str, token: &str, body: Vec<u8>) -> (StatusCode, Value) {
     s.post_bytes(path, Some(token), "application/x-npy", body)
         .await

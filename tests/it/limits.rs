@@ -30,18 +30,6 @@ macro_rules! on_both_databases_with_env {
     };
 }
 
-async fn get_bytes(s: &Server, path: &str, token: &str) -> (StatusCode, Vec<u8>) {
-    let resp = s
-        .client
-        .get(s.url(path))
-        .bearer_auth(token)
-        .send()
-        .await
-        .expect("GET");
-    let st = resp.status();
-    (st, resp.bytes().await.expect("body").to_vec())
-}
-
 fn error_of(bytes: &[u8]) -> Value {
     serde_json::from_slice(bytes).expect("a JSON error body")
 }

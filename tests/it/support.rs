@@ -428,3 +428,29 @@ pub fn start_with_link(
         .expect("the server prints a sign-in link on an empty database");
     (server, link)
 }
+
+/// GET with a token; the status and the body's bytes.
+pub async fn get_bytes(s: &Server, path: &str, token: &str) -> (StatusCode, Vec<u8>) {
+    let resp = s
+        .client
+        .get(s.url(path))
+        .bearer_auth(token)
+        .send()
+        .await
+        .expect("GET");
+    let st = resp.status();
+    (st, resp.bytes().await.expect("body").to_vec())
+}
+
+/// A ZIP (deflated) of the named entries, in the order given.
+pub fn zip_of(entries: &[(&str, &[u8])]) -> Vec<u8> {
+    use std::io::Write;
+    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
+    let opts = zip::write::SimpleFileOptions::default()
+        .compression_method(zip::CompressionMethod::Deflated);
+    for (name, data) in entries {
+        z.start_file(*name, opts).expect("entry");
+        z.write_all(data).expect("write");
+    }
+    z.finish().expect("finish").into_inner()
+}
