@@ -39,7 +39,7 @@ at least 24 px from the border), moved by a random sub-pixel offset, and kept on
 at least 16 px inside every frame. For each pair (k, k+1) the points are their true positions in
 frame k.
 
-Two cases of points that must be lost, each one pair of frames (192 x 192):
+Cases of points that must be lost, each one pair of frames (192 x 192):
   - "occlusion": camera, the second frame translated by a sub-pixel amount, with a 56 x 56
     square of skimage.data.grass() pasted over one place and a 56 x 56 square of flat grey (128)
     over another. "occluded" points are those whose 21 x 21 window around their true position
@@ -55,7 +55,7 @@ Two cases of points that must be lost, each one pair of frames (192 x 192):
 For each pair and point the script stores OpenCV's forward result (calcOpticalFlowPyrLK with
 winSize 21 x 21, maxLevel 3, criteria COUNT|EPS 30 / 0.01, minEigThreshold 1e-4, flags 0: the
 parameters of gen_track.py and goalsmith's defaults), its status, the backward result from the
-forward one, its status, the forward-backward error, and the true position. For the two cases
+forward one, its status, the forward-backward error, and the true position. For these cases
 it also stores whether OpenCV's own round trip flags the point (either status 0, a round trip
 beyond 1 px, or the forward position off the frame, as in gen_track.py's chain).
 
