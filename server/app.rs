@@ -89,6 +89,9 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
             config.limits.heavy_permits,
             config.limits.heavy_queue,
         )),
+        pyramids: Arc::new(crate::service::tracks::PyramidCache::with_budget(
+            config.limits.pyramid_cache_bytes,
+        )),
     };
     Ok(state)
 }

@@ -14,6 +14,7 @@ use std::sync::OnceLock;
 /// Every embedded file: its name under `/static/` and its bytes.
 pub const FILES: &[(&str, &[u8])] = &[
     ("compare.js", include_bytes!("../web/static/compare.js")),
+    ("demo.js", include_bytes!("../web/static/demo.js")),
     ("editor.js", include_bytes!("../web/static/editor.js")),
     ("site.css", include_bytes!("../web/static/site.css")),
     ("site.js", include_bytes!("../web/static/site.js")),

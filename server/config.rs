@@ -30,6 +30,8 @@ pub struct Limits {
     pub heavy_queue: usize,
     /// Bytes of checked goals and cost models kept in the model cache.
     pub model_cache_bytes: usize,
+    /// Bytes of demo frame pyramids kept for tracking, shared by every track of a demo.
+    pub pyramid_cache_bytes: usize,
     /// Sign-in throttle and password-hashing bounds.
     pub signin: SignInLimits,
     /// Demonstration uploads: frames, upload size, decoded bytes, ZIP entry bounds.
@@ -98,6 +100,7 @@ impl Default for Limits {
             model_cache_bytes: 256 << 20,
             signin: SignInLimits::default(),
             demo: crate::demo_archive::DemoLimits::default(),
+            pyramid_cache_bytes: 256 << 20,
             operation_workers: cores().div_ceil(2),
         }
     }
@@ -106,7 +109,7 @@ impl Default for Limits {
 impl Limits {
     /// The defaults with `GOALSMITH_HEAVY_PERMITS`, `GOALSMITH_HEAVY_QUEUE`,
     /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES` and
-    /// `GOALSMITH_MODEL_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
+    /// `GOALSMITH_MODEL_CACHE_BYTES`, `GOALSMITH_PYRAMID_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
     /// `GOALSMITH_DEMO_MAX_BYTES`, `GOALSMITH_DEMO_MAX_DECODED_BYTES`, and
     /// `GOALSMITH_OPERATION_WORKERS`, applied where set (whole numbers; permits at least 1; the
     /// queue defaults to 4 × permits). A value that does not parse is an error rather
@@ -140,6 +143,7 @@ impl Limits {
             ("GOALSMITH_MAX_NPY_POINTS", &mut l.max_npy_points),
             ("GOALSMITH_COST_JSON_BYTES", &mut l.cost_json_bytes),
             ("GOALSMITH_MODEL_CACHE_BYTES", &mut l.model_cache_bytes),
+            ("GOALSMITH_PYRAMID_CACHE_BYTES", &mut l.pyramid_cache_bytes),
             ("GOALSMITH_DEMO_MAX_FRAMES", &mut l.demo.max_frames),
             ("GOALSMITH_DEMO_MAX_BYTES", &mut l.demo.max_archive_bytes),
             ("GOALSMITH_OPERATION_WORKERS", &mut l.operation_workers),

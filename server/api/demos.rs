@@ -43,6 +43,17 @@ pub async fn get_one(
     Ok(Json(demos::view(&state, &who, &id).await?))
 }
 
+/// `GET /api/cameras/{id}/demos`.
+pub async fn list_for_camera(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+) -> ServiceResult<Json<super::Items<demos::DemoSummary>>> {
+    Ok(super::items(
+        demos::list_for_camera(&state, &who, &id).await?,
+    ))
+}
+
 /// `GET /api/demos/{id}/frames/{i}/image`: the frame's image, immutable, SHA-256 as ETag.
 pub async fn frame_image(
     State(state): State<AppState>,

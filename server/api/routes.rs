@@ -241,6 +241,8 @@ pub fn table() -> Vec<Route> {
             .limit(BodyLimit::Demo)
             .binary_body(&["application/zip", "image/gif"])
             .ok::<service::demos::DemoView>(201, "the demo as stored", &[]),
+        Route::get("/api/cameras/{id}/demos", "List a camera's demonstrations, newest first", demos::list_for_camera)
+            .ok::<super::Items<service::demos::DemoSummary>>(200, "the camera's demos", &[]),
         Route::get("/api/demos/{id}", "A demonstration and its frames", demos::get_one)
             .ok::<service::demos::DemoView>(200, "the demo", &[]),
         Route::get("/api/demos/{id}/frames/{i}/image", "Frame i (from 0) of a demonstration", demos::frame_image)
@@ -360,6 +362,7 @@ mod tests {
                 crate::security::Security::new(&Default::default(), None).expect("security state"),
             ),
             heavy_permits: Arc::default(),
+            pyramids: Arc::default(),
         });
         let rows = table();
         let mut paths: Vec<&str> = rows.iter().map(|r| r.path).collect();

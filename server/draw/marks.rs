@@ -118,6 +118,46 @@ pub const HATCH_ALPHA: u8 = 190;
 /// Comparison page only: the older revision is drawn dashed at this opacity.
 pub const OLDER_ALPHA: u8 = 170;
 
+/// Demo page only: the colours tracks take in turn, by the order they were started. They are
+/// picked apart from the term kinds' colours so a track is not read as a goal term.
+pub const TRACK_COLOURS: [Rgba; 6] = [
+    Rgba::rgb(92, 172, 238),
+    Rgba::rgb(176, 222, 74),
+    Rgba::rgb(255, 138, 61),
+    Rgba::rgb(214, 104, 226),
+    Rgba::rgb(70, 214, 206),
+    Rgba::rgb(250, 226, 92),
+];
+/// Demo page only: a sample the tracker lost, drawn as a cross in this colour.
+pub const LOST: Rgba = Rgba::rgb(255, 72, 72);
+
+/// Demo page: how a track is drawn, in mark units. The path joins the track's samples frame by
+/// frame; the sample at the shown frame is a [`SOURCE`] disc in the track's colour; a sample a
+/// person placed is a small filled square on the path; a lost sample a [`LOST`] cross; and a
+/// stretch the tracker was unsure of is dashed.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct TrackSizes {
+    /// Width of the path.
+    pub path: f64,
+    /// Half side of a manual sample's square.
+    pub manual_half: f64,
+    /// Half length of each arm of a lost sample's cross.
+    pub lost_half: f64,
+    /// How near (mark units) a press must land to the shown sample to drag it.
+    pub grab: f64,
+    /// Below this confidence a tracked sample counts as unsure and is listed for review.
+    pub unsure_below: f64,
+}
+
+/// The track sizes the demo page uses.
+pub const TRACK_SIZES: TrackSizes = TrackSizes {
+    path: 1.5,
+    manual_half: 3.0,
+    lost_half: 4.0,
+    grab: 12.0,
+    unsure_below: 0.5,
+};
+
 /// Line widths and mark sizes, in mark units (see the module doc).
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct Sizes {
@@ -277,6 +317,14 @@ struct BrowserMarks {
     alphas: Alphas,
     sizes: Sizes,
     shapes: Shapes,
+    tracks: Tracks,
+}
+
+#[derive(Serialize)]
+struct Tracks {
+    colours: &'static [Rgba],
+    lost: Rgba,
+    sizes: TrackSizes,
 }
 
 #[derive(Serialize)]
@@ -312,7 +360,7 @@ struct Shapes {
 }
 
 /// The ES module served at `/static/marks.js`: the constants of this module as JSON, exported
-/// as `KINDS`, `ZONES`, `INKS`, `ALPHAS` (0–255), `SIZES` and `SHAPES`. Colours are `[r, g, b,
+/// as `KINDS`, `ZONES`, `INKS`, `ALPHAS` (0–255), `SIZES`, `SHAPES` and `TRACKS`. Colours are `[r, g, b,
 /// a]` arrays with a in 0–255.
 pub fn browser_module() -> String {
     let marks = BrowserMarks {
@@ -342,6 +390,11 @@ pub fn browser_module() -> String {
             fitted: FITTED,
             arrow_head: ARROW_HEAD,
         },
+        tracks: Tracks {
+            colours: &TRACK_COLOURS,
+            lost: LOST,
+            sizes: TRACK_SIZES,
+        },
     };
     // Plain data of our own types: serialising it cannot fail.
     let json = serde_json::to_string_pretty(&marks).unwrap_or_else(|_| "{}".into());
@@ -355,6 +408,7 @@ pub fn browser_module() -> String {
          export const ALPHAS = MARKS.alphas;\n\
          export const SIZES = MARKS.sizes;\n\
          export const SHAPES = MARKS.shapes;\n\
+         export const TRACKS = MARKS.tracks;\n\
          export default MARKS;\n"
     )
 }
@@ -396,7 +450,9 @@ mod tests {
             v["shapes"]["arrow_head"][0]["outline"]["lines"]["points"][1],
             serde_json::json!([-SIZES.head_length, -SIZES.head_half_width])
         );
-        for name in ["KINDS", "ZONES", "INKS", "ALPHAS", "SIZES", "SHAPES"] {
+        for name in [
+            "KINDS", "ZONES", "INKS", "ALPHAS", "SIZES", "SHAPES", "TRACKS",
+        ] {
             assert!(js.contains(&format!("export const {name} = ")), "{name}");
         }
     }

@@ -43,8 +43,8 @@ struct RevisionLine {
     terms: usize,
     override_safety: bool,
     is_latest: bool,
-    /// "made from demo D, frames a to b, n tracks", for a revision made from a demo.
-    from_demo: Option<String>,
+    /// For a revision made from a demo: the demo's id and "frames a to b, n tracks".
+    from_demo: Option<(String, String)>,
 }
 
 #[derive(Template)]
@@ -204,14 +204,14 @@ pub(super) async fn history(
             let doc = serde_json::from_str::<goals::RevisionDocument>(&r.document).ok();
             let terms = doc.as_ref().map_or(0, |d| d.terms.len());
             let from_demo = doc.and_then(|d| d.from_demo).map(|f| {
-                format!(
-                    "made from demo {}, frames {} to {}, {} track{}",
-                    f.demo_id,
+                let words = format!(
+                    "frames {} to {}, {} track{}",
                     f.start_frame,
                     f.end_frame,
                     f.tracks.len(),
                     if f.tracks.len() == 1 { "" } else { "s" }
-                )
+                );
+                (f.demo_id, words)
             });
             RevisionLine {
                 from_demo,

@@ -57,9 +57,12 @@ struct HomePage {
     frames: Vec<FrameCard>,
     goals: Vec<GoalRow>,
     sets: Vec<SetRow>,
+    demos: Vec<super::demos::DemoCard>,
     can_edit: bool,
     uploaded: bool,
     frame_limit_mb: usize,
+    demo_limit_mb: usize,
+    demo_max_frames: usize,
 }
 
 page!(HomePage);
@@ -190,6 +193,11 @@ pub(super) async fn home(
         .into_iter()
         .filter(|s| matches(&q, &s.name))
         .collect();
+    let demos = super::demos::cards(&state, &signed, &camera_names)
+        .await?
+        .into_iter()
+        .filter(|d| matches(&q, &d.camera))
+        .collect();
     let page = HomePage {
         chrome: Chrome::signed(&state, &signed, &headers, "home").await,
         q,
@@ -197,9 +205,12 @@ pub(super) async fn home(
         frames,
         goals,
         sets,
+        demos,
         can_edit: signed.can_edit(),
         uploaded: !fresh.is_empty(),
         frame_limit_mb: state.limits.frame_upload_bytes >> 20,
+        demo_limit_mb: state.limits.demo.max_archive_bytes >> 20,
+        demo_max_frames: state.limits.demo.max_frames,
     };
     Ok(ok(&page))
 }

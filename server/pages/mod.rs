@@ -8,6 +8,7 @@
 
 pub mod account;
 pub mod compare;
+pub mod demos;
 pub mod error;
 pub mod goals;
 pub mod home;
@@ -45,6 +46,7 @@ pub fn router() -> Router<AppState> {
         .route("/account/team", post(account::switch_team))
         .route("/", get(home::home))
         .route("/cameras", post(home::create_camera))
+        .route("/demos/{id}", get(demos::show))
         .route("/goals/new", get(goals::new_goal))
         .route("/goals/{id}", get(goals::editor))
         .route("/goals/{id}/history", get(goals::history))

@@ -44,6 +44,26 @@ pub struct DemoFrameView {
     pub time_s: Option<f64>,
 }
 
+/// A demo in a list: as [`DemoView`] without its frames.
+// Fields in alphabetical order, as every typed view of the API.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct DemoSummary {
+    /// Who uploaded it.
+    pub author: String,
+    /// The camera whose frames it holds.
+    pub camera_id: String,
+    /// Upload time, RFC 3339 UTC.
+    pub created_at: String,
+    /// Number of frames.
+    pub frame_count: i64,
+    /// Frame height (the camera's).
+    pub height: i64,
+    /// Demo id.
+    pub id: String,
+    /// Frame width (the camera's).
+    pub width: i64,
+}
+
 /// The kinds of upload a demo is made from.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum DemoFormat {
@@ -153,6 +173,34 @@ impl UploadTicket {
         store::demos::insert(&state.store, &row, &frames).await?;
         Ok(row)
     }
+}
+
+/// The team's demos, newest first (any member).
+pub async fn rows(state: &AppState, who: &Principal) -> ServiceResult<Vec<DemoRow>> {
+    Ok(store::demos::list(&state.store, &who.team_id).await?)
+}
+
+/// A camera's demos, newest first.
+pub async fn list_for_camera(
+    state: &AppState,
+    who: &Principal,
+    camera_id: &str,
+) -> ServiceResult<Vec<DemoSummary>> {
+    let camera = cameras::load(state, who, camera_id).await?;
+    Ok(store::demos::list(&state.store, &who.team_id)
+        .await?
+        .into_iter()
+        .filter(|d| d.camera_id == camera.id)
+        .map(|d| DemoSummary {
+            author: d.author,
+            camera_id: d.camera_id,
+            created_at: rfc3339(d.created_at),
+            frame_count: d.frame_count,
+            height: d.height,
+            id: d.id,
+            width: d.width,
+        })
+        .collect())
 }
 
 /// A team's demo or 404.

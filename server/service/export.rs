@@ -2,6 +2,7 @@
 //! the overlay and the reproducible bundle, with the caches that keep repeats cheap.
 
 use super::auth::Principal;
+use super::byte_lru::ByteLru;
 use super::cameras::{self, CameraDoc};
 use super::error::{ServiceError, ServiceResult};
 use super::goals::{load_revision, parse_revision};
@@ -56,48 +57,6 @@ pub struct ModelCache {
 /// Prepared maps and the model they were made from (held so its identity stays unique).
 type PreparedEntry = (std::sync::Arc<PreparedMaps>, Checked);
 
-/// A least-recently-used cache bounded by the bytes its entries are said to hold (the `lru`
-/// crate keeps the order; this keeps the count of bytes).
-struct ByteLru<K: std::hash::Hash + Eq, V> {
-    entries: lru::LruCache<K, (V, usize)>,
-    bytes: usize,
-    budget: usize,
-}
-
-impl<K: std::hash::Hash + Eq, V: Clone> ByteLru<K, V> {
-    fn new(budget: usize) -> Self {
-        Self {
-            entries: lru::LruCache::unbounded(),
-            bytes: 0,
-            budget,
-        }
-    }
-
-    /// The entry, now the most recently used.
-    fn get(&mut self, key: &K) -> Option<V> {
-        self.entries.get(key).map(|(v, _)| v.clone())
-    }
-
-    /// Keeps `value` (of `size` bytes), dropping the least recently used entries until it fits.
-    /// A value larger than the whole budget is not kept: it would evict everything else.
-    fn put(&mut self, key: K, value: V, size: usize) {
-        if size > self.budget {
-            return;
-        }
-        if let Some((_, old)) = self.entries.pop(&key) {
-            self.bytes -= old;
-        }
-        while self.bytes + size > self.budget {
-            let Some((_, (_, b))) = self.entries.pop_lru() else {
-                break;
-            };
-            self.bytes -= b;
-        }
-        self.entries.put(key, (value, size));
-        self.bytes += size;
-    }
-}
-
 /// A checked goal with its cost model, shared between the cache and requests.
 pub type Checked = std::sync::Arc<(GoalSpec, CostModel)>;
 
@@ -125,7 +84,7 @@ impl ModelCache {
 
     /// Bytes of models held now (read-only, for tests and logs).
     pub fn bytes(&self) -> usize {
-        self.models.lock().map_or(0, |e| e.bytes)
+        self.models.lock().map_or(0, |e| e.bytes())
     }
 
     fn prepared(&self, key: &(usize, usize, usize)) -> Option<std::sync::Arc<PreparedMaps>> {

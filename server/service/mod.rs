@@ -9,6 +9,7 @@
 
 pub mod accounts;
 pub mod auth;
+pub mod byte_lru;
 pub mod cameras;
 pub mod demos;
 pub mod error;
@@ -41,6 +42,8 @@ pub struct AppState {
     pub security: Arc<crate::security::Security>,
     /// Permits for heavy work (see [`heavy`]), shared by every request.
     pub heavy_permits: Arc<heavy::Heavy>,
+    /// Grey-level pyramids of demo frames, built once and shared by every track of a demo.
+    pub pyramids: Arc<tracks::PyramidCache>,
 }
 
 /// RFC 3339 UTC with milliseconds, from unix milliseconds.

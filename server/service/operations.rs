@@ -47,7 +47,7 @@ pub struct OperationView {
     pub state: String,
 }
 
-fn view(op: &OperationRow) -> OperationView {
+pub(super) fn view(op: &OperationRow) -> OperationView {
     OperationView {
         done: op.state.is_done(),
         error: op.error.clone(),

@@ -5,6 +5,7 @@
 //! a person placed.
 
 use super::auth::{Principal, Role};
+use super::byte_lru::ByteLru;
 use super::demos;
 use super::error::{ServiceError, ServiceResult};
 use super::operations::{self, Progress, RunError};
@@ -19,11 +20,79 @@ use goalsmith_core::track::{GrayFrame, Pyramid, TrackParams, TrackSample, track_
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
+use std::sync::Arc;
 
 /// The operation kind of tracking.
 pub const KIND: &str = "track";
 /// Pyramid levels (level 0 included): four, as the tracker's default window and levels are set.
 pub const LEVELS: usize = 4;
+
+/// Grey-level pyramids of demo frames by the SHA-256 of the frame's image, bounded by bytes.
+/// A pyramid depends only on the image (and [`LEVELS`]), so every track of a demo, and every
+/// demo holding the same frame, uses the one built first; a correction re-tracking a few
+/// frames finds them built. A demo longer than the budget holds is built again per track.
+pub struct PyramidCache {
+    entries: std::sync::Mutex<ByteLru<String, Arc<Pyramid>>>,
+    built: std::sync::atomic::AtomicU64,
+}
+
+impl Default for PyramidCache {
+    fn default() -> Self {
+        Self::with_budget(crate::config::Limits::default().pyramid_cache_bytes)
+    }
+}
+
+/// Bytes a pyramid holds: per level a grey value and a 2-vector gradient, `f32` each.
+fn pyramid_bytes(p: &Pyramid) -> usize {
+    (0..p.levels())
+        .filter_map(|i| p.level(i))
+        .map(|l| l.width() * l.height() * 12)
+        .sum::<usize>()
+        + 256
+}
+
+impl PyramidCache {
+    /// A cache of at most `budget` bytes of pyramids.
+    pub fn with_budget(budget: usize) -> Self {
+        Self {
+            entries: std::sync::Mutex::new(ByteLru::new(budget)),
+            built: std::sync::atomic::AtomicU64::new(0),
+        }
+    }
+
+    /// The pyramid of the image `sha`, built by `build` only when it is not held.
+    pub fn get_or_build<E>(
+        &self,
+        sha: &str,
+        build: impl FnOnce() -> Result<Pyramid, E>,
+    ) -> Result<Arc<Pyramid>, E> {
+        if let Some(p) = self
+            .entries
+            .lock()
+            .ok()
+            .and_then(|mut e| e.get(&sha.to_string()))
+        {
+            return Ok(p);
+        }
+        let p = Arc::new(build()?);
+        self.built
+            .fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+        if let Ok(mut e) = self.entries.lock() {
+            e.put(sha.to_string(), p.clone(), pyramid_bytes(&p));
+        }
+        Ok(p)
+    }
+
+    /// Bytes held now.
+    pub fn bytes(&self) -> usize {
+        self.entries.lock().map_or(0, |e| e.bytes())
+    }
+
+    /// Pyramids built so far (for tests and logs).
+    pub fn built(&self) -> u64 {
+        self.built.load(std::sync::atomic::Ordering::Relaxed)
+    }
+}
 
 /// Body of `POST /api/demos/{id}/tracks`.
 #[derive(Debug, Deserialize, JsonSchema)]
@@ -287,6 +356,46 @@ pub async fn all(
     Ok(out)
 }
 
+/// A tracking operation of a demo that has not ended yet.
+#[derive(Debug, Clone, Serialize)]
+pub struct Running {
+    /// The track it works on.
+    pub track_id: String,
+    /// The operation as it is now.
+    pub operation: operations::OperationView,
+}
+
+/// The demo's tracking operations that are queued or running, oldest first: what a page that
+/// is opened (or reloaded) while they run shows progress for.
+pub async fn running(
+    state: &AppState,
+    who: &Principal,
+    demo_id: &str,
+) -> ServiceResult<Vec<Running>> {
+    let demo = demos::load(state, who, demo_id).await?;
+    let tracks: std::collections::HashSet<String> = store::tracks::of_demo(&state.store, &demo.id)
+        .await?
+        .into_iter()
+        .map(|t| t.id)
+        .collect();
+    let mut out = Vec::new();
+    for op in store::operations::unfinished(&state.store, &who.team_id, KIND).await? {
+        let Ok(input) = serde_json::from_str::<Value>(&op.input) else {
+            continue;
+        };
+        let Some(track_id) = input.get("track_id").and_then(Value::as_str) else {
+            continue;
+        };
+        if tracks.contains(track_id) {
+            out.push(Running {
+                track_id: track_id.to_string(),
+                operation: operations::view(&op),
+            });
+        }
+    }
+    Ok(out)
+}
+
 /// The tracks as CSV: one row per sample, `track_id,label,frame,time_s,x,y,origin,confidence,
 /// lost` (RFC 4180 quoting for the label; an unknown time is an empty field).
 pub fn csv(tracks: &[TrackView]) -> String {
@@ -363,15 +472,12 @@ pub(super) async fn run(
     let shas: Vec<String> = frames.into_iter().map(|f| f.sha256).collect();
     let store = state.store.clone();
     let limits = state.limits.clone();
+    let pyramids = state.pyramids.clone();
     let handle = tokio::runtime::Handle::current();
     let total = (forward.len() + backward.len()).max(1) as f64;
     let p = progress.clone();
     let out = tokio::task::spawn_blocking(move || -> Result<Vec<SampleRow>, RunError> {
-        let load = |k: i64| -> Result<Pyramid, RunError> {
-            let sha = usize::try_from(k)
-                .ok()
-                .and_then(|k| shas.get(k))
-                .ok_or_else(|| RunError::Failed(format!("frame {k} is not in the demo")))?;
+        let build = |k: i64, sha: &String| -> Result<Pyramid, RunError> {
             let (content_type, bytes) = handle
                 .block_on(store::frames::image_bytes(&store, sha))
                 .map_err(|e| RunError::Failed(e.to_string()))?
@@ -393,6 +499,13 @@ pub(super) async fn run(
                 GrayFrame::from_u8(luma.width() as usize, luma.height() as usize, luma.as_raw())
                     .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))?;
             Ok(Pyramid::build(&frame, LEVELS))
+        };
+        let load = |k: i64| -> Result<Arc<Pyramid>, RunError> {
+            let sha = usize::try_from(k)
+                .ok()
+                .and_then(|k| shas.get(k))
+                .ok_or_else(|| RunError::Failed(format!("frame {k} is not in the demo")))?;
+            pyramids.get_or_build(sha, || build(k, sha))
         };
         let params = TrackParams::default();
         let mut out = Vec::new();
@@ -598,4 +711,62 @@ pub async fn make_goal(
     )?;
     store::goals::create(&state.store, &who.team_id, &rev).await?;
     Ok(rev)
+}
+
+#[cfg(test)]
+mod pyramid_cache_tests {
+    use super::*;
+
+    fn pyramid(seed: u8) -> Pyramid {
+        let data: Vec<u8> = (0..64 * 48).map(|i| (i as u8).wrapping_mul(seed)).collect();
+        let frame = GrayFrame::from_u8(64, 48, &data).expect("frame");
+        Pyramid::build(&frame, LEVELS)
+    }
+
+    #[test]
+    fn a_frame_is_built_once_and_shared() {
+        let cache = PyramidCache::with_budget(1 << 20);
+        let a = cache
+            .get_or_build::<()>("aa", || Ok(pyramid(3)))
+            .expect("built");
+        let b = cache
+            .get_or_build::<()>("aa", || panic!("built twice"))
+            .expect("held");
+        assert!(Arc::ptr_eq(&a, &b));
+        assert_eq!(cache.built(), 1);
+        assert_eq!(cache.bytes(), pyramid_bytes(&a));
+        // A failed build is not kept.
+        assert_eq!(
+            cache.get_or_build("bb", || Err("bad frame")).err(),
+            Some("bad frame")
+        );
+        assert_eq!(cache.built(), 1);
+    }
+
+    #[test]
+    fn the_budget_is_kept_in_bytes() {
+        let one = pyramid_bytes(&pyramid(1));
+        // Room for two pyramids: the third evicts the least recently used.
+        let cache = PyramidCache::with_budget(2 * one + one / 2);
+        for (k, sha) in ["a", "b", "a", "c"].iter().enumerate() {
+            cache
+                .get_or_build::<()>(sha, || Ok(pyramid(k as u8 + 1)))
+                .expect("pyramid");
+        }
+        assert_eq!(cache.built(), 3);
+        assert!(cache.bytes() <= 2 * one + one / 2);
+        // "a" was used after "b", so "b" went.
+        cache
+            .get_or_build::<()>("a", || panic!("a was evicted"))
+            .expect("a held");
+        cache
+            .get_or_build::<()>("b", || Ok(pyramid(9)))
+            .expect("b rebuilt");
+        assert_eq!(cache.built(), 4);
+        // Larger than the whole budget: built, handed out, not kept.
+        let tiny = PyramidCache::with_budget(one / 2);
+        tiny.get_or_build::<()>("a", || Ok(pyramid(1)))
+            .expect("built");
+        assert_eq!(tiny.bytes(), 0);
+    }
 }

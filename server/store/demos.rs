@@ -124,6 +124,17 @@ pub async fn get(store: &Store, team_id: &str, id: &str) -> Result<Option<DemoRo
     Ok(row.as_ref().map(from_row))
 }
 
+/// A team's demos, newest first.
+pub async fn list(store: &Store, team_id: &str) -> Result<Vec<DemoRow>> {
+    let sql =
+        format!("SELECT {COLUMNS} FROM demos WHERE team_id = $1 ORDER BY created_at DESC, id");
+    let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(team_id)
+        .fetch_all(store.pool())
+        .await?;
+    Ok(rows.iter().map(from_row).collect())
+}
+
 /// The frames of a demo, in order.
 pub async fn frames(store: &Store, demo_id: &str) -> Result<Vec<DemoFrameRow>> {
     let rows =

@@ -125,6 +125,20 @@ pub async fn get(store: &Store, team_id: &str, id: &str) -> Result<Option<Operat
     row.as_ref().map(from_row).transpose()
 }
 
+/// A team's operations of `kind` that have not ended (queued or running), oldest first.
+pub async fn unfinished(store: &Store, team_id: &str, kind: &str) -> Result<Vec<OperationRow>> {
+    let sql = format!(
+        "SELECT {COLUMNS} FROM operations WHERE team_id = $1 AND kind = $2 \
+         AND state IN ('queued', 'running') ORDER BY created_at, id"
+    );
+    let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
+        .bind(team_id)
+        .bind(kind)
+        .fetch_all(store.pool())
+        .await?;
+    rows.iter().map(from_row).collect()
+}
+
 /// Claims the oldest queued operation for `worker`, if any. On PostgreSQL the row is locked
 /// with `FOR UPDATE SKIP LOCKED`, so workers of several processes never claim the same one; on
 /// SQLite the one statement runs under the database's single writer.

@@ -266,6 +266,12 @@ async fn matrix(s: Server) {
         ),
         (
             Method::GET,
+            format!("/api/cameras/{cam}/demos"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
             format!("/api/demos/{demo}"),
             Body::None,
             [unauth, nf, ok, ok, ok],

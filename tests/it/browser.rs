@@ -962,3 +962,317 @@ fn kind_words(kind: &str) -> &'static str {
         _ => "learned reward",
     }
 }
+
+/// The demo page's view: (zoom, pan x, pan y, canvas left, canvas top) in CSS px.
+async fn demo_view(d: &WebDriver) -> [f64; 5] {
+    let v = js(
+        d,
+        "const v = window.demoPage.view; const r = document.getElementById('demo-canvas').getBoundingClientRect(); return [v.z, v.px, v.py, r.left, r.top];",
+    )
+    .await;
+    let f = |i: usize| v[i].as_f64().expect("number");
+    [f(0), f(1), f(2), f(3), f(4)]
+}
+
+/// The viewport pixel over frame point (x, y) of the demo canvas, and the frame point that
+/// pixel really is (the pointer lands on whole viewport pixels): x = (cx − px)/z − 0.5.
+async fn demo_pixel(d: &WebDriver, x: f64, y: f64) -> ([i64; 2], [f64; 2]) {
+    let [z, px, py, left, top] = demo_view(d).await;
+    let vx = (left + px + (x + 0.5) * z).round();
+    let vy = (top + py + (y + 0.5) * z).round();
+    (
+        [vx as i64, vy as i64],
+        [(vx - left - px) / z - 0.5, (vy - top - py) / z - 0.5],
+    )
+}
+
+/// The sample of `track` (a track as the API serves it) at `frame`.
+fn sample_at(track: &Value, frame: i64) -> Value {
+    track["samples"]
+        .as_array()
+        .expect("samples")
+        .iter()
+        .find(|s| s["frame"] == frame)
+        .cloned()
+        .unwrap_or_else(|| panic!("no sample at frame {frame}: {track}"))
+}
+
+fn xy(s: &Value) -> [f64; 2] {
+    [s["x"].as_f64().expect("x"), s["y"].as_f64().expect("y")]
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn demo_page_end_to_end() {
+    // A demo of a smooth texture moved by STEP px a frame (tests/it/support.rs): a point is
+    // started by clicking, followed to 100 % on the page, corrected by dragging, and the demo
+    // becomes a goal. Screenshots: target/screenshots/demo-*.png.
+    const W: u32 = 320;
+    const H: u32 = 240;
+    const FRAMES: usize = 24;
+    const STEP: [f64; 2] = [1.5, 0.75];
+    let Some(driver) = chromedriver("demo_page_end_to_end") else {
+        return;
+    };
+    let db = fresh_db(Db::Sqlite, "demo_page_end_to_end")
+        .await
+        .expect("sqlite");
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+    let shots = screenshots();
+    let work = tempfile::tempdir().unwrap();
+    let a = browser(&driver, &work.path().join("a")).await;
+    a.goto(&link).await.unwrap();
+    fill(&a, "#display_name", "Ilse Marrow").await;
+    fill(&a, "#login", "ilse").await;
+    fill(&a, "#password", "seed trays 22").await;
+    fill(&a, "#password_again", "seed trays 22").await;
+    click(&a, "form.stack button.primary").await;
+    wait_js(&a, "return location.pathname === '/';", "home").await;
+    let api = s.token("my team", "editor");
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&api),
+            &json!({"name": "bench side", "width": W, "height": H}),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{cam}");
+
+    // The demo is uploaded through the home page's drop zone (its file picker).
+    a.refresh().await.unwrap();
+    let zip = work.path().join("tray slide.zip");
+    std::fs::write(&zip, texture_demo_zip(W, H, FRAMES, STEP)).unwrap();
+    wait_for(&a, By::Css("form.demo-upload input[type=file]"))
+        .await
+        .send_keys(zip.display().to_string())
+        .await
+        .unwrap();
+    wait_js(
+        &a,
+        "return location.pathname.startsWith('/demos/') && document.getElementById('demo')?.dataset.ready === '1';",
+        "demo page after the upload",
+    )
+    .await;
+    let demo = js(
+        &a,
+        "return JSON.parse(document.getElementById('demo').dataset.demo).demo.id;",
+    )
+    .await
+    .as_str()
+    .expect("demo id")
+    .to_string();
+    wait_js(
+        &a,
+        "return document.getElementById('demo').dataset.shown === '0';",
+        "frame 0 shown",
+    )
+    .await;
+
+    // The page fits the window's width (nothing hangs out sideways).
+    let wide = js(
+        &a,
+        "const w = document.documentElement.clientWidth; return [...document.querySelectorAll('body *')].filter((e) => e.getBoundingClientRect().right > w + 0.5).map((e) => e.tagName + '#' + e.id + '.' + e.className + ' ' + Math.round(e.getBoundingClientRect().right)).slice(0, 8);",
+    )
+    .await;
+    assert_eq!(wide, json!([]), "elements wider than the window");
+    // Start a track by clicking the big blob's centre on frame 0.
+    fill(&a, "#track-label", "tray corner").await;
+    click(&a, "#place-point").await;
+    let ([vx, vy], seed) = demo_pixel(&a, 70.0, 55.0).await;
+    a.action_chain()
+        .move_to(vx, vy)
+        .click()
+        .perform()
+        .await
+        .expect("click on the frame");
+    // The progress bar of the tracking operation reaches 100 %.
+    wait_js(
+        &a,
+        "const li = document.querySelector('#running-list li.operation'); return !!li && li.dataset.state === 'succeeded' && li.querySelector('progress').value === 1 && document.getElementById('demo').dataset.finished === '1';",
+        "tracking at 100 %",
+    )
+    .await;
+    let readout = js(
+        &a,
+        "return document.querySelector('#running-list li.operation output').textContent;",
+    )
+    .await;
+    assert_eq!(readout, json!("100 % · done"));
+    a.screenshot(&shots.join("demo-tracked.png")).await.unwrap();
+
+    let (st, tracks) = s
+        .get(&format!("/api/demos/{demo}/tracks.json"), Some(&api))
+        .await;
+    assert_eq!(st, reqwest::StatusCode::OK, "{tracks}");
+    let track = tracks["items"][0].clone();
+    assert_eq!(track["label"], "tray corner");
+    let track_id = track["id"].as_str().expect("track id").to_string();
+    assert_eq!(
+        track["samples"].as_array().map(Vec::len),
+        Some(FRAMES),
+        "{track}"
+    );
+    let placed = sample_at(&track, 0);
+    assert_eq!(placed["origin"], "manual");
+    let got = xy(&placed);
+    assert!(
+        (got[0] - seed[0]).abs() < 1e-9 && (got[1] - seed[1]).abs() < 1e-9,
+        "the click landed at {seed:?}, the track starts at {got:?}"
+    );
+    // The texture moves by STEP a frame, so the tracked point does too (to a tenth of a pixel:
+    // the frames are rounded to 8-bit grey).
+    let last = xy(&sample_at(&track, FRAMES as i64 - 1));
+    let k = (FRAMES - 1) as f64;
+    for (i, v) in last.iter().enumerate() {
+        assert!(
+            (v - (seed[i] + k * STEP[i])).abs() < 0.25,
+            "frame {k}: {last:?} from {seed:?}"
+        );
+    }
+    // The page shows every sample of the track.
+    let shown = js(
+        &a,
+        &format!("return document.querySelector('#track-list li[data-track-id=\"{track_id}\"]').dataset.samples;"),
+    )
+    .await;
+    assert_eq!(shown, json!(FRAMES.to_string()));
+
+    // Step to frame 10 with the keys, and drag the point 4 px right and 3 px up there: a
+    // correction, after which the frames after 10 are tracked again from where it was dropped.
+    a.find(By::Id("demo-canvas"))
+        .await
+        .unwrap()
+        .send_keys(Key::End + "")
+        .await
+        .unwrap();
+    wait_js(
+        &a,
+        &format!(
+            "return document.getElementById('demo').dataset.frame === '{}';",
+            FRAMES - 1
+        ),
+        "End key",
+    )
+    .await;
+    a.find(By::Id("demo-canvas"))
+        .await
+        .unwrap()
+        .send_keys(Key::Home + "")
+        .await
+        .unwrap();
+    for _ in 0..10 {
+        a.find(By::Id("demo-canvas"))
+            .await
+            .unwrap()
+            .send_keys(Key::Right + "")
+            .await
+            .unwrap();
+    }
+    wait_js(
+        &a,
+        "return document.getElementById('demo').dataset.frame === '10' && document.getElementById('demo').dataset.shown === '10';",
+        "frame 10",
+    )
+    .await;
+    let at10 = xy(&sample_at(&track, 10));
+    let before9 = xy(&sample_at(&track, 9));
+    let (from_px, from) = demo_pixel(&a, at10[0], at10[1]).await;
+    let (to_px, to) = demo_pixel(&a, at10[0] + 4.0, at10[1] - 3.0).await;
+    a.action_chain()
+        .move_to(from_px[0], from_px[1])
+        .click_and_hold()
+        .move_to(
+            from_px[0] + (to_px[0] - from_px[0]) / 2,
+            from_px[1] + (to_px[1] - from_px[1]) / 2,
+        )
+        .move_to(to_px[0], to_px[1])
+        .release()
+        .perform()
+        .await
+        .expect("drag");
+    wait_js(
+        &a,
+        "return document.getElementById('demo').dataset.finished === '2';",
+        "re-tracking after the correction",
+    )
+    .await;
+    a.screenshot(&shots.join("demo-corrected.png"))
+        .await
+        .unwrap();
+    let (st, track) = s
+        .get(&format!("/api/demos/{demo}/tracks/{track_id}"), Some(&api))
+        .await;
+    assert_eq!(st, reqwest::StatusCode::OK);
+    let fixed = sample_at(&track, 10);
+    assert_eq!(fixed["origin"], "manual", "{fixed}");
+    // The drop point: where the point was grabbed, moved by the pointer's travel.
+    let want = [at10[0] + (to[0] - from[0]), at10[1] + (to[1] - from[1])];
+    let got = xy(&fixed);
+    assert!(
+        (got[0] - want[0]).abs() < 1e-6 && (got[1] - want[1]).abs() < 1e-6,
+        "dropped at {want:?}, stored {got:?}"
+    );
+    // Frames before the correction keep their samples; the ones after follow the new point.
+    assert_eq!(xy(&sample_at(&track, 9)), before9, "frame 9 is not touched");
+    let after = xy(&sample_at(&track, 11));
+    assert_eq!(sample_at(&track, 11)["origin"], "tracked");
+    assert!(
+        (after[0] - (got[0] + STEP[0])).abs() < 0.6 && (after[1] - (got[1] + STEP[1])).abs() < 0.6,
+        "frame 11 {after:?} should follow the corrected point {got:?}"
+    );
+
+    // Make a goal from frames 0 to the last, and land in the editor on it.
+    fill(&a, "#goal-name", "tray corner to the mat").await;
+    fill(&a, "#goal-note", "from the slide demo").await;
+    js(
+        &a,
+        "document.getElementById('demo-goal').scrollIntoView(); return true;",
+    )
+    .await;
+    a.screenshot(&shots.join("demo-goal-form.png"))
+        .await
+        .unwrap();
+    click(&a, "#make-goal").await;
+    wait_js(
+        &a,
+        "return location.pathname.startsWith('/goals/') && document.getElementById('editor')?.dataset.ready === '1';",
+        "the editor on the new goal",
+    )
+    .await;
+    a.screenshot(&shots.join("demo-goal.png")).await.unwrap();
+    let goal_id = js(&a, "return location.pathname.split('/')[2];")
+        .await
+        .as_str()
+        .expect("goal id")
+        .to_string();
+    let (st, rev) = s.get(&format!("/api/goals/{goal_id}"), Some(&api)).await;
+    assert_eq!(st, reqwest::StatusCode::OK, "{rev}");
+    assert_eq!(rev["from_demo"]["demo_id"], demo.as_str());
+    assert_eq!(rev["from_demo"]["tracks"], json!([track_id]));
+    assert_eq!(rev["from_demo"]["start_frame"], 0);
+    assert_eq!(rev["from_demo"]["end_frame"], FRAMES as i64 - 1);
+    assert_eq!(rev["terms"].as_array().map(Vec::len), Some(1));
+    assert_eq!(rev["terms"][0]["kind"], "point");
+    let target = rev["terms"][0]["target"].clone();
+    let end = xy(&sample_at(&track, FRAMES as i64 - 1));
+    assert_eq!(
+        target,
+        json!(end),
+        "the target is the track at the end frame"
+    );
+    // The history says where the revision came from.
+    a.goto(format!("{}/goals/{goal_id}/history", s.base))
+        .await
+        .unwrap();
+    let text = wait_for(&a, By::Css("main")).await.text().await.unwrap();
+    let line = format!("made from demo {demo}, frames 0 to {}, 1 track", FRAMES - 1);
+    assert!(text.contains(&line), "the history says {line:?}: {text}");
+    a.screenshot(&shots.join("demo-history.png")).await.unwrap();
+    click(&a, &format!(".rev-from a[href='/demos/{demo}']")).await;
+    wait_js(
+        &a,
+        "return document.getElementById('demo')?.dataset.ready === '1';",
+        "the demo page from the history",
+    )
+    .await;
+    a.quit().await.ok();
+}

@@ -143,6 +143,55 @@ async fn uploads(s: Server) {
     let (st, png1) = get_bytes(&s, &format!("/api/demos/{gid}/frames/1/image"), &editor).await;
     assert_eq!(st, StatusCode::OK);
     assert!(png1.starts_with(b"\x89PNG"));
+
+    // A GIF of 10 000 frames (each one small) under the default limit of 900 frames a demo:
+    // refused as too large, naming the limit, after reading no more than the limit's frames.
+    let mut one = Vec::new();
+    {
+        let mut enc = image::codecs::gif::GifEncoder::new(&mut one);
+        let buf = image::RgbaImage::from_pixel(64, 48, image::Rgba([120, 90, 30, 255]));
+        let frame = image::Frame::from_parts(buf, 0, 0, image::Delay::from_numer_denom_ms(40, 1));
+        enc.encode_frame(frame).expect("gif frame");
+    }
+    // The frame's own blocks run from its graphic control extension (21 F9 04) to the trailer.
+    let at = one
+        .windows(3)
+        .position(|w| w == [0x21, 0xF9, 0x04])
+        .expect("graphic control extension");
+    assert_eq!(one.last(), Some(&0x3B), "GIF trailer");
+    let block = &one[at..one.len() - 1];
+    let mut many = one[..at].to_vec();
+    for _ in 0..10_000 {
+        many.extend_from_slice(block);
+    }
+    many.push(0x3B);
+    let (st, err) = demo_upload(&s, &cam, &editor, "image/gif", many).await;
+    assert_eq!(st, StatusCode::PAYLOAD_TOO_LARGE, "{err}");
+    assert_eq!(code(&err), "too_large");
+    let message = err["error"]["message"].as_str().unwrap_or("");
+    assert!(message.contains("more than 900 frames"), "{err}");
+
+    // Nothing refused was stored: the camera lists the ZIP and the GIF demo only, newest first.
+    let (st, list) = s
+        .get(&format!("/api/cameras/{cam}/demos"), Some(&viewer))
+        .await;
+    assert_eq!(st, StatusCode::OK, "{list}");
+    let ids: Vec<&str> = list["items"]
+        .as_array()
+        .expect("items")
+        .iter()
+        .map(|d| d["id"].as_str().expect("id"))
+        .collect();
+    assert_eq!(ids, vec![gid, id.as_str()], "{list}");
+    assert_eq!(list["items"][1]["frame_count"], 3);
+    assert!(
+        list["items"][0].get("frames").is_none(),
+        "a list leaves the frames out"
+    );
+    let (st, _) = s
+        .get(&format!("/api/cameras/{cam}/demos"), Some(&other))
+        .await;
+    assert_eq!(st, StatusCode::NOT_FOUND, "another team's camera");
 }
 
 on_both_databases!(demo_uploads, uploads);

@@ -294,6 +294,15 @@ async fn scenario(s: &Server) -> Vec<Sample> {
     let demo = str_of(&demo, "id");
     c.call(
         M::GET,
+        "/api/cameras/{id}/demos",
+        &format!("/api/cameras/{cam}/demos"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::GET,
         "/api/demos/{id}",
         &format!("/api/demos/{demo}"),
         v,

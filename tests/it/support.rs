@@ -454,3 +454,46 @@ pub fn zip_of(entries: &[(&str, &[u8])]) -> Vec<u8> {
     }
     z.finish().expect("finish").into_inner()
 }
+
+/// A smooth texture (three Gaussian blobs about (70, 55) and a gentle ripple) of `w`×`h`,
+/// shifted by `d` pixels, as a PNG: the texture point at (x, y) of the unshifted frame is at
+/// (x + d.x, y + d.y).
+pub fn texture_frame(w: u32, h: u32, d: [f64; 2]) -> Vec<u8> {
+    let img = image::RgbImage::from_fn(w, h, |i, j| {
+        let (x, y) = (f64::from(i) - d[0], f64::from(j) - d[1]);
+        let blob = |cx: f64, cy: f64, s: f64| {
+            (-((x - cx).powi(2) + (y - cy).powi(2)) / (2.0 * s * s)).exp()
+        };
+        let v = 60.0
+            + 120.0 * blob(70.0, 55.0, 9.0)
+            + 80.0 * blob(95.0, 70.0, 6.0)
+            + 60.0 * blob(60.0, 75.0, 7.0)
+            + 15.0 * ((x * 0.21).sin() * (y * 0.17).cos());
+        let g = v.round().clamp(0.0, 255.0) as u8;
+        image::Rgb([g, g, g])
+    });
+    let mut out = std::io::Cursor::new(Vec::new());
+    img.write_to(&mut out, image::ImageFormat::Png)
+        .expect("png");
+    out.into_inner()
+}
+
+/// A demo ZIP of `frames` [`texture_frame`]s, frame k shifted by k × `step`, with a
+/// `timestamps.csv` of 0.05 s a frame.
+pub fn texture_demo_zip(w: u32, h: u32, frames: usize, step: [f64; 2]) -> Vec<u8> {
+    let pngs: Vec<(String, Vec<u8>)> = (0..frames)
+        .map(|k| {
+            let d = [step[0] * k as f64, step[1] * k as f64];
+            (format!("{k:03}.png"), texture_frame(w, h, d))
+        })
+        .collect();
+    let times: String = (0..frames)
+        .map(|k| format!("{}\n", k as f64 * 0.05))
+        .collect();
+    let mut entries: Vec<(&str, &[u8])> = pngs
+        .iter()
+        .map(|(n, b)| (n.as_str(), b.as_slice()))
+        .collect();
+    entries.push(("timestamps.csv", times.as_bytes()));
+    zip_of(&entries)
+}

@@ -7,7 +7,6 @@ use crate::on_both_databases;
 use crate::support::*;
 use reqwest::StatusCode;
 use serde_json::{Value, json};
-use std::io::Write;
 use std::time::{Duration, Instant};
 
 const W: u32 = 160;
@@ -16,40 +15,8 @@ const H: u32 = 120;
 const STEP: [f64; 2] = [1.5, 0.75];
 const FRAMES: usize = 8;
 
-/// A smooth texture (three Gaussian blobs and a gentle ripple) shifted by `d`.
-fn frame(d: [f64; 2]) -> Vec<u8> {
-    let img = image::RgbImage::from_fn(W, H, |i, j| {
-        let (x, y) = (f64::from(i) - d[0], f64::from(j) - d[1]);
-        let blob = |cx: f64, cy: f64, s: f64| {
-            (-((x - cx).powi(2) + (y - cy).powi(2)) / (2.0 * s * s)).exp()
-        };
-        let v = 60.0
-            + 120.0 * blob(70.0, 55.0, 9.0)
-            + 80.0 * blob(95.0, 70.0, 6.0)
-            + 60.0 * blob(60.0, 75.0, 7.0)
-            + 15.0 * ((x * 0.21).sin() * (y * 0.17).cos());
-        let g = v.round().clamp(0.0, 255.0) as u8;
-        image::Rgb([g, g, g])
-    });
-    let mut out = std::io::Cursor::new(Vec::new());
-    img.write_to(&mut out, image::ImageFormat::Png)
-        .expect("png");
-    out.into_inner()
-}
-
 fn demo_zip() -> Vec<u8> {
-    let mut z = zip::ZipWriter::new(std::io::Cursor::new(Vec::new()));
-    let opts = zip::write::SimpleFileOptions::default();
-    for k in 0..FRAMES {
-        let d = [STEP[0] * k as f64, STEP[1] * k as f64];
-        z.start_file(format!("{k:03}.png"), opts).expect("entry");
-        z.write_all(&frame(d)).expect("write");
-    }
-    z.start_file("timestamps.csv", opts).expect("entry");
-    for k in 0..FRAMES {
-        writeln!(z, "{}", k as f64 * 0.05).expect("write");
-    }
-    z.finish().expect("zip").into_inner()
+    texture_demo_zip(W, H, FRAMES, STEP)
 }
 
 /// Waits for an operation to end (the tracker needs well under a second here; the bound is a

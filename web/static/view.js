@@ -11,9 +11,9 @@
 // server/draw/overlay.rs step by step, so the editor shows what a download will show. Mark sizes
 // are CSS pixels whatever the zoom; goal geometry (targets, outlines, tolerances) is in frame
 // pixels and zooms with the frame.
-import { KINDS, ZONES, INKS, ALPHAS, SIZES, SHAPES } from '/static/marks.js';
+import { KINDS, ZONES, INKS, ALPHAS, SIZES, SHAPES, TRACKS } from '/static/marks.js';
 
-export { KINDS, ZONES, INKS, ALPHAS, SIZES, SHAPES };
+export { KINDS, ZONES, INKS, ALPHAS, SIZES, SHAPES, TRACKS };
 
 export class View {
   constructor(width, height) {
