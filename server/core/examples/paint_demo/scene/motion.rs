@@ -2,11 +2,11 @@
 //! once, and each frame paints the moving thing over it at its pose. The moving thing keeps its
 //! own textures (they move with it), so a point on it can be followed from frame to frame.
 
-use super::canvas::{Box2, Canvas, polygon_sd};
+use super::canvas::{Box2, Canvas};
 use super::objects::{self, Part};
 use super::{Geometry, geometry};
 use crate::noise::XorShift;
-use crate::raster::{BadSize, Image, check_size, segment_distance};
+use crate::raster::{BadSize, Image, check_size};
 
 /// Samples per pixel along each axis for the moving thing (its area is averaged, see
 /// `Canvas::samples`).
@@ -124,37 +124,6 @@ impl Stage {
         }
     }
 
-    /// Signed distance to the moving thing's outline at `pose` (negative inside).
-    pub fn mover_sd(&self, pose: Pose, x: f64, y: f64) -> f64 {
-        match self.mover {
-            Mover::Tray2 => self.tray_box(pose).sd(x, y, 6.0 * self.g.fit.s),
-            Mover::PotSmall => {
-                (x - pose.center[0]).hypot(y - pose.center[1]) - self.g.layout.pots[0].radius
-            }
-        }
-    }
-
-    /// Signed distance to the nearest other thing standing on the bench (the mat, which
-    /// things slide onto, is not one).
-    pub fn others_sd(&self, x: f64, y: f64) -> f64 {
-        let l = &self.g.layout;
-        let s = self.g.fit.s;
-        let mut d = polygon_sd(&l.stake.outline, x, y);
-        d = d.min(polygon_sd(&l.trowel.blade, x, y));
-        d = d.min(segment_distance([x, y], l.trowel.tip, l.trowel.handle_end) - 9.5 * s);
-        for (k, (b, _)) in self.g.trays.iter().enumerate() {
-            if !(self.mover == Mover::Tray2 && k == 1) {
-                d = d.min(b.sd(x, y, 6.0 * s));
-            }
-        }
-        for (k, p) in l.pots.iter().enumerate() {
-            if !(self.mover == Mover::PotSmall && k == 0) {
-                d = d.min((x - p.center[0]).hypot(y - p.center[1]) - p.radius);
-            }
-        }
-        d
-    }
-
     /// One frame: the moving thing at `pose` on the bench.
     pub fn frame(&self, pose: Pose) -> Image {
         let mut cv = self.background.clone();
@@ -172,5 +141,42 @@ impl Stage {
             }
         }
         objects::letter(&self.g, cv.into_image())
+    }
+}
+
+/// Shapes for checking the clips: a moving thing must not run into anything.
+#[cfg(test)]
+impl Stage {
+    /// Signed distance to the moving thing's outline at `pose` (negative inside).
+    pub fn mover_sd(&self, pose: Pose, x: f64, y: f64) -> f64 {
+        match self.mover {
+            Mover::Tray2 => self.tray_box(pose).sd(x, y, 6.0 * self.g.fit.s),
+            Mover::PotSmall => {
+                (x - pose.center[0]).hypot(y - pose.center[1]) - self.g.layout.pots[0].radius
+            }
+        }
+    }
+
+    /// Signed distance to the nearest other thing standing on the bench (the mat, which
+    /// things slide onto, is not one).
+    pub fn others_sd(&self, x: f64, y: f64) -> f64 {
+        let l = &self.g.layout;
+        let s = self.g.fit.s;
+        let mut d = super::canvas::polygon_sd(&l.stake.outline, x, y);
+        d = d.min(super::canvas::polygon_sd(&l.trowel.blade, x, y));
+        d = d.min(
+            crate::raster::segment_distance([x, y], l.trowel.tip, l.trowel.handle_end) - 9.5 * s,
+        );
+        for (k, (b, _)) in self.g.trays.iter().enumerate() {
+            if !(self.mover == Mover::Tray2 && k == 1) {
+                d = d.min(b.sd(x, y, 6.0 * s));
+            }
+        }
+        for (k, p) in l.pots.iter().enumerate() {
+            if !(self.mover == Mover::PotSmall && k == 0) {
+                d = d.min((x - p.center[0]).hypot(y - p.center[1]) - p.radius);
+            }
+        }
+        d
     }
 }
