@@ -89,8 +89,17 @@ const MEDIAN_PX: f64 = 0.3;
 const MAX_PX: f64 = 0.6;
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
-async fn demo_loads_its_demonstrations_and_they_track() {
-    let Some(db) = fresh_db(Db::Sqlite, "demo_scenario").await else {
+async fn demo_loads_its_demonstrations_and_they_track_sqlite() {
+    demo_loads_its_demonstrations_and_they_track(Db::Sqlite).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn demo_loads_its_demonstrations_and_they_track_postgres() {
+    demo_loads_its_demonstrations_and_they_track(Db::Postgres).await;
+}
+
+async fn demo_loads_its_demonstrations_and_they_track(kind: Db) {
+    let Some(db) = fresh_db(kind, "demo_scenario").await else {
         return;
     };
     let (s, lines) = start_with_stderr(&db.url, &db.data_dir, &["--demo"]);
