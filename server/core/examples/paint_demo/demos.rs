@@ -177,10 +177,10 @@ pub fn truth(
         "convention": "pixel coordinates [x, y], x right, y down, centre of the top-left pixel \
                        at (0, 0); angles clockwise on screen from the x axis; a point's `local` \
                        is along the object's turned x and y axes from its centre",
-        "encoding": "animated GIF, one palette of at most 255 colours for the clip (no \
-                     dithering), each frame after the first holding only the pixels that \
-                     changed; the paths are exact for the painting before its colours were \
-                     reduced",
+        "encoding": "animated GIF without dithering: the first frame whole with a palette of at \
+                     most 255 colours, each later frame only the box of pixels that changed, \
+                     with its own palette, the unchanged pixels in it transparent; the paths \
+                     are exact for the painting before its colours were reduced",
     })
 }
 
