@@ -1,9 +1,10 @@
 //! The demo scenario: an invented greenhouse potting bench seen from above, loaded into an empty
-//! database by `serve --demo`. The picture and its layout (`demo-data/`) are painted by the
-//! project's own code: `cargo run -p goalsmith-core --example paint_demo -- demo-data`.
+//! database by `serve --demo`. The picture, its layout and four short demonstrations with their
+//! ground truth (`demo-data/`) are painted by the project's own code:
+//! `cargo run -p goalsmith-core --example paint_demo -- demo-data`.
 
 use crate::service::auth::{self, Principal, Role};
-use crate::service::{AppState, cameras, frames, goals};
+use crate::service::{AppState, cameras, demos, frames, goals, tracks};
 use crate::store;
 use goalsmith_core::goal::GoalDocument;
 use serde_json::{Value, json};
@@ -13,6 +14,34 @@ pub const TEAM: &str = "greenhouse";
 
 const BENCH_PNG: &[u8] = include_bytes!("../demo-data/bench.png");
 const SCENE_JSON: &str = include_str!("../demo-data/scene.json");
+
+/// The demonstrations: (name, animated GIF, ground truth), uploaded in this order.
+const DEMOS: [(&str, &[u8], &str); 4] = [
+    (
+        "tray_straight",
+        include_bytes!("../demo-data/demos/tray_straight.gif"),
+        include_str!("../demo-data/demos/tray_straight.json"),
+    ),
+    (
+        "tray_curved",
+        include_bytes!("../demo-data/demos/tray_curved.gif"),
+        include_str!("../demo-data/demos/tray_curved.json"),
+    ),
+    (
+        "tray_pause",
+        include_bytes!("../demo-data/demos/tray_pause.gif"),
+        include_str!("../demo-data/demos/tray_pause.json"),
+    ),
+    (
+        "pot_to_mat",
+        include_bytes!("../demo-data/demos/pot_to_mat.gif"),
+        include_str!("../demo-data/demos/pot_to_mat.json"),
+    ),
+];
+
+/// The point of the first demo a track is started on at load, and its label.
+const TRACKED_POINT: &str = "walls_cross_top_left";
+const TRACK_LABEL: &str = "tray 2, cell walls crossing (top left)";
 
 fn camera_body() -> Value {
     json!({
@@ -89,13 +118,53 @@ pub async fn load(state: &AppState) -> Result<Option<String>, Box<dyn std::error
             .await
             .map_err(|e| format!("demo goal does not check: {e}"))?;
     }
+    // The demonstrations, uploaded as any editor would (each is checked against the camera).
+    let mut uploaded = Vec::new();
+    for (name, gif, _) in DEMOS {
+        let ticket = demos::begin_upload(state, &who, &camera.id, "image/gif")
+            .await
+            .map_err(|e| e.to_string())?;
+        let demo = ticket
+            .finish(state, gif.to_vec())
+            .await
+            .map_err(|e| format!("demo {name} does not load: {e}"))?;
+        uploaded.push((name, demo.id, demo.frame_count));
+    }
+    // One track started on the first, at a point whose path is known; the operation workers
+    // follow it once the server runs.
+    let truth: Value = serde_json::from_str(DEMOS[0].2)?;
+    let start = &truth["points"][TRACKED_POINT]["path"][0];
+    let (x, y) = (
+        start[0]
+            .as_f64()
+            .ok_or("the ground truth has no start point")?,
+        start[1]
+            .as_f64()
+            .ok_or("the ground truth has no start point")?,
+    );
+    let input = tracks::NewTrack {
+        label: TRACK_LABEL.into(),
+        frame: 0,
+        x,
+        y,
+    };
+    tracks::start(state, &who, &uploaded[0].1, input)
+        .await
+        .map_err(|e| e.to_string())?;
     let token = auth::create_team_token(&state.store, &team.id, Role::Editor, "demo planner")
         .await
         .map_err(|e| e.to_string())?
         .token;
+    let listing: Vec<String> = uploaded
+        .iter()
+        .map(|(name, id, n)| format!("  demo {name} ({n} frames): /api/demos/{id}"))
+        .collect();
     eprintln!(
-        "demo loaded: team {TEAM:?} with a camera, a frame of the potting bench and 3 goals\n\
-         an editor API token for scripts (shown once): {token}"
+        "demo loaded: team {TEAM:?} with a camera, a frame of the potting bench, 3 goals and {} \
+         demonstrations (a track started on the first)\n{}\n\
+         an editor API token for scripts (shown once): {token}",
+        uploaded.len(),
+        listing.join("\n")
     );
     Ok(Some(TEAM.to_string()))
 }

@@ -497,3 +497,22 @@ pub fn texture_demo_zip(w: u32, h: u32, frames: usize, step: [f64; 2]) -> Vec<u8
     entries.push(("timestamps.csv", times.as_bytes()));
     zip_of(&entries)
 }
+
+/// Starts the server like [`Server::start`] and also hands back every line it writes to stderr
+/// (each is passed through as well), for what it announces at start-up.
+pub fn start_with_stderr(
+    db_url: &str,
+    data_dir: &std::path::Path,
+    extra: &[&str],
+) -> (Server, std::sync::mpsc::Receiver<String>) {
+    let mut child = Server::spawn(db_url, data_dir, extra, Stdio::piped());
+    let stderr = child.stderr.take().expect("stderr");
+    let (tx, rx) = std::sync::mpsc::channel::<String>();
+    std::thread::spawn(move || {
+        for line in BufReader::new(stderr).lines().map_while(Result::ok) {
+            eprintln!("{line}");
+            tx.send(line).ok();
+        }
+    });
+    (Server::from_child(child, db_url, data_dir), rx)
+}

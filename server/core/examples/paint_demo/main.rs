@@ -1,13 +1,17 @@
 //! Writes the demo scenario: `cargo run -p goalsmith-core --example paint_demo -- DIR`
 //!
-//! DIR/bench.png (the potting bench, 640 × 480) and DIR/scene.json (where everything is, in
-//! frame pixels, plus suggested goals), which `serve --demo` loads. Deterministic: the same
-//! seed gives the same files.
+//! DIR/bench.png (the potting bench, 640 × 480), DIR/scene.json (where everything is, in
+//! frame pixels, plus suggested goals) and four short demonstrations in DIR/demos/ (animated
+//! GIFs of a seed tray or a pot slid to the watering mat, each with a JSON of the known paths
+//! of points on it), which `serve --demo` loads. Deterministic: the same seed gives the same
+//! files.
 //!
 //! The painter lives here rather than in goalsmith-core, which keeps computation only; it has
 //! its own small raster helpers (`raster.rs`, `lettering.rs`) so the pictures stay exactly
 //! what they were when they were first painted.
 
+mod demos;
+mod gif_out;
 mod lettering;
 mod noise;
 mod raster;
@@ -182,5 +186,11 @@ fn main() -> Result<(), Box<dyn Error>> {
     pretty(&rounded(scene), 0, &mut text);
     std::fs::write(dir.join("scene.json"), text + "\n")?;
     println!("scene.json written");
+
+    demos::write_all(dir, W, H, SEED, |v| {
+        let mut text = String::new();
+        pretty(v, 0, &mut text);
+        text
+    })?;
     Ok(())
 }

@@ -8,6 +8,7 @@
 //! goals can be written against the same picture.
 
 mod canvas;
+pub mod motion;
 mod objects;
 
 use serde::Serialize;

@@ -5,10 +5,15 @@ use crate::raster::{Image, Patch, crossings, finite, segment_distance};
 /// Linear RGB-ish working colour, 0..=255 per channel (values are sRGB, mixed naively).
 pub(crate) type Rgb = [f32; 3];
 
+#[derive(Clone)]
 pub(crate) struct Canvas {
     pub w: usize,
     pub h: usize,
     px: Vec<Rgb>,
+    /// Samples per pixel along each axis: 1 evaluates a layer at pixel centres; n > 1 averages
+    /// it over an n × n grid inside each pixel (the pixel's area), which keeps fine texture
+    /// from flickering when a painted thing moves by a fraction of a pixel.
+    pub samples: usize,
 }
 
 impl Canvas {
@@ -17,6 +22,7 @@ impl Canvas {
             w,
             h,
             px: vec![[0.0; 3]; w * h],
+            samples: 1,
         }
     }
 
@@ -31,6 +37,30 @@ impl Canvas {
         let Some(p) = Patch::covering(self.w, self.h, lo, hi) else {
             return;
         };
+        if self.samples > 1 {
+            let n = self.samples;
+            let offsets: Vec<f64> = (0..n).map(|a| (a as f64 + 0.5) / n as f64 - 0.5).collect();
+            let share = 1.0 / (n * n) as f32;
+            for j in p.y0..p.y0 + p.h {
+                for i in p.x0..p.x0 + p.w {
+                    let k = j * self.w + i;
+                    let under = self.px[k];
+                    let mut out = under;
+                    for &dy in &offsets {
+                        for &dx in &offsets {
+                            if let Some((c, a)) = f(i as f64 + dx, j as f64 + dy, under) {
+                                let a = a.clamp(0.0, 1.0) * share;
+                                for m in 0..3 {
+                                    out[m] += (c[m] - under[m]) * a;
+                                }
+                            }
+                        }
+                    }
+                    self.px[k] = out;
+                }
+            }
+            return;
+        }
         for j in p.y0..p.y0 + p.h {
             for i in p.x0..p.x0 + p.w {
                 let k = j * self.w + i;

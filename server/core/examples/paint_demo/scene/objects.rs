@@ -90,45 +90,116 @@ fn shadow(
 }
 
 pub(crate) fn paint(g: &Geometry, seed: u64) -> Image {
+    letter(g, paint_canvas(g, seed, None).into_image())
+}
+
+/// A part of the bench that can be left out of a painting (to be painted moving on top).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Part {
+    /// The tray of this index.
+    Tray(usize),
+    /// The pot of this index.
+    Pot(usize),
+}
+
+/// Everything on the bench but its lettering, with `omit` left out.
+pub(crate) fn paint_canvas(g: &Geometry, seed: u64, omit: Option<Part>) -> Canvas {
     let l = &g.layout;
     let mut cv = Canvas::new(l.width, l.height);
     let s = g.fit.s;
     paint_wood(&mut cv, s, seed);
     paint_mat(&mut cv, &g.mat, s, seed);
-    for (k, (b, cell)) in g.trays.iter().enumerate() {
-        let t = &l.trays[k];
-        paint_tray(
-            &mut cv,
-            b,
-            *cell,
-            t.rows,
-            t.cols,
-            &t.seedlings,
-            s,
-            seed + k as u64,
-        );
+    for (k, (b, _)) in g.trays.iter().enumerate() {
+        if omit == Some(Part::Tray(k)) {
+            continue;
+        }
+        paint_tray_at(&mut cv, g, k, b, None, seed);
     }
     paint_stake(&mut cv, &g.stake, &l.stake.outline, s);
     paint_trowel(&mut cv, g, s, seed);
     let mut rng = XorShift::new(seed ^ 0x5eed);
-    for (k, p) in l.pots.iter().enumerate() {
-        let leaves = match p.name.as_str() {
-            "pot_large" => 7,
-            "pot_medium" => 5,
-            _ => 0,
+    let mut scratch = Canvas::new(1, 1);
+    for k in 0..l.pots.len() {
+        // A pot left out is painted where nothing shows, so the pots after it draw the same
+        // leaves from the generator.
+        let on = if omit == Some(Part::Pot(k)) {
+            &mut scratch
+        } else {
+            &mut cv
         };
-        paint_pot(
-            &mut cv,
-            p.center,
-            p.radius,
-            p.soil_radius,
-            leaves,
-            s,
-            seed + 31 * k as u64,
-            &mut rng,
-        );
+        paint_pot_at(on, g, k, l.pots[k].center, seed, &mut rng);
     }
-    let mut img = cv.into_image();
+    cv
+}
+
+/// Paints tray `k` as the box `b` (its place on the bench, or where it has been slid to). With
+/// `home`, the tray's textures are those of the tray at `home`, carried along with it; without,
+/// they are sampled where the tray lies.
+pub(crate) fn paint_tray_at(
+    cv: &mut Canvas,
+    g: &Geometry,
+    k: usize,
+    b: &Box2,
+    home: Option<&Box2>,
+    seed: u64,
+) {
+    let t = &g.layout.trays[k];
+    let cell = g.trays[k].1;
+    let seedlings: Vec<[f64; 2]> = match home {
+        None => t.seedlings.clone(),
+        Some(h) => t
+            .seedlings
+            .iter()
+            .map(|p| {
+                let [u, v] = h.local(p[0], p[1]);
+                b.world(u, v)
+            })
+            .collect(),
+    };
+    paint_tray(
+        cv,
+        b,
+        home,
+        cell,
+        t.rows,
+        t.cols,
+        &seedlings,
+        g.fit.s,
+        seed + k as u64,
+    );
+}
+
+/// Paints pot `k` with its centre at `center`; `rng` draws its leaves.
+pub(crate) fn paint_pot_at(
+    cv: &mut Canvas,
+    g: &Geometry,
+    k: usize,
+    center: [f64; 2],
+    seed: u64,
+    rng: &mut XorShift,
+) {
+    let p = &g.layout.pots[k];
+    let leaves = match p.name.as_str() {
+        "pot_large" => 7,
+        "pot_medium" => 5,
+        _ => 0,
+    };
+    paint_pot(
+        cv,
+        center,
+        p.radius,
+        p.soil_radius,
+        leaves,
+        g.fit.s,
+        seed + 31 * k as u64,
+        rng,
+    );
+}
+
+/// Writes the stake's lettering on a finished painting.
+pub(crate) fn letter(g: &Geometry, mut img: Image) -> Image {
+    let l = &g.layout;
+    let s = g.fit.s;
     // The stake's writing, in marker pen: letter cells on whole pixels, so they stay crisp.
     let (w, h) = lettering::text_size(&l.stake.text, 2);
     let scale = ((2.0 * s).round() as usize).max(1);
@@ -246,6 +317,7 @@ fn paint_mat(cv: &mut Canvas, mat: &Box2, s: f64, seed: u64) {
 fn paint_tray(
     cv: &mut Canvas,
     b: &Box2,
+    home: Option<&Box2>,
     cell: f64,
     rows: usize,
     cols: usize,
@@ -268,6 +340,14 @@ fn paint_tray(
             return None;
         }
         let [u, v] = b.local(x, y);
+        // Where the textures are sampled: here, or on the tray at home.
+        let (x, y) = match home {
+            None => (x, y),
+            Some(h) => {
+                let p = h.world(u, v);
+                (p[0], p[1])
+            }
+        };
         let grain = value_noise(seed ^ 0x91, x / (2.0 * s), y / (2.0 * s)) as f32;
         // Outer rim: lit on the top and left edges.
         if u.abs() > gw || v.abs() > gh {
