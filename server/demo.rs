@@ -121,9 +121,15 @@ pub async fn load(state: &AppState) -> Result<Option<String>, Box<dyn std::error
     // The demonstrations, uploaded as any editor would (each is checked against the camera).
     let mut uploaded = Vec::new();
     for (name, gif, _) in DEMOS {
-        let ticket = demos::begin_upload(state, &who, &camera.id, "image/gif")
-            .await
-            .map_err(|e| e.to_string())?;
+        let ticket = demos::begin_upload(
+            state,
+            &who,
+            &camera.id,
+            "image/gif",
+            Some(&name.replace('_', " ")),
+        )
+        .await
+        .map_err(|e| e.to_string())?;
         let demo = ticket
             .finish(state, gif.to_vec())
             .await

@@ -5,24 +5,37 @@ use super::export::refuse;
 use super::extract::{media_type, read_body};
 use super::goals::if_none_match;
 use crate::service::AppState;
+use crate::service::ServiceError;
 use crate::service::auth::Principal;
 use crate::service::demos::{self, DemoView};
 use axum::Json;
-use axum::extract::{Path, Request, State};
+use axum::extract::rejection::QueryRejection;
+use axum::extract::{Path, Query, Request, State};
 use axum::http::{HeaderMap, StatusCode, header};
 use axum::response::{IntoResponse, Response};
+use schemars::JsonSchema;
+use serde::Deserialize;
 
 /// `POST /api/cameras/{id}/demos` with an `application/zip` or `image/gif` body → 201.
 pub async fn upload(
     State(state): State<AppState>,
     who: Principal,
     Path(id): Path<String>,
+    query: Result<Query<UploadQuery>, QueryRejection>,
     req: Request,
 ) -> ServiceResult<(StatusCode, Json<DemoView>)> {
     let content_type = media_type(&req).unwrap_or_default();
+    let name = match query {
+        Ok(Query(q)) => q.name,
+        Err(e) => {
+            let e = ServiceError::invalid_body("bad_query", e.body_text());
+            return Err(refuse(req, e).await);
+        }
+    };
     // Role, camera, type and a heavy-work permit before the body (up to the demo limit) is
     // read; a refusal still reads and drops the body, so the uploader gets the error.
-    let ticket = match demos::begin_upload(&state, &who, &id, &content_type).await {
+    let ticket = match demos::begin_upload(&state, &who, &id, &content_type, name.as_deref()).await
+    {
         Ok(t) => t,
         Err(e) => return Err(refuse(req, e).await),
     };
@@ -41,6 +54,15 @@ pub async fn get_one(
     Path(id): Path<String>,
 ) -> ServiceResult<Json<DemoView>> {
     Ok(Json(demos::view(&state, &who, &id).await?))
+}
+
+/// The query of `POST /api/cameras/{id}/demos`.
+#[derive(Debug, Deserialize, JsonSchema)]
+#[serde(deny_unknown_fields)]
+pub struct UploadQuery {
+    /// What the demo shows, up to 200 characters (default: "demo" and its upload time).
+    #[schemars(length(min = 1, max = 200))]
+    pub name: Option<String>,
 }
 
 /// `GET /api/cameras/{id}/demos`.

@@ -240,6 +240,7 @@ pub fn table() -> Vec<Route> {
             .heavy()
             .limit(BodyLimit::Demo)
             .binary_body(&["application/zip", "image/gif"])
+            .query::<demos::UploadQuery>()
             .ok::<service::demos::DemoView>(201, "the demo as stored", &[]),
         Route::get("/api/cameras/{id}/demos", "List a camera's demonstrations, newest first", demos::list_for_camera)
             .ok::<super::Items<service::demos::DemoSummary>>(200, "the camera's demos", &[]),

@@ -15,6 +15,7 @@ use serde_json::json;
 /// A demo in the home page's list.
 pub(super) struct DemoCard {
     pub id: String,
+    pub name: String,
     pub camera: String,
     pub frames: i64,
     pub author: String,
@@ -37,6 +38,7 @@ pub(super) async fn cards(
                 .unwrap_or("?")
                 .to_string(),
             id: d.id,
+            name: d.name,
             frames: d.frame_count,
             author: d.author,
             when: when(d.created_at),
@@ -49,6 +51,7 @@ pub(super) async fn cards(
 struct DemoPage {
     chrome: Chrome,
     demo_id: String,
+    name: String,
     camera_name: String,
     frame_count: i64,
     width: i64,
@@ -85,6 +88,7 @@ pub(super) async fn show(
     let page = DemoPage {
         chrome: Chrome::signed(&state, &signed, &headers, "home").await,
         demo_id: row.id.clone(),
+        name: row.name.clone(),
         camera_name: camera.name.clone(),
         frame_count: row.frame_count,
         width: row.width,

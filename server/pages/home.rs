@@ -196,7 +196,7 @@ pub(super) async fn home(
     let demos = super::demos::cards(&state, &signed, &camera_names)
         .await?
         .into_iter()
-        .filter(|d| matches(&q, &d.camera))
+        .filter(|d| matches(&q, &d.camera) || matches(&q, &d.name))
         .collect();
     let page = HomePage {
         chrome: Chrome::signed(&state, &signed, &headers, "home").await,

@@ -7,6 +7,7 @@ use super::export::Permit;
 use super::{AppState, cameras, parse_frame_index, parse_id, rfc3339};
 use crate::demo_archive::{self, DemoRejection, FrameRules};
 use crate::store::{self, cameras::CameraRow, demos::DemoRow};
+use goalsmith_core::names::{self, NameKind};
 use schemars::JsonSchema;
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -29,6 +30,8 @@ pub struct DemoView {
     pub height: i64,
     /// Demo id.
     pub id: String,
+    /// What it shows, as its uploader named it (by default its upload time).
+    pub name: String,
     /// Frame width (the camera's).
     pub width: i64,
 }
@@ -60,6 +63,8 @@ pub struct DemoSummary {
     pub height: i64,
     /// Demo id.
     pub id: String,
+    /// What it shows, as its uploader named it (by default its upload time).
+    pub name: String,
     /// Frame width (the camera's).
     pub width: i64,
 }
@@ -78,6 +83,7 @@ pub enum DemoFormat {
 /// free permit) come before a large body is read at all.
 pub struct UploadTicket {
     camera: CameraRow,
+    name: Option<String>,
     format: DemoFormat,
     author: String,
     team_id: String,
@@ -91,9 +97,16 @@ pub async fn begin_upload(
     who: &Principal,
     camera_id: &str,
     content_type: &str,
+    name: Option<&str>,
 ) -> ServiceResult<UploadTicket> {
     who.require(Role::Editor)?;
     let camera = cameras::load(state, who, camera_id).await?;
+    let name = name
+        .map(|n| {
+            names::check(NameKind::Demo, n)
+                .map_err(|e| ServiceError::invalid(e.code(), "name", e.to_string()))
+        })
+        .transpose()?;
     let format = match content_type {
         "application/zip" | "application/x-zip-compressed" => DemoFormat::Zip,
         "image/gif" => DemoFormat::Gif,
@@ -107,6 +120,7 @@ pub async fn begin_upload(
     let permit = state.heavy_permits.acquire().await?;
     Ok(UploadTicket {
         camera,
+        name,
         format,
         author: who.author.clone(),
         team_id: who.team_id.clone(),
@@ -149,6 +163,7 @@ impl UploadTicket {
             DemoRejection::Invalid { code, message } => ServiceError::invalid_body(code, message),
         })?;
         let (demo, hashes) = demo;
+        let now = store::now_ms();
         let row = DemoRow {
             id: uuid::Uuid::new_v4().to_string(),
             team_id: self.team_id,
@@ -157,7 +172,13 @@ impl UploadTicket {
             width: self.camera.width,
             height: self.camera.height,
             author: self.author,
-            created_at: store::now_ms(),
+            created_at: now,
+            // Without a name, the upload time names it ("demo 2026-12-02 07:05:12").
+            name: self.name.unwrap_or_else(|| {
+                let t = rfc3339(now);
+                let (day, time) = (t.get(..10).unwrap_or(""), t.get(11..19).unwrap_or(""));
+                format!("demo {day} {time}")
+            }),
         };
         let frames: Vec<store::demos::NewDemoFrame<'_>> = demo
             .frames
@@ -198,6 +219,7 @@ pub async fn list_for_camera(
             frame_count: d.frame_count,
             height: d.height,
             id: d.id,
+            name: d.name,
             width: d.width,
         })
         .collect())
@@ -230,6 +252,7 @@ pub async fn view(state: &AppState, who: &Principal, id: &str) -> ServiceResult<
             .collect(),
         height: d.height,
         id: d.id,
+        name: d.name,
         width: d.width,
     })
 }

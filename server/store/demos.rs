@@ -22,6 +22,8 @@ pub struct DemoRow {
     pub author: String,
     /// Upload time, unix ms.
     pub created_at: i64,
+    /// What it shows, as its uploader named it (empty for demos stored before names).
+    pub name: String,
 }
 
 /// One frame to store with a demo.
@@ -47,7 +49,8 @@ pub struct DemoFrameRow {
     pub time_s: Option<f64>,
 }
 
-const COLUMNS: &str = "id, team_id, camera_id, frame_count, width, height, author, created_at";
+const COLUMNS: &str =
+    "id, team_id, camera_id, frame_count, width, height, author, created_at, name";
 
 fn from_row(r: &AnyRow) -> DemoRow {
     DemoRow {
@@ -59,6 +62,7 @@ fn from_row(r: &AnyRow) -> DemoRow {
         height: r.get(5),
         author: r.get(6),
         created_at: r.get(7),
+        name: r.get(8),
     }
 }
 
@@ -84,7 +88,7 @@ pub async fn insert(store: &Store, row: &DemoRow, frames: &[NewDemoFrame<'_>]) -
     }
     sqlx::query(
         "INSERT INTO demos (id, team_id, camera_id, frame_count, width, height, author, \
-         created_at) VALUES ($1, $2, $3, $4, $5, $6, $7, $8)",
+         created_at, name) VALUES ($1, $2, $3, $4, $5, $6, $7, $8, $9)",
     )
     .bind(&row.id)
     .bind(&row.team_id)
@@ -94,6 +98,7 @@ pub async fn insert(store: &Store, row: &DemoRow, frames: &[NewDemoFrame<'_>]) -
     .bind(row.height)
     .bind(&row.author)
     .bind(row.created_at)
+    .bind(&row.name)
     .execute(&mut *tx)
     .await
     .map_err(classify)?;

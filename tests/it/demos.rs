@@ -67,6 +67,58 @@ async fn uploads(s: Server) {
     let (st, again) = s.get(&format!("/api/demos/{id}"), Some(&viewer)).await;
     assert_eq!(st, StatusCode::OK);
     assert_eq!(again, demo);
+    // Without a name, the upload time names it.
+    let name = demo["name"].as_str().expect("name");
+    assert!(
+        name.starts_with("demo 20") && name.len() == "demo 2026-12-02 07:05:12".len(),
+        "{name}"
+    );
+
+    // A name in the query: trimmed, up to 200 characters, no control or bidirectional-control
+    // characters, nothing else in the query.
+    let one_frame = zip_frames(&frames(1, 64, 48), &[]);
+    let at_limit = "t".repeat(200);
+    for (query, want) in [
+        (
+            "name=%20tray%20along%20the%20left%20edge%20",
+            "tray along the left edge",
+        ),
+        (&format!("name={at_limit}") as &str, at_limit.as_str()),
+    ] {
+        let (st, named) = s
+            .post_bytes(
+                &format!("/api/cameras/{cam}/demos?{query}"),
+                Some(&editor),
+                "application/zip",
+                one_frame.clone(),
+            )
+            .await;
+        assert_eq!(st, StatusCode::CREATED, "{named}");
+        assert_eq!(named["name"], want);
+    }
+    let past_limit = "t".repeat(201);
+    for (query, want) in [
+        (format!("name={past_limit}"), "too_long"),
+        ("name=".to_string(), "required"),
+        ("name=%20%20".to_string(), "required"),
+        ("name=tray%E2%80%AEgpj".to_string(), "bad_character"),
+        ("name=a%0Ab".to_string(), "bad_character"),
+        ("title=tray".to_string(), "bad_query"),
+    ] {
+        let (st, err) = s
+            .post_bytes(
+                &format!("/api/cameras/{cam}/demos?{query}"),
+                Some(&editor),
+                "application/zip",
+                one_frame.clone(),
+            )
+            .await;
+        assert_eq!(
+            (st, code(&err)),
+            (StatusCode::UNPROCESSABLE_ENTITY, want),
+            "{query}: {err}"
+        );
+    }
 
     // Who and what may upload.
     let (st, _) = demo_upload(&s, &cam, &viewer, "application/zip", body.clone()).await;
@@ -171,7 +223,8 @@ async fn uploads(s: Server) {
     let message = err["error"]["message"].as_str().unwrap_or("");
     assert!(message.contains("more than 900 frames"), "{err}");
 
-    // Nothing refused was stored: the camera lists the ZIP and the GIF demo only, newest first.
+    // Nothing refused was stored: the camera lists the ZIP, the two named and the GIF demo
+    // only, newest first.
     let (st, list) = s
         .get(&format!("/api/cameras/{cam}/demos"), Some(&viewer))
         .await;
@@ -182,8 +235,10 @@ async fn uploads(s: Server) {
         .iter()
         .map(|d| d["id"].as_str().expect("id"))
         .collect();
-    assert_eq!(ids, vec![gid, id.as_str()], "{list}");
-    assert_eq!(list["items"][1]["frame_count"], 3);
+    assert_eq!(ids.len(), 4, "{list}");
+    assert_eq!((ids[0], ids[3]), (gid, id.as_str()), "{list}");
+    assert_eq!(list["items"][3]["frame_count"], 3);
+    assert_eq!(list["items"][2]["name"], "tray along the left edge");
     assert!(
         list["items"][0].get("frames").is_none(),
         "a list leaves the frames out"

@@ -97,7 +97,10 @@ function initDemoUpload(form) {
       return;
     }
     say(`Uploading ${file.name} and reading its frames…`);
-    const resp = await fetch(`/api/cameras/${camera}/demos`, {
+    // The file's name, without its extension, names the demo.
+    const name = file.name.replace(/\.(zip|gif)$/i, '').trim().slice(0, 200);
+    const query = name ? `?name=${encodeURIComponent(name)}` : '';
+    const resp = await fetch(`/api/cameras/${camera}/demos${query}`, {
       method: 'POST',
       headers: { 'Content-Type': type, 'X-CSRF-Token': csrfToken() },
       body: file,

@@ -1,6 +1,7 @@
 //! One rule per kind of name: how long it may be and which characters it may hold.
 //!
-//! Every name a person types (goals, goal sets, cameras, teams, people, token labels) passes
+//! Every name a person types (goals, goal sets, cameras, demos, teams, people, token labels, track
+//! labels) passes
 //! through [`check`], whether it arrives through the JSON API, a page form or the command line,
 //! so the same name is accepted or refused the same way everywhere. A name is trimmed, must keep
 //! at least one character, may not exceed its kind's length, and may hold neither control
@@ -24,6 +25,8 @@ pub enum NameKind {
     TokenLabel,
     /// The label of a track (which point of a demonstration it follows).
     TrackLabel,
+    /// A demonstration.
+    Demo,
 }
 
 /// Longest name of a goal, goal set or camera, in characters.
@@ -36,7 +39,9 @@ impl NameKind {
     /// Longest accepted name of this kind, in characters (Unicode scalar values).
     pub const fn max_chars(self) -> usize {
         match self {
-            NameKind::Goal | NameKind::GoalSet | NameKind::Camera => MAX_THING_NAME_CHARS,
+            NameKind::Goal | NameKind::GoalSet | NameKind::Camera | NameKind::Demo => {
+                MAX_THING_NAME_CHARS
+            }
             NameKind::Team | NameKind::Person | NameKind::TokenLabel | NameKind::TrackLabel => {
                 MAX_SHORT_NAME_CHARS
             }
@@ -53,6 +58,7 @@ impl NameKind {
             NameKind::Person => "a person",
             NameKind::TokenLabel => "a token",
             NameKind::TrackLabel => "a track",
+            NameKind::Demo => "a demo",
         }
     }
 }
