@@ -1276,3 +1276,91 @@ async fn demo_page_end_to_end() {
     .await;
     a.quit().await.ok();
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn demo_scenario_on_the_demo_page() {
+    // `serve --demo`: the team home lists the painted demonstrations; the first one's page
+    // shows the track started at load once it has run, and plays. Screenshots:
+    // target/screenshots/demo-scenario-*.png.
+    let Some(driver) = chromedriver("demo_scenario_on_the_demo_page") else {
+        return;
+    };
+    let db = fresh_db(Db::Sqlite, "demo_scenario_page")
+        .await
+        .expect("sqlite");
+    let (_s, link) = start_with_link(&db.url, &db.data_dir, &["--demo"]);
+    let shots = screenshots();
+    let work = tempfile::tempdir().unwrap();
+    let a = browser(&driver, &work.path().join("a")).await;
+    a.goto(&link).await.unwrap();
+    fill(&a, "#display_name", "Ilse Marrow").await;
+    fill(&a, "#login", "ilse").await;
+    fill(&a, "#password", "seed trays 22").await;
+    fill(&a, "#password_again", "seed trays 22").await;
+    click(&a, "form.stack button.primary").await;
+    wait_js(&a, "return location.pathname === '/';", "home").await;
+    let names = js(
+        &a,
+        "return [...document.querySelectorAll('a.demo-link')].map((a) => a.textContent).sort();",
+    )
+    .await;
+    assert_eq!(
+        names,
+        json!(["pot to mat", "tray curved", "tray pause", "tray straight"])
+    );
+    a.screenshot(&shots.join("demo-scenario-home.png"))
+        .await
+        .unwrap();
+    a.query(By::XPath(
+        "//a[contains(@class, 'demo-link') and text()='tray straight']",
+    ))
+    .first()
+    .await
+    .expect("the tray demo's link")
+    .click()
+    .await
+    .unwrap();
+    wait_js(
+        &a,
+        "return document.getElementById('demo')?.dataset.ready === '1';",
+        "the demo page",
+    )
+    .await;
+    // The track started at load covers every frame once its operation has run (reloading
+    // until then: a page opened while it runs follows it too).
+    let start = Instant::now();
+    loop {
+        let full = js(
+            &a,
+            "const d = JSON.parse(document.getElementById('demo').dataset.demo); const li = document.querySelector('#track-list li'); return !!li && li.dataset.samples === String(d.demo.frame_count);",
+        )
+        .await;
+        if full == json!(true) {
+            break;
+        }
+        assert!(
+            start.elapsed() < Duration::from_secs(120),
+            "the track started at load never covered the demo"
+        );
+        tokio::time::sleep(Duration::from_millis(500)).await;
+        a.refresh().await.unwrap();
+        wait_js(
+            &a,
+            "return document.getElementById('demo')?.dataset.ready === '1';",
+            "the demo page again",
+        )
+        .await;
+    }
+    click(&a, "#play").await;
+    wait_js(
+        &a,
+        "return Number(document.getElementById('demo').dataset.frame) >= 12;",
+        "playing",
+    )
+    .await;
+    click(&a, "#play").await;
+    a.screenshot(&shots.join("demo-scenario-playing.png"))
+        .await
+        .unwrap();
+    a.quit().await.ok();
+}
