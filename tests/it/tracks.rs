@@ -351,3 +351,118 @@ async fn sample_sha(s: &Server, token: &str, demo: &str, frame: usize) -> String
 }
 
 on_both_databases!(tracks_through_a_demo, tracking);
+
+/// Reads server-sent events from `resp` until the stream ends; the `data` of each `operation`
+/// event, in order.
+async fn operation_events(mut resp: reqwest::Response) -> Vec<Value> {
+    let mut text = String::new();
+    let until = Instant::now() + Duration::from_secs(120);
+    while let Some(chunk) = tokio::time::timeout_at(until.into(), resp.chunk())
+        .await
+        .expect("the event stream ends once the operation is done")
+        .expect("event stream")
+    {
+        text.push_str(&String::from_utf8_lossy(&chunk));
+    }
+    text.split("\n\n")
+        .filter(|e| e.lines().any(|l| l == "event: operation"))
+        .map(|e| {
+            let data = e
+                .lines()
+                .find_map(|l| l.strip_prefix("data: "))
+                .unwrap_or_else(|| panic!("event without data: {e}"));
+            serde_json::from_str(data).expect("event data is JSON")
+        })
+        .collect()
+}
+
+/// Followed live over SSE: a track started on a server process without workers is queued, and
+/// its event stream, opened there, goes on through the run that a second process on the same
+/// database makes, to done.
+async fn live_events(kind: Db) {
+    let Some(db) = fresh_db(kind, "tracks_live_events").await else {
+        return;
+    };
+    let a = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[("GOALSMITH_OPERATION_WORKERS", "0")],
+    );
+    let editor = a.token("live bench", "editor");
+    let (st, cam) = a
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &json!({"name": "side", "width": W, "height": H}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{cam}");
+    let cam = cam["id"].as_str().expect("camera").to_string();
+    let (st, demo) = a
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(&editor),
+            "application/zip",
+            demo_zip(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().expect("demo").to_string();
+    let (st, started) = a
+        .post(
+            &format!("/api/demos/{demo}/tracks"),
+            Some(&editor),
+            &json!({"label": "pot rim", "frame": 0, "x": 70.0, "y": 55.0}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let op = started["operation_id"].as_str().expect("op").to_string();
+    let resp = a
+        .client
+        .get(a.url(&format!("/api/operations/{op}/events")))
+        .bearer_auth(&editor)
+        .send()
+        .await
+        .expect("events");
+    assert_eq!(resp.status(), StatusCode::OK);
+    let reading = tokio::spawn(operation_events(resp));
+    // Only once the stream is open does a process with a worker join.
+    tokio::time::sleep(Duration::from_millis(600)).await;
+    let b = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[("GOALSMITH_OPERATION_WORKERS", "1")],
+    );
+    let events = reading.await.expect("reader");
+    assert!(events.len() >= 2, "{events:?}");
+    assert_eq!(events[0]["state"], "queued", "{events:?}");
+    assert_eq!(events[0]["done"], false);
+    let last = events.last().expect("an event");
+    assert_eq!(last["state"], "succeeded", "{events:?}");
+    assert_eq!(last["done"], true);
+    assert_eq!(last["progress"], 1.0);
+    assert_eq!(last["result"]["frames"], FRAMES as i64 - 1);
+    // Progress never goes back, and only the last event is done.
+    for w in events.windows(2) {
+        assert!(
+            w[1]["progress"].as_f64() >= w[0]["progress"].as_f64(),
+            "{events:?}"
+        );
+        assert_eq!(w[0]["done"], false, "{events:?}");
+    }
+    // Both processes serve the result.
+    let (_, via_b) = b.get(&format!("/api/operations/{op}"), Some(&editor)).await;
+    assert_eq!(&via_b, last);
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn live_events_sqlite() {
+    live_events(Db::Sqlite).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn live_events_postgres() {
+    live_events(Db::Postgres).await;
+}
