@@ -1,4 +1,5 @@
-//! Durability: acknowledged revisions survive SIGKILL, byte for byte.
+//! Durability: acknowledged revisions survive SIGKILL, byte for byte; operations of a killed
+//! process are taken up again or failed, never left running.
 
 use crate::support::*;
 use reqwest::StatusCode;
@@ -172,4 +173,101 @@ async fn operations_of_a_dead_process_are_resumed_or_failed() {
         "{}",
         ended[1]
     );
+}
+
+/// A server killed (SIGKILL) while it tracks: after the restart the operation is taken up again
+/// and ends, with every frame tracked; it is never left `running`. On SQLite and PostgreSQL.
+async fn killed_while_tracking(kind: Db) {
+    let Some(db) = fresh_db(kind, "killed_while_tracking").await else {
+        return;
+    };
+    const FRAMES: usize = 600;
+    let workers = [("GOALSMITH_OPERATION_WORKERS", "1")];
+    let mut s = Server::start_with_env(&db.url, &db.data_dir, &[], &workers);
+    let editor = s.token("durable", "editor");
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &json!({"name": "side", "width": 160, "height": 120}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED);
+    let cam = cam["id"].as_str().unwrap().to_string();
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(&editor),
+            "application/zip",
+            texture_demo_zip(160, 120, FRAMES, [0.05, 0.02]),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().unwrap().to_string();
+    sqlx::any::install_default_drivers();
+    // Killed as soon as the operation is running. Should it have ended in the moment between
+    // the last look and the kill (the row says so), the test starts another track and tries
+    // again: what is checked is a kill in the middle.
+    let mut attempt = 0;
+    let (op, track) = loop {
+        attempt += 1;
+        assert!(attempt <= 5, "the tracking always ended before the kill");
+        let (st, started) = s
+            .post(
+                &format!("/api/demos/{demo}/tracks"),
+                Some(&editor),
+                &json!({"label": format!("pot rim {attempt}"), "frame": 0, "x": 70.0, "y": 55.0}),
+            )
+            .await;
+        assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+        let op = started["operation_id"].as_str().unwrap().to_string();
+        let track = started["track_id"].as_str().unwrap().to_string();
+        let until = std::time::Instant::now() + std::time::Duration::from_secs(60);
+        loop {
+            let (_, v) = s.get(&format!("/api/operations/{op}"), Some(&editor)).await;
+            if v["state"] != "queued" {
+                break;
+            }
+            assert!(std::time::Instant::now() < until, "never claimed: {v}");
+            tokio::time::sleep(std::time::Duration::from_millis(2)).await;
+        }
+        s.kill();
+        let pool = sqlx::AnyPool::connect(&db.url).await.expect("pool");
+        let state: String = sqlx::query_scalar("SELECT state FROM operations WHERE id = $1")
+            .bind(&op)
+            .fetch_one(&pool)
+            .await
+            .expect("state");
+        pool.close().await;
+        s = Server::start_with_env(&db.url, &db.data_dir, &[], &workers);
+        if state == "running" {
+            break (op, track);
+        }
+    };
+    let until = std::time::Instant::now() + std::time::Duration::from_secs(120);
+    let done = loop {
+        let (st, v) = s.get(&format!("/api/operations/{op}"), Some(&editor)).await;
+        assert_eq!(st, StatusCode::OK);
+        if v["done"] == true {
+            break v;
+        }
+        assert!(std::time::Instant::now() < until, "still not done: {v}");
+        tokio::time::sleep(std::time::Duration::from_millis(200)).await;
+    };
+    assert_eq!(done["state"], "succeeded", "{done}");
+    assert_eq!(done["result"]["frames"], FRAMES as i64 - 1);
+    let (_, t) = s
+        .get(&format!("/api/demos/{demo}/tracks/{track}"), Some(&editor))
+        .await;
+    assert_eq!(t["samples"].as_array().map(Vec::len), Some(FRAMES), "{t}");
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn killed_while_tracking_sqlite() {
+    killed_while_tracking(Db::Sqlite).await;
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn killed_while_tracking_postgres() {
+    killed_while_tracking(Db::Postgres).await;
 }
