@@ -103,16 +103,26 @@ pub async fn insert(store: &Store, row: &DemoRow, frames: &[NewDemoFrame<'_>]) -
     .await
     .map_err(classify)?;
     for (k, f) in frames.iter().enumerate() {
-        sqlx::query(
-            "INSERT INTO demo_frames (demo_id, idx, sha256, time_s) VALUES ($1, $2, $3, $4)",
-        )
-        .bind(&row.id)
-        .bind(k as i64)
-        .bind(f.sha256)
-        .bind(f.time_s)
-        .execute(&mut *tx)
-        .await
-        .map_err(classify)?;
+        // A frame without a time is written with a literal NULL, never by binding `None`:
+        // sqlx 0.9's Any driver sends a missing f64 as a 4-byte float's NULL, and PostgreSQL's
+        // cached statement then refuses the next 8-byte time of the same statement ("incorrect
+        // binary data format").
+        let q = match f.time_s {
+            Some(t) => sqlx::query(
+                "INSERT INTO demo_frames (demo_id, idx, sha256, time_s) VALUES ($1, $2, $3, $4)",
+            )
+            .bind(&row.id)
+            .bind(k as i64)
+            .bind(f.sha256)
+            .bind(t),
+            None => sqlx::query(
+                "INSERT INTO demo_frames (demo_id, idx, sha256, time_s) VALUES ($1, $2, $3, NULL)",
+            )
+            .bind(&row.id)
+            .bind(k as i64)
+            .bind(f.sha256),
+        };
+        q.execute(&mut *tx).await.map_err(classify)?;
     }
     tx.commit().await?;
     Ok(())

@@ -210,6 +210,17 @@ async fn save(d: &WebDriver, note: &str, revision: i64) {
     .await;
 }
 
+/// The first owner's sign-up through the start-up link; ends on the team home.
+async fn sign_up(d: &WebDriver, link: &str, name: &str, login: &str, password: &str) {
+    d.goto(link).await.unwrap();
+    fill(d, "#display_name", name).await;
+    fill(d, "#login", login).await;
+    fill(d, "#password", password).await;
+    fill(d, "#password_again", password).await;
+    click(d, "form.stack button.primary").await;
+    wait_js(d, "return location.pathname === '/';", "home").await;
+}
+
 async fn sign_in(d: &WebDriver, base: &str, login: &str, password: &str) {
     d.goto(format!("{base}/signin")).await.unwrap();
     fill(d, "#login", login).await;
@@ -241,13 +252,7 @@ async fn editor_end_to_end() {
     let a = browser(&driver, &work.path().join("a")).await;
 
     // The first owner signs up through the start-up link, signs out, and signs in again.
-    a.goto(&link).await.unwrap();
-    fill(&a, "#display_name", "Tamsin Greeve").await;
-    fill(&a, "#login", "tamsin").await;
-    fill(&a, "#password", "potting bench 1").await;
-    fill(&a, "#password_again", "potting bench 1").await;
-    click(&a, "form.stack button.primary").await;
-    wait_js(&a, "return location.pathname === '/';", "home").await;
+    sign_up(&a, &link, "Tamsin Greeve", "tamsin", "potting bench 1").await;
     click(&a, "form[action='/signout'] button").await;
     wait_js(&a, "return location.pathname === '/signin';", "signed out").await;
     sign_in(&a, &s.base, "tamsin", "potting bench 1").await;
@@ -701,13 +706,7 @@ async fn editor_and_overlay_wear_the_same_marks() {
     let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
     let work = tempfile::tempdir().unwrap();
     let a = browser(&driver, &work.path().join("a")).await;
-    a.goto(&link).await.unwrap();
-    fill(&a, "#display_name", "Ilse Marten").await;
-    fill(&a, "#login", "ilse").await;
-    fill(&a, "#password", "seed trays at noon").await;
-    fill(&a, "#password_again", "seed trays at noon").await;
-    click(&a, "form.stack button.primary").await;
-    wait_js(&a, "return location.pathname === '/';", "home").await;
+    sign_up(&a, &link, "Ilse Marten", "ilse", "seed trays at noon").await;
     let api = s.token("my team", "editor");
 
     // A 320 × 240 frame, dark to light, with a camera that has both kinds of zone.
@@ -986,17 +985,6 @@ async fn demo_pixel(d: &WebDriver, x: f64, y: f64) -> ([i64; 2], [f64; 2]) {
     )
 }
 
-/// The sample of `track` (a track as the API serves it) at `frame`.
-fn sample_at(track: &Value, frame: i64) -> Value {
-    track["samples"]
-        .as_array()
-        .expect("samples")
-        .iter()
-        .find(|s| s["frame"] == frame)
-        .cloned()
-        .unwrap_or_else(|| panic!("no sample at frame {frame}: {track}"))
-}
-
 fn xy(s: &Value) -> [f64; 2] {
     [s["x"].as_f64().expect("x"), s["y"].as_f64().expect("y")]
 }
@@ -1020,13 +1008,7 @@ async fn demo_page_end_to_end() {
     let shots = screenshots();
     let work = tempfile::tempdir().unwrap();
     let a = browser(&driver, &work.path().join("a")).await;
-    a.goto(&link).await.unwrap();
-    fill(&a, "#display_name", "Ilse Marrow").await;
-    fill(&a, "#login", "ilse").await;
-    fill(&a, "#password", "seed trays 22").await;
-    fill(&a, "#password_again", "seed trays 22").await;
-    click(&a, "form.stack button.primary").await;
-    wait_js(&a, "return location.pathname === '/';", "home").await;
+    sign_up(&a, &link, "Ilse Marrow", "ilse", "seed trays 22").await;
     let api = s.token("my team", "editor");
     let (st, cam) = s
         .post(
@@ -1292,13 +1274,7 @@ async fn demo_scenario_on_the_demo_page() {
     let shots = screenshots();
     let work = tempfile::tempdir().unwrap();
     let a = browser(&driver, &work.path().join("a")).await;
-    a.goto(&link).await.unwrap();
-    fill(&a, "#display_name", "Ilse Marrow").await;
-    fill(&a, "#login", "ilse").await;
-    fill(&a, "#password", "seed trays 22").await;
-    fill(&a, "#password_again", "seed trays 22").await;
-    click(&a, "form.stack button.primary").await;
-    wait_js(&a, "return location.pathname === '/';", "home").await;
+    sign_up(&a, &link, "Ilse Marrow", "ilse", "seed trays 22").await;
     let names = js(
         &a,
         "return [...document.querySelectorAll('a.demo-link')].map((a) => a.textContent).sort();",

@@ -43,19 +43,6 @@ fn announced(lines: &std::sync::mpsc::Receiver<String>) -> HashMap<String, (Stri
     out
 }
 
-async fn finished(s: &Server, token: &str, op: &str) -> Value {
-    let until = Instant::now() + Duration::from_secs(180);
-    loop {
-        let (st, v) = s.get(&format!("/api/operations/{op}"), Some(token)).await;
-        assert_eq!(st, StatusCode::OK, "{v}");
-        if v["done"] == true {
-            return v;
-        }
-        assert!(Instant::now() < until, "operation {op} still {v}");
-        tokio::time::sleep(Duration::from_millis(200)).await;
-    }
-}
-
 /// Distances of a track's samples from a ground-truth path, frame by frame.
 fn errors(track: &Value, path: &Value) -> Vec<f64> {
     let samples = track["samples"].as_array().expect("samples");
@@ -160,7 +147,7 @@ async fn demo_loads_its_demonstrations_and_they_track(kind: Db) {
         .await;
     assert_eq!(st, StatusCode::ACCEPTED, "{started}");
     let op = started["operation_id"].as_str().expect("op");
-    let done = finished(&s, &token, op).await;
+    let done = operation_done(&s, &token, op).await;
     assert_eq!(done["state"], "succeeded", "{done}");
     let track_id = started["track_id"].as_str().expect("track");
     let (st, track) = s

@@ -152,19 +152,9 @@ async fn operations_of_a_dead_process_are_resumed_or_failed() {
     }
     pool.close().await;
     let s = Server::start(&db.url, &db.data_dir, &[]);
-    let until = std::time::Instant::now() + std::time::Duration::from_secs(60);
     let mut ended = Vec::new();
     for op in &ops {
-        loop {
-            let (st, v) = s.get(&format!("/api/operations/{op}"), Some(&editor)).await;
-            assert_eq!(st, StatusCode::OK);
-            if v["done"] == true {
-                ended.push(v);
-                break;
-            }
-            assert!(std::time::Instant::now() < until, "still not done: {v}");
-            tokio::time::sleep(std::time::Duration::from_millis(100)).await;
-        }
+        ended.push(operation_done(&s, &editor, op).await);
     }
     assert_eq!(ended[0]["state"], "succeeded", "{}", ended[0]);
     assert_eq!(ended[1]["state"], "failed", "{}", ended[1]);
@@ -244,16 +234,7 @@ async fn killed_while_tracking(kind: Db) {
             break (op, track);
         }
     };
-    let until = std::time::Instant::now() + std::time::Duration::from_secs(120);
-    let done = loop {
-        let (st, v) = s.get(&format!("/api/operations/{op}"), Some(&editor)).await;
-        assert_eq!(st, StatusCode::OK);
-        if v["done"] == true {
-            break v;
-        }
-        assert!(std::time::Instant::now() < until, "still not done: {v}");
-        tokio::time::sleep(std::time::Duration::from_millis(200)).await;
-    };
+    let done = operation_done(&s, &editor, &op).await;
     assert_eq!(done["state"], "succeeded", "{done}");
     assert_eq!(done["result"]["frames"], FRAMES as i64 - 1);
     let (_, t) = s

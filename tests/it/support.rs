@@ -516,3 +516,32 @@ pub fn start_with_stderr(
     });
     (Server::from_child(child, db_url, data_dir), rx)
 }
+
+/// Waits for an operation to end and returns it as `GET /api/operations/{id}` serves it (the
+/// bound is a liveness guard, not a speed check).
+pub async fn operation_done(s: &Server, token: &str, op: &str) -> Value {
+    let until = std::time::Instant::now() + Duration::from_secs(180);
+    loop {
+        let (st, v) = s.get(&format!("/api/operations/{op}"), Some(token)).await;
+        assert_eq!(st, StatusCode::OK, "{v}");
+        if v["done"] == true {
+            return v;
+        }
+        assert!(
+            std::time::Instant::now() < until,
+            "operation {op} still {v}"
+        );
+        tokio::time::sleep(Duration::from_millis(100)).await;
+    }
+}
+
+/// The sample of `track` (a track as the API serves it) at `frame`.
+pub fn sample_at(track: &Value, frame: i64) -> Value {
+    track["samples"]
+        .as_array()
+        .expect("samples")
+        .iter()
+        .find(|s| s["frame"] == frame)
+        .cloned()
+        .unwrap_or_else(|| panic!("no sample at frame {frame} in {track}"))
+}

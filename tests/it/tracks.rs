@@ -19,29 +19,27 @@ fn demo_zip() -> Vec<u8> {
     texture_demo_zip(W, H, FRAMES, STEP)
 }
 
-/// Waits for an operation to end (the tracker needs well under a second here; the bound is a
-/// liveness guard, not a speed check).
-async fn finished(s: &Server, token: &str, op: &str) -> Value {
-    let until = Instant::now() + Duration::from_secs(120);
-    loop {
-        let (st, v) = s.get(&format!("/api/operations/{op}"), Some(token)).await;
-        assert_eq!(st, StatusCode::OK, "{v}");
-        if v["done"] == true {
-            return v;
-        }
-        assert!(Instant::now() < until, "operation {op} still {v}");
-        tokio::time::sleep(Duration::from_millis(100)).await;
-    }
-}
-
-fn sample(track: &Value, frame: i64) -> Value {
-    track["samples"]
-        .as_array()
-        .expect("samples")
-        .iter()
-        .find(|s| s["frame"] == frame)
-        .cloned()
-        .unwrap_or_else(|| panic!("no sample at frame {frame} in {track}"))
+/// A camera of W × H with the demo of [`demo_zip`]; the demo's id.
+async fn camera_with_demo(s: &Server, editor: &str) -> String {
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(editor),
+            &json!({"name": "side", "width": W, "height": H}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{cam}");
+    let cam = cam["id"].as_str().expect("camera").to_string();
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(editor),
+            "application/zip",
+            demo_zip(),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    demo["id"].as_str().expect("demo").to_string()
 }
 
 fn near(s: &Value, want: [f64; 2], tol: f64) {
@@ -55,25 +53,7 @@ fn near(s: &Value, want: [f64; 2], tol: f64) {
 async fn tracking(s: Server) {
     let editor = s.token("bench tracks", "editor");
     let viewer = s.token("bench tracks", "viewer");
-    let (st, cam) = s
-        .post(
-            "/api/cameras",
-            Some(&editor),
-            &json!({"name": "side", "width": W, "height": H}),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CREATED, "{cam}");
-    let cam = cam["id"].as_str().expect("camera").to_string();
-    let (st, demo) = s
-        .post_bytes(
-            &format!("/api/cameras/{cam}/demos"),
-            Some(&editor),
-            "application/zip",
-            demo_zip(),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CREATED, "{demo}");
-    let demo = demo["id"].as_str().expect("demo").to_string();
+    let demo = camera_with_demo(&s, &editor).await;
     let base = format!("/api/demos/{demo}/tracks");
 
     // The point on frame 3 at the big blob's centre; the truth moves by STEP per frame.
@@ -92,7 +72,7 @@ async fn tracking(s: Server) {
         .as_str()
         .expect("operation")
         .to_string();
-    let done = finished(&s, &viewer, &op).await;
+    let done = operation_done(&s, &viewer, &op).await;
     assert_eq!(done["state"], "succeeded", "{done}");
     assert_eq!(done["kind"], "track");
     assert_eq!(done["progress"], 1.0);
@@ -101,11 +81,11 @@ async fn tracking(s: Server) {
     assert_eq!(st, StatusCode::OK);
     assert_eq!(t["label"], "pot rim");
     assert_eq!(t["samples"].as_array().map(Vec::len), Some(FRAMES));
-    assert_eq!(sample(&t, 3)["origin"], "manual");
+    assert_eq!(sample_at(&t, 3)["origin"], "manual");
     // Tolerance: the texture is rounded to 8-bit grey levels, which moves the Lucas–Kanade
     // optimum by a few hundredths of a pixel per frame; 0.25 px over 5 frames is generous.
     for k in 0..FRAMES as i64 {
-        let s_k = sample(&t, k);
+        let s_k = sample_at(&t, k);
         assert_eq!(s_k["lost"], false, "{s_k}");
         if k != 3 {
             assert_eq!(s_k["origin"], "tracked");
@@ -127,14 +107,14 @@ async fn tracking(s: Server) {
         )
         .await;
     assert_eq!(st, StatusCode::ACCEPTED, "{again}");
-    let done = finished(&s, &editor, again["operation_id"].as_str().expect("op")).await;
+    let done = operation_done(&s, &editor, again["operation_id"].as_str().expect("op")).await;
     assert_eq!(done["state"], "succeeded", "{done}");
     assert_eq!(
         done["result"]["frames"], 2,
         "only the frames after the correction"
     );
     let (_, t2) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
-    let s5 = sample(&t2, 5);
+    let s5 = sample_at(&t2, 5);
     assert_eq!(
         (s5["origin"].as_str(), s5["x"].as_f64()),
         (Some("manual"), Some(moved[0]))
@@ -144,10 +124,10 @@ async fn tracking(s: Server) {
             moved[0] + (k - 5) as f64 * STEP[0],
             moved[1] + (k - 5) as f64 * STEP[1],
         ];
-        near(&sample(&t2, k), want, 0.5);
+        near(&sample_at(&t2, k), want, 0.5);
     }
     for k in 0..5 {
-        assert_eq!(sample(&t2, k), sample(&t, k), "frame {k} kept");
+        assert_eq!(sample_at(&t2, k), sample_at(&t, k), "frame {k} kept");
     }
     // Tracking from the seed again (a correction at 3) stops before the manual sample at 5.
     let (st, again) = s
@@ -159,11 +139,11 @@ async fn tracking(s: Server) {
         )
         .await;
     assert_eq!(st, StatusCode::ACCEPTED);
-    let done = finished(&s, &editor, again["operation_id"].as_str().expect("op")).await;
+    let done = operation_done(&s, &editor, again["operation_id"].as_str().expect("op")).await;
     assert_eq!(done["result"]["frames"], 1, "frame 4 only: 5 is manual");
     let (_, t3) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
     assert_eq!(
-        sample(&t3, 5)["x"].as_f64(),
+        sample_at(&t3, 5)["x"].as_f64(),
         Some(moved[0]),
         "manual sample kept"
     );
@@ -218,7 +198,7 @@ async fn tracking(s: Server) {
     // A goal from the demo: frame 0 becomes a frame of the camera, the track's positions at 0
     // and 7 the source and the target; its cost maps are served like any goal's.
     let (_, t4) = s.get(&format!("{base}/{track}"), Some(&viewer)).await;
-    let (src, dst) = (sample(&t4, 0), sample(&t4, 7));
+    let (src, dst) = (sample_at(&t4, 0), sample_at(&t4, 7));
     let body = json!({"name": "rim to the mat", "tracks": [track], "start_frame": 0, "end_frame": 7, "note": "from the clip"});
     let (st, rev) = s
         .post(&format!("/api/demos/{demo}/goal"), Some(&editor), &body)
@@ -390,25 +370,7 @@ async fn live_events(kind: Db) {
         &[("GOALSMITH_OPERATION_WORKERS", "0")],
     );
     let editor = a.token("live bench", "editor");
-    let (st, cam) = a
-        .post(
-            "/api/cameras",
-            Some(&editor),
-            &json!({"name": "side", "width": W, "height": H}),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CREATED, "{cam}");
-    let cam = cam["id"].as_str().expect("camera").to_string();
-    let (st, demo) = a
-        .post_bytes(
-            &format!("/api/cameras/{cam}/demos"),
-            Some(&editor),
-            "application/zip",
-            demo_zip(),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CREATED, "{demo}");
-    let demo = demo["id"].as_str().expect("demo").to_string();
+    let demo = camera_with_demo(&a, &editor).await;
     let (st, started) = a
         .post(
             &format!("/api/demos/{demo}/tracks"),
