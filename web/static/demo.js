@@ -194,6 +194,7 @@ function draw() {
   }
   for (const [t, s, at] of current) {
     sourceMark(ctx, at[0], at[1], colourOf(t), state.selected === t.id);
+    if (s.lost) drawCross(at[0], at[1]);
     drawLabel(ctx, view, at, s.lost ? `${t.label} (lost)` : t.label, { obstacles });
   }
   if (state.placing) {
@@ -270,8 +271,10 @@ function renderLists() {
       b.append(swatch(colourOf(t)), document.createTextNode(`${t.label}: ${span} ${r.lost ? 'lost' : 'unsure'}`));
       b.addEventListener('click', () => {
         state.selected = t.id;
+        stopPlaying();
         go(r.from);
         renderLists();
+        canvas.scrollIntoView({ block: 'nearest' });
       });
       li.appendChild(b);
       review.appendChild(li);
