@@ -331,15 +331,7 @@ impl Pyramid {
             }
         }
         level0(&mut self.levels[0].image);
-        for i in 0..self.levels.len() {
-            if i > 0 {
-                let (done, rest) = self.levels.split_at_mut(i);
-                let src = &done[i - 1];
-                pyr_down(&src.image, src.width, src.height, &mut rest[0].image);
-            }
-            let level = &mut self.levels[i];
-            scharr(&level.image, level.width, level.height, &mut level.gradient);
-        }
+        filter_levels(&mut self.levels);
     }
 
     /// Number of levels.
@@ -363,6 +355,44 @@ impl Pyramid {
     }
 }
 
+/// Whether this CPU runs the AVX2 builds of the kernels (checked once, then cached by std).
+#[cfg(target_arch = "x86_64")]
+fn has_avx2() -> bool {
+    std::arch::is_x86_feature_detected!("avx2")
+}
+
+/// Filters level 0's image into the gradients and the coarser levels (their sizes set).
+///
+/// The pyramid filters and the window kernels below are plain Rust written for the compiler's
+/// vectoriser; on x86-64 each is also compiled with AVX2 enabled and chosen at run time. Both
+/// builds do the same f32 operations in the same order (no FMA, the lanes of every sum fixed
+/// in the source), so their results are identical bit for bit, only the registers are wider.
+fn filter_levels(levels: &mut [Level]) {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx2() {
+        #[target_feature(enable = "avx2")]
+        fn avx2(levels: &mut [Level]) {
+            filter_levels_portable(levels);
+        }
+        // SAFETY: the CPU has AVX2 (checked just above).
+        return unsafe { avx2(levels) };
+    }
+    filter_levels_portable(levels);
+}
+
+#[inline(always)]
+fn filter_levels_portable(levels: &mut [Level]) {
+    for i in 0..levels.len() {
+        if i > 0 {
+            let (done, rest) = levels.split_at_mut(i);
+            let src = &done[i - 1];
+            pyr_down(&src.image, src.width, src.height, &mut rest[0].image);
+        }
+        let level = &mut levels[i];
+        scharr(&level.image, level.width, level.height, &mut level.gradient);
+    }
+}
+
 /// Index `i` folded into 0..n with reflect-101 (`…2 1 | 0 1 2 … n-1 | n-2 …`).
 #[inline]
 fn reflect101(i: isize, n: usize) -> usize {
@@ -379,9 +409,11 @@ fn reflect101(i: isize, n: usize) -> usize {
 }
 
 /// One level down: [1 4 6 4 1]/16 down the columns, then along the rows at even columns.
+#[inline(always)]
 fn pyr_down(src: &[f32], w: usize, h: usize, dst: &mut [f32]) {
     let dw = w.div_ceil(2);
     let mut row = vec![0.0f32; w];
+    let (mut even, mut odd) = (Vec::with_capacity(dw), Vec::with_capacity(dw));
     for (j, out) in dst.chunks_exact_mut(dw).enumerate() {
         let y = 2 * j as isize;
         let r: [&[f32]; 5] = std::array::from_fn(|t| {
@@ -389,7 +421,7 @@ fn pyr_down(src: &[f32], w: usize, h: usize, dst: &mut [f32]) {
             &src[yy * w..(yy + 1) * w]
         });
         pyr_down_column(&r, &mut row);
-        pyr_down_row(&row, out);
+        pyr_down_row(&row, &mut even, &mut odd, out);
     }
 }
 
@@ -398,7 +430,7 @@ const K1: f32 = 4.0 / 16.0;
 const K2: f32 = 6.0 / 16.0;
 
 /// The vertical pass of [`pyr_down`] over one row: five source rows of one length into `out`.
-#[inline]
+#[inline(always)]
 fn pyr_down_column(r: &[&[f32]; 5], out: &mut [f32]) {
     let n = out.len();
     let (r0, r1, r2, r3, r4) = (&r[0][..n], &r[1][..n], &r[2][..n], &r[3][..n], &r[4][..n]);
@@ -408,26 +440,37 @@ fn pyr_down_column(r: &[&[f32]; 5], out: &mut [f32]) {
 }
 
 /// The horizontal pass of [`pyr_down`]: `row` filtered along and sampled at its even columns.
-#[inline]
-fn pyr_down_row(row: &[f32], out: &mut [f32]) {
+/// The row is split into its even and odd columns first, so that the interior reads
+/// contiguous values.
+#[inline(always)]
+fn pyr_down_row(row: &[f32], even: &mut Vec<f32>, odd: &mut Vec<f32>, out: &mut [f32]) {
     let w = row.len();
     let dw = out.len();
+    let (pairs, last) = row.as_chunks::<2>();
+    even.resize(dw, 0.0);
+    odd.resize(pairs.len(), 0.0);
+    for ((e, o), p) in even.iter_mut().zip(odd.iter_mut()).zip(pairs) {
+        *e = p[0];
+        *o = p[1];
+    }
+    if let [v] = *last {
+        even[dw - 1] = v;
+    }
     let tap = |c: isize| row[reflect101(c, w)];
     let edge = |i: usize| {
         let c = 2 * i as isize;
         (tap(c - 2) + tap(c + 2)) * K0 + (tap(c - 1) + tap(c + 1)) * K1 + tap(c) * K2
     };
     // Interior outputs 1..m read columns 2i − 2 ..= 2i + 2 without folding: 2(m − 1) + 2 < w.
+    // Column 2i ± 2 is even[i ± 1], 2i ± 1 are odd[i − 1] and odd[i], 2i is even[i].
     let m = if w >= 5 { (w - 3) / 2 + 1 } else { 1 }.min(dw);
     if m > 1 {
-        // Output i reads the five values starting at column 2i − 2; pairs of columns from
-        // column 0 on make that contiguous.
+        let n = m - 1;
+        let (e0, e1, e2) = (&even[..n], &even[1..=n], &even[2..n + 2]);
+        let (o0, o1) = (&odd[..n], &odd[1..=n]);
         let body = &mut out[1..m];
-        let src = &row[..2 * m + 1];
-        for (i, o) in body.iter_mut().enumerate() {
-            let c = 2 * i;
-            let s = &src[c..c + 5];
-            *o = (s[0] + s[4]) * K0 + (s[1] + s[3]) * K1 + s[2] * K2;
+        for i in 0..n {
+            body[i] = (e0[i] + e2[i]) * K0 + (o0[i] + o1[i]) * K1 + e1[i] * K2;
         }
     }
     out[0] = edge(0);
@@ -437,6 +480,7 @@ fn pyr_down_row(row: &[f32], out: &mut [f32]) {
 }
 
 /// Scharr gradient in grey levels per pixel: [3 10 3]/16 across, [-1 0 1]/2 along.
+#[inline(always)]
 fn scharr(img: &[f32], w: usize, h: usize, grad: &mut [[f32; 2]]) {
     // Smoothed down the column (for d/dx) and differenced down the column (for d/dy).
     let mut t0 = vec![0.0f32; w];
@@ -454,7 +498,7 @@ fn scharr(img: &[f32], w: usize, h: usize, grad: &mut [[f32; 2]]) {
 }
 
 /// One row of [`scharr`] from the rows above, at and below it (reflected at the edges).
-#[inline]
+#[inline(always)]
 fn scharr_row(
     s0: &[f32],
     s1: &[f32],
@@ -609,6 +653,7 @@ struct Tap {
     inside: f32,
 }
 
+#[inline(always)]
 fn fill_taps(out: &mut Vec<Tap>, start: isize, count: usize, n: usize) {
     out.clear();
     out.extend((0..count as isize).map(|k| {
@@ -629,6 +674,7 @@ struct Origin {
     weights: [f32; 4],
 }
 
+#[inline(always)]
 fn origin(p: [f64; 2], half: f64, win: usize, w: usize, h: usize) -> Option<Origin> {
     let (ox, oy) = (p[0] - half, p[1] - half);
     let (fx, fy) = (ox.floor(), oy.floor());
@@ -692,6 +738,7 @@ fn bilerp_gradient_row(
 const LANES: usize = 8;
 
 /// Σ gx², Σ gx·gy, Σ gy² over the window.
+#[inline(always)]
 fn gradient_sums(gx: &[f32], gy: &[f32]) -> [f64; 3] {
     let n = gx.len().min(gy.len());
     let (cx, tx) = gx[..n].as_chunks::<LANES>();
@@ -713,6 +760,7 @@ fn gradient_sums(gx: &[f32], gy: &[f32]) -> [f64; 3] {
 }
 
 /// Σ (J − I)·gx and Σ (J − I)·gy over the window.
+#[inline(always)]
 fn mismatch_sums(next: &[f32], patch: &[f32], gx: &[f32], gy: &[f32]) -> [f64; 2] {
     let n = next.len().min(patch.len()).min(gx.len()).min(gy.len());
     let (cj, tj) = next[..n].as_chunks::<LANES>();
@@ -754,6 +802,7 @@ impl<'a, T> Samples<'a, T> {
 /// The samples of a window at `o`: the level's own rows when the window is inside it and
 /// `allow_fast`, otherwise the samples folded into the level (reflect-101) and copied into
 /// `image_copy` (and, with the gradient, into `gradient_copy`, zero outside the level).
+#[inline(always)]
 fn window_samples<'a>(
     level: &'a Level,
     o: &Origin,
@@ -816,6 +865,7 @@ fn window_samples<'a>(
 /// and returns Σ gx², Σ gx·gy, Σ gy². Rows are read as slices of the level when the window is
 /// inside it and `allow_fast` (always, but for the test that both ways agree bit for bit), else
 /// from a folded copy; the arithmetic is the same either way.
+#[inline(always)]
 fn extract(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: bool) -> [f64; 3] {
     let Scratch {
         patch,
@@ -859,6 +909,7 @@ fn extract(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: b
 
 /// Σ (J − I)·∇I over the window, J sampled on the next level at `o` (`allow_fast` as for
 /// [`extract`]).
+#[inline(always)]
 fn mismatch(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: bool) -> [f64; 2] {
     let Scratch {
         patch,
@@ -879,8 +930,43 @@ fn mismatch(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: 
     mismatch_sums(next, patch, gx, gy)
 }
 
+/// Hints the CPU to load the rows of the window around level position `p` (and of its
+/// gradient), so that their cache misses overlap instead of coming one row at a time. Changes
+/// no result; a window off the level is skipped.
+#[inline(always)]
+fn prefetch_window(level: &Level, p: [f64; 2], win: usize, gradient: bool) {
+    let half = (win as f64 - 1.0) / 2.0;
+    let Some(o) = origin(p, half, win, level.width, level.height) else {
+        return;
+    };
+    if !o.inside(win, level.width, level.height) {
+        return;
+    }
+    let (x, y, w) = (o.ix as usize, o.iy as usize, level.width);
+    for r in y..=y + win {
+        let row = r * w + x;
+        prefetch_span(level.image[row..=row + win].as_ptr().cast(), (win + 1) * 4);
+        if gradient {
+            prefetch_span(
+                level.gradient[row..=row + win].as_ptr().cast(),
+                (win + 1) * 8,
+            );
+        }
+    }
+}
+
+/// Prefetches each cache line of `bytes` bytes from `p`.
+#[inline(always)]
+fn prefetch_span(p: *const u8, bytes: usize) {
+    for off in (0..bytes).step_by(64) {
+        crate::cost::prefetch(p.wrapping_add(off));
+    }
+    crate::cost::prefetch(p.wrapping_add(bytes - 1));
+}
+
 /// Lucas–Kanade on one level (Bouguet, section 2.4), from level position `p` in the previous
 /// image and the guess `q` in the next.
+#[inline(always)]
 fn lk_level(
     prev: &Level,
     next: &Level,
@@ -961,6 +1047,7 @@ fn same_size(a: &Pyramid, b: &Pyramid, index: usize) -> Result<(), TrackError> {
 
 /// The top level a step may use: below `params.levels` and both pyramids' depth, and, as in
 /// OpenCV, only levels larger than the window in both directions (level 0 always).
+#[inline(always)]
 fn top_level(prev: &Pyramid, next: &Pyramid, win: usize, levels: usize) -> usize {
     let n = levels.min(prev.levels()).min(next.levels());
     (1..n)
@@ -972,7 +1059,34 @@ fn top_level(prev: &Pyramid, next: &Pyramid, win: usize, levels: usize) -> usize
         .unwrap_or(0)
 }
 
+/// One step of `p` (the kernels' AVX2 build where the CPU has it, see [`filter_levels`]).
 fn step_with(
+    prev: &Pyramid,
+    next: &Pyramid,
+    p: [f64; 2],
+    params: &LkParams,
+    s: &mut Scratch,
+) -> TrackStep {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx2() {
+        #[target_feature(enable = "avx2")]
+        fn avx2(
+            prev: &Pyramid,
+            next: &Pyramid,
+            p: [f64; 2],
+            params: &LkParams,
+            s: &mut Scratch,
+        ) -> TrackStep {
+            step_portable(prev, next, p, params, s)
+        }
+        // SAFETY: the CPU has AVX2 (checked just above).
+        return unsafe { avx2(prev, next, p, params, s) };
+    }
+    step_portable(prev, next, p, params, s)
+}
+
+#[inline(always)]
+fn step_portable(
     prev: &Pyramid,
     next: &Pyramid,
     p: [f64; 2],
@@ -1005,6 +1119,17 @@ fn step_with(
         let pl = [p[0] * scale, p[1] * scale];
         // Bouguet's g^{L} = 2 (g^{L+1} + d^{L+1}): the coarser result, doubled.
         let q = guess.map_or(pl, |g| [g[0] * 2.0, g[1] * 2.0]);
+        if l == top {
+            prefetch_window(&prev.levels[l], pl, params.window, true);
+            prefetch_window(&next.levels[l], q, params.window, false);
+        }
+        if l > 0 {
+            // The next finer level's windows load while this level runs (the guess there is
+            // not known yet: the previous frame's position stands in for it).
+            let pf = [pl[0] * 2.0, pl[1] * 2.0];
+            prefetch_window(&prev.levels[l - 1], pf, params.window, true);
+            prefetch_window(&next.levels[l - 1], pf, params.window, false);
+        }
         let step = lk_level(&prev.levels[l], &next.levels[l], pl, q, params, s);
         guess = Some(step.position);
         out = Some(step);
@@ -1865,6 +1990,31 @@ mod tests {
             let m1 = mismatch(next.level(0).unwrap(), &o, win, &mut s1, true);
             let m2 = mismatch(next.level(0).unwrap(), &o, win, &mut s2, false);
             assert_eq!(m1, m2);
+        }
+    }
+
+    /// The run-time chosen build of the kernels (AVX2 where the CPU has it) and the portable
+    /// one agree bit for bit: pyramids, positions and eigenvalues, inside and at the edges.
+    #[test]
+    fn kernel_builds_agree_bit_for_bit() {
+        let b = blobs(4, 200.0);
+        let prev = Pyramid::build(&textured(181, 143, &b, [0.0, 0.0]), 4);
+        let next = Pyramid::build(&textured(181, 143, &b, [1.3, -0.6]), 4);
+        let mut levels = prev.levels.clone();
+        for l in &mut levels[1..] {
+            l.image.fill(0.0);
+        }
+        for l in &mut levels {
+            l.gradient.fill([0.0; 2]);
+        }
+        filter_levels_portable(&mut levels);
+        assert_eq!(levels, prev.levels);
+        let params = LkParams::default();
+        for p in [[90.3, 70.6], [3.2, 5.9], [175.5, 140.1], [60.0, 2.5]] {
+            let (mut s1, mut s2) = (Scratch::default(), Scratch::default());
+            let a = step_with(&prev, &next, p, &params, &mut s1);
+            let c = step_portable(&prev, &next, p, &params, &mut s2);
+            assert_eq!(a, c, "{p:?}");
         }
     }
 
