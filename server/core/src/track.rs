@@ -1993,6 +1993,32 @@ mod tests {
         }
     }
 
+    /// Building from 8 bits and rebuilding in place of another pyramid (of another size and
+    /// depth) give exactly what a fresh build gives; a rejected frame leaves the pyramid as it
+    /// was.
+    #[test]
+    fn rebuilt_pyramids_equal_fresh_ones() {
+        let bytes = |w: usize, h: usize, seed: u64| -> Vec<u8> {
+            let mut s = seed;
+            (0..w * h)
+                .map(|_| (splitmix(&mut s) * 255.0) as u8)
+                .collect()
+        };
+        let (a, b) = (bytes(97, 61, 1), bytes(40, 30, 2));
+        let fresh = |w, h, d: &[u8], l| Pyramid::build(&GrayFrame::from_u8(w, h, d).unwrap(), l);
+        let mut p = Pyramid::from_u8(97, 61, &a, 4).unwrap();
+        assert_eq!(p, fresh(97, 61, &a, 4));
+        p.rebuild_from_u8(40, 30, &b, 3).unwrap();
+        assert_eq!(p, fresh(40, 30, &b, 3));
+        p.rebuild(&GrayFrame::from_u8(97, 61, &a).unwrap(), 5);
+        assert_eq!(p, fresh(97, 61, &a, 5));
+        let before = p.clone();
+        assert!(p.rebuild_from_u8(40, 30, &b[1..], 3).is_err());
+        assert!(p.rebuild_from_u8(0, 30, &[], 3).is_err());
+        assert_eq!(p, before);
+        assert!(Pyramid::from_u8(2, 2, &[0; 3], 4).is_err());
+    }
+
     /// The run-time chosen build of the kernels (AVX2 where the CPU has it) and the portable
     /// one agree bit for bit: pyramids, positions and eigenvalues, inside and at the edges.
     #[test]
