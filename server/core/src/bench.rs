@@ -20,9 +20,11 @@
 //! `bench_cost cold` example alternates two such batches to rule that out.
 //!
 //! `track` times point tracking on 30 frames of 640×480 (see [`track_bench_frame`]), one
-//! thread: building a frame's pyramid from its 8-bit pixels (4 levels with gradients), and one
-//! frame step of 16 and of 100 points with the forward–backward check (two Lucas–Kanade runs
-//! per point), each per frame. `tests/reference/bench_track_compare.py` times OpenCV on the
+//! thread: building a frame's pyramid from its 8-bit pixels (4 levels with gradients), in fresh
+//! memory (`memory: fresh`, each pyramid allocated and dropped) and into the previous pyramid's
+//! memory (`memory: reused`, [`crate::track::Pyramid::rebuild_from_u8`]), the two in turns, and
+//! one frame step of 16 and of 100 points with the forward–backward check (two Lucas–Kanade
+//! runs per point) on pyramids built before, each per frame. `tests/reference/bench_track_compare.py` times OpenCV on the
 //! same frames in turns with it.
 //!
 //! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is

@@ -36,9 +36,12 @@
 //!   practice less, as the coarse levels keep little detail. As in OpenCV, a level whose width
 //!   or height is not larger than the window is not used, so all four need a frame of at least
 //!   176 px each way.
-//! - Image, gradients and window sums are f32 (the sum of each window row is added up in f64);
-//!   positions are f64. The inner loops allocate nothing: a step's window buffers are made once
-//!   per call and reused for every point, level and iteration.
+//! - Image, gradients and window sums are f32 (each window sum is kept in eight independent
+//!   partial sums, which vector registers carry, added up in f64 at the end); positions are
+//!   f64. The inner loops allocate nothing: a step's window buffers are made once per call and
+//!   reused for every point, level and iteration. A pyramid can be rebuilt in place of one no
+//!   longer needed ([`Pyramid::rebuild`]), so that a tracker keeping two pyramids does not ask
+//!   for new memory every frame.
 
 use std::borrow::Borrow;
 
