@@ -16,7 +16,7 @@ use crate::store::{
     tracks::{Origin, SampleRow, TrackRow},
 };
 use goalsmith_core::names::{self, NameKind};
-use goalsmith_core::track::{GrayFrame, Pyramid, TrackParams, TrackSample, track_step};
+use goalsmith_core::track::{Pyramid, TrackParams, TrackSample, track_step};
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Value, json};
@@ -495,10 +495,13 @@ pub(super) async fn run(
             )
             .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))?;
             let luma = img.to_luma8();
-            let frame =
-                GrayFrame::from_u8(luma.width() as usize, luma.height() as usize, luma.as_raw())
-                    .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))?;
-            Ok(Pyramid::build(&frame, LEVELS))
+            Pyramid::from_u8(
+                luma.width() as usize,
+                luma.height() as usize,
+                luma.as_raw(),
+                LEVELS,
+            )
+            .map_err(|e| RunError::Failed(format!("frame {k}: {e}")))
         };
         let load = |k: i64| -> Result<Arc<Pyramid>, RunError> {
             let sha = usize::try_from(k)

@@ -20,9 +20,11 @@
 //! `bench_cost cold` example alternates two such batches to rule that out.
 //!
 //! `track` times point tracking on 30 frames of 640×480 (see [`track_bench_frame`]), one
-//! thread: building a frame's pyramid from its 8-bit pixels (4 levels with gradients), and one
-//! frame step of 16 and of 100 points with the forward–backward check (two Lucas–Kanade runs
-//! per point), each per frame. `tests/reference/bench_track_compare.py` times OpenCV on the
+//! thread: building a frame's pyramid from its 8-bit pixels (4 levels with gradients), in fresh
+//! memory (`memory: fresh`, each pyramid allocated and dropped) and into the previous pyramid's
+//! memory (`memory: reused`, [`crate::track::Pyramid::rebuild_from_u8`]), the two in turns, and
+//! one frame step of 16 and of 100 points with the forward–backward check (two Lucas–Kanade
+//! runs per point) on pyramids built before, each per frame. `tests/reference/bench_track_compare.py` times OpenCV on the
 //! same frames in turns with it.
 //!
 //! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is
@@ -446,13 +448,10 @@ pub fn track_bench_points(n: usize) -> Vec<[f64; 2]> {
 }
 
 fn track_bench() -> Result<Vec<BenchRow>, String> {
-    use crate::track::{GrayFrame, Pyramid, TrackParams, TrackSample, track_step};
+    use crate::track::{Pyramid, TrackParams, TrackSample, track_step};
     let (w, h, frames, levels) = (640usize, 480usize, 30usize, 4usize);
     let pixels: Vec<Vec<u8>> = (0..frames).map(track_bench_frame).collect();
-    let build = |p: &[u8]| -> Result<Pyramid, String> {
-        let f = GrayFrame::from_u8(w, h, p).map_err(|e| e.to_string())?;
-        Ok(Pyramid::build(&f, levels))
-    };
+    let build = |p: &[u8]| Pyramid::from_u8(w, h, p, levels).map_err(|e| e.to_string());
     let pool = pool(1)?;
     let common = |stage: &str| {
         vec![
@@ -464,20 +463,32 @@ fn track_bench() -> Result<Vec<BenchRow>, String> {
         ]
     };
     let mut rows = Vec::new();
+    // Fresh: every pyramid in new memory, dropped after (the system hands out new pages each
+    // time). Reused: each frame's pyramid built into the previous one's memory.
+    let mut reused = build(&pixels[0])?;
     let pyr_ms = pool.install(|| {
-        median_ms(5, Duration::from_secs(3), || {
+        let mut fresh = || {
             for p in &pixels {
                 black_box(build(black_box(p)).ok());
             }
-        })
-    }) / frames as f64;
-    let mut params = common("pyramid");
-    params.push(num("threads", 1.0));
-    rows.push(BenchRow {
-        bench: "track".into(),
-        median_ms: round4(pyr_ms),
-        params,
+        };
+        let mut again = || {
+            for p in &pixels {
+                black_box(reused.rebuild_from_u8(w, h, black_box(p), levels).ok());
+            }
+        };
+        interleaved_median_ms(5, Duration::from_secs(3), &mut [&mut fresh, &mut again])
     });
+    for (memory, ms) in ["fresh", "reused"].into_iter().zip(pyr_ms) {
+        let mut params = common("pyramid");
+        params.push(text("memory", memory));
+        params.push(num("threads", 1.0));
+        rows.push(BenchRow {
+            bench: "track".into(),
+            median_ms: round4(ms / frames as f64),
+            params,
+        });
+    }
     let pyramids = pixels
         .iter()
         .map(|p| build(p))

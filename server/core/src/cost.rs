@@ -708,7 +708,7 @@ const GROUP_PREFETCH_BYTES: usize = 1024;
 
 /// Hints the CPU to fetch the cache line at `p` into L1. Any address is allowed.
 #[inline(always)]
-fn prefetch(p: *const u8) {
+pub(crate) fn prefetch(p: *const u8) {
     #[cfg(target_arch = "x86_64")]
     // SAFETY: a prefetch is only a hint: it never faults and reads nothing architecturally, so
     // any address is fine (callers form it with `wrapping_add`, which is not UB either).

@@ -36,9 +36,12 @@
 //!   practice less, as the coarse levels keep little detail. As in OpenCV, a level whose width
 //!   or height is not larger than the window is not used, so all four need a frame of at least
 //!   176 px each way.
-//! - Image, gradients and window sums are f32 (the sum of each window row is added up in f64);
-//!   positions are f64. The inner loops allocate nothing: a step's window buffers are made once
-//!   per call and reused for every point, level and iteration.
+//! - Image, gradients and window sums are f32 (each window sum is kept in eight independent
+//!   partial sums, which vector registers carry, added up in f64 at the end); positions are
+//!   f64. The inner loops allocate nothing: a step's window buffers are made once per call and
+//!   reused for every point, level and iteration. A pyramid can be rebuilt in place of one no
+//!   longer needed ([`Pyramid::rebuild`]), so that a tracker keeping two pyramids does not ask
+//!   for new memory every frame.
 
 use std::borrow::Borrow;
 
@@ -209,15 +212,6 @@ pub struct Level {
 }
 
 impl Level {
-    fn new(width: usize, height: usize, image: Vec<f32>) -> Self {
-        let gradient = scharr(&image, width, height);
-        Self {
-            width,
-            height,
-            image,
-            gradient,
-        }
-    }
     /// Width in pixels.
     pub fn width(&self) -> usize {
         self.width
@@ -250,18 +244,97 @@ impl Pyramid {
     /// including level 0, clamped to 1..=[`MAX_LEVELS`]; building stops early once a level is
     /// a single pixel.
     pub fn build(frame: &GrayFrame, levels: usize) -> Self {
+        let mut out = Self { levels: Vec::new() };
+        out.rebuild(frame, levels);
+        out
+    }
+
+    /// The pyramid of an 8-bit frame, row-major (as [`GrayFrame::from_u8`] then
+    /// [`Pyramid::build`], without the intermediate frame).
+    pub fn from_u8(
+        width: usize,
+        height: usize,
+        data: &[u8],
+        levels: usize,
+    ) -> Result<Self, TrackError> {
+        let mut out = Self { levels: Vec::new() };
+        out.rebuild_from_u8(width, height, data, levels)?;
+        Ok(out)
+    }
+
+    /// Builds the pyramid of `frame` in place of this one, as [`Pyramid::build`] would, reusing
+    /// its memory: a tracker that keeps two pyramids can build each new frame's into the one it
+    /// no longer needs, without asking the system for fresh pages every frame.
+    pub fn rebuild(&mut self, frame: &GrayFrame, levels: usize) {
+        self.fill(frame.width, frame.height, levels, |image| {
+            image.copy_from_slice(&frame.data);
+        });
+    }
+
+    /// [`Pyramid::rebuild`] from an 8-bit frame, row-major; on an error (the size, or the
+    /// length of `data`) the pyramid is left as it was.
+    pub fn rebuild_from_u8(
+        &mut self,
+        width: usize,
+        height: usize,
+        data: &[u8],
+        levels: usize,
+    ) -> Result<(), TrackError> {
+        let expected = checked_len(width, height)?;
+        if data.len() != expected {
+            return Err(TrackError::WrongLength {
+                width,
+                height,
+                expected,
+                got: data.len(),
+            });
+        }
+        self.fill(width, height, levels, |image| {
+            for (o, &v) in image.iter_mut().zip(data) {
+                *o = f32::from(v);
+            }
+        });
+        Ok(())
+    }
+
+    /// Sizes the levels for a `width` × `height` frame (reusing their buffers), lets `level0`
+    /// write level 0's image, then filters the rest.
+    fn fill(
+        &mut self,
+        width: usize,
+        height: usize,
+        levels: usize,
+        level0: impl FnOnce(&mut [f32]),
+    ) {
         let levels = levels.clamp(1, MAX_LEVELS);
-        let mut out = Vec::with_capacity(levels);
-        out.push(Level::new(frame.width, frame.height, frame.data.clone()));
-        while out.len() < levels {
-            let Some(last) = out.last() else { break };
-            if last.width == 1 && last.height == 1 {
+        let mut sizes = vec![(width, height)];
+        while sizes.len() < levels {
+            let (w, h) = sizes[sizes.len() - 1];
+            if w == 1 && h == 1 {
                 break;
             }
-            let (image, w, h) = pyr_down(&last.image, last.width, last.height);
-            out.push(Level::new(w, h, image));
+            sizes.push((w.div_ceil(2), h.div_ceil(2)));
         }
-        Self { levels: out }
+        self.levels.truncate(sizes.len());
+        for (i, &(w, h)) in sizes.iter().enumerate() {
+            if i == self.levels.len() {
+                self.levels.push(Level {
+                    width: 0,
+                    height: 0,
+                    image: Vec::new(),
+                    gradient: Vec::new(),
+                });
+            }
+            let level = &mut self.levels[i];
+            (level.width, level.height) = (w, h);
+            // Fresh buffers come zeroed from the allocator; reused ones are overwritten whole.
+            if level.image.len() != w * h {
+                level.image = vec![0.0; w * h];
+                level.gradient = vec![[0.0; 2]; w * h];
+            }
+        }
+        level0(&mut self.levels[0].image);
+        filter_levels(&mut self.levels);
     }
 
     /// Number of levels.
@@ -285,6 +358,44 @@ impl Pyramid {
     }
 }
 
+/// Whether this CPU runs the AVX2 builds of the kernels (checked once, then cached by std).
+#[cfg(target_arch = "x86_64")]
+fn has_avx2() -> bool {
+    std::arch::is_x86_feature_detected!("avx2")
+}
+
+/// Filters level 0's image into the gradients and the coarser levels (their sizes set).
+///
+/// The pyramid filters and the window kernels below are plain Rust written for the compiler's
+/// vectoriser; on x86-64 each is also compiled with AVX2 enabled and chosen at run time. Both
+/// builds do the same f32 operations in the same order (no FMA, the lanes of every sum fixed
+/// in the source), so their results are identical bit for bit, only the registers are wider.
+fn filter_levels(levels: &mut [Level]) {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx2() {
+        #[target_feature(enable = "avx2")]
+        fn avx2(levels: &mut [Level]) {
+            filter_levels_portable(levels);
+        }
+        // SAFETY: the CPU has AVX2 (checked just above).
+        return unsafe { avx2(levels) };
+    }
+    filter_levels_portable(levels);
+}
+
+#[inline(always)]
+fn filter_levels_portable(levels: &mut [Level]) {
+    for i in 0..levels.len() {
+        if i > 0 {
+            let (done, rest) = levels.split_at_mut(i);
+            let src = &done[i - 1];
+            pyr_down(&src.image, src.width, src.height, &mut rest[0].image);
+        }
+        let level = &mut levels[i];
+        scharr(&level.image, level.width, level.height, &mut level.gradient);
+    }
+}
+
 /// Index `i` folded into 0..n with reflect-101 (`…2 1 | 0 1 2 … n-1 | n-2 …`).
 #[inline]
 fn reflect101(i: isize, n: usize) -> usize {
@@ -301,42 +412,79 @@ fn reflect101(i: isize, n: usize) -> usize {
 }
 
 /// One level down: [1 4 6 4 1]/16 down the columns, then along the rows at even columns.
-fn pyr_down(src: &[f32], w: usize, h: usize) -> (Vec<f32>, usize, usize) {
-    let (dw, dh) = (w.div_ceil(2), h.div_ceil(2));
-    let mut dst = vec![0.0f32; dw * dh];
+#[inline(always)]
+fn pyr_down(src: &[f32], w: usize, h: usize, dst: &mut [f32]) {
+    let dw = w.div_ceil(2);
     let mut row = vec![0.0f32; w];
-    const K0: f32 = 1.0 / 16.0;
-    const K1: f32 = 4.0 / 16.0;
-    const K2: f32 = 6.0 / 16.0;
+    let (mut even, mut odd) = (Vec::with_capacity(dw), Vec::with_capacity(dw));
     for (j, out) in dst.chunks_exact_mut(dw).enumerate() {
         let y = 2 * j as isize;
         let r: [&[f32]; 5] = std::array::from_fn(|t| {
             let yy = reflect101(y + t as isize - 2, h);
             &src[yy * w..(yy + 1) * w]
         });
-        for (x, v) in row.iter_mut().enumerate() {
-            *v = (r[0][x] + r[4][x]) * K0 + (r[1][x] + r[3][x]) * K1 + r[2][x] * K2;
-        }
-        // Interior columns 2i − 2 ≥ 0 and 2i + 2 < w without folding; the few at the edges
-        // folded.
-        let inner = if w >= 5 { 1..(w - 3) / 2 + 1 } else { 0..0 };
-        for (i, o) in out.iter_mut().enumerate().take(inner.end).skip(inner.start) {
-            let c = 2 * i;
-            *o = (row[c - 2] + row[c + 2]) * K0 + (row[c - 1] + row[c + 1]) * K1 + row[c] * K2;
-        }
-        for i in (0..inner.start).chain(inner.end.max(inner.start)..dw) {
-            let c = 2 * i as isize;
-            let t = |d: isize| row[reflect101(c + d, w)];
-            out[i] = (t(-2) + t(2)) * K0 + (t(-1) + t(1)) * K1 + t(0) * K2;
+        pyr_down_column(&r, &mut row);
+        pyr_down_row(&row, &mut even, &mut odd, out);
+    }
+}
+
+const K0: f32 = 1.0 / 16.0;
+const K1: f32 = 4.0 / 16.0;
+const K2: f32 = 6.0 / 16.0;
+
+/// The vertical pass of [`pyr_down`] over one row: five source rows of one length into `out`.
+#[inline(always)]
+fn pyr_down_column(r: &[&[f32]; 5], out: &mut [f32]) {
+    let n = out.len();
+    let (r0, r1, r2, r3, r4) = (&r[0][..n], &r[1][..n], &r[2][..n], &r[3][..n], &r[4][..n]);
+    for (x, o) in out.iter_mut().enumerate() {
+        *o = (r0[x] + r4[x]) * K0 + (r1[x] + r3[x]) * K1 + r2[x] * K2;
+    }
+}
+
+/// The horizontal pass of [`pyr_down`]: `row` filtered along and sampled at its even columns.
+/// The row is split into its even and odd columns first, so that the interior reads
+/// contiguous values.
+#[inline(always)]
+fn pyr_down_row(row: &[f32], even: &mut Vec<f32>, odd: &mut Vec<f32>, out: &mut [f32]) {
+    let w = row.len();
+    let dw = out.len();
+    let (pairs, last) = row.as_chunks::<2>();
+    even.resize(dw, 0.0);
+    odd.resize(pairs.len(), 0.0);
+    for ((e, o), p) in even.iter_mut().zip(odd.iter_mut()).zip(pairs) {
+        *e = p[0];
+        *o = p[1];
+    }
+    if let [v] = *last {
+        even[dw - 1] = v;
+    }
+    let tap = |c: isize| row[reflect101(c, w)];
+    let edge = |i: usize| {
+        let c = 2 * i as isize;
+        (tap(c - 2) + tap(c + 2)) * K0 + (tap(c - 1) + tap(c + 1)) * K1 + tap(c) * K2
+    };
+    // Interior outputs 1..m read columns 2i − 2 ..= 2i + 2 without folding: 2(m − 1) + 2 < w.
+    // Column 2i ± 2 is even[i ± 1], 2i ± 1 are odd[i − 1] and odd[i], 2i is even[i].
+    let m = if w >= 5 { (w - 3) / 2 + 1 } else { 1 }.min(dw);
+    if m > 1 {
+        let n = m - 1;
+        let (e0, e1, e2) = (&even[..n], &even[1..=n], &even[2..n + 2]);
+        let (o0, o1) = (&odd[..n], &odd[1..=n]);
+        let body = &mut out[1..m];
+        for i in 0..n {
+            body[i] = (e0[i] + e2[i]) * K0 + (o0[i] + o1[i]) * K1 + e1[i] * K2;
         }
     }
-    (dst, dw, dh)
+    out[0] = edge(0);
+    for (i, o) in out.iter_mut().enumerate().skip(m.max(1)) {
+        *o = edge(i);
+    }
 }
 
 /// Scharr gradient in grey levels per pixel: [3 10 3]/16 across, [-1 0 1]/2 along.
-fn scharr(img: &[f32], w: usize, h: usize) -> Vec<[f32; 2]> {
-    const S: f32 = 1.0 / 32.0;
-    let mut grad = vec![[0.0f32; 2]; w * h];
+#[inline(always)]
+fn scharr(img: &[f32], w: usize, h: usize, grad: &mut [[f32; 2]]) {
     // Smoothed down the column (for d/dx) and differenced down the column (for d/dy).
     let mut t0 = vec![0.0f32; w];
     let mut t1 = vec![0.0f32; w];
@@ -348,29 +496,51 @@ fn scharr(img: &[f32], w: usize, h: usize) -> Vec<[f32; 2]> {
             &img[y * w..(y + 1) * w],
             &img[y2 * w..(y2 + 1) * w],
         );
-        for x in 0..w {
-            t0[x] = (s0[x] + s2[x]) * 3.0 + s1[x] * 10.0;
-            t1[x] = s2[x] - s0[x];
-        }
-        let g = |x: usize, xl: usize, xr: usize| {
-            [
-                (t0[xr] - t0[xl]) * S,
-                ((t1[xr] + t1[xl]) * 3.0 + t1[x] * 10.0) * S,
-            ]
-        };
-        let inner = w.saturating_sub(1);
-        for (x, o) in out.iter_mut().enumerate().take(inner).skip(1) {
-            *o = g(x, x - 1, x + 1);
-        }
-        for x in [0, w - 1] {
-            out[x] = g(
-                x,
-                reflect101(x as isize - 1, w),
-                reflect101(x as isize + 1, w),
-            );
+        scharr_row(s0, s1, s2, &mut t0, &mut t1, out);
+    }
+}
+
+/// One row of [`scharr`] from the rows above, at and below it (reflected at the edges).
+#[inline(always)]
+fn scharr_row(
+    s0: &[f32],
+    s1: &[f32],
+    s2: &[f32],
+    t0: &mut [f32],
+    t1: &mut [f32],
+    out: &mut [[f32; 2]],
+) {
+    const S: f32 = 1.0 / 32.0;
+    let w = out.len();
+    let (s0, s1, s2, t0, t1) = (&s0[..w], &s1[..w], &s2[..w], &mut t0[..w], &mut t1[..w]);
+    for x in 0..w {
+        t0[x] = (s0[x] + s2[x]) * 3.0 + s1[x] * 10.0;
+        t1[x] = s2[x] - s0[x];
+    }
+    let g = |x: usize, xl: usize, xr: usize| {
+        [
+            (t0[xr] - t0[xl]) * S,
+            ((t1[xr] + t1[xl]) * 3.0 + t1[x] * 10.0) * S,
+        ]
+    };
+    if w >= 3 {
+        let (a0, a2) = (&t0[..w - 2], &t0[2..]);
+        let (b0, b1, b2) = (&t1[..w - 2], &t1[1..w - 1], &t1[2..]);
+        let body = &mut out[1..w - 1];
+        for (x, o) in body.iter_mut().enumerate() {
+            *o = [
+                (a2[x] - a0[x]) * S,
+                ((b2[x] + b0[x]) * 3.0 + b1[x] * 10.0) * S,
+            ];
         }
     }
-    grad
+    for x in [0, w - 1] {
+        out[x] = g(
+            x,
+            reflect101(x as isize - 1, w),
+            reflect101(x as isize + 1, w),
+        );
+    }
 }
 
 /// Parameters of one Lucas–Kanade step; missing fields take their defaults when read.
@@ -464,8 +634,16 @@ pub struct TrackStep {
 /// Window-sized work buffers, reused across the points of a step.
 #[derive(Debug, Default)]
 struct Scratch {
+    /// The previous image over the window, row-major, win × win.
     patch: Vec<f32>,
-    grad: Vec<[f32; 2]>,
+    /// Its gradient over the window: d/dx and d/dy, each win × win.
+    gx: Vec<f32>,
+    gy: Vec<f32>,
+    /// The next image over the window, resampled at every iteration.
+    next: Vec<f32>,
+    /// The (win + 1)² samples a window near the edge reads, folded in (the border path).
+    edge_image: Vec<f32>,
+    edge_gradient: Vec<[f32; 2]>,
     cols: Vec<Tap>,
     rows: Vec<Tap>,
 }
@@ -478,6 +656,7 @@ struct Tap {
     inside: f32,
 }
 
+#[inline(always)]
 fn fill_taps(out: &mut Vec<Tap>, start: isize, count: usize, n: usize) {
     out.clear();
     out.extend((0..count as isize).map(|k| {
@@ -498,6 +677,7 @@ struct Origin {
     weights: [f32; 4],
 }
 
+#[inline(always)]
 fn origin(p: [f64; 2], half: f64, win: usize, w: usize, h: usize) -> Option<Origin> {
     let (ox, oy) = (p[0] - half, p[1] - half);
     let (fx, fy) = (ox.floor(), oy.floor());
@@ -527,124 +707,269 @@ fn bilerp(w: &[f32; 4], t00: f32, t01: f32, t10: f32, t11: f32) -> f32 {
     w[0] * t00 + w[1] * t01 + w[2] * t10 + w[3] * t11
 }
 
-/// Samples the previous level's image and gradient over the window into the scratch buffers
-/// and returns Σ gx², Σ gx·gy, Σ gy². Rows are read as slices when the window is inside the
-/// level and `allow_fast` (always, but for the test that both ways agree bit for bit).
-fn extract(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: bool) -> [f64; 3] {
-    let (w, h) = (level.width, level.height);
-    let (img, grad) = (&level.image[..], &level.gradient[..]);
-    let wt = &o.weights;
-    s.patch.resize(win * win, 0.0);
-    s.grad.resize(win * win, [0.0; 2]);
-    let mut sums = [0.0f64; 3];
-    let fast = allow_fast && o.inside(win, w, h);
-    if !fast {
-        fill_taps(&mut s.cols, o.ix, win + 1, w);
-        fill_taps(&mut s.rows, o.iy, win + 1, h);
+/// One window row of bilinear samples: `out[c]` between `p0[c]`, `p0[c + 1]` (this row) and
+/// `p1[c]`, `p1[c + 1]` (the row below); `p0` and `p1` hold `out.len() + 1` values.
+#[inline(always)]
+fn bilerp_row(wt: &[f32; 4], p0: &[f32], p1: &[f32], out: &mut [f32]) {
+    let n = out.len();
+    let (a0, a1, b0, b1) = (&p0[..n], &p0[1..=n], &p1[..n], &p1[1..=n]);
+    for c in 0..n {
+        out[c] = bilerp(wt, a0[c], a1[c], b0[c], b1[c]);
     }
-    for r in 0..win {
-        let pr = &mut s.patch[r * win..(r + 1) * win];
-        let gr = &mut s.grad[r * win..(r + 1) * win];
-        let (mut s11, mut s12, mut s22) = (0.0f32, 0.0f32, 0.0f32);
-        if fast {
-            let i0 = (o.iy as usize + r) * w + o.ix as usize;
-            let i1 = i0 + w;
-            let (p0, p1) = (&img[i0..=i0 + win], &img[i1..=i1 + win]);
-            let (g0, g1) = (&grad[i0..=i0 + win], &grad[i1..=i1 + win]);
-            for c in 0..win {
-                pr[c] = bilerp(wt, p0[c], p0[c + 1], p1[c], p1[c + 1]);
-                let gx = bilerp(wt, g0[c][0], g0[c + 1][0], g1[c][0], g1[c + 1][0]);
-                let gy = bilerp(wt, g0[c][1], g0[c + 1][1], g1[c][1], g1[c + 1][1]);
-                gr[c] = [gx, gy];
-                s11 += gx * gx;
-                s12 += gx * gy;
-                s22 += gy * gy;
-            }
-        } else {
-            let (r0, r1) = (s.rows[r], s.rows[r + 1]);
-            let (o0, o1) = (r0.index * w, r1.index * w);
-            for c in 0..win {
-                let (c0, c1) = (s.cols[c], s.cols[c + 1]);
-                let (k00, k01, k10, k11) =
-                    (o0 + c0.index, o0 + c1.index, o1 + c0.index, o1 + c1.index);
-                pr[c] = bilerp(wt, img[k00], img[k01], img[k10], img[k11]);
-                let (m00, m01, m10, m11) = (
-                    r0.inside * c0.inside,
-                    r0.inside * c1.inside,
-                    r1.inside * c0.inside,
-                    r1.inside * c1.inside,
-                );
-                let g = |k: usize, m: f32, a: usize| grad[k][a] * m;
-                let gx = bilerp(
-                    wt,
-                    g(k00, m00, 0),
-                    g(k01, m01, 0),
-                    g(k10, m10, 0),
-                    g(k11, m11, 0),
-                );
-                let gy = bilerp(
-                    wt,
-                    g(k00, m00, 1),
-                    g(k01, m01, 1),
-                    g(k10, m10, 1),
-                    g(k11, m11, 1),
-                );
-                gr[c] = [gx, gy];
-                s11 += gx * gx;
-                s12 += gx * gy;
-                s22 += gy * gy;
-            }
+}
+
+/// [`bilerp_row`] for the gradient, split into its x and y parts.
+#[inline(always)]
+fn bilerp_gradient_row(
+    wt: &[f32; 4],
+    g0: &[[f32; 2]],
+    g1: &[[f32; 2]],
+    gx: &mut [f32],
+    gy: &mut [f32],
+) {
+    let n = gx.len();
+    let (a0, a1, b0, b1) = (&g0[..n], &g0[1..=n], &g1[..n], &g1[1..=n]);
+    let gy = &mut gy[..n];
+    for c in 0..n {
+        gx[c] = bilerp(wt, a0[c][0], a1[c][0], b0[c][0], b1[c][0]);
+        gy[c] = bilerp(wt, a0[c][1], a1[c][1], b0[c][1], b1[c][1]);
+    }
+}
+
+/// Independent partial sums the window sums are split into, so that they run in vector
+/// registers; they are added up in f64 at the end.
+const LANES: usize = 8;
+
+/// Σ gx², Σ gx·gy, Σ gy² over the window.
+#[inline(always)]
+fn gradient_sums(gx: &[f32], gy: &[f32]) -> [f64; 3] {
+    let n = gx.len().min(gy.len());
+    let (cx, tx) = gx[..n].as_chunks::<LANES>();
+    let (cy, ty) = gy[..n].as_chunks::<LANES>();
+    let mut acc = [[0.0f32; LANES]; 3];
+    for (x, y) in cx.iter().zip(cy) {
+        for k in 0..LANES {
+            acc[0][k] += x[k] * x[k];
+            acc[1][k] += x[k] * y[k];
+            acc[2][k] += y[k] * y[k];
         }
-        sums[0] += f64::from(s11);
-        sums[1] += f64::from(s12);
-        sums[2] += f64::from(s22);
     }
-    sums
+    for (k, (x, y)) in tx.iter().zip(ty).enumerate() {
+        acc[0][k] += x * x;
+        acc[1][k] += x * y;
+        acc[2][k] += y * y;
+    }
+    acc.map(|a| a.iter().map(|&v| f64::from(v)).sum())
+}
+
+/// Σ (J − I)·gx and Σ (J − I)·gy over the window.
+#[inline(always)]
+fn mismatch_sums(next: &[f32], patch: &[f32], gx: &[f32], gy: &[f32]) -> [f64; 2] {
+    let n = next.len().min(patch.len()).min(gx.len()).min(gy.len());
+    let (cj, tj) = next[..n].as_chunks::<LANES>();
+    let (ci, ti) = patch[..n].as_chunks::<LANES>();
+    let (cx, tx) = gx[..n].as_chunks::<LANES>();
+    let (cy, ty) = gy[..n].as_chunks::<LANES>();
+    let mut acc = [[0.0f32; LANES]; 2];
+    for (((j, i), x), y) in cj.iter().zip(ci).zip(cx).zip(cy) {
+        for k in 0..LANES {
+            let d = j[k] - i[k];
+            acc[0][k] += d * x[k];
+            acc[1][k] += d * y[k];
+        }
+    }
+    for (k, (((j, i), x), y)) in tj.iter().zip(ti).zip(tx).zip(ty).enumerate() {
+        let d = j - i;
+        acc[0][k] += d * x;
+        acc[1][k] += d * y;
+    }
+    acc.map(|a| a.iter().map(|&v| f64::from(v)).sum())
+}
+
+/// Where the (win + 1)² samples of a window are read: `data[base + r * stride + c]` is the
+/// sample in row r and column c (0..=win).
+struct Samples<'a, T> {
+    data: &'a [T],
+    base: usize,
+    stride: usize,
+}
+
+impl<'a, T> Samples<'a, T> {
+    #[inline(always)]
+    fn row(&self, r: usize, n: usize) -> &'a [T] {
+        let start = self.base + r * self.stride;
+        &self.data[start..start + n]
+    }
+}
+
+/// The samples of a window at `o`: the level's own rows when the window is inside it and
+/// `allow_fast`, otherwise the samples folded into the level (reflect-101) and copied into
+/// `image_copy` (and, with the gradient, into `gradient_copy`, zero outside the level).
+#[inline(always)]
+fn window_samples<'a>(
+    level: &'a Level,
+    o: &Origin,
+    win: usize,
+    allow_fast: bool,
+    taps: (&mut Vec<Tap>, &mut Vec<Tap>),
+    image_copy: &'a mut Vec<f32>,
+    gradient_copy: Option<&'a mut Vec<[f32; 2]>>,
+) -> (Samples<'a, f32>, Option<Samples<'a, [f32; 2]>>) {
+    let (w, h) = (level.width, level.height);
+    if allow_fast && o.inside(win, w, h) {
+        let base = o.iy as usize * w + o.ix as usize;
+        let at = |data| Samples {
+            data,
+            base,
+            stride: w,
+        };
+        let image = at(&level.image[..]);
+        let gradient = gradient_copy.map(|_| Samples {
+            data: &level.gradient[..],
+            base,
+            stride: w,
+        });
+        return (image, gradient);
+    }
+    let n = win + 1;
+    let (cols, rows) = taps;
+    fill_taps(cols, o.ix, n, w);
+    fill_taps(rows, o.iy, n, h);
+    image_copy.clear();
+    for r in rows.iter() {
+        let row = &level.image[r.index * w..(r.index + 1) * w];
+        image_copy.extend(cols.iter().map(|c| row[c.index]));
+    }
+    let gradient = gradient_copy.map(|copy| {
+        copy.clear();
+        for r in rows.iter() {
+            let row = &level.gradient[r.index * w..(r.index + 1) * w];
+            copy.extend(cols.iter().map(|c| {
+                let m = r.inside * c.inside;
+                let g = row[c.index];
+                [g[0] * m, g[1] * m]
+            }));
+        }
+        Samples {
+            data: &copy[..],
+            base: 0,
+            stride: n,
+        }
+    });
+    let image = Samples {
+        data: &image_copy[..],
+        base: 0,
+        stride: n,
+    };
+    (image, gradient)
+}
+
+/// Samples the previous level's image and gradient over the window into the scratch buffers
+/// and returns Σ gx², Σ gx·gy, Σ gy². Rows are read as slices of the level when the window is
+/// inside it and `allow_fast` (always, but for the test that both ways agree bit for bit), else
+/// from a folded copy; the arithmetic is the same either way.
+#[inline(always)]
+fn extract(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: bool) -> [f64; 3] {
+    let Scratch {
+        patch,
+        gx,
+        gy,
+        edge_image,
+        edge_gradient,
+        cols,
+        rows,
+        ..
+    } = s;
+    let area = win * win;
+    patch.resize(area, 0.0);
+    gx.resize(area, 0.0);
+    gy.resize(area, 0.0);
+    let (img, grad) = window_samples(
+        level,
+        o,
+        win,
+        allow_fast,
+        (cols, rows),
+        edge_image,
+        Some(edge_gradient),
+    );
+    let Some(grad) = grad else {
+        return [0.0; 3];
+    };
+    let n = win + 1;
+    let wt = &o.weights;
+    for (r, ((pr, xr), yr)) in patch
+        .chunks_exact_mut(win)
+        .zip(gx.chunks_exact_mut(win))
+        .zip(gy.chunks_exact_mut(win))
+        .enumerate()
+    {
+        bilerp_row(wt, img.row(r, n), img.row(r + 1, n), pr);
+        bilerp_gradient_row(wt, grad.row(r, n), grad.row(r + 1, n), xr, yr);
+    }
+    gradient_sums(gx, gy)
 }
 
 /// Σ (J − I)·∇I over the window, J sampled on the next level at `o` (`allow_fast` as for
 /// [`extract`]).
+#[inline(always)]
 fn mismatch(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: bool) -> [f64; 2] {
-    let (w, h) = (level.width, level.height);
-    let img = &level.image[..];
-    let wt = &o.weights;
-    let mut sums = [0.0f64; 2];
-    let fast = allow_fast && o.inside(win, w, h);
-    if !fast {
-        fill_taps(&mut s.cols, o.ix, win + 1, w);
-        fill_taps(&mut s.rows, o.iy, win + 1, h);
+    let Scratch {
+        patch,
+        gx,
+        gy,
+        next,
+        edge_image,
+        cols,
+        rows,
+        ..
+    } = s;
+    next.resize(win * win, 0.0);
+    let (img, _) = window_samples(level, o, win, allow_fast, (cols, rows), edge_image, None);
+    let n = win + 1;
+    for (r, jr) in next.chunks_exact_mut(win).enumerate() {
+        bilerp_row(&o.weights, img.row(r, n), img.row(r + 1, n), jr);
     }
-    for r in 0..win {
-        let pr = &s.patch[r * win..(r + 1) * win];
-        let gr = &s.grad[r * win..(r + 1) * win];
-        let (mut b1, mut b2) = (0.0f32, 0.0f32);
-        if fast {
-            let i0 = (o.iy as usize + r) * w + o.ix as usize;
-            let i1 = i0 + w;
-            let (p0, p1) = (&img[i0..=i0 + win], &img[i1..=i1 + win]);
-            for c in 0..win {
-                let d = bilerp(wt, p0[c], p0[c + 1], p1[c], p1[c + 1]) - pr[c];
-                b1 += d * gr[c][0];
-                b2 += d * gr[c][1];
-            }
-        } else {
-            let (o0, o1) = (s.rows[r].index * w, s.rows[r + 1].index * w);
-            for c in 0..win {
-                let (c0, c1) = (s.cols[c].index, s.cols[c + 1].index);
-                let j = bilerp(wt, img[o0 + c0], img[o0 + c1], img[o1 + c0], img[o1 + c1]);
-                let d = j - pr[c];
-                b1 += d * gr[c][0];
-                b2 += d * gr[c][1];
-            }
+    mismatch_sums(next, patch, gx, gy)
+}
+
+/// Hints the CPU to load the rows of the window around level position `p` (and of its
+/// gradient), so that their cache misses overlap instead of coming one row at a time. Changes
+/// no result; a window off the level is skipped.
+#[inline(always)]
+fn prefetch_window(level: &Level, p: [f64; 2], win: usize, gradient: bool) {
+    let half = (win as f64 - 1.0) / 2.0;
+    let Some(o) = origin(p, half, win, level.width, level.height) else {
+        return;
+    };
+    if !o.inside(win, level.width, level.height) {
+        return;
+    }
+    let (x, y, w) = (o.ix as usize, o.iy as usize, level.width);
+    for r in y..=y + win {
+        let row = r * w + x;
+        prefetch_span(level.image[row..=row + win].as_ptr().cast(), (win + 1) * 4);
+        if gradient {
+            prefetch_span(
+                level.gradient[row..=row + win].as_ptr().cast(),
+                (win + 1) * 8,
+            );
         }
-        sums[0] += f64::from(b1);
-        sums[1] += f64::from(b2);
     }
-    sums
+}
+
+/// Prefetches each cache line of `bytes` bytes from `p`.
+#[inline(always)]
+fn prefetch_span(p: *const u8, bytes: usize) {
+    for off in (0..bytes).step_by(64) {
+        crate::cost::prefetch(p.wrapping_add(off));
+    }
+    crate::cost::prefetch(p.wrapping_add(bytes - 1));
 }
 
 /// Lucas–Kanade on one level (Bouguet, section 2.4), from level position `p` in the previous
 /// image and the guess `q` in the next.
+#[inline(always)]
 fn lk_level(
     prev: &Level,
     next: &Level,
@@ -725,6 +1050,7 @@ fn same_size(a: &Pyramid, b: &Pyramid, index: usize) -> Result<(), TrackError> {
 
 /// The top level a step may use: below `params.levels` and both pyramids' depth, and, as in
 /// OpenCV, only levels larger than the window in both directions (level 0 always).
+#[inline(always)]
 fn top_level(prev: &Pyramid, next: &Pyramid, win: usize, levels: usize) -> usize {
     let n = levels.min(prev.levels()).min(next.levels());
     (1..n)
@@ -736,7 +1062,34 @@ fn top_level(prev: &Pyramid, next: &Pyramid, win: usize, levels: usize) -> usize
         .unwrap_or(0)
 }
 
+/// One step of `p` (the kernels' AVX2 build where the CPU has it, see [`filter_levels`]).
 fn step_with(
+    prev: &Pyramid,
+    next: &Pyramid,
+    p: [f64; 2],
+    params: &LkParams,
+    s: &mut Scratch,
+) -> TrackStep {
+    #[cfg(target_arch = "x86_64")]
+    if has_avx2() {
+        #[target_feature(enable = "avx2")]
+        fn avx2(
+            prev: &Pyramid,
+            next: &Pyramid,
+            p: [f64; 2],
+            params: &LkParams,
+            s: &mut Scratch,
+        ) -> TrackStep {
+            step_portable(prev, next, p, params, s)
+        }
+        // SAFETY: the CPU has AVX2 (checked just above).
+        return unsafe { avx2(prev, next, p, params, s) };
+    }
+    step_portable(prev, next, p, params, s)
+}
+
+#[inline(always)]
+fn step_portable(
     prev: &Pyramid,
     next: &Pyramid,
     p: [f64; 2],
@@ -769,6 +1122,17 @@ fn step_with(
         let pl = [p[0] * scale, p[1] * scale];
         // Bouguet's g^{L} = 2 (g^{L+1} + d^{L+1}): the coarser result, doubled.
         let q = guess.map_or(pl, |g| [g[0] * 2.0, g[1] * 2.0]);
+        if l == top {
+            prefetch_window(&prev.levels[l], pl, params.window, true);
+            prefetch_window(&next.levels[l], q, params.window, false);
+        }
+        if l > 0 {
+            // The next finer level's windows load while this level runs (the guess there is
+            // not known yet: the previous frame's position stands in for it).
+            let pf = [pl[0] * 2.0, pl[1] * 2.0];
+            prefetch_window(&prev.levels[l - 1], pf, params.window, true);
+            prefetch_window(&next.levels[l - 1], pf, params.window, false);
+        }
         let step = lk_level(&prev.levels[l], &next.levels[l], pl, q, params, s);
         guess = Some(step.position);
         out = Some(step);
@@ -1624,10 +1988,62 @@ mod tests {
             let g2 = extract(prev.level(0).unwrap(), &o, win, &mut s2, false);
             assert_eq!(g1, g2);
             assert_eq!(s1.patch, s2.patch);
-            assert_eq!(s1.grad, s2.grad);
+            assert_eq!(s1.gx, s2.gx);
+            assert_eq!(s1.gy, s2.gy);
             let m1 = mismatch(next.level(0).unwrap(), &o, win, &mut s1, true);
             let m2 = mismatch(next.level(0).unwrap(), &o, win, &mut s2, false);
             assert_eq!(m1, m2);
+        }
+    }
+
+    /// Building from 8 bits and rebuilding in place of another pyramid (of another size and
+    /// depth) give exactly what a fresh build gives; a rejected frame leaves the pyramid as it
+    /// was.
+    #[test]
+    fn rebuilt_pyramids_equal_fresh_ones() {
+        let bytes = |w: usize, h: usize, seed: u64| -> Vec<u8> {
+            let mut s = seed;
+            (0..w * h)
+                .map(|_| (splitmix(&mut s) * 255.0) as u8)
+                .collect()
+        };
+        let (a, b) = (bytes(97, 61, 1), bytes(40, 30, 2));
+        let fresh = |w, h, d: &[u8], l| Pyramid::build(&GrayFrame::from_u8(w, h, d).unwrap(), l);
+        let mut p = Pyramid::from_u8(97, 61, &a, 4).unwrap();
+        assert_eq!(p, fresh(97, 61, &a, 4));
+        p.rebuild_from_u8(40, 30, &b, 3).unwrap();
+        assert_eq!(p, fresh(40, 30, &b, 3));
+        p.rebuild(&GrayFrame::from_u8(97, 61, &a).unwrap(), 5);
+        assert_eq!(p, fresh(97, 61, &a, 5));
+        let before = p.clone();
+        assert!(p.rebuild_from_u8(40, 30, &b[1..], 3).is_err());
+        assert!(p.rebuild_from_u8(0, 30, &[], 3).is_err());
+        assert_eq!(p, before);
+        assert!(Pyramid::from_u8(2, 2, &[0; 3], 4).is_err());
+    }
+
+    /// The run-time chosen build of the kernels (AVX2 where the CPU has it) and the portable
+    /// one agree bit for bit: pyramids, positions and eigenvalues, inside and at the edges.
+    #[test]
+    fn kernel_builds_agree_bit_for_bit() {
+        let b = blobs(4, 200.0);
+        let prev = Pyramid::build(&textured(181, 143, &b, [0.0, 0.0]), 4);
+        let next = Pyramid::build(&textured(181, 143, &b, [1.3, -0.6]), 4);
+        let mut levels = prev.levels.clone();
+        for l in &mut levels[1..] {
+            l.image.fill(0.0);
+        }
+        for l in &mut levels {
+            l.gradient.fill([0.0; 2]);
+        }
+        filter_levels_portable(&mut levels);
+        assert_eq!(levels, prev.levels);
+        let params = LkParams::default();
+        for p in [[90.3, 70.6], [3.2, 5.9], [175.5, 140.1], [60.0, 2.5]] {
+            let (mut s1, mut s2) = (Scratch::default(), Scratch::default());
+            let a = step_with(&prev, &next, p, &params, &mut s1);
+            let c = step_portable(&prev, &next, p, &params, &mut s2);
+            assert_eq!(a, c, "{p:?}");
         }
     }
 
