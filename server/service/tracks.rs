@@ -722,8 +722,7 @@ mod pyramid_cache_tests {
 
     fn pyramid(seed: u8) -> Pyramid {
         let data: Vec<u8> = (0..64 * 48).map(|i| (i as u8).wrapping_mul(seed)).collect();
-        let frame = GrayFrame::from_u8(64, 48, &data).expect("frame");
-        Pyramid::build(&frame, LEVELS)
+        Pyramid::from_u8(64, 48, &data, LEVELS).expect("frame")
     }
 
     #[test]

@@ -1240,9 +1240,10 @@ async fn demo_page_end_to_end() {
     // Every stretch is the edge track's (the first track is sure everywhere); the last is the
     // lost one running to the end (before it the window hangs over the edge: unsure).
     assert!(
-        entries
-            .iter()
-            .all(|e| e[0].as_str().unwrap_or("").starts_with("edge of the mat: frame")),
+        entries.iter().all(|e| e[0]
+            .as_str()
+            .unwrap_or("")
+            .starts_with("edge of the mat: frame")),
         "{entries:?}"
     );
     let last = entries.last().expect("a stretch to look at");
