@@ -135,6 +135,16 @@ async fn uploads(s: Server) {
             "unsafe_entry_name",
         ),
         (
+            zip_of(&[("../../x", &one)]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "unsafe_entry_name",
+        ),
+        (
+            zip_of(&[("0.png", &one), ("1.png", &one[..one.len() / 2])]),
+            StatusCode::UNPROCESSABLE_ENTITY,
+            "bad_image",
+        ),
+        (
             zip_of(&[("/abs/0.png", &one)]),
             StatusCode::UNPROCESSABLE_ENTITY,
             "unsafe_entry_name",
