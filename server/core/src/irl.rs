@@ -415,14 +415,14 @@ impl Features {
 
     /// Standardises a raw matrix (states × `k`, row-major) column by column.
     pub fn from_raw(k: usize, mut raw: Vec<f64>) -> Self {
-        let n = if k == 0 { 0 } else { raw.len() / k };
+        let n = raw.len().checked_div(k).unwrap_or(0);
         let mut stats = Vec::with_capacity(k);
         for j in 0..k {
             let mean = (0..n).map(|s| raw[s * k + j]).sum::<f64>() / n.max(1) as f64;
             let var =
                 (0..n).map(|s| (raw[s * k + j] - mean).powi(2)).sum::<f64>() / n.max(1) as f64;
             let std = var.sqrt();
-            let constant = !(std > 1e-12 * mean.abs().max(1.0));
+            let constant = std.is_nan() || std <= 1e-12 * mean.abs().max(1.0);
             let scale = if constant { 1.0 } else { std };
             for s in 0..n {
                 let v = &mut raw[s * k + j];
@@ -592,7 +592,41 @@ pub struct SoftValues {
     states: usize,
     horizon: usize,
     r: Vec<f64>,
-    v: Vec<f64>,
+    table: Table,
+}
+
+/// The value table in shifted form (see [`backward`]), so that its entries stay as small as
+/// the spread of V over the states at one horizon, however long the horizon: the policy is
+/// then as exact at horizon 500 as at horizon 5.
+#[derive(Debug, Clone)]
+struct Table {
+    /// q[k·n + s] = Q̃ₖ(s) = Qₖ(s) − offset[k] (Q̃₀ = 0).
+    q: Vec<f64>,
+    /// top[k] = maxₛ (r(s) + Q̃ₖ(s)).
+    top: Vec<f64>,
+    /// offset[k] = Σ_{j<k} top[j].
+    offset: Vec<f64>,
+}
+
+impl Table {
+    fn new(states: usize, horizon: usize) -> Self {
+        Self {
+            q: vec![0.0; states * (horizon + 1)],
+            top: vec![0.0; horizon + 1],
+            offset: vec![0.0; horizon + 1],
+        }
+    }
+
+    /// Ṽₖ(s) = Vₖ(s) − offset[k] − top[k] = r(s) + Q̃ₖ(s) − top[k] ≤ 0, evaluated by the one
+    /// expression both passes use (so they see the same rounding).
+    #[inline(always)]
+    fn shifted_value(&self, n: usize, r: &[f64], k: usize, s: usize) -> f64 {
+        (r[s] + self.q[k * n + s]) - self.top[k]
+    }
+
+    fn value(&self, n: usize, r: &[f64], k: usize, s: usize) -> f64 {
+        r[s] + self.q[k * n + s] + self.offset[k]
+    }
 }
 
 /// Computes the soft value table of reward `w` for horizons 0 … `horizon`. Refuses a table
@@ -606,15 +640,14 @@ pub fn soft_values(
     let n = grid.states();
     check_table(n, horizon)?;
     let r = features.rewards(w);
-    let mut v = vec![0.0; n * (horizon + 1)];
-    let mut m = vec![0.0; horizon + 1];
-    let mut e = vec![0.0; n];
-    backward(grid, &r, horizon, &mut v, &mut m, &mut e);
+    let mut table = Table::new(n, horizon);
+    let (mut vprev, mut e) = (vec![0.0; n], vec![0.0; n]);
+    backward(grid, &r, horizon, &mut table, &mut vprev, &mut e);
     Ok(SoftValues {
         states: n,
         horizon,
         r,
-        v,
+        table,
     })
 }
 
@@ -637,46 +670,56 @@ impl SoftValues {
     /// Vₖ(s): the log partition function of paths of k moves from s (rewards of all k + 1
     /// states included).
     pub fn value(&self, k: usize, s: usize) -> f64 {
-        self.v[k * self.states + s]
+        self.table.value(self.states, &self.r, k, s)
     }
     /// πₖ(· | s), the policy with k ≥ 1 moves left, in the order of [`Grid::neighbours`].
     pub fn policy(&self, grid: &Grid, k: usize, s: usize) -> Vec<f64> {
         assert!(k >= 1 && k <= self.horizon);
-        let q = self.value(k, s) - self.r[s];
+        let n = self.states;
+        let q = self.table.q[k * n + s];
         grid.neighbours(s)
             .iter()
-            .map(|&t| (self.value(k - 1, t as usize) - q).exp())
+            .map(|&t| (self.table.shifted_value(n, &self.r, k - 1, t as usize) - q).exp())
             .collect()
     }
     /// log P(path | its start) under the soft-optimal policy for its horizon (len − 1 moves):
     /// Σₜ r(sₜ) − V_T(s₀). 0 for a one-state path. Panics when the path is longer than the
-    /// table or not a chain of moves.
+    /// table.
     pub fn path_log_likelihood(&self, path: &[usize]) -> f64 {
         let t = path.len() - 1;
         path.iter().map(|&s| self.r[s]).sum::<f64>() - self.value(t, path[0])
     }
 }
 
-/// The backward pass: fills v[k·n + s] = Vₖ(s) for k = 0 … t_max, and m[k] = max_s Vₖ₋₁(s).
+/// The backward pass, in shifted form. With Ṽₖ₋₁ = r + Q̃ₖ₋₁ − topₖ₋₁ (whose maximum is 0):
+/// Q̃ₖ(s) = log Σ_{s′ ∈ N(s)} exp Ṽₖ₋₁(s′), and Qₖ = Q̃ₖ + offsetₖ with offsetₖ =
+/// offsetₖ₋₁ + topₖ₋₁; the policy πₖ(s′ | s) = exp(Ṽₖ₋₁(s′) − Q̃ₖ(s)) needs no offset.
 ///
-/// Log-sum-exp with one shift per step: Qₖ(s) = mₖ + log Σ exp(Vₖ₋₁(s′) − mₖ), one exp per
-/// state and step instead of one per move. When that sum is under e^LOG_FLOOR (a state whose
-/// neighbours all lie far below the best state), Qₖ(s) is recomputed with its own maximum, so no
-/// term underflows to a wrong result at any weight or horizon.
-fn backward(grid: &Grid, r: &[f64], t_max: usize, v: &mut [f64], m: &mut [f64], e: &mut [f64]) {
+/// The log-sum-exp shares one shift per step (the maximum 0): one exp per state and step,
+/// not one per move. When a state's sum is under e^LOG_FLOOR (all its neighbours far below
+/// the best state), its Q̃ is recomputed with its own maximum, so no term underflows to a
+/// wrong result at any weight or horizon.
+fn backward(
+    grid: &Grid,
+    r: &[f64],
+    t_max: usize,
+    table: &mut Table,
+    vprev: &mut [f64],
+    e: &mut [f64],
+) {
     let n = r.len();
-    v[..n].copy_from_slice(r);
-    m[0] = f64::NAN;
+    table.q[..n].fill(0.0);
+    table.offset[0] = 0.0;
+    table.top[0] = r.iter().copied().fold(f64::NEG_INFINITY, f64::max);
     let floor = LOG_FLOOR.exp();
     for k in 1..=t_max {
-        let (done, rest) = v.split_at_mut(k * n);
-        let prev = &done[(k - 1) * n..];
-        let cur = &mut rest[..n];
-        let mk = prev.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-        m[k] = mk;
-        for (es, &ps) in e.iter_mut().zip(prev) {
-            *es = (ps - mk).exp();
+        for s in 0..n {
+            vprev[s] = table.shifted_value(n, r, k - 1, s);
+            e[s] = vprev[s].exp();
         }
+        table.offset[k] = table.offset[k - 1] + table.top[k - 1];
+        let cur = &mut table.q[k * n..(k + 1) * n];
+        let mut top = f64::NEG_INFINITY;
         for s in 0..n {
             let nb = &grid.nbr[grid.nbr_start[s] as usize..grid.nbr_start[s + 1] as usize];
             let mut sum = 0.0;
@@ -684,20 +727,22 @@ fn backward(grid: &Grid, r: &[f64], t_max: usize, v: &mut [f64], m: &mut [f64], 
                 sum += e[t as usize];
             }
             let q = if sum >= floor {
-                mk + sum.ln()
+                sum.ln()
             } else {
                 let lm = nb
                     .iter()
-                    .map(|&t| prev[t as usize])
+                    .map(|&t| vprev[t as usize])
                     .fold(f64::NEG_INFINITY, f64::max);
                 lm + nb
                     .iter()
-                    .map(|&t| (prev[t as usize] - lm).exp())
+                    .map(|&t| (vprev[t as usize] - lm).exp())
                     .sum::<f64>()
                     .ln()
             };
-            cur[s] = r[s] + q;
+            cur[s] = q;
+            top = top.max(r[s] + q);
         }
+        table.top[k] = top;
     }
 }
 
@@ -727,8 +772,8 @@ pub struct MaxEnt<'a> {
     starts: Vec<Vec<(u32, f64)>>,
     empirical: Vec<f64>,
     r: Vec<f64>,
-    v: Vec<f64>,
-    m: Vec<f64>,
+    table: Table,
+    vprev: Vec<f64>,
     d: Vec<f64>,
     d_next: Vec<f64>,
     g: Vec<f64>,
@@ -800,8 +845,8 @@ impl<'a> MaxEnt<'a> {
             starts,
             empirical,
             r: vec![0.0; n],
-            v: vec![0.0; n * (t_max + 1)],
-            m: vec![0.0; t_max + 1],
+            table: Table::new(n, t_max),
+            vprev: vec![0.0; n],
             d: vec![0.0; n],
             d_next: vec![0.0; n],
             g: vec![0.0; n],
@@ -840,21 +885,19 @@ impl<'a> MaxEnt<'a> {
     pub fn evaluate(&mut self, w: &[f64], l2: f64) -> Evaluation {
         let n = self.grid.states();
         self.features.rewards_into(w, &mut self.r);
-        let mut e = std::mem::take(&mut self.g);
         backward(
             self.grid,
             &self.r,
             self.t_max,
-            &mut self.v,
-            &mut self.m,
-            &mut e,
+            &mut self.table,
+            &mut self.vprev,
+            &mut self.g,
         );
-        self.g = e;
         // Log-likelihood.
         let mut ll = 0.0;
         for d in &self.demos {
             let t = d.len() - 1;
-            ll += d.iter().map(|&s| self.r[s]).sum::<f64>() - self.v[t * n + d[0]];
+            ll += d.iter().map(|&s| self.r[s]).sum::<f64>() - self.table.value(n, &self.r, t, d[0]);
         }
         self.forward();
         let k = self.features.len();
@@ -883,6 +926,7 @@ impl<'a> MaxEnt<'a> {
     fn forward(&mut self) {
         let n = self.grid.states();
         let grid = self.grid;
+        let table = &self.table;
         self.d.fill(0.0);
         self.visits.fill(0.0);
         for k in (0..=self.t_max).rev() {
@@ -895,24 +939,18 @@ impl<'a> MaxEnt<'a> {
             if k == 0 {
                 break;
             }
-            let vk = &self.v[k * n..(k + 1) * n];
-            let vprev = &self.v[(k - 1) * n..k * n];
-            let mk = self.m[k];
+            let qk = &table.q[k * n..(k + 1) * n];
             self.fallback.clear();
-            // g(s) = D(s)·exp(mₖ − Qₖ(s)), so D′(s′) = exp(Vₖ₋₁(s′) − mₖ)·Σ_{s ∈ N(s′)} g(s)
-            // by the symmetry of the neighbour relation.
-            for s in 0..n {
-                let ds = self.d[s];
-                self.g[s] = if ds == 0.0 {
+            // g(s) = D(s)·exp(−Q̃ₖ(s)), so D′(s′) = exp(Ṽₖ₋₁(s′))·Σ_{s ∈ N(s′)} g(s) by the
+            // symmetry of the neighbour relation.
+            for (s, (gs, &ds)) in self.g.iter_mut().zip(&self.d).enumerate() {
+                *gs = if ds == 0.0 {
                     0.0
+                } else if qk[s] >= LOG_FLOOR {
+                    ds * (-qk[s]).exp()
                 } else {
-                    let q = vk[s] - self.r[s];
-                    if q - mk >= LOG_FLOOR {
-                        ds * (mk - q).exp()
-                    } else {
-                        self.fallback.push(s as u32);
-                        0.0
-                    }
+                    self.fallback.push(s as u32);
+                    0.0
                 };
             }
             for s in 0..n {
@@ -924,14 +962,14 @@ impl<'a> MaxEnt<'a> {
                 self.d_next[s] = if acc == 0.0 {
                     0.0
                 } else {
-                    acc * (vprev[s] - mk).exp()
+                    acc * table.shifted_value(n, &self.r, k - 1, s).exp()
                 };
             }
             for &s in &self.fallback {
                 let s = s as usize;
-                let q = vk[s] - self.r[s];
                 for &t in grid.neighbours(s) {
-                    self.d_next[t as usize] += self.d[s] * (vprev[t as usize] - q).exp();
+                    let v = table.shifted_value(n, &self.r, k - 1, t as usize);
+                    self.d_next[t as usize] += self.d[s] * (v - qk[s]).exp();
                 }
             }
             std::mem::swap(&mut self.d, &mut self.d_next);
