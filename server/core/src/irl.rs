@@ -128,6 +128,8 @@ pub struct Grid {
     cell_of_state: Vec<u32>,
     nbr_start: Vec<u32>,
     nbr: Vec<u32>,
+    /// Index of each state in the padded (rows + 2) × (cols + 2) layout of [`BoxSum`].
+    pad: Vec<u32>,
 }
 
 fn in_frame(width: u32, height: u32, p: [f64; 2]) -> bool {
@@ -187,6 +189,7 @@ impl Grid {
             cell_of_state: Vec::with_capacity(cells),
             nbr_start: Vec::new(),
             nbr: Vec::new(),
+            pad: Vec::new(),
         };
         for r in 0..rows {
             for c in 0..cols {
@@ -215,6 +218,8 @@ impl Grid {
                 }
             }
             grid.nbr_start.push(grid.nbr.len() as u32);
+            grid.pad
+                .push(((r + 1) as usize * (cols + 2) + (c + 1) as usize) as u32);
         }
         Ok(grid)
     }
@@ -582,6 +587,42 @@ pub fn path_states(
     Ok(out)
 }
 
+/// Sums over the moves from each state, Σ_{s′ ∈ N(s)} x(s′), as a 3 × 3 box sum over a layout
+/// of the grid padded by one zero cell all round, in which removed cells stay zero: one
+/// horizontal and one vertical pass of three-term sums, contiguous and branch-free.
+#[derive(Debug, Clone)]
+struct BoxSum {
+    p: Vec<f64>,
+    h: Vec<f64>,
+}
+
+impl BoxSum {
+    fn new(grid: &Grid) -> Self {
+        let len = (grid.rows + 2) * (grid.cols + 2);
+        Self {
+            p: vec![0.0; len],
+            h: vec![0.0; len],
+        }
+    }
+
+    /// out[s] = Σ over the moves from s of x.
+    fn sum(&mut self, grid: &Grid, x: &[f64], out: &mut [f64]) {
+        for (&i, &v) in grid.pad.iter().zip(x) {
+            self.p[i as usize] = v;
+        }
+        let len = self.p.len();
+        let (a, b, c) = (&self.p[..len - 2], &self.p[1..len - 1], &self.p[2..]);
+        for (((h, a), b), c) in self.h[1..len - 1].iter_mut().zip(a).zip(b).zip(c) {
+            *h = a + b + c;
+        }
+        let w = grid.cols + 2;
+        for (&i, o) in grid.pad.iter().zip(out.iter_mut()) {
+            let i = i as usize;
+            *o = self.h[i - w] + self.h[i] + self.h[i + w];
+        }
+    }
+}
+
 /// The soft value table of a reward for horizons 0 … `horizon` (the backward pass).
 ///
 /// V₀(s) = r(s) and Vₖ(s) = r(s) + Qₖ(s), Qₖ(s) = log Σ_{s′ ∈ N(s)} exp Vₖ₋₁(s′): Vₖ(s) is the
@@ -641,8 +682,8 @@ pub fn soft_values(
     check_table(n, horizon)?;
     let r = features.rewards(w);
     let mut table = Table::new(n, horizon);
-    let (mut vprev, mut e) = (vec![0.0; n], vec![0.0; n]);
-    backward(grid, &r, horizon, &mut table, &mut vprev, &mut e);
+    let mut scratch = Scratch::new(grid);
+    backward(grid, &r, horizon, &mut table, &mut scratch);
     Ok(SoftValues {
         states: n,
         horizon,
@@ -699,14 +740,7 @@ impl SoftValues {
 /// not one per move. When a state's sum is under e^LOG_FLOOR (all its neighbours far below
 /// the best state), its Q̃ is recomputed with its own maximum, so no term underflows to a
 /// wrong result at any weight or horizon.
-fn backward(
-    grid: &Grid,
-    r: &[f64],
-    t_max: usize,
-    table: &mut Table,
-    vprev: &mut [f64],
-    e: &mut [f64],
-) {
+fn backward(grid: &Grid, r: &[f64], t_max: usize, table: &mut Table, sc: &mut Scratch) {
     let n = r.len();
     table.q[..n].fill(0.0);
     table.offset[0] = 0.0;
@@ -714,21 +748,22 @@ fn backward(
     let floor = LOG_FLOOR.exp();
     for k in 1..=t_max {
         for s in 0..n {
-            vprev[s] = table.shifted_value(n, r, k - 1, s);
-            e[s] = vprev[s].exp();
+            sc.vprev[s] = table.shifted_value(n, r, k - 1, s);
         }
+        for (e, v) in sc.e.iter_mut().zip(&sc.vprev) {
+            *e = v.exp();
+        }
+        sc.boxes.sum(grid, &sc.e, &mut sc.z);
         table.offset[k] = table.offset[k - 1] + table.top[k - 1];
         let cur = &mut table.q[k * n..(k + 1) * n];
         let mut top = f64::NEG_INFINITY;
         for s in 0..n {
-            let nb = &grid.nbr[grid.nbr_start[s] as usize..grid.nbr_start[s + 1] as usize];
-            let mut sum = 0.0;
-            for &t in nb {
-                sum += e[t as usize];
-            }
-            let q = if sum >= floor {
-                sum.ln()
+            let z = sc.z[s];
+            let q = if z >= floor {
+                z.ln()
             } else {
+                let nb = grid.neighbours(s);
+                let vprev = &sc.vprev;
                 let lm = nb
                     .iter()
                     .map(|&t| vprev[t as usize])
@@ -743,6 +778,31 @@ fn backward(
             top = top.max(r[s] + q);
         }
         table.top[k] = top;
+    }
+}
+
+/// Buffers of one state each, reused by every step of both passes.
+#[derive(Debug, Clone)]
+struct Scratch {
+    vprev: Vec<f64>,
+    e: Vec<f64>,
+    z: Vec<f64>,
+    g: Vec<f64>,
+    acc: Vec<f64>,
+    boxes: BoxSum,
+}
+
+impl Scratch {
+    fn new(grid: &Grid) -> Self {
+        let n = grid.states();
+        Self {
+            vprev: vec![0.0; n],
+            e: vec![0.0; n],
+            z: vec![0.0; n],
+            g: vec![0.0; n],
+            acc: vec![0.0; n],
+            boxes: BoxSum::new(grid),
+        }
     }
 }
 
@@ -773,10 +833,9 @@ pub struct MaxEnt<'a> {
     empirical: Vec<f64>,
     r: Vec<f64>,
     table: Table,
-    vprev: Vec<f64>,
+    scratch: Scratch,
     d: Vec<f64>,
     d_next: Vec<f64>,
-    g: Vec<f64>,
     visits: Vec<f64>,
     fallback: Vec<u32>,
 }
@@ -846,10 +905,9 @@ impl<'a> MaxEnt<'a> {
             empirical,
             r: vec![0.0; n],
             table: Table::new(n, t_max),
-            vprev: vec![0.0; n],
+            scratch: Scratch::new(grid),
             d: vec![0.0; n],
             d_next: vec![0.0; n],
-            g: vec![0.0; n],
             visits: vec![0.0; n],
             fallback: Vec::new(),
         })
@@ -890,8 +948,7 @@ impl<'a> MaxEnt<'a> {
             &self.r,
             self.t_max,
             &mut self.table,
-            &mut self.vprev,
-            &mut self.g,
+            &mut self.scratch,
         );
         // Log-likelihood.
         let mut ll = 0.0;
@@ -923,10 +980,18 @@ impl<'a> MaxEnt<'a> {
     }
 
     /// The forward pass over the value table of the last backward pass.
+    ///
+    /// With E(s′) = exp Ṽₖ₋₁(s′) and Z(s) = Σ_{s′ ∈ N(s)} E(s′) (so Q̃ₖ = log Z, recomputed here
+    /// bit for bit as the backward pass made it), πₖ(s′ | s) = E(s′)/Z(s), and by the symmetry
+    /// of the moves D′(s′) = E(s′)·Σ_{s ∈ N(s′)} D(s)/Z(s): two box sums and one exp per state.
+    /// States whose Z is under the floor (their Q̃ was computed with its own shift) push their
+    /// mass move by move instead.
     fn forward(&mut self) {
         let n = self.grid.states();
         let grid = self.grid;
         let table = &self.table;
+        let sc = &mut self.scratch;
+        let floor = LOG_FLOOR.exp();
         self.d.fill(0.0);
         self.visits.fill(0.0);
         for k in (0..=self.t_max).rev() {
@@ -939,36 +1004,33 @@ impl<'a> MaxEnt<'a> {
             if k == 0 {
                 break;
             }
-            let qk = &table.q[k * n..(k + 1) * n];
+            for s in 0..n {
+                sc.vprev[s] = table.shifted_value(n, &self.r, k - 1, s);
+            }
+            for (e, v) in sc.e.iter_mut().zip(&sc.vprev) {
+                *e = v.exp();
+            }
+            sc.boxes.sum(grid, &sc.e, &mut sc.z);
             self.fallback.clear();
-            // g(s) = D(s)·exp(−Q̃ₖ(s)), so D′(s′) = exp(Ṽₖ₋₁(s′))·Σ_{s ∈ N(s′)} g(s) by the
-            // symmetry of the neighbour relation.
-            for (s, (gs, &ds)) in self.g.iter_mut().zip(&self.d).enumerate() {
-                *gs = if ds == 0.0 {
+            for (s, ((g, &ds), &z)) in sc.g.iter_mut().zip(&self.d).zip(&sc.z).enumerate() {
+                *g = if ds == 0.0 {
                     0.0
-                } else if qk[s] >= LOG_FLOOR {
-                    ds * (-qk[s]).exp()
+                } else if z >= floor {
+                    ds / z
                 } else {
                     self.fallback.push(s as u32);
                     0.0
                 };
             }
-            for s in 0..n {
-                let nb = &grid.nbr[grid.nbr_start[s] as usize..grid.nbr_start[s + 1] as usize];
-                let mut acc = 0.0;
-                for &t in nb {
-                    acc += self.g[t as usize];
-                }
-                self.d_next[s] = if acc == 0.0 {
-                    0.0
-                } else {
-                    acc * table.shifted_value(n, &self.r, k - 1, s).exp()
-                };
+            sc.boxes.sum(grid, &sc.g, &mut sc.acc);
+            for ((dn, a), e) in self.d_next.iter_mut().zip(&sc.acc).zip(&sc.e) {
+                *dn = a * e;
             }
+            let qk = &table.q[k * n..(k + 1) * n];
             for &s in &self.fallback {
                 let s = s as usize;
                 for &t in grid.neighbours(s) {
-                    let v = table.shifted_value(n, &self.r, k - 1, t as usize);
+                    let v = sc.vprev[t as usize];
                     self.d_next[t as usize] += self.d[s] * (v - qk[s]).exp();
                 }
             }
