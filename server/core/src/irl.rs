@@ -750,8 +750,8 @@ fn backward(grid: &Grid, r: &[f64], t_max: usize, table: &mut Table, sc: &mut Sc
         for s in 0..n {
             sc.vprev[s] = table.shifted_value(n, r, k - 1, s);
         }
-        for (e, v) in sc.e.iter_mut().zip(&sc.vprev) {
-            *e = v.exp();
+        for (e, &v) in sc.e.iter_mut().zip(&sc.vprev) {
+            *e = exp_nonpositive(v);
         }
         sc.boxes.sum(grid, &sc.e, &mut sc.z);
         table.offset[k] = table.offset[k - 1] + table.top[k - 1];
@@ -779,6 +779,43 @@ fn backward(grid: &Grid, r: &[f64], t_max: usize, table: &mut Table, sc: &mut Sc
         }
         table.top[k] = top;
     }
+}
+
+/// exp(x) for x ≤ 0, written so that a loop over a slice vectorises: x = k·ln 2 + r with
+/// |r| ≤ ln 2 / 2 (Cody–Waite split of ln 2), exp(r) by its Taylor polynomial of degree 13
+/// (truncation under 1e-17 relative), times 2ᵏ built from the exponent bits. Within 2 ulp of
+/// the exact value (tested against `f64::exp`); 0 below −708, where exp is under 3.3e-308.
+#[inline(always)]
+fn exp_nonpositive(x: f64) -> f64 {
+    const LOG2E: f64 = std::f64::consts::LOG2_E;
+    const LN2_HI: f64 = f64::from_bits(0x3FE6_2E42_FEE0_0000); // ln 2 to 32 bits
+    const LN2_LO: f64 = f64::from_bits(0x3DEA_39EF_3579_3C76); // ln 2 − LN2_HI
+    const MAGIC: f64 = 6_755_399_441_055_744.0; // 1.5·2⁵²: adding it rounds to an integer
+    let xc = x.max(-708.0);
+    let t = xc * LOG2E + MAGIC;
+    let kf = t - MAGIC;
+    let k = (t.to_bits() as i64).wrapping_sub(MAGIC.to_bits() as i64);
+    let r = (xc - kf * LN2_HI) - kf * LN2_LO;
+    let mut p = 1.0 / 6_227_020_800.0;
+    for c in [
+        1.0 / 479_001_600.0,
+        1.0 / 39_916_800.0,
+        1.0 / 3_628_800.0,
+        1.0 / 362_880.0,
+        1.0 / 40_320.0,
+        1.0 / 5_040.0,
+        1.0 / 720.0,
+        1.0 / 120.0,
+        1.0 / 24.0,
+        1.0 / 6.0,
+        0.5,
+        1.0,
+        1.0,
+    ] {
+        p = p * r + c;
+    }
+    let scale = f64::from_bits(((k + 1023) as u64) << 52);
+    if x < -708.0 { 0.0 } else { p * scale }
 }
 
 /// Buffers of one state each, reused by every step of both passes.
@@ -1007,8 +1044,8 @@ impl<'a> MaxEnt<'a> {
             for s in 0..n {
                 sc.vprev[s] = table.shifted_value(n, &self.r, k - 1, s);
             }
-            for (e, v) in sc.e.iter_mut().zip(&sc.vprev) {
-                *e = v.exp();
+            for (e, &v) in sc.e.iter_mut().zip(&sc.vprev) {
+                *e = exp_nonpositive(v);
             }
             sc.boxes.sum(grid, &sc.e, &mut sc.z);
             self.fallback.clear();
@@ -1331,4 +1368,26 @@ pub fn fit_reward(
         reward_map: reward_map(&grid, &features, &f.weights),
         fit: f,
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The vectorisable exp agrees with the standard library's to 2 ulp on [−708, 0], and is 0
+    /// (or the subnormal the library gives) below.
+    #[test]
+    fn exp_nonpositive_is_accurate() {
+        let mut worst = 0.0f64;
+        let n = 200_000;
+        for i in 0..=n {
+            let x = -708.0 * (i as f64 / n as f64).powi(3);
+            let (a, b) = (exp_nonpositive(x), x.exp());
+            worst = worst.max((a - b).abs() / b);
+        }
+        assert!(worst <= 2.0 * f64::EPSILON, "{worst:e}");
+        assert_eq!(exp_nonpositive(0.0), 1.0);
+        assert_eq!(exp_nonpositive(-800.0), 0.0);
+        assert_eq!(exp_nonpositive(f64::NEG_INFINITY), 0.0);
+    }
 }
