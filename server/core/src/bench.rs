@@ -27,6 +27,13 @@
 //! runs per point) on pyramids built before, each per frame. `tests/reference/bench_track_compare.py` times OpenCV on the
 //! same frames in turns with it.
 //!
+//! `irl` times a reward fit (maximum-entropy inverse RL, [`crate::irl`]) on one thread: an
+//! 80×60 grid (640×480 frame, 8 px cells), 6 features, 10 demos of 100 moves each (see
+//! [`irl_bench_problem`]); one evaluation of the objective with its gradient (a backward and a
+//! forward pass) and a full fit from w = 0 with the default settings.
+//! `tests/reference/bench_irl_compare.py` times the numpy implementation of
+//! `tests/reference/gen_irl.py` on the same problem.
+//!
 //! `edt` times [`crate::distance::edt`] on a 1280×720 mask, one thread. The mask recipe is
 //! shared with `tests/reference/bench_edt_compare.py`: pixel k (row-major) is painted when
 //! u_k < 1 %, u_k = (z_k >> 11)·2⁻⁵³, z_k the k-th output of SplitMix64 seeded with 20261201
@@ -115,13 +122,14 @@ fn json_string(s: &str) -> String {
 }
 
 /// The benchmarks [`run`] knows.
-pub const NAMES: [&str; 3] = ["cost", "edt", "track"];
+pub const NAMES: [&str; 4] = ["cost", "edt", "irl", "track"];
 
-/// Runs the named benchmark (`cost`, `edt` or `track`) and returns its rows.
+/// Runs the named benchmark (`cost`, `edt`, `irl` or `track`) and returns its rows.
 pub fn run(name: &str) -> Result<Vec<BenchRow>, String> {
     match name {
         "cost" => cost_bench(),
         "edt" => edt_bench(),
+        "irl" => irl_bench(),
         "track" => track_bench(),
         other => Err(format!(
             "unknown benchmark {other:?}; known: {}",
@@ -527,6 +535,134 @@ fn track_bench() -> Result<Vec<BenchRow>, String> {
     Ok(rows)
 }
 
+/// A frame with its cells, features, and demos as (column, row) cells.
+pub type IrlBenchProblem = (
+    crate::irl::GridSpec,
+    Vec<crate::irl::Feature>,
+    Vec<Vec<(usize, usize)>>,
+);
+
+/// The reward-fit benchmark's problem: a 640×480 frame in 8 px cells (80×60), six features
+/// (distance to a goal at cell (60, 15)'s centre, a region, two bumps, distance to a second
+/// point, the no-go cells of one zone), and 10 demos of 101 cells each. Demo i starts at cell
+/// (2 + 5i, 58 − 2i), heads for the waypoint (40, 10 + 3i) and then for the goal (60, 15), each
+/// move changing column and row by the sign of what is left, and stays at the goal.
+pub fn irl_bench_problem() -> IrlBenchProblem {
+    use crate::irl::{Feature, GridSpec};
+    let rect = |x0: f64, y0: f64, x1: f64, y1: f64| {
+        Polygon::new(
+            [[x0, y0], [x1, y0], [x1, y1], [x0, y1]]
+                .iter()
+                .map(|p| PixelPoint::new(p[0], p[1]).expect("finite"))
+                .collect(),
+        )
+        .expect("a rectangle")
+    };
+    let spec = GridSpec {
+        width: 640,
+        height: 480,
+        cell_px: 8,
+        no_go: vec![rect(520.0, 320.0, 600.0, 420.0)],
+        remove_no_go: false,
+    };
+    let features = vec![
+        Feature::DistanceTo {
+            point: [483.5, 123.5],
+        },
+        Feature::Inside {
+            polygon: rect(200.0, 160.0, 320.0, 300.0),
+        },
+        Feature::Rbf {
+            centre: [120.0, 360.0],
+            sigma_px: 40.0,
+        },
+        Feature::Rbf {
+            centre: [400.0, 300.0],
+            sigma_px: 60.0,
+        },
+        Feature::DistanceTo {
+            point: [100.0, 80.0],
+        },
+        Feature::NoGo,
+    ];
+    let demos = (0..10i64)
+        .map(|i| {
+            let mut at = (2 + 5 * i, 58 - 2 * i);
+            let (waypoint, goal) = ((40, 10 + 3 * i), (60i64, 15i64));
+            let mut reached = false;
+            let mut path = vec![(at.0 as usize, at.1 as usize)];
+            while path.len() < 101 {
+                reached |= at == waypoint;
+                let to = if reached { goal } else { waypoint };
+                at = (at.0 + (to.0 - at.0).signum(), at.1 + (to.1 - at.1).signum());
+                path.push((at.0 as usize, at.1 as usize));
+            }
+            path
+        })
+        .collect();
+    (spec, features, demos)
+}
+
+fn irl_bench() -> Result<Vec<BenchRow>, String> {
+    use crate::irl::{Control, Features, FitSettings, Grid, MaxEnt, fit};
+    let (spec, feats, cells) = irl_bench_problem();
+    let grid = Grid::new(&spec).map_err(|e| e.to_string())?;
+    let features = Features::new(&grid, &feats).map_err(|e| e.to_string())?;
+    let demos = cells
+        .iter()
+        .map(|d| {
+            d.iter()
+                .map(|&(c, r)| grid.state(c, r).ok_or("a demo leaves the grid"))
+                .collect::<Result<Vec<_>, _>>()
+        })
+        .collect::<Result<Vec<_>, _>>()?;
+    let mut problem = MaxEnt::new(&grid, &features, demos).map_err(|e| e.to_string())?;
+    let settings = FitSettings::default();
+    let w: Vec<f64> = (0..features.len()).map(|j| 0.5 - 0.3 * j as f64).collect();
+    let horizon = problem.max_horizon();
+    let common = |stage: &str| {
+        vec![
+            text("stage", stage),
+            num("cols", grid.cols() as f64),
+            num("rows", grid.rows() as f64),
+            num("demos", cells.len() as f64),
+            num("horizon", horizon as f64),
+            num("features", features.len() as f64),
+        ]
+    };
+    let mut rows = Vec::new();
+    let eval_params = common("evaluate");
+    let ms = pool(1)?.install(|| {
+        median_ms(10, Duration::from_secs(3), || {
+            black_box(problem.evaluate(black_box(&w), settings.l2));
+        })
+    });
+    let mut params = eval_params;
+    params.push(num("threads", 1.0));
+    rows.push(BenchRow {
+        bench: "irl".into(),
+        median_ms: round4(ms),
+        params,
+    });
+    let mut fit_params = common("fit");
+    let mut iterations = 0;
+    let ms = pool(1)?.install(|| {
+        median_ms(3, Duration::from_secs(5), || {
+            let f = fit(&mut problem, &settings, &mut |_| Control::Continue);
+            iterations = f.iterations;
+            black_box(f);
+        })
+    });
+    fit_params.push(num("iterations", iterations as f64));
+    fit_params.push(num("threads", 1.0));
+    rows.push(BenchRow {
+        bench: "irl".into(),
+        median_ms: round4(ms),
+        params: fit_params,
+    });
+    Ok(rows)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -548,6 +684,21 @@ mod tests {
         // 100 frames shift by exactly (37, 21) px.
         for (x, y) in [(100usize, 80usize), (300, 200), (500, 400)] {
             assert_eq!(f100[y * 640 + x], f0[(y - 21) * 640 + (x - 37)]);
+        }
+    }
+
+    /// The reward-fit benchmark's demos are chains of moves of 100 moves that end at the goal.
+    #[test]
+    fn irl_bench_demos() {
+        let (_, _, demos) = irl_bench_problem();
+        assert_eq!(demos.len(), 10);
+        for d in &demos {
+            assert_eq!(d.len(), 101);
+            assert_eq!(*d.last().unwrap(), (60, 15));
+            assert!(
+                d.windows(2)
+                    .all(|p| { p[0].0.abs_diff(p[1].0) <= 1 && p[0].1.abs_diff(p[1].1) <= 1 })
+            );
         }
     }
 

@@ -2,7 +2,8 @@
 //!
 //! Geometry in pixel coordinates (x right, y down, the centre of the top-left pixel at (0, 0)),
 //! camera models, exact distance transforms, rigid fits, the cost of candidate futures against a
-//! goal, point tracking through a demonstration (pyramidal Lucas–Kanade), and the NPY array
+//! goal, point tracking through a demonstration (pyramidal Lucas–Kanade), reward inference from
+//! demonstrations (maximum-entropy inverse RL on a grid), and the NPY array
 //! format. Nothing here knows about HTTP, databases or async runtimes;
 //! the crate boundary keeps it that way.
 #![deny(missing_docs)]
@@ -14,6 +15,7 @@ pub mod cost;
 pub mod distance;
 pub mod geometry;
 pub mod goal;
+pub mod irl;
 pub mod names;
 pub mod npy;
 pub mod rigid;
