@@ -130,6 +130,9 @@ enum BenchName {
     Edt,
     /// Point tracking: pyramids, and a frame step of 16 and 100 points (640×480, one thread)
     Track,
+    /// Reward fitting: one backward-plus-forward pass and a full fit (80×60 grid, 10 demos of
+    /// 100 moves, one thread)
+    Irl,
 }
 
 fn run_cost(
@@ -276,6 +279,7 @@ pub fn main() -> ExitCode {
                 BenchName::Cost => "cost",
                 BenchName::Edt => "edt",
                 BenchName::Track => "track",
+                BenchName::Irl => "irl",
             };
             goalsmith_core::bench::run(name)
                 .map(|rows| {
