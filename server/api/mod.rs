@@ -15,6 +15,7 @@ pub mod goals;
 pub mod openapi;
 pub mod operations;
 pub mod preview;
+pub mod reward_fits;
 pub mod routes;
 pub mod tracks;
 

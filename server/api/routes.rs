@@ -7,7 +7,8 @@
 use super::openapi::{Content, Header, Operation, Reply, SchemaFn};
 use super::preview;
 use super::{
-    AppState, cameras, demos, export, frames, goal_sets, goals, openapi, operations, tracks,
+    AppState, cameras, demos, export, frames, goal_sets, goals, openapi, operations, reward_fits,
+    tracks,
 };
 use crate::service;
 use axum::handler::Handler;
@@ -264,6 +265,13 @@ pub fn table() -> Vec<Route> {
         Route::post("/api/demos/{id}/goal", "Make a goal from a demo: its start frame becomes a frame of the camera, each chosen track a point term from its position there to its position at the end frame (or one rigid term over them); checked like any goal, the revision records from_demo", demos::make_goal)
             .json_body::<service::tracks::DemoGoal>()
             .ok::<service::goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),
+        Route::post("/api/reward-fits", "Start a reward fit: maximum-entropy inverse RL over the frame's cells (cell_px) with linear features, from tracks of demos of the frame's camera or paths drawn by hand; everything is checked before the operation is queued", reward_fits::start)
+            .json_body::<service::reward_fits::NewRewardFit>()
+            .ok::<service::reward_fits::Started>(202, "the fit, with the operation that runs it", &[]),
+        Route::get("/api/reward-fits/{id}", "A reward fit: its settings, and once it has run its weights, diagnostics (log-likelihood per move, held-out and uniform-walk figures) and the reward's argmax", reward_fits::get_one)
+            .ok::<service::reward_fits::RewardFitView>(200, "the fit", &[]),
+        Route::get("/api/reward-fits/{id}/reward-map.npy", "The fitted reward per cell, float32 NPY of shape (rows, cols); 409 until the fit has run", reward_fits::reward_map_npy)
+            .ok_binary(&["application/x-npy"], "the reward map", &[]),
         Route::get("/api/operations/{id}", "A long-running operation: kind, progress 0..1, done, error or result", operations::get_one)
             .ok::<service::operations::OperationView>(200, "the operation", &[]),
         Route::get("/api/operations/{id}/events", "The operation as server-sent events (event `operation`, data as GET), each time it changes, until it is done", operations::events)

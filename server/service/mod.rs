@@ -20,6 +20,7 @@ pub mod goals;
 pub mod heavy;
 pub mod operations;
 pub mod outcomes;
+pub mod reward_fits;
 pub mod team;
 pub mod tracks;
 

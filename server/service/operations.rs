@@ -36,11 +36,12 @@ pub struct OperationView {
     pub error: Option<String>,
     /// Operation id.
     pub id: String,
-    /// What kind of work: `track`.
+    /// What kind of work: `track` or `reward_fit`.
     pub kind: String,
     /// 0..1.
     pub progress: f64,
-    /// What it made, once succeeded (for `track`: `{track_id, frames, lost_from}`).
+    /// What it made, once succeeded (for `track`: `{track_id, frames, lost_from}`; for
+    /// `reward_fit`: `{reward_fit_id, iterations, converged}`).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub result: Option<Value>,
     /// `queued`, `running`, `succeeded`, `failed` or `cancelled`.
@@ -221,6 +222,9 @@ async fn run_kind(
         .map_err(|e| RunError::Failed(format!("unreadable input: {e}")))?;
     match op.kind.as_str() {
         super::tracks::KIND => super::tracks::run(state, &op.team_id, &input, progress).await,
+        super::reward_fits::KIND => {
+            super::reward_fits::run(state, &op.team_id, &input, progress).await
+        }
         other => Err(RunError::Failed(format!(
             "unknown operation kind {other:?}"
         ))),

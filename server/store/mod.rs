@@ -11,6 +11,7 @@ pub mod goal_sets;
 pub mod goals;
 pub mod operations;
 pub mod outcomes;
+pub mod reward_fits;
 pub mod teams;
 pub mod tracks;
 

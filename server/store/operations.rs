@@ -99,19 +99,33 @@ fn from_row(r: &AnyRow) -> Result<OperationRow> {
 /// Queues an operation; returns its id.
 pub async fn create(store: &Store, team_id: &str, kind: &str, input: &str) -> Result<String> {
     let id = uuid::Uuid::new_v4().to_string();
+    let mut conn = store.pool().acquire().await?;
+    insert_queued(&mut conn, &id, team_id, kind, input).await?;
+    Ok(id)
+}
+
+/// Writes a queued operation on `conn`, which may be inside another record's transaction, so
+/// the operation and what it works on are stored together or not at all.
+pub(super) async fn insert_queued(
+    conn: &mut sqlx::AnyConnection,
+    id: &str,
+    team_id: &str,
+    kind: &str,
+    input: &str,
+) -> Result<()> {
     sqlx::query(
         "INSERT INTO operations (id, team_id, kind, state, input, progress, attempts, \
          cancel_requested, created_at) VALUES ($1, $2, $3, 'queued', $4, 0, 0, 0, $5)",
     )
-    .bind(&id)
+    .bind(id)
     .bind(team_id)
     .bind(kind)
     .bind(input)
     .bind(now_ms())
-    .execute(store.pool())
+    .execute(&mut *conn)
     .await
     .map_err(classify)?;
-    Ok(id)
+    Ok(())
 }
 
 /// A team's operation.

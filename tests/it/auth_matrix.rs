@@ -19,6 +19,7 @@ enum Body {
     Track,
     Sample,
     DemoGoal,
+    Fit,
 }
 
 /// A ZIP of two frames of the potting camera.
@@ -75,6 +76,23 @@ async fn matrix(s: Server) {
     assert_eq!(st, StatusCode::ACCEPTED, "{started}");
     let track = started["track_id"].as_str().unwrap().to_string();
     let op = started["operation_id"].as_str().unwrap().to_string();
+    operation_done(&s, &editor, &op).await;
+    let fit_body = json!({"frame_id": frame, "cell_px": 8, "features": [{"kind": "distance_to", "point": [40.0, 30.0]}],
+                          "demos": [{"path": [[5.0, 5.0], [20.0, 15.0], [40.0, 30.0]]}]});
+    let (st, fit) = s.post("/api/reward-fits", Some(&editor), &fit_body).await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{fit}");
+    let fit = fit["id"].as_str().unwrap().to_string();
+    let fit_op = s
+        .get(&format!("/api/reward-fits/{fit}"), Some(&editor))
+        .await
+        .1["operation_id"]
+        .as_str()
+        .unwrap()
+        .to_string();
+    assert_eq!(
+        operation_done(&s, &editor, &fit_op).await["state"],
+        "succeeded"
+    );
 
     // Columns: no token, other team, viewer, editor, owner.
     use StatusCode as S;
@@ -271,6 +289,24 @@ async fn matrix(s: Server) {
             [unauth, nf, ok, ok, ok],
         ),
         (
+            Method::POST,
+            "/api/reward-fits".into(),
+            Body::Fit,
+            [unauth, nf, forbidden, accepted, accepted],
+        ),
+        (
+            Method::GET,
+            format!("/api/reward-fits/{fit}"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            format!("/api/reward-fits/{fit}/reward-map.npy"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
             Method::GET,
             format!("/api/demos/{demo}"),
             Body::None,
@@ -355,6 +391,7 @@ async fn matrix(s: Server) {
                     .replace(&set, "{id}")
                     .replace(&demo, "{id}")
                     .replace(&op, "{id}")
+                    .replace(&fit, "{id}")
                     .replace(&track, "{track_id}")
                     .replacen("/revisions/1", "/revisions/{n}", 1)
                     .replacen("/frames/1/", "/frames/{i}/", 1)
@@ -412,6 +449,7 @@ async fn matrix(s: Server) {
                 }
                 Body::Track => req.json(&json!({"label": "rim", "frame": 1, "x": 12.0, "y": 12.0})),
                 Body::Sample => req.json(&json!({"x": 11.0, "y": 11.0})),
+                Body::Fit => req.json(&fit_body),
                 Body::DemoGoal => req.json(
                     &json!({"name": "rim", "tracks": [track], "start_frame": 0, "end_frame": 0}),
                 ),

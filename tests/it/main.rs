@@ -21,5 +21,6 @@ mod probe;
 mod resources;
 mod restart;
 mod review;
+mod reward_fits;
 mod routes;
 mod tracks;

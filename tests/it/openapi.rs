@@ -369,6 +369,47 @@ async fn scenario(s: &Server) -> Vec<Sample> {
         &[],
     )
     .await;
+
+    // A reward fit from a path drawn by hand, read while it runs and once it has, and its map.
+    let (st, fit, _) = c
+        .call(
+            M::POST,
+            "/api/reward-fits",
+            "/api/reward-fits",
+            e,
+            Req::Json(json!({"frame_id": frame, "cell_px": 8,
+                "features": [{"kind": "distance_to", "point": [40.0, 30.0]}, {"kind": "no_go"}],
+                "demos": [{"path": [[5.0, 5.0], [20.0, 15.0], [40.0, 30.0]]}], "l2": 0.01})),
+            &[],
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{fit}");
+    let fit = str_of(&fit, "id");
+    loop {
+        let (_, v, _) = c
+            .call(
+                M::GET,
+                "/api/reward-fits/{id}",
+                &format!("/api/reward-fits/{fit}"),
+                v,
+                Req::None,
+                &[],
+            )
+            .await;
+        if v.get("weights").is_some() {
+            break;
+        }
+        tokio::time::sleep(std::time::Duration::from_millis(100)).await;
+    }
+    c.call(
+        M::GET,
+        "/api/reward-fits/{id}/reward-map.npy",
+        &format!("/api/reward-fits/{fit}/reward-map.npy"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
     c.call(
         M::PUT,
         "/api/demos/{id}/tracks/{track_id}/samples/{frame}",

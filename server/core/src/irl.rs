@@ -1326,6 +1326,24 @@ pub struct RewardFit {
     pub reward_map: RewardMap,
 }
 
+/// Every check [`fit_reward`] makes before it starts fitting (grid, features, paths, the demos'
+/// moves and the size of the value table), without fitting: what a server asks before it
+/// queues the work.
+pub fn check_input(input: &RewardFitInput) -> Result<(), IrlError> {
+    let grid = Grid::new(&input.grid)?;
+    let features = Features::new(&grid, &input.features)?;
+    if input.demos.is_empty() {
+        return Err(IrlError::NoDemos);
+    }
+    let demos = input
+        .demos
+        .iter()
+        .enumerate()
+        .map(|(i, d)| path_states(&grid, d, input.collapse_repeats, &format!("demos[{i}]")))
+        .collect::<Result<Vec<_>, _>>()?;
+    MaxEnt::new(&grid, &features, demos).map(|_| ())
+}
+
 /// Builds the grid, features and paths, fits on all demos, runs leave-one-out when there are at
 /// least 3 demos (and the fit was not cancelled), and makes the reward map.
 pub fn fit_reward(

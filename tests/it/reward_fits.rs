@@ -1,0 +1,292 @@
+//! Reward fits over HTTP: paths drawn by hand and a demo's track become a fit, run as an
+//! operation; its weights, diagnostics and reward map are served; bad input is refused before
+//! anything is queued; a queued fit can be cancelled. On SQLite and PostgreSQL.
+//!
+//! The computation itself is checked in goalsmith-core (server/core/tests/irl.rs: brute-force
+//! enumeration, finite differences, a numpy implementation); here the paths head for a known
+//! cell, so the reward's argmax must land there.
+
+use crate::on_both_databases;
+use crate::support::*;
+use reqwest::StatusCode;
+use serde_json::{Value, json};
+
+const W: u32 = 160;
+const H: u32 = 120;
+const GOAL: [f64; 2] = [125.0, 95.0];
+
+/// Hand-drawn paths from six starts straight to GOAL, a point every 4 px.
+fn paths() -> Vec<Value> {
+    [
+        [10.0, 10.0],
+        [150.0, 5.0],
+        [5.0, 110.0],
+        [80.0, 20.0],
+        [20.0, 60.0],
+        [140.0, 40.0],
+    ]
+    .iter()
+    .map(|s: &[f64; 2]| {
+        let d = ((GOAL[0] - s[0]).powi(2) + (GOAL[1] - s[1]).powi(2)).sqrt();
+        let n = (d / 4.0).ceil() as usize;
+        let pts: Vec<[f64; 2]> = (0..=n)
+            .map(|k| {
+                let t = k as f64 / n as f64;
+                [s[0] + t * (GOAL[0] - s[0]), s[1] + t * (GOAL[1] - s[1])]
+            })
+            .collect();
+        json!({ "path": pts })
+    })
+    .collect()
+}
+
+fn features() -> Value {
+    json!([
+        {"kind": "distance_to", "point": GOAL},
+        {"kind": "inside", "polygon": [[60.0, 60.0], [100.0, 60.0], [100.0, 100.0], [60.0, 100.0]]},
+        {"kind": "rbf", "center": [30.0, 90.0], "sigma_px": 15.0},
+        {"kind": "no_go"}
+    ])
+}
+
+async fn camera_frame(s: &Server, editor: &str, w: u32, h: u32) -> (String, String) {
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(editor),
+            &json!({"name": "bench", "width": w, "height": h,
+                    "no_go_zones": [[[140.0, 100.0], [159.0, 100.0], [159.0, 119.0], [140.0, 119.0]]]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{cam}");
+    let cam = cam["id"].as_str().expect("camera").to_string();
+    let (st, frame) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/frames"),
+            Some(editor),
+            "image/png",
+            png(w, h, 3),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{frame}");
+    (cam, frame["id"].as_str().expect("frame").to_string())
+}
+
+async fn fits(s: Server) {
+    let editor = s.token("reward bench", "editor");
+    let viewer = s.token("reward bench", "viewer");
+    let (cam, frame) = camera_frame(&s, &editor, W, H).await;
+    // A demo of the camera with one track, followed to the end.
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos"),
+            Some(&editor),
+            "application/zip",
+            texture_demo_zip(W, H, 12, [3.0, 2.0]),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().expect("demo").to_string();
+    let (st, started) = s
+        .post(
+            &format!("/api/demos/{demo}/tracks"),
+            Some(&editor),
+            &json!({"label": "pot rim", "frame": 0, "x": 70.0, "y": 55.0}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let track = started["track_id"].as_str().expect("track").to_string();
+    operation_done(&s, &editor, started["operation_id"].as_str().expect("op")).await;
+
+    let mut demos = paths();
+    demos.push(json!({"demo_id": demo, "track_id": track}));
+    let body = json!({"frame_id": frame, "cell_px": 10, "features": features(), "demos": demos});
+    let (st, started) = s.post("/api/reward-fits", Some(&editor), &body).await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let id = started["id"].as_str().expect("fit").to_string();
+    let op = operation_done(&s, &viewer, started["operation_id"].as_str().expect("op")).await;
+    assert_eq!(op["state"], "succeeded", "{op}");
+    assert_eq!(op["kind"], "reward_fit");
+    assert_eq!(op["result"]["reward_fit_id"], id.as_str());
+    let (st, fit) = s
+        .get(&format!("/api/reward-fits/{id}"), Some(&viewer))
+        .await;
+    assert_eq!(st, StatusCode::OK, "{fit}");
+    assert_eq!(fit["frame_id"], frame.as_str());
+    assert_eq!(
+        (fit["cols"].as_u64(), fit["rows"].as_u64()),
+        (Some(16), Some(12))
+    );
+    assert_eq!(fit["demos"], 7);
+    assert_eq!(fit["weights"].as_array().map(Vec::len), Some(4));
+    assert_eq!(fit["feature_names"][0], "distance_to(125, 95)");
+    assert_eq!(fit["converged"], true, "{fit}");
+    // Every path heads for GOAL: the reward rises towards it (a negative weight on the distance)
+    // and peaks in its cell, (12, 9), whose centre is (124.5, 94.5).
+    assert!(fit["weights"][0].as_f64().expect("w0") < 0.0, "{fit}");
+    assert_eq!(fit["reward_argmax"], json!([124.5, 94.5]), "{fit}");
+    // With 7 demos, leave-one-out: the fitted reward explains unseen paths better than a walk.
+    let held = fit["held_out_log_likelihood_per_step"]
+        .as_f64()
+        .expect("held out");
+    let walk = fit["held_out_uniform_log_likelihood_per_step"]
+        .as_f64()
+        .expect("walk");
+    assert!(
+        held > walk + 0.3,
+        "held out {held} against the uniform walk {walk}"
+    );
+    let trace = fit["trace"].as_array().expect("trace");
+    assert_eq!(
+        trace.len() as u64,
+        fit["iterations"].as_u64().expect("it") + 1
+    );
+    // The reward map: NPY float32 (12, 16), its largest entry in the argmax cell.
+    let (st, npy) = get_bytes(
+        &s,
+        &format!("/api/reward-fits/{id}/reward-map.npy"),
+        &viewer,
+    )
+    .await;
+    assert_eq!(st, StatusCode::OK);
+    let arr = goalsmith_core::npy::read(&npy, 1 << 20).expect("npy");
+    assert_eq!(arr.header.shape, vec![12, 16]);
+    let values = arr.as_f32().expect("float32");
+    let best = values
+        .iter()
+        .enumerate()
+        .max_by(|a, b| a.1.total_cmp(b.1))
+        .map(|(i, _)| i)
+        .expect("values");
+    assert_eq!(best, 9 * 16 + 12, "{values:?}");
+
+    // Refused before anything is queued, each naming its field.
+    let (cam2, frame2) = camera_frame(&s, &editor, 640, 480).await;
+    let (_, demo2) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam2}/demos"),
+            Some(&editor),
+            "application/zip",
+            texture_demo_zip(640, 480, 2, [1.0, 0.0]),
+        )
+        .await;
+    let demo2 = demo2["id"].as_str().expect("demo 2").to_string();
+    let with = |f: &dyn Fn(&mut Value)| {
+        let mut b = body.clone();
+        f(&mut b);
+        b
+    };
+    let cases: Vec<(Value, &str, &str)> = vec![
+        (with(&|b| b["demos"] = json!([])), "demos", "bad_count"),
+        (
+            with(&|b| b["demos"] = json!([{"demo_id": demo2, "track_id": track}])),
+            "demos[0].demo_id",
+            "other_camera",
+        ),
+        (
+            with(&|b| {
+                b["features"][1]["polygon"] = json!([[60.0, 60.0], [400.0, 60.0], [100.0, 100.0]])
+            }),
+            "features[1].polygon[1]",
+            "outside_frame",
+        ),
+        (
+            with(&|b| {
+                b["frame_id"] = json!(frame2);
+                b["cell_px"] = json!(1);
+                b["demos"] = json!([{"path": [[1.0, 1.0], [9.0, 9.0]]}]);
+            }),
+            "cell_px",
+            "too_large",
+        ),
+        (
+            with(&|b| {
+                b["demos"] =
+                    json!([{"path": [[12.0, 12.0]]}, {"path": [[50.0, 50.0], [51.0, 52.0]]}])
+            }),
+            "demos",
+            "no_moves",
+        ),
+        (with(&|b| b["cell_px"] = json!(0)), "cell_px", "invalid"),
+        (with(&|b| b["l2"] = json!(-1.0)), "l2", "out_of_range"),
+        (
+            with(&|b| b["features"][2]["sigma_px"] = json!(0.0)),
+            "features[2].sigma_px",
+            "invalid",
+        ),
+        (
+            with(&|b| b["demos"] = json!([{"path": [[10.0, 10.0], [170.0, 10.0]]}])),
+            "demos[0].samples[1]",
+            "outside_frame",
+        ),
+        (
+            with(&|b| b["features"] = json!([])),
+            "features",
+            "bad_count",
+        ),
+    ];
+    for (bad, field, code) in cases {
+        let (st, err) = s.post("/api/reward-fits", Some(&editor), &bad).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{field}: {err}");
+        assert_eq!(
+            (
+                err["error"]["field"].as_str(),
+                err["error"]["code"].as_str()
+            ),
+            (Some(field), Some(code)),
+            "{err}"
+        );
+    }
+    let (st, _) = s.post("/api/reward-fits", Some(&viewer), &body).await;
+    assert_eq!(st, StatusCode::FORBIDDEN);
+    let other = s.token("another bench", "editor");
+    let (st, _) = s.post("/api/reward-fits", Some(&other), &body).await;
+    assert_eq!(st, StatusCode::NOT_FOUND, "another team's frame");
+    let (st, _) = s.get(&format!("/api/reward-fits/{id}"), Some(&other)).await;
+    assert_eq!(st, StatusCode::NOT_FOUND, "another team's fit");
+}
+
+on_both_databases!(reward_fits_end_to_end, fits);
+
+/// With no worker to run it, a fit stays queued: its map is not there yet (409), and a cancel
+/// ends it.
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_queued_fit_has_no_map_and_can_be_cancelled() {
+    let db = fresh_db(Db::Sqlite, "reward_fit_cancel")
+        .await
+        .expect("sqlite");
+    let s = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[("GOALSMITH_OPERATION_WORKERS", "0")],
+    );
+    let editor = s.token("reward bench", "editor");
+    let (_, frame) = camera_frame(&s, &editor, W, H).await;
+    let body = json!({"frame_id": frame, "cell_px": 10, "features": features(), "demos": paths()});
+    let (st, started) = s.post("/api/reward-fits", Some(&editor), &body).await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let id = started["id"].as_str().expect("fit");
+    let op = started["operation_id"].as_str().expect("op");
+    let (st, fit) = s
+        .get(&format!("/api/reward-fits/{id}"), Some(&editor))
+        .await;
+    assert_eq!(st, StatusCode::OK);
+    assert!(fit.get("weights").is_none(), "{fit}");
+    let (st, err) = s
+        .get(
+            &format!("/api/reward-fits/{id}/reward-map.npy"),
+            Some(&editor),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CONFLICT, "{err}");
+    let (st, v) = s
+        .post(
+            &format!("/api/operations/{op}/cancel"),
+            Some(&editor),
+            &json!({}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{v}");
+    assert_eq!(v["state"], "cancelled", "{v}");
+}
