@@ -142,7 +142,7 @@ fn run_cost(
 ) -> Result<(), Box<dyn std::error::Error>> {
     let read = |p: &std::path::Path| std::fs::read(p).map_err(|e| format!("{}: {e}", p.display()));
     let (goal, w, h) = crate::scoring::read_bundle(&read(bundle)?)?;
-    let spec = crate::scoring::spec_from_revision(&goal, w, h)?;
+    let spec = crate::scoring::spec_from_revision(&goal, w, h, &|_| None)?;
     let model = crate::scoring::model(&spec)?;
     let (content_type, body) = match (points, maps) {
         (Some(p), _) => ("application/json", read(p)?),

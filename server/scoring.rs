@@ -4,7 +4,7 @@
 use crate::draw;
 use crate::images;
 use goalsmith_core::cost::{CostModel, CostResult, MapBatch, PreparedMaps};
-use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec};
+use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec, RewardLookup};
 use goalsmith_core::npy;
 use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
@@ -47,7 +47,15 @@ fn invalid(code: &'static str, field: Option<&str>, message: impl Into<String>) 
 /// Re-checks a stored revision document into a [`GoalSpec`] for a frame of `width` × `height`.
 /// Safety zones are not re-applied: they were checked (or overridden, and recorded) when the
 /// revision was written.
-pub fn spec_from_revision(doc: &Value, width: u32, height: u32) -> Result<GoalSpec, ScoreError> {
+///
+/// `reward_grid` finds the reward grid of a `learned` term's fit; without one (`&|_| None`), a
+/// revision with learned terms is refused.
+pub fn spec_from_revision(
+    doc: &Value,
+    width: u32,
+    height: u32,
+    reward_grid: RewardLookup<'_>,
+) -> Result<GoalSpec, ScoreError> {
     let goal = GoalDocument {
         name: doc["name"].as_str().unwrap_or_default().to_string(),
         frame_id: doc["frame_id"].as_str().unwrap_or_default().to_string(),
@@ -59,7 +67,6 @@ pub fn spec_from_revision(doc: &Value, width: u32, height: u32) -> Result<GoalSp
         override_safety: true,
     };
     let decode_mask = |b64: &str| images::decode_mask(b64, 16384, 1 << 30);
-    let no_fits = |_: &str| true;
     GoalSpec::check(
         goal,
         &CheckContext {
@@ -68,7 +75,7 @@ pub fn spec_from_revision(doc: &Value, width: u32, height: u32) -> Result<GoalSp
             safe_zone: None,
             no_go_zones: &[],
             decode_mask: &decode_mask,
-            reward_fit_exists: &no_fits,
+            reward_grid,
         },
     )
     .map_err(|e| match e.code {
@@ -825,7 +832,7 @@ mod tests {
             .collect();
         let region = json!({"kind": "region", "source": [5.0, 5.0], "polygon": circle});
         let doc = json!({"name": "old", "frame_id": "f", "terms": vec![region; 5]});
-        match spec_from_revision(&doc, 64, 48) {
+        match spec_from_revision(&doc, 64, 48, &|_| None) {
             Err(ScoreError::Invalid { code, message, .. }) => {
                 assert_eq!(code, "too_many_vertices");
                 assert!(message.contains("4096"), "{message}");

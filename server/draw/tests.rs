@@ -183,7 +183,12 @@ fn scene_overlay() -> RgbaImage {
     frame
         .write_to(&mut std::io::Cursor::new(&mut png), image::ImageFormat::Png)
         .unwrap();
-    let spec = crate::scoring::spec_from_revision(&scene_goal(), 320, 240).unwrap();
+    // The learned term's fit: a flat reward over 10 px cells (the overlay draws its source only).
+    let grid = std::sync::Arc::new(
+        goalsmith_core::cost::RewardGrid::new(10, 32, 24, vec![0.0; 32 * 24]).unwrap(),
+    );
+    let lookup = |_: &str| Some(grid.clone());
+    let spec = crate::scoring::spec_from_revision(&scene_goal(), 320, 240, &lookup).unwrap();
     let safe = [[4.0, 4.0], [315.0, 4.0], [315.0, 235.0], [4.0, 235.0]];
     let no_go = vec![vec![
         [246.0, 14.0],

@@ -259,15 +259,28 @@ pub async fn load_row(
         None => {
             let (w, h) = (camera.width, camera.height);
             let doc2 = doc.clone();
+            let learned: Vec<&str> = doc["terms"]
+                .as_array()
+                .map(|terms| {
+                    terms
+                        .iter()
+                        .filter(|t| t["kind"] == "learned")
+                        .filter_map(|t| t["reward_fit_id"].as_str())
+                        .collect()
+                })
+                .unwrap_or_default();
+            let grids = super::reward_fits::grids_for(state, who, &frame.id, learned).await?;
             let permit = state.heavy_permits.acquire().await?;
             // The permit comes back with the model: a model too large for the cache is held by
             // this request alone, and it must not wait in the queue for a second permit while
             // holding it (the memory envelope counts one model per permit).
             let (built, permit) = tokio::task::spawn_blocking(move || {
-                let built = scoring::spec_from_revision(&doc2, w, h).and_then(|spec| {
-                    let model = scoring::model(&spec)?;
-                    Ok(std::sync::Arc::new((spec, model)))
-                });
+                let reward_grid = |id: &str| grids.get(id).cloned();
+                let built =
+                    scoring::spec_from_revision(&doc2, w, h, &reward_grid).and_then(|spec| {
+                        let model = scoring::model(&spec)?;
+                        Ok(std::sync::Arc::new((spec, model)))
+                    });
                 (built, permit)
             })
             .await
@@ -683,7 +696,7 @@ mod tests {
             }));
         }
         let doc = serde_json::json!({"name": "g", "frame_id": "f", "terms": terms});
-        let spec = scoring::spec_from_revision(&doc, 64, 48).expect("spec");
+        let spec = scoring::spec_from_revision(&doc, 64, 48, &|_| None).expect("spec");
         let model = scoring::model(&spec).expect("model");
         std::sync::Arc::new((spec, model))
     }

@@ -53,12 +53,22 @@ pub async fn check_document(
         .map(|z| check_zone(w, h, z, "camera.no_go_zones"))
         .collect::<Result<_, _>>()?;
     let limits = state.limits.clone();
+    let learned: Vec<&str> = doc
+        .terms
+        .iter()
+        .filter_map(|t| match t {
+            goalsmith_core::goal::TermDocument::Learned { reward_fit_id, .. } => {
+                Some(reward_fit_id.as_str())
+            }
+            _ => None,
+        })
+        .collect();
+    let grids = super::reward_fits::grids_for(state, who, &frame.id, learned).await?;
     // Mask decoding and checks are CPU work: keep them off the async workers.
     let spec = tokio::task::spawn_blocking(move || {
         let decode_mask =
             |b64: &str| images::decode_mask(b64, limits.max_image_side, limits.max_decode_bytes);
-        // Reward fits arrive with the demonstrations work; until then no id exists.
-        let reward_fit_exists = |_: &str| false;
+        let reward_grid = |id: &str| grids.get(id).cloned();
         GoalSpec::check(
             doc,
             &CheckContext {
@@ -67,7 +77,7 @@ pub async fn check_document(
                 safe_zone: safe_zone.as_ref(),
                 no_go_zones: &no_go,
                 decode_mask: &decode_mask,
-                reward_fit_exists: &reward_fit_exists,
+                reward_grid: &reward_grid,
             },
         )
     })
@@ -650,7 +660,7 @@ mod tests {
             .as_ref()
             .map(|z| check_zone(64, 48, z, "safe_zone").expect("safe zone"));
         let no_masks = |_: &str| Err("no masks in this fixture".to_string());
-        let no_fits = |_: &str| false;
+        let no_fits = |_: &str| None;
         let spec = GoalSpec::check(
             doc,
             &CheckContext {
@@ -659,7 +669,7 @@ mod tests {
                 safe_zone: safe.as_ref(),
                 no_go_zones: &[],
                 decode_mask: &no_masks,
-                reward_fit_exists: &no_fits,
+                reward_grid: &no_fits,
             },
         )
         .expect("the fixture checks");

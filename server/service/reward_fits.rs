@@ -12,6 +12,7 @@ use super::error::{ServiceError, ServiceResult};
 use super::operations::{Progress, RunError};
 use super::{AppState, cameras, demos, frames, parse_id, rfc3339};
 use crate::store::{self, reward_fits::RewardFitRow};
+use goalsmith_core::cost::RewardGrid;
 use goalsmith_core::goal::{Xy, check_zone};
 use goalsmith_core::irl::{
     self, Control, Feature, FitSettings, GridSpec, IrlError, PathSample, RewardFitInput,
@@ -542,6 +543,44 @@ pub async fn reward_map_npy(state: &AppState, who: &Principal, id: &str) -> Serv
         .collect();
     goalsmith_core::npy::write_f32(&[r.rows, r.cols], &values)
         .map_err(|e| ServiceError::Internal(e.to_string()))
+}
+
+/// The reward grids of the finished fits among `ids` that are the team's and on `frame_id`, by
+/// id: what a goal's `learned` terms are checked and scored with. An id that is malformed,
+/// another team's, on another frame or not finished is left out (the goal check then refuses
+/// the term, naming it).
+pub async fn grids_for<'a>(
+    state: &AppState,
+    who: &Principal,
+    frame_id: &str,
+    ids: impl IntoIterator<Item = &'a str>,
+) -> ServiceResult<std::collections::HashMap<String, std::sync::Arc<RewardGrid>>> {
+    let mut out = std::collections::HashMap::new();
+    for raw in ids {
+        let Ok(id) = parse_id(raw, "reward fit") else {
+            continue;
+        };
+        let Some(row) = store::reward_fits::get(&state.store, &who.team_id, &id).await? else {
+            continue;
+        };
+        if row.frame_id != frame_id {
+            continue;
+        }
+        let (Some(result), Some(map)) = (row.result.as_deref(), row.reward_map.as_deref()) else {
+            continue;
+        };
+        let settings = settings_of(&row)?;
+        let r: ResultDoc = serde_json::from_str(result)
+            .map_err(|e| ServiceError::Internal(format!("fit {id} result unreadable: {e}")))?;
+        let values: Vec<f32> = map
+            .chunks_exact(4)
+            .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+            .collect();
+        let grid = RewardGrid::new(settings.cell_px, r.cols, r.rows, values)
+            .map_err(|e| ServiceError::Internal(format!("fit {id}: {e}")))?;
+        out.insert(raw.to_string(), std::sync::Arc::new(grid));
+    }
+    Ok(out)
 }
 
 fn stop_name(s: irl::StopReason) -> &'static str {

@@ -160,6 +160,71 @@ async fn fits(s: Server) {
         .expect("values");
     assert_eq!(best, 9 * 16 + 12, "{values:?}");
 
+    // A `learned` term on the fit: its cost at a point is the best reward minus the reward of
+    // the point's cell (cell ⌊(x + 0.5)/10⌋, ⌊(y + 0.5)/10⌋), at the frame's size and, exactly,
+    // at any other.
+    let max = values.iter().fold(f32::NEG_INFINITY, |m, &v| m.max(v)) as f64;
+    let cost_at = |x: f64, y: f64| {
+        let cell = |v: f64, n: usize| (((v + 0.5) / 10.0).floor().max(0.0) as usize).min(n - 1);
+        max - values[cell(y, 12) * 16 + cell(x, 16)] as f64
+    };
+    let goal_doc = json!({"name": "tray where the demos went", "frame_id": frame,
+        "terms": [{"kind": "learned", "label": "tray", "reward_fit_id": id, "source": [20.0, 20.0]}]});
+    let (st, rev) = s.post("/api/goals", Some(&editor), &goal_doc).await;
+    assert_eq!(st, StatusCode::CREATED, "{rev}");
+    let goal = rev["goal_id"].as_str().expect("goal").to_string();
+    for (w, h) in [(W as usize, H as usize), (40, 30), (23, 17)] {
+        let (st, npy) = get_bytes(
+            &s,
+            &format!("/api/goals/{goal}/revisions/1/cost-maps.npy?width={w}&height={h}"),
+            &viewer,
+        )
+        .await;
+        assert_eq!(st, StatusCode::OK);
+        let maps = goalsmith_core::npy::read(&npy, 1 << 24).expect("npy");
+        assert_eq!(maps.header.shape, vec![1, h, w]);
+        let got = maps.as_f32().expect("f32");
+        for j in 0..h {
+            for i in 0..w {
+                // The map pixel's centre in frame pixels (docs/conventions.md).
+                let x = (i as f64 + 0.5) * W as f64 / w as f64 - 0.5;
+                let y = (j as f64 + 0.5) * H as f64 / h as f64 - 0.5;
+                assert_eq!(
+                    got[j * w + i],
+                    cost_at(x, y) as f32,
+                    "{w}x{h} at ({i}, {j})"
+                );
+            }
+        }
+    }
+    // Scoring points: at the goal's cell the cost is 0, at the source its reward gap.
+    let (st, scored) = s
+        .post(
+            &format!("/api/goals/{goal}/revisions/1/cost"),
+            Some(&viewer),
+            &json!({"points": [[[[124.0, 93.0]]], [[[20.0, 20.0]]]]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::OK, "{scored}");
+    assert_eq!(scored["costs"][0], 0.0, "{scored}");
+    let gap = scored["costs"][1].as_f64().expect("cost");
+    assert!(
+        (gap - cost_at(20.0, 20.0)).abs() < 1e-6,
+        "{gap} against {}",
+        cost_at(20.0, 20.0)
+    );
+    // A learned term needs a finished fit of this team on the goal's frame.
+    for (bad, why) in [
+        (json!("00000000-0000-4000-8000-000000000000"), "no such fit"),
+        (json!("not a fit id"), "malformed"),
+    ] {
+        let mut d = goal_doc.clone();
+        d["terms"][0]["reward_fit_id"] = bad;
+        let (st, err) = s.post("/api/goals", Some(&editor), &d).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{why}: {err}");
+        assert_eq!(err["error"]["field"], "terms[0].reward_fit_id", "{err}");
+    }
+
     // Refused before anything is queued, each naming its field.
     let (cam2, frame2) = camera_frame(&s, &editor, 640, 480).await;
     let (_, demo2) = s
@@ -171,6 +236,15 @@ async fn fits(s: Server) {
         )
         .await;
     let demo2 = demo2["id"].as_str().expect("demo 2").to_string();
+    let mut on_other_frame = goal_doc.clone();
+    on_other_frame["frame_id"] = json!(frame2);
+    let (st, err) = s.post("/api/goals", Some(&editor), &on_other_frame).await;
+    assert_eq!(
+        st,
+        StatusCode::UNPROCESSABLE_ENTITY,
+        "a fit of another frame: {err}"
+    );
+    assert_eq!(err["error"]["field"], "terms[0].reward_fit_id", "{err}");
     let with = |f: &dyn Fn(&mut Value)| {
         let mut b = body.clone();
         f(&mut b);

@@ -238,6 +238,87 @@ pub enum TargetShape {
     Region(Polygon),
     /// On a painted pixel of a mask of the frame's size.
     Mask(Arc<Mask>),
+    /// Where a fitted reward is highest (a `learned` term).
+    Reward(Arc<RewardGrid>),
+}
+
+/// A fitted reward on square cells of `cell_px` over the frame, as a `learned` term's target.
+///
+/// Its "distance" at a frame point is the negated, min-shifted reward of the cell holding it:
+/// d(x, y) = r_max − r(c, r), 0 in the best cells and positive elsewhere, with the cell
+/// c = ⌊(x + 0.5) / cell_px⌋, r = ⌊(y + 0.5) / cell_px⌋, clamped to the grid (a point outside
+/// the frame takes the nearest edge cell). The upsampling to pixels is therefore piecewise
+/// constant (nearest cell), evaluated exactly at any point, so a resampled map is exact too.
+#[derive(Debug, Clone, PartialEq)]
+pub struct RewardGrid {
+    cell_px: u32,
+    cols: usize,
+    rows: usize,
+    /// r at cell (c, r) in entry r·cols + c.
+    values: Vec<f32>,
+    max: f64,
+}
+
+impl RewardGrid {
+    /// A grid of `cols` × `rows` cells of `cell_px` pixels with rewards `values` (row-major).
+    /// Refuses an empty grid, a length that is not cols × rows, and non-finite rewards.
+    pub fn new(cell_px: u32, cols: usize, rows: usize, values: Vec<f32>) -> Result<Self, String> {
+        if cell_px == 0 || cols == 0 || rows == 0 {
+            return Err("a reward grid has at least one cell of at least 1 px".into());
+        }
+        if cols.checked_mul(rows) != Some(values.len()) {
+            return Err(format!(
+                "a {cols} × {rows} reward grid needs {} values, not {}",
+                cols * rows,
+                values.len()
+            ));
+        }
+        if values.iter().any(|v| !v.is_finite()) {
+            return Err("a reward grid holds finite rewards only".into());
+        }
+        let max = values
+            .iter()
+            .fold(f64::NEG_INFINITY, |m, &v| m.max(f64::from(v)));
+        Ok(Self {
+            cell_px,
+            cols,
+            rows,
+            values,
+            max,
+        })
+    }
+
+    /// d(x, y) = r_max − r(cell of (x, y)), see the type's documentation.
+    pub fn cost_at(&self, x: f64, y: f64) -> f64 {
+        let cell = f64::from(self.cell_px);
+        let index = |v: f64, n: usize| -> usize {
+            let k = ((v + 0.5) / cell).floor();
+            if k.is_nan() || k <= 0.0 {
+                0
+            } else {
+                (k as usize).min(n - 1)
+            }
+        };
+        let (c, r) = (index(x, self.cols), index(y, self.rows));
+        self.max - f64::from(self.values[r * self.cols + c])
+    }
+
+    /// Grid columns.
+    pub fn cols(&self) -> usize {
+        self.cols
+    }
+    /// Grid rows.
+    pub fn rows(&self) -> usize {
+        self.rows
+    }
+    /// Side of a cell, pixels.
+    pub fn cell_px(&self) -> u32 {
+        self.cell_px
+    }
+    /// The rewards, row-major.
+    pub fn values(&self) -> &[f32] {
+        &self.values
+    }
 }
 
 /// One source point of a goal as the cost engine sees it.
@@ -377,6 +458,7 @@ impl CostModel {
             TargetShape::Point(t) => t.distance_to(x, y),
             TargetShape::Region(poly) => poly.distance(x, y),
             TargetShape::Mask(_) => self.mask_index[p].as_ref()?.distance(x, y),
+            TargetShape::Reward(g) => g.cost_at(x, y),
         })
     }
 
@@ -444,6 +526,13 @@ impl CostModel {
                     }
                 }
                 TargetShape::Mask(m) => dst.copy_from_slice(&distance::edt_at(m, &xs, &ys)),
+                TargetShape::Reward(g) => {
+                    for (row, &y) in dst.chunks_exact_mut(width).zip(&ys) {
+                        for (v, &x) in row.iter_mut().zip(&xs) {
+                            *v = g.cost_at(x, y);
+                        }
+                    }
+                }
             }
             each(p, &dst);
         }
@@ -461,6 +550,7 @@ impl CostModel {
                 TargetShape::Point(_) => 0,
                 TargetShape::Region(poly) => poly.vertices().len() * 16,
                 TargetShape::Mask(m) => m.width() * m.height(),
+                TargetShape::Reward(g) => g.values().len() * 4,
             })
             .sum();
         let index: usize = self

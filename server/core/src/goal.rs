@@ -3,7 +3,7 @@
 //!
 //! Checking happens once, here; code downstream of a `GoalSpec` never re-validates.
 
-use crate::cost::{CostPoint, CostSettings, Metric, Mode, Steps, TargetShape};
+use crate::cost::{CostPoint, CostSettings, Metric, Mode, RewardGrid, Steps, TargetShape};
 use crate::distance::Mask;
 use crate::geometry::{PixelPoint, Polygon, RowScan};
 use crate::rigid::{self, RigidFit};
@@ -287,9 +287,12 @@ pub struct CheckContext<'a> {
     pub no_go_zones: &'a [Polygon],
     /// Decodes a term's `mask_png_base64` into (width, height, painted flags).
     pub decode_mask: MaskDecoder<'a>,
-    /// Whether a reward fit with this id exists for the team and frame.
-    pub reward_fit_exists: &'a dyn Fn(&str) -> bool,
+    /// The reward grid of a finished reward fit with this id on the goal's frame, if any.
+    pub reward_grid: RewardLookup<'a>,
 }
+
+/// Finds the reward grid of a finished reward fit by id (see [`CheckContext::reward_grid`]).
+pub type RewardLookup<'a> = &'a dyn Fn(&str) -> Option<Arc<RewardGrid>>;
 
 /// A checked term: every coordinate finite and inside the frame, every shape valid.
 #[derive(Debug, Clone)]
@@ -330,6 +333,8 @@ pub enum Term {
         source: PixelPoint,
         /// The reward fit id.
         reward_fit_id: String,
+        /// The fit's reward grid: the term's cost is its negated, min-shifted reward.
+        grid: Arc<RewardGrid>,
     },
 }
 
@@ -663,17 +668,18 @@ impl GoalSpec {
                     weight,
                 } => {
                     let source = frame.point(*source, &f("source"))?;
-                    if !(ctx.reward_fit_exists)(reward_fit_id) {
+                    let Some(grid) = (ctx.reward_grid)(reward_fit_id) else {
                         return Err(GoalError::new(
                             "not_found",
                             f("reward_fit_id"),
-                            "no reward fit with this id on this goal's frame",
+                            "no finished reward fit with this id on this goal's frame",
                         ));
-                    }
+                    };
                     (
                         Term::Learned {
                             source,
                             reward_fit_id: reward_fit_id.clone(),
+                            grid,
                         },
                         label,
                         *weight,
@@ -793,10 +799,10 @@ impl GoalSpec {
     }
 
     /// The cost engine's view of this goal: one [`CostPoint`] per source point.
-    /// Learned terms have no distance-based cost yet and are refused here.
+    /// A learned term's distance is its fit's negated, min-shifted reward ([`RewardGrid`]).
     pub fn cost_points(&self) -> Result<Vec<CostPoint>, GoalError> {
         let mut out = Vec::new();
-        for (i, t) in self.terms.iter().enumerate() {
+        for t in &self.terms {
             let mut push = |target: TargetShape, weight: f64| {
                 out.push(CostPoint {
                     target,
@@ -816,13 +822,12 @@ impl GoalSpec {
                         push(TargetShape::Point(*target), w);
                     }
                 }
-                Term::Learned { .. } => {
-                    return Err(GoalError::new(
-                        "unsupported",
-                        format!("terms[{i}]"),
-                        "learned terms cannot be scored by the distance cost engine yet",
-                    ));
-                }
+                // In reward units, not pixels: "within tolerance" means in a best cell.
+                Term::Learned { grid, .. } => out.push(CostPoint {
+                    target: TargetShape::Reward(grid.clone()),
+                    weight: t.weight,
+                    tolerance_px: 0.0,
+                }),
             }
         }
         Ok(out)
@@ -1093,7 +1098,7 @@ mod tests {
             safe_zone: safe,
             no_go_zones: no_go,
             decode_mask: &decode_pixels,
-            reward_fit_exists: &|_| false,
+            reward_grid: &|_| None,
         };
         GoalSpec::check(document(terms, override_safety), &ctx)
     }
@@ -1371,7 +1376,7 @@ mod tests {
             safe_zone: Some(&safe),
             no_go_zones: &no_go,
             decode_mask: &decode_pixels,
-            reward_fit_exists: &|_| false,
+            reward_grid: &|_| None,
         };
         let terms = [
             mask_term(&[(1, 1), (2, 1), (3, 1)]),
@@ -1413,7 +1418,7 @@ mod tests {
             safe_zone: None,
             no_go_zones: &[],
             decode_mask: &decode,
-            reward_fit_exists: &|_| false,
+            reward_grid: &|_| None,
         };
         assert!(GoalSpec::check(document(vec![mask("all")], false), &ctx).is_ok());
         let e = GoalSpec::check(document(vec![mask("all"), mask("one")], true), &ctx)
@@ -1443,7 +1448,7 @@ mod tests {
             safe_zone: None,
             no_go_zones: &[],
             decode_mask: &decode,
-            reward_fit_exists: &|_| false,
+            reward_grid: &|_| None,
         };
         let mask = || TermDocument::Mask {
             label: None,
