@@ -42,11 +42,13 @@ impl Default for PyramidCache {
     }
 }
 
-/// Bytes a pyramid holds: per level a grey value and a 2-vector gradient, `f32` each.
+/// Bytes a pyramid holds: per pixel of level 0 (of an 8-bit frame) a byte and two `i16`
+/// gradient sums, per pixel of each coarser level a grey value and a 2-vector gradient, `f32`
+/// each ([`goalsmith_core::track::Level::bytes`]).
 fn pyramid_bytes(p: &Pyramid) -> usize {
     (0..p.levels())
         .filter_map(|i| p.level(i))
-        .map(|l| l.width() * l.height() * 12)
+        .map(|l| l.bytes())
         .sum::<usize>()
         + 256
 }

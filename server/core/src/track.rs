@@ -38,7 +38,9 @@
 //!   176 px each way.
 //! - Image, gradients and window sums are f32 (each window sum is kept in eight independent
 //!   partial sums, which vector registers carry, added up in f64 at the end); positions are
-//!   f64. The inner loops allocate nothing: a step's window buffers are made once per call and
+//!   f64. Level 0 of an 8-bit frame is stored narrower, as the frame's bytes and its Scharr
+//!   sums in i16 (5 bytes a pixel instead of 12; on whole grey levels the f32 Scharr is exact,
+//!   sum / 32), and read back as exactly the f32 values, so results do not depend on it. The inner loops allocate nothing: a step's window buffers are made once per call and
 //!   reused for every point, level and iteration. A pyramid can be rebuilt in place of one no
 //!   longer needed ([`Pyramid::rebuild`]), so that a tracker keeping two pyramids does not ask
 //!   for new memory every frame.
@@ -207,8 +209,82 @@ impl GrayFrame {
 pub struct Level {
     width: usize,
     height: usize,
-    image: Vec<f32>,
-    gradient: Vec<[f32; 2]>,
+    store: Store,
+}
+
+/// How a level keeps its values, row-major.
+#[derive(Debug, Clone, PartialEq)]
+enum Store {
+    /// Luminance and gradient as f32: every level above 0, and level 0 of a frame with values
+    /// other than whole grey levels 0–255.
+    Float {
+        image: Vec<f32>,
+        gradient: Vec<[f32; 2]>,
+    },
+    /// Level 0 of an 8-bit frame: the frame's bytes and the raw Scharr sums, 32 × the gradient.
+    /// On whole grey levels every f32 operation of [`scharr`] is exact, so the f32 gradient is
+    /// exactly raw / 32: [`GradientPixel::value`] gives it back bit for bit. 5 bytes a pixel
+    /// instead of 12.
+    Bytes {
+        image: Vec<u8>,
+        gradient: Vec<[i16; 2]>,
+    },
+}
+
+impl Store {
+    fn len(&self) -> usize {
+        match self {
+            Store::Float { image, .. } => image.len(),
+            Store::Bytes { image, .. } => image.len(),
+        }
+    }
+}
+
+/// The scale from a raw Scharr sum (the [3 10 3] smoothing times the plain difference) to grey
+/// levels per pixel: 1/16 · 1/2, a power of two.
+const SCHARR_SCALE: f32 = 1.0 / 32.0;
+
+/// A stored luminance value, read as f32 (exactly).
+trait Pixel: Copy {
+    fn value(self) -> f32;
+}
+
+impl Pixel for f32 {
+    #[inline(always)]
+    fn value(self) -> f32 {
+        self
+    }
+}
+
+impl Pixel for u8 {
+    #[inline(always)]
+    fn value(self) -> f32 {
+        f32::from(self)
+    }
+}
+
+/// A stored gradient, read as `[d/dx, d/dy]` in grey levels per pixel, f32.
+trait GradientPixel: Copy {
+    fn value(self) -> [f32; 2];
+}
+
+impl GradientPixel for [f32; 2] {
+    #[inline(always)]
+    fn value(self) -> [f32; 2] {
+        self
+    }
+}
+
+impl GradientPixel for [i16; 2] {
+    /// The raw sum (an integer, exact in f32) times 1/32, the very product [`scharr_row`]
+    /// computes on whole grey levels.
+    #[inline(always)]
+    fn value(self) -> [f32; 2] {
+        [
+            f32::from(self[0]) * SCHARR_SCALE,
+            f32::from(self[1]) * SCHARR_SCALE,
+        ]
+    }
 }
 
 impl Level {
@@ -220,13 +296,37 @@ impl Level {
     pub fn height(&self) -> usize {
         self.height
     }
-    /// Luminance, row-major.
-    pub fn image(&self) -> &[f32] {
-        &self.image
+    /// Luminance of pixel `i` (row-major index), grey levels. Panics past the end.
+    pub fn image_at(&self, i: usize) -> f32 {
+        match &self.store {
+            Store::Float { image, .. } => image[i],
+            Store::Bytes { image, .. } => image[i].value(),
+        }
     }
-    /// `[d/dx, d/dy]` of the luminance per pixel (Scharr, reflect-101 border), row-major.
-    pub fn gradient(&self) -> &[[f32; 2]] {
-        &self.gradient
+    /// `[d/dx, d/dy]` of the luminance at pixel `i` (row-major index; Scharr, reflect-101
+    /// border), grey levels per pixel. Panics past the end.
+    pub fn gradient_at(&self, i: usize) -> [f32; 2] {
+        match &self.store {
+            Store::Float { gradient, .. } => gradient[i],
+            Store::Bytes { gradient, .. } => gradient[i].value(),
+        }
+    }
+    /// Luminance, row-major.
+    pub fn image(&self) -> impl ExactSizeIterator<Item = f32> + '_ {
+        (0..self.store.len()).map(|i| self.image_at(i))
+    }
+    /// `[d/dx, d/dy]` per pixel, row-major (see [`Level::gradient_at`]).
+    pub fn gradient(&self) -> impl ExactSizeIterator<Item = [f32; 2]> + '_ {
+        (0..self.store.len()).map(|i| self.gradient_at(i))
+    }
+    /// Bytes the level's values take: 12 a pixel (f32 luminance and gradient), 5 on level 0 of
+    /// an 8-bit frame (the byte and two i16 raw Scharr sums).
+    pub fn bytes(&self) -> usize {
+        let per_pixel = match &self.store {
+            Store::Float { .. } => 12,
+            Store::Bytes { .. } => 5,
+        };
+        self.width * self.height * per_pixel
     }
 }
 
@@ -265,9 +365,33 @@ impl Pyramid {
     /// Builds the pyramid of `frame` in place of this one, as [`Pyramid::build`] would, reusing
     /// its memory: a tracker that keeps two pyramids can build each new frame's into the one it
     /// no longer needs, without asking the system for fresh pages every frame.
+    ///
+    /// A frame of whole grey levels 0–255 only (an 8-bit frame, [`GrayFrame::from_u8`]) gets
+    /// level 0 stored as bytes with integer gradients, as [`Pyramid::from_u8`] makes it; any
+    /// other keeps f32. The values are the same either way, bit for bit.
     pub fn rebuild(&mut self, frame: &GrayFrame, levels: usize) {
-        self.fill(frame.width, frame.height, levels, |image| {
-            image.copy_from_slice(&frame.data);
+        // The value must come back with its very bits (so −0.0 stays f32).
+        let is_byte = |v: f32| f32::from(v as u8).to_bits() == v.to_bits();
+        if frame.data.iter().all(|&v| is_byte(v)) {
+            self.fill(frame.width, frame.height, levels, true, |store| {
+                if let Store::Bytes { image, .. } = store {
+                    for (o, &v) in image.iter_mut().zip(&frame.data) {
+                        *o = v as u8;
+                    }
+                }
+            });
+        } else {
+            self.rebuild_float(frame, levels);
+        }
+    }
+
+    /// [`Pyramid::rebuild`] keeping level 0 as f32 whatever the values (the layout before byte
+    /// levels; the tests compare the two).
+    fn rebuild_float(&mut self, frame: &GrayFrame, levels: usize) {
+        self.fill(frame.width, frame.height, levels, false, |store| {
+            if let Store::Float { image, .. } = store {
+                image.copy_from_slice(&frame.data);
+            }
         });
     }
 
@@ -289,22 +413,23 @@ impl Pyramid {
                 got: data.len(),
             });
         }
-        self.fill(width, height, levels, |image| {
-            for (o, &v) in image.iter_mut().zip(data) {
-                *o = f32::from(v);
+        self.fill(width, height, levels, true, |store| {
+            if let Store::Bytes { image, .. } = store {
+                image.copy_from_slice(data);
             }
         });
         Ok(())
     }
 
-    /// Sizes the levels for a `width` × `height` frame (reusing their buffers), lets `level0`
-    /// write level 0's image, then filters the rest.
+    /// Sizes the levels for a `width` × `height` frame (reusing their buffers; level 0 as bytes
+    /// when `bytes`), lets `level0` write level 0's image, then filters the rest.
     fn fill(
         &mut self,
         width: usize,
         height: usize,
         levels: usize,
-        level0: impl FnOnce(&mut [f32]),
+        bytes: bool,
+        level0: impl FnOnce(&mut Store),
     ) {
         let levels = levels.clamp(1, MAX_LEVELS);
         let mut sizes = vec![(width, height)];
@@ -321,19 +446,35 @@ impl Pyramid {
                 self.levels.push(Level {
                     width: 0,
                     height: 0,
-                    image: Vec::new(),
-                    gradient: Vec::new(),
+                    store: Store::Float {
+                        image: Vec::new(),
+                        gradient: Vec::new(),
+                    },
                 });
             }
             let level = &mut self.levels[i];
             (level.width, level.height) = (w, h);
             // Fresh buffers come zeroed from the allocator; reused ones are overwritten whole.
-            if level.image.len() != w * h {
-                level.image = vec![0.0; w * h];
-                level.gradient = vec![[0.0; 2]; w * h];
+            let n = w * h;
+            let want_bytes = i == 0 && bytes;
+            let kept = matches!(level.store, Store::Bytes { .. }) == want_bytes;
+            match (kept && level.store.len() == n, want_bytes) {
+                (true, _) => {}
+                (false, false) => {
+                    level.store = Store::Float {
+                        image: vec![0.0; n],
+                        gradient: vec![[0.0; 2]; n],
+                    }
+                }
+                (false, true) => {
+                    level.store = Store::Bytes {
+                        image: vec![0; n],
+                        gradient: vec![[0; 2]; n],
+                    }
+                }
             }
         }
-        level0(&mut self.levels[0].image);
+        level0(&mut self.levels[0].store);
         filter_levels(&mut self.levels);
     }
 
@@ -389,10 +530,21 @@ fn filter_levels_portable(levels: &mut [Level]) {
         if i > 0 {
             let (done, rest) = levels.split_at_mut(i);
             let src = &done[i - 1];
-            pyr_down(&src.image, src.width, src.height, &mut rest[0].image);
+            let (w, h) = (src.width, src.height);
+            // Every level above 0 is f32 (see `Pyramid::fill`).
+            if let Store::Float { image: dst, .. } = &mut rest[0].store {
+                match &src.store {
+                    Store::Float { image, .. } => pyr_down(image, w, h, dst),
+                    Store::Bytes { image, .. } => pyr_down(image, w, h, dst),
+                }
+            }
         }
         let level = &mut levels[i];
-        scharr(&level.image, level.width, level.height, &mut level.gradient);
+        let (w, h) = (level.width, level.height);
+        match &mut level.store {
+            Store::Float { image, gradient } => scharr(image, w, h, gradient),
+            Store::Bytes { image, gradient } => scharr_u8(image, w, h, gradient),
+        }
     }
 }
 
@@ -413,13 +565,13 @@ fn reflect101(i: isize, n: usize) -> usize {
 
 /// One level down: [1 4 6 4 1]/16 down the columns, then along the rows at even columns.
 #[inline(always)]
-fn pyr_down(src: &[f32], w: usize, h: usize, dst: &mut [f32]) {
+fn pyr_down<P: Pixel>(src: &[P], w: usize, h: usize, dst: &mut [f32]) {
     let dw = w.div_ceil(2);
     let mut row = vec![0.0f32; w];
     let (mut even, mut odd) = (Vec::with_capacity(dw), Vec::with_capacity(dw));
     for (j, out) in dst.chunks_exact_mut(dw).enumerate() {
         let y = 2 * j as isize;
-        let r: [&[f32]; 5] = std::array::from_fn(|t| {
+        let r: [&[P]; 5] = std::array::from_fn(|t| {
             let yy = reflect101(y + t as isize - 2, h);
             &src[yy * w..(yy + 1) * w]
         });
@@ -434,11 +586,12 @@ const K2: f32 = 6.0 / 16.0;
 
 /// The vertical pass of [`pyr_down`] over one row: five source rows of one length into `out`.
 #[inline(always)]
-fn pyr_down_column(r: &[&[f32]; 5], out: &mut [f32]) {
+fn pyr_down_column<P: Pixel>(r: &[&[P]; 5], out: &mut [f32]) {
     let n = out.len();
     let (r0, r1, r2, r3, r4) = (&r[0][..n], &r[1][..n], &r[2][..n], &r[3][..n], &r[4][..n]);
     for (x, o) in out.iter_mut().enumerate() {
-        *o = (r0[x] + r4[x]) * K0 + (r1[x] + r3[x]) * K1 + r2[x] * K2;
+        let v = |r: &[P]| r[x].value();
+        *o = (v(r0) + v(r4)) * K0 + (v(r1) + v(r3)) * K1 + v(r2) * K2;
     }
 }
 
@@ -510,7 +663,7 @@ fn scharr_row(
     t1: &mut [f32],
     out: &mut [[f32; 2]],
 ) {
-    const S: f32 = 1.0 / 32.0;
+    const S: f32 = SCHARR_SCALE;
     let w = out.len();
     let (s0, s1, s2, t0, t1) = (&s0[..w], &s1[..w], &s2[..w], &mut t0[..w], &mut t1[..w]);
     for x in 0..w {
@@ -532,6 +685,60 @@ fn scharr_row(
                 (a2[x] - a0[x]) * S,
                 ((b2[x] + b0[x]) * 3.0 + b1[x] * 10.0) * S,
             ];
+        }
+    }
+    for x in [0, w - 1] {
+        out[x] = g(
+            x,
+            reflect101(x as isize - 1, w),
+            reflect101(x as isize + 1, w),
+        );
+    }
+}
+
+/// [`scharr`] of an 8-bit image in integers: the raw sums, 32 × the gradient (|sum| ≤ 16 · 255
+/// = 4080, so i16 holds every one). The f32 [`scharr`] of the same bytes is exactly sum / 32.
+#[inline(always)]
+fn scharr_u8(img: &[u8], w: usize, h: usize, grad: &mut [[i16; 2]]) {
+    let mut t0 = vec![0i16; w];
+    let mut t1 = vec![0i16; w];
+    for (y, out) in grad.chunks_exact_mut(w).enumerate() {
+        let y0 = reflect101(y as isize - 1, h);
+        let y2 = reflect101(y as isize + 1, h);
+        let (s0, s1, s2) = (
+            &img[y0 * w..(y0 + 1) * w],
+            &img[y * w..(y + 1) * w],
+            &img[y2 * w..(y2 + 1) * w],
+        );
+        scharr_row_u8(s0, s1, s2, &mut t0, &mut t1, out);
+    }
+}
+
+/// One row of [`scharr_u8`], the integer twin of [`scharr_row`] (same sums, unscaled).
+#[inline(always)]
+fn scharr_row_u8(
+    s0: &[u8],
+    s1: &[u8],
+    s2: &[u8],
+    t0: &mut [i16],
+    t1: &mut [i16],
+    out: &mut [[i16; 2]],
+) {
+    let w = out.len();
+    let (s0, s1, s2, t0, t1) = (&s0[..w], &s1[..w], &s2[..w], &mut t0[..w], &mut t1[..w]);
+    for x in 0..w {
+        let (a, b, c) = (i16::from(s0[x]), i16::from(s1[x]), i16::from(s2[x]));
+        // At most 510 · 3 + 255 · 10 = 4080 and ±255.
+        t0[x] = (a + c) * 3 + b * 10;
+        t1[x] = c - a;
+    }
+    let g = |x: usize, xl: usize, xr: usize| [t0[xr] - t0[xl], (t1[xr] + t1[xl]) * 3 + t1[x] * 10];
+    if w >= 3 {
+        let (a0, a2) = (&t0[..w - 2], &t0[2..]);
+        let (b0, b1, b2) = (&t1[..w - 2], &t1[1..w - 1], &t1[2..]);
+        let body = &mut out[1..w - 1];
+        for (x, o) in body.iter_mut().enumerate() {
+            *o = [a2[x] - a0[x], (b2[x] + b0[x]) * 3 + b1[x] * 10];
         }
     }
     for x in [0, w - 1] {
@@ -710,20 +917,26 @@ fn bilerp(w: &[f32; 4], t00: f32, t01: f32, t10: f32, t11: f32) -> f32 {
 /// One window row of bilinear samples: `out[c]` between `p0[c]`, `p0[c + 1]` (this row) and
 /// `p1[c]`, `p1[c + 1]` (the row below); `p0` and `p1` hold `out.len() + 1` values.
 #[inline(always)]
-fn bilerp_row(wt: &[f32; 4], p0: &[f32], p1: &[f32], out: &mut [f32]) {
+fn bilerp_row<P: Pixel>(wt: &[f32; 4], p0: &[P], p1: &[P], out: &mut [f32]) {
     let n = out.len();
     let (a0, a1, b0, b1) = (&p0[..n], &p0[1..=n], &p1[..n], &p1[1..=n]);
     for c in 0..n {
-        out[c] = bilerp(wt, a0[c], a1[c], b0[c], b1[c]);
+        out[c] = bilerp(
+            wt,
+            a0[c].value(),
+            a1[c].value(),
+            b0[c].value(),
+            b1[c].value(),
+        );
     }
 }
 
 /// [`bilerp_row`] for the gradient, split into its x and y parts.
 #[inline(always)]
-fn bilerp_gradient_row(
+fn bilerp_gradient_row<G: GradientPixel>(
     wt: &[f32; 4],
-    g0: &[[f32; 2]],
-    g1: &[[f32; 2]],
+    g0: &[G],
+    g1: &[G],
     gx: &mut [f32],
     gy: &mut [f32],
 ) {
@@ -731,8 +944,9 @@ fn bilerp_gradient_row(
     let (a0, a1, b0, b1) = (&g0[..n], &g0[1..=n], &g1[..n], &g1[1..=n]);
     let gy = &mut gy[..n];
     for c in 0..n {
-        gx[c] = bilerp(wt, a0[c][0], a1[c][0], b0[c][0], b1[c][0]);
-        gy[c] = bilerp(wt, a0[c][1], a1[c][1], b0[c][1], b1[c][1]);
+        let (a0, a1, b0, b1) = (a0[c].value(), a1[c].value(), b0[c].value(), b1[c].value());
+        gx[c] = bilerp(wt, a0[0], a1[0], b0[0], b1[0]);
+        gy[c] = bilerp(wt, a0[1], a1[1], b0[1], b1[1]);
     }
 }
 
@@ -802,72 +1016,87 @@ impl<'a, T> Samples<'a, T> {
     }
 }
 
-/// The samples of a window at `o`: the level's own rows when the window is inside it and
-/// `allow_fast`, otherwise the samples folded into the level (reflect-101) and copied into
-/// `image_copy` (and, with the gradient, into `gradient_copy`, zero outside the level).
+/// Where a window at `o` reads from when it lies inside the level and `allow_fast`: the
+/// level's own rows, from the window's top-left sample.
 #[inline(always)]
-fn window_samples<'a>(
-    level: &'a Level,
-    o: &Origin,
-    win: usize,
-    allow_fast: bool,
-    taps: (&mut Vec<Tap>, &mut Vec<Tap>),
-    image_copy: &'a mut Vec<f32>,
-    gradient_copy: Option<&'a mut Vec<[f32; 2]>>,
-) -> (Samples<'a, f32>, Option<Samples<'a, [f32; 2]>>) {
+fn fast_base(level: &Level, o: &Origin, win: usize, allow_fast: bool) -> Option<usize> {
     let (w, h) = (level.width, level.height);
-    if allow_fast && o.inside(win, w, h) {
-        let base = o.iy as usize * w + o.ix as usize;
-        let at = |data| Samples {
-            data,
-            base,
-            stride: w,
-        };
-        let image = at(&level.image[..]);
-        let gradient = gradient_copy.map(|_| Samples {
-            data: &level.gradient[..],
-            base,
-            stride: w,
-        });
-        return (image, gradient);
+    (allow_fast && o.inside(win, w, h)).then(|| o.iy as usize * w + o.ix as usize)
+}
+
+/// The level's rows from `base` (see [`fast_base`]).
+#[inline(always)]
+fn at<T>(data: &[T], base: usize, stride: usize) -> Samples<'_, T> {
+    Samples { data, base, stride }
+}
+
+/// The (win + 1)² image samples of a window, folded into the level (reflect-101) and copied
+/// into `copy` as f32; `cols` and `rows` as [`fill_taps`] made them.
+#[inline(always)]
+fn fold_image<P: Pixel>(data: &[P], w: usize, cols: &[Tap], rows: &[Tap], copy: &mut Vec<f32>) {
+    copy.clear();
+    for r in rows {
+        let row = &data[r.index * w..(r.index + 1) * w];
+        copy.extend(cols.iter().map(|c| row[c.index].value()));
     }
+}
+
+/// [`fold_image`] for the gradient, zero outside the level.
+#[inline(always)]
+fn fold_gradient<G: GradientPixel>(
+    data: &[G],
+    w: usize,
+    cols: &[Tap],
+    rows: &[Tap],
+    copy: &mut Vec<[f32; 2]>,
+) {
+    copy.clear();
+    for r in rows {
+        let row = &data[r.index * w..(r.index + 1) * w];
+        copy.extend(cols.iter().map(|c| {
+            let m = r.inside * c.inside;
+            let g = row[c.index].value();
+            [g[0] * m, g[1] * m]
+        }));
+    }
+}
+
+/// The window's bilinear samples of image and gradient into `patch`, `gx`, `gy` (win × win
+/// each), from rows of (win + 1) samples.
+#[inline(always)]
+fn sample_window<P: Pixel, G: GradientPixel>(
+    wt: &[f32; 4],
+    img: Samples<'_, P>,
+    grad: Samples<'_, G>,
+    win: usize,
+    (patch, gx, gy): (&mut [f32], &mut [f32], &mut [f32]),
+) {
     let n = win + 1;
-    let (cols, rows) = taps;
-    fill_taps(cols, o.ix, n, w);
-    fill_taps(rows, o.iy, n, h);
-    image_copy.clear();
-    for r in rows.iter() {
-        let row = &level.image[r.index * w..(r.index + 1) * w];
-        image_copy.extend(cols.iter().map(|c| row[c.index]));
+    for (r, ((pr, xr), yr)) in patch
+        .chunks_exact_mut(win)
+        .zip(gx.chunks_exact_mut(win))
+        .zip(gy.chunks_exact_mut(win))
+        .enumerate()
+    {
+        bilerp_row(wt, img.row(r, n), img.row(r + 1, n), pr);
+        bilerp_gradient_row(wt, grad.row(r, n), grad.row(r + 1, n), xr, yr);
     }
-    let gradient = gradient_copy.map(|copy| {
-        copy.clear();
-        for r in rows.iter() {
-            let row = &level.gradient[r.index * w..(r.index + 1) * w];
-            copy.extend(cols.iter().map(|c| {
-                let m = r.inside * c.inside;
-                let g = row[c.index];
-                [g[0] * m, g[1] * m]
-            }));
-        }
-        Samples {
-            data: &copy[..],
-            base: 0,
-            stride: n,
-        }
-    });
-    let image = Samples {
-        data: &image_copy[..],
-        base: 0,
-        stride: n,
-    };
-    (image, gradient)
+}
+
+/// The window's bilinear samples of the image into `out` (win × win).
+#[inline(always)]
+fn sample_image<P: Pixel>(wt: &[f32; 4], img: Samples<'_, P>, win: usize, out: &mut [f32]) {
+    let n = win + 1;
+    for (r, jr) in out.chunks_exact_mut(win).enumerate() {
+        bilerp_row(wt, img.row(r, n), img.row(r + 1, n), jr);
+    }
 }
 
 /// Samples the previous level's image and gradient over the window into the scratch buffers
 /// and returns Σ gx², Σ gx·gy, Σ gy². Rows are read as slices of the level when the window is
 /// inside it and `allow_fast` (always, but for the test that both ways agree bit for bit), else
-/// from a folded copy; the arithmetic is the same either way.
+/// from a copy folded into the level (reflect-101; the gradient zero outside); the arithmetic
+/// is the same either way, and so are the values whatever the level's storage.
 #[inline(always)]
 fn extract(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: bool) -> [f64; 3] {
     let Scratch {
@@ -884,28 +1113,33 @@ fn extract(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: b
     patch.resize(area, 0.0);
     gx.resize(area, 0.0);
     gy.resize(area, 0.0);
-    let (img, grad) = window_samples(
-        level,
-        o,
-        win,
-        allow_fast,
-        (cols, rows),
-        edge_image,
-        Some(edge_gradient),
-    );
-    let Some(grad) = grad else {
-        return [0.0; 3];
-    };
-    let n = win + 1;
+    let (w, h) = (level.width, level.height);
     let wt = &o.weights;
-    for (r, ((pr, xr), yr)) in patch
-        .chunks_exact_mut(win)
-        .zip(gx.chunks_exact_mut(win))
-        .zip(gy.chunks_exact_mut(win))
-        .enumerate()
-    {
-        bilerp_row(wt, img.row(r, n), img.row(r + 1, n), pr);
-        bilerp_gradient_row(wt, grad.row(r, n), grad.row(r + 1, n), xr, yr);
+    let out = (&mut patch[..], &mut gx[..], &mut gy[..]);
+    if let Some(base) = fast_base(level, o, win, allow_fast) {
+        match &level.store {
+            Store::Float { image, gradient } => {
+                sample_window(wt, at(image, base, w), at(gradient, base, w), win, out)
+            }
+            Store::Bytes { image, gradient } => {
+                sample_window(wt, at(image, base, w), at(gradient, base, w), win, out)
+            }
+        }
+    } else {
+        let n = win + 1;
+        fill_taps(cols, o.ix, n, w);
+        fill_taps(rows, o.iy, n, h);
+        match &level.store {
+            Store::Float { image, gradient } => {
+                fold_image(image, w, cols, rows, edge_image);
+                fold_gradient(gradient, w, cols, rows, edge_gradient);
+            }
+            Store::Bytes { image, gradient } => {
+                fold_image(image, w, cols, rows, edge_image);
+                fold_gradient(gradient, w, cols, rows, edge_gradient);
+            }
+        }
+        sample_window(wt, at(edge_image, 0, n), at(edge_gradient, 0, n), win, out);
     }
     gradient_sums(gx, gy)
 }
@@ -925,10 +1159,22 @@ fn mismatch(level: &Level, o: &Origin, win: usize, s: &mut Scratch, allow_fast: 
         ..
     } = s;
     next.resize(win * win, 0.0);
-    let (img, _) = window_samples(level, o, win, allow_fast, (cols, rows), edge_image, None);
-    let n = win + 1;
-    for (r, jr) in next.chunks_exact_mut(win).enumerate() {
-        bilerp_row(&o.weights, img.row(r, n), img.row(r + 1, n), jr);
+    let (w, h) = (level.width, level.height);
+    let wt = &o.weights;
+    if let Some(base) = fast_base(level, o, win, allow_fast) {
+        match &level.store {
+            Store::Float { image, .. } => sample_image(wt, at(image, base, w), win, next),
+            Store::Bytes { image, .. } => sample_image(wt, at(image, base, w), win, next),
+        }
+    } else {
+        let n = win + 1;
+        fill_taps(cols, o.ix, n, w);
+        fill_taps(rows, o.iy, n, h);
+        match &level.store {
+            Store::Float { image, .. } => fold_image(image, w, cols, rows, edge_image),
+            Store::Bytes { image, .. } => fold_image(image, w, cols, rows, edge_image),
+        }
+        sample_image(wt, at(edge_image, 0, n), win, next);
     }
     mismatch_sums(next, patch, gx, gy)
 }
@@ -946,14 +1192,20 @@ fn prefetch_window(level: &Level, p: [f64; 2], win: usize, gradient: bool) {
         return;
     }
     let (x, y, w) = (o.ix as usize, o.iy as usize, level.width);
+    /// The bytes of samples `row..=row + win` of `data`.
+    fn span<T>(data: &[T], row: usize, win: usize) -> (*const u8, usize) {
+        let s = &data[row..=row + win];
+        (s.as_ptr().cast(), std::mem::size_of_val(s))
+    }
     for r in y..=y + win {
         let row = r * w + x;
-        prefetch_span(level.image[row..=row + win].as_ptr().cast(), (win + 1) * 4);
+        let (image, grad) = match &level.store {
+            Store::Float { image, gradient } => (span(image, row, win), span(gradient, row, win)),
+            Store::Bytes { image, gradient } => (span(image, row, win), span(gradient, row, win)),
+        };
+        prefetch_span(image.0, image.1);
         if gradient {
-            prefetch_span(
-                level.gradient[row..=row + win].as_ptr().cast(),
-                (win + 1) * 8,
-            );
+            prefetch_span(grad.0, grad.1);
         }
     }
 }
@@ -1777,22 +2029,23 @@ mod tests {
             let level = pyr.level(l + 1).unwrap();
             assert_eq!(level.width() as u64, want["width"].as_u64().unwrap());
             assert_eq!(level.height() as u64, want["height"].as_u64().unwrap());
-            for (a, b) in level.image().iter().zip(numbers(&want["data"])) {
+            for (a, b) in level.image().zip(numbers(&want["data"])) {
                 assert!(
-                    (f64::from(*a) - b).abs() <= 1e-3,
+                    (f64::from(a) - b).abs() <= 1e-3,
                     "level {}: {a} vs {b}",
                     l + 1
                 );
             }
         }
-        let g = pyr.level(0).unwrap().gradient();
+        let l0 = pyr.level(0).unwrap();
         for (i, (dx, dy)) in numbers(&f["scharr_dx"])
             .into_iter()
             .zip(numbers(&f["scharr_dy"]))
             .enumerate()
         {
-            assert!((f64::from(g[i][0]) - dx).abs() <= 1e-3, "dx at {i}");
-            assert!((f64::from(g[i][1]) - dy).abs() <= 1e-3, "dy at {i}");
+            let g = l0.gradient_at(i);
+            assert!((f64::from(g[0]) - dx).abs() <= 1e-3, "dx at {i}");
+            assert!((f64::from(g[1]) - dy).abs() <= 1e-3, "dy at {i}");
         }
     }
 
@@ -2023,27 +2276,197 @@ mod tests {
     }
 
     /// The run-time chosen build of the kernels (AVX2 where the CPU has it) and the portable
-    /// one agree bit for bit: pyramids, positions and eigenvalues, inside and at the edges.
+    /// one agree bit for bit: pyramids, positions and eigenvalues, inside and at the edges, for
+    /// f32 frames and for 8-bit ones (level 0 as bytes).
     #[test]
     fn kernel_builds_agree_bit_for_bit() {
         let b = blobs(4, 200.0);
-        let prev = Pyramid::build(&textured(181, 143, &b, [0.0, 0.0]), 4);
-        let next = Pyramid::build(&textured(181, 143, &b, [1.3, -0.6]), 4);
-        let mut levels = prev.levels.clone();
-        for l in &mut levels[1..] {
-            l.image.fill(0.0);
+        let float = |t| Pyramid::build(&textured(181, 143, &b, t), 4);
+        let bytes = |t| {
+            let f = textured(181, 143, &b, t);
+            let d: Vec<u8> = f.data().iter().map(|&v| v.round() as u8).collect();
+            Pyramid::from_u8(181, 143, &d, 4).unwrap()
+        };
+        for (prev, next) in [
+            (float([0.0, 0.0]), float([1.3, -0.6])),
+            (bytes([0.0, 0.0]), bytes([1.3, -0.6])),
+        ] {
+            let mut levels = prev.levels.clone();
+            for (i, l) in levels.iter_mut().enumerate() {
+                match &mut l.store {
+                    Store::Float { image, gradient } => {
+                        if i > 0 {
+                            image.fill(0.0);
+                        }
+                        gradient.fill([0.0; 2]);
+                    }
+                    Store::Bytes { gradient, .. } => gradient.fill([0; 2]),
+                }
+            }
+            filter_levels_portable(&mut levels);
+            assert_eq!(levels, prev.levels);
+            let params = LkParams::default();
+            for p in [[90.3, 70.6], [3.2, 5.9], [175.5, 140.1], [60.0, 2.5]] {
+                let (mut s1, mut s2) = (Scratch::default(), Scratch::default());
+                let a = step_with(&prev, &next, p, &params, &mut s1);
+                let c = step_portable(&prev, &next, p, &params, &mut s2);
+                assert_eq!(a, c, "{p:?}");
+            }
         }
-        for l in &mut levels {
-            l.gradient.fill([0.0; 2]);
+    }
+
+    /// Scharr as the f32 code computed it before level 0 of an 8-bit frame was kept in
+    /// integers, one pixel at a time: [3 10 3] across, the difference along, times 1/32, in
+    /// that order, reflect-101.
+    fn scharr_reference(img: &[f32], w: usize, h: usize) -> Vec<[f32; 2]> {
+        let px = |x: isize, y: isize| img[reflect101(y, h) * w + reflect101(x, w)];
+        let mut out = Vec::with_capacity(w * h);
+        for y in 0..h as isize {
+            for x in 0..w as isize {
+                let t0 = |x| (px(x, y - 1) + px(x, y + 1)) * 3.0 + px(x, y) * 10.0;
+                let t1 = |x| px(x, y + 1) - px(x, y - 1);
+                out.push([
+                    (t0(x + 1) - t0(x - 1)) * (1.0 / 32.0),
+                    ((t1(x + 1) + t1(x - 1)) * 3.0 + t1(x) * 10.0) * (1.0 / 32.0),
+                ]);
+            }
         }
-        filter_levels_portable(&mut levels);
-        assert_eq!(levels, prev.levels);
-        let params = LkParams::default();
-        for p in [[90.3, 70.6], [3.2, 5.9], [175.5, 140.1], [60.0, 2.5]] {
-            let (mut s1, mut s2) = (Scratch::default(), Scratch::default());
-            let a = step_with(&prev, &next, p, &params, &mut s1);
-            let c = step_portable(&prev, &next, p, &params, &mut s2);
-            assert_eq!(a, c, "{p:?}");
+        out
+    }
+
+    /// 8-bit test frames: random bytes, and 0/255 stripes and checks that reach the largest
+    /// sums (±4080), in sizes down to one pixel.
+    fn byte_frames() -> Vec<(usize, usize, Vec<u8>)> {
+        let mut out = Vec::new();
+        let mut s = 7u64;
+        for (w, h) in [(1, 1), (1, 5), (4, 1), (2, 3), (3, 2), (97, 61), (181, 143)] {
+            let random = (0..w * h)
+                .map(|_| (splitmix(&mut s) * 256.0) as u8)
+                .collect();
+            out.push((w, h, random));
+        }
+        let (w, h) = (40, 30);
+        let pattern = |f: &dyn Fn(usize, usize) -> bool| -> Vec<u8> {
+            (0..w * h)
+                .map(|i| if f(i % w, i / w) { 255 } else { 0 })
+                .collect()
+        };
+        out.push((w, h, pattern(&|x, _| x % 4 < 2)));
+        out.push((w, h, pattern(&|_, y| y % 4 >= 2)));
+        out.push((w, h, pattern(&|x, y| (x / 2 + y / 2) % 2 == 0)));
+        out.push((w, h, pattern(&|x, y| x > 20 && y > 15)));
+        out
+    }
+
+    /// Level 0 of an 8-bit frame kept as bytes with i16 Scharr sums reads back exactly the f32
+    /// gradient of the former computation, bit for bit (sign of zero included), and every
+    /// level equals the all-f32 pyramid's.
+    #[test]
+    fn byte_level_zero_equals_the_f32_computation_bit_for_bit() {
+        for (w, h, d) in byte_frames() {
+            let p = Pyramid::from_u8(w, h, &d, 4).unwrap();
+            let l0 = p.level(0).unwrap();
+            assert!(matches!(l0.store, Store::Bytes { .. }));
+            assert_eq!(l0.bytes(), w * h * 5);
+            let img: Vec<f32> = d.iter().map(|&v| f32::from(v)).collect();
+            let want = scharr_reference(&img, w, h);
+            for (i, g) in l0.gradient().enumerate() {
+                assert_eq!(
+                    g.map(f32::to_bits),
+                    want[i].map(f32::to_bits),
+                    "{w}x{h} at {i}"
+                );
+            }
+            let mut float = Pyramid { levels: Vec::new() };
+            float.rebuild_float(&GrayFrame::new(w, h, img).unwrap(), 4);
+            assert!(matches!(float.levels[0].store, Store::Float { .. }));
+            assert_eq!(p.levels(), float.levels());
+            for (a, b) in p.levels.iter().zip(&float.levels) {
+                assert_eq!((a.width, a.height), (b.width, b.height));
+                let bits = |l: &Level| -> Vec<u32> {
+                    l.image()
+                        .map(f32::to_bits)
+                        .chain(l.gradient().flat_map(|g| g.map(f32::to_bits)))
+                        .collect()
+                };
+                assert_eq!(bits(a), bits(b), "{w}x{h}");
+            }
+        }
+        // Pyramid::build of a frame of whole grey levels takes the byte path too; −0.0, a
+        // fraction or 256 keep f32.
+        let f = GrayFrame::from_u8(3, 2, &[0, 1, 2, 253, 254, 255]).unwrap();
+        assert!(matches!(
+            Pyramid::build(&f, 1).levels[0].store,
+            Store::Bytes { .. }
+        ));
+        for v in [-0.0, 0.5, 256.0, -1.0] {
+            let f = GrayFrame::new(2, 1, vec![3.0, v]).unwrap();
+            assert!(matches!(
+                Pyramid::build(&f, 1).levels[0].store,
+                Store::Float { .. }
+            ));
+        }
+    }
+
+    /// Tracking on pyramids with level 0 as bytes gives exactly what it gives on the all-f32
+    /// pyramids of the same frames: every step, inside, at the edges and off the frame, and
+    /// the border path agrees with the fast one on byte levels.
+    #[test]
+    fn byte_pyramids_track_exactly_as_f32_ones() {
+        let b = blobs(9, 200.0);
+        let frame = |t| {
+            let f = textured(181, 143, &b, t);
+            let d: Vec<u8> = f
+                .data()
+                .iter()
+                .map(|&v| v.round().clamp(0.0, 255.0) as u8)
+                .collect();
+            d
+        };
+        let float = |d: &[u8]| {
+            let mut p = Pyramid { levels: Vec::new() };
+            p.rebuild_float(&GrayFrame::from_u8(181, 143, d).unwrap(), 4);
+            p
+        };
+        let (d0, d1) = (frame([0.0, 0.0]), frame([2.7, -1.4]));
+        let (b0, b1) = (
+            Pyramid::from_u8(181, 143, &d0, 4).unwrap(),
+            Pyramid::from_u8(181, 143, &d1, 4).unwrap(),
+        );
+        let (f0, f1) = (float(&d0), float(&d1));
+        let mut s = 3u64;
+        let mut points: Vec<[f64; 2]> = (0..200)
+            .map(|_| {
+                [
+                    splitmix(&mut s) * 190.0 - 4.0,
+                    splitmix(&mut s) * 152.0 - 4.0,
+                ]
+            })
+            .collect();
+        points.extend([[0.0, 0.0], [180.0, 142.0], [-0.5, 70.0], [90.5, 71.25]]);
+        let tp = TrackParams::default();
+        for p in points {
+            let a = track_forward_backward(&b0, &b1, p, &tp).unwrap();
+            let c = track_forward_backward(&f0, &f1, p, &tp).unwrap();
+            assert_eq!(format!("{a:?}"), format!("{c:?}"), "{p:?}");
+        }
+        let win = 21;
+        for p in [[40.3, 30.7], [10.6, 10.5], [150.0, 120.25]] {
+            let o = origin(p, 10.0, win, 181, 143).unwrap();
+            let (mut s1, mut s2, mut s3) =
+                (Scratch::default(), Scratch::default(), Scratch::default());
+            let g1 = extract(b0.level(0).unwrap(), &o, win, &mut s1, true);
+            let g2 = extract(b0.level(0).unwrap(), &o, win, &mut s2, false);
+            let g3 = extract(f0.level(0).unwrap(), &o, win, &mut s3, true);
+            assert_eq!(g1, g2);
+            assert_eq!(g1, g3);
+            assert_eq!((&s1.patch, &s1.gx, &s1.gy), (&s2.patch, &s2.gx, &s2.gy));
+            assert_eq!((&s1.patch, &s1.gx, &s1.gy), (&s3.patch, &s3.gx, &s3.gy));
+            let m1 = mismatch(b1.level(0).unwrap(), &o, win, &mut s1, true);
+            let m2 = mismatch(b1.level(0).unwrap(), &o, win, &mut s2, false);
+            let m3 = mismatch(f1.level(0).unwrap(), &o, win, &mut s3, true);
+            assert_eq!(m1, m2);
+            assert_eq!(m1, m3);
         }
     }
 
@@ -2172,8 +2595,8 @@ mod tests {
         // A constant frame stays constant with zero gradient on every level.
         for l in 0..p.levels() {
             let level = p.level(l).unwrap();
-            assert!(level.image().iter().all(|&v| v == 7.0));
-            assert!(level.gradient().iter().all(|g| *g == [0.0, 0.0]));
+            assert!(level.image().all(|v| v == 7.0));
+            assert!(level.gradient().all(|g| g == [0.0, 0.0]));
         }
         let f = GrayFrame::new(5, 3, vec![1.0; 15]).unwrap();
         let p = Pyramid::build(&f, 100);
