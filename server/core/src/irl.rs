@@ -1326,10 +1326,9 @@ pub struct RewardFit {
     pub reward_map: RewardMap,
 }
 
-/// Every check [`fit_reward`] makes before it starts fitting (grid, features, paths, the demos'
-/// moves and the size of the value table), without fitting: what a server asks before it
-/// queues the work.
-pub fn check_input(input: &RewardFitInput) -> Result<(), IrlError> {
+/// The grid, features and demo paths of a fit's input (the checks of [`fit_reward`] but the
+/// last, the objective's own).
+fn prepare(input: &RewardFitInput) -> Result<(Grid, Features, Vec<Vec<usize>>), IrlError> {
     let grid = Grid::new(&input.grid)?;
     let features = Features::new(&grid, &input.features)?;
     if input.demos.is_empty() {
@@ -1341,6 +1340,14 @@ pub fn check_input(input: &RewardFitInput) -> Result<(), IrlError> {
         .enumerate()
         .map(|(i, d)| path_states(&grid, d, input.collapse_repeats, &format!("demos[{i}]")))
         .collect::<Result<Vec<_>, _>>()?;
+    Ok((grid, features, demos))
+}
+
+/// Every check [`fit_reward`] makes before it starts fitting (grid, features, paths, the demos'
+/// moves and the size of the value table), without fitting: what a server asks before it
+/// queues the work.
+pub fn check_input(input: &RewardFitInput) -> Result<(), IrlError> {
+    let (grid, features, demos) = prepare(input)?;
     MaxEnt::new(&grid, &features, demos).map(|_| ())
 }
 
@@ -1354,17 +1361,7 @@ pub fn fit_reward(
     if !(settings.l2.is_finite() && settings.l2 >= 0.0) {
         return Err(invalid("l2", "must be a non-negative number"));
     }
-    let grid = Grid::new(&input.grid)?;
-    let features = Features::new(&grid, &input.features)?;
-    if input.demos.is_empty() {
-        return Err(IrlError::NoDemos);
-    }
-    let demos = input
-        .demos
-        .iter()
-        .enumerate()
-        .map(|(i, d)| path_states(&grid, d, input.collapse_repeats, &format!("demos[{i}]")))
-        .collect::<Result<Vec<_>, _>>()?;
+    let (grid, features, demos) = prepare(input)?;
     let mut problem = MaxEnt::new(&grid, &features, demos)?;
     let f = fit(&mut problem, settings, &mut |r| {
         on_progress(&Progress::Iteration(*r))
