@@ -74,7 +74,7 @@ pub(super) async fn show(
 ) -> Result<Response, PageError> {
     let who = &signed.who;
     let row = demos::load(&state, who, &id).await?;
-    let demo = demos::view(&state, who, &row.id).await?;
+    let demo = demos::view_of(&state, row.clone()).await?;
     let camera = cameras::load(&state, who, &row.camera_id).await?;
     let all = tracks::all(&state, who, &row.id).await?;
     let running = tracks::running(&state, who, &row.id).await?;

@@ -235,7 +235,11 @@ pub async fn load(state: &AppState, who: &Principal, id: &str) -> ServiceResult<
 
 /// A demo with its frames, as served.
 pub async fn view(state: &AppState, who: &Principal, id: &str) -> ServiceResult<DemoView> {
-    let d = load(state, who, id).await?;
+    view_of(state, load(state, who, id).await?).await
+}
+
+/// [`view`] of a demo already loaded (and authorised by its team).
+pub async fn view_of(state: &AppState, d: DemoRow) -> ServiceResult<DemoView> {
     let frames = store::demos::frames(&state.store, &d.id).await?;
     Ok(DemoView {
         author: d.author,

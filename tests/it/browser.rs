@@ -210,6 +210,35 @@ async fn save(d: &WebDriver, note: &str, revision: i64) {
     .await;
 }
 
+/// A headless browser against a fresh server on SQLite, whose first owner has signed up through
+/// the start-up link; `None` (after the SKIP line) without Chromium.
+struct Stage {
+    a: WebDriver,
+    s: Server,
+    shots: PathBuf,
+    work: tempfile::TempDir,
+    db: TestDb,
+    driver: Driver,
+}
+
+async fn stage(test: &str, db_name: &str, extra: &[&str], owner: [&str; 3]) -> Option<Stage> {
+    let driver = chromedriver(test)?;
+    let db = fresh_db(Db::Sqlite, db_name).await.expect("sqlite");
+    let (s, link) = start_with_link(&db.url, &db.data_dir, extra);
+    let work = tempfile::tempdir().unwrap();
+    let a = browser(&driver, &work.path().join("a")).await;
+    let [name, login, password] = owner;
+    sign_up(&a, &link, name, login, password).await;
+    Some(Stage {
+        a,
+        s,
+        shots: screenshots(),
+        work,
+        db,
+        driver,
+    })
+}
+
 /// The first owner's sign-up through the start-up link; ends on the team home.
 async fn sign_up(d: &WebDriver, link: &str, name: &str, login: &str, password: &str) {
     d.goto(link).await.unwrap();
@@ -240,19 +269,24 @@ fn close(a: [f64; 2], b: &Value, tol: f64) -> bool {
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn editor_end_to_end() {
-    let Some(driver) = chromedriver("editor_end_to_end") else {
+    // The first owner signs up through the start-up link, signs out, and signs in again.
+    let Some(Stage {
+        a,
+        s,
+        shots,
+        work,
+        db: _db,
+        driver,
+    }) = stage(
+        "editor_end_to_end",
+        "editor_end_to_end",
+        &[],
+        ["Tamsin Greeve", "tamsin", "potting bench 1"],
+    )
+    .await
+    else {
         return;
     };
-    let db = fresh_db(Db::Sqlite, "editor_end_to_end")
-        .await
-        .expect("sqlite");
-    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
-    let shots = screenshots();
-    let work = tempfile::tempdir().unwrap();
-    let a = browser(&driver, &work.path().join("a")).await;
-
-    // The first owner signs up through the start-up link, signs out, and signs in again.
-    sign_up(&a, &link, "Tamsin Greeve", "tamsin", "potting bench 1").await;
     click(&a, "form[action='/signout'] button").await;
     wait_js(&a, "return location.pathname === '/signin';", "signed out").await;
     sign_in(&a, &s.base, "tamsin", "potting bench 1").await;
@@ -697,16 +731,23 @@ async fn editor_end_to_end() {
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn editor_and_overlay_wear_the_same_marks() {
     use goalsmith::draw::marks;
-    let Some(driver) = chromedriver("editor_and_overlay_wear_the_same_marks") else {
+    let Some(Stage {
+        a,
+        s,
+        shots: _,
+        work: _work,
+        db: _db,
+        driver: _driver,
+    }) = stage(
+        "editor_and_overlay_wear_the_same_marks",
+        "editor_vs_overlay",
+        &[],
+        ["Ilse Marten", "ilse", "seed trays at noon"],
+    )
+    .await
+    else {
         return;
     };
-    let db = fresh_db(Db::Sqlite, "editor_vs_overlay")
-        .await
-        .expect("sqlite");
-    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
-    let work = tempfile::tempdir().unwrap();
-    let a = browser(&driver, &work.path().join("a")).await;
-    sign_up(&a, &link, "Ilse Marten", "ilse", "seed trays at noon").await;
     let api = s.token("my team", "editor");
 
     // A 320 × 240 frame, dark to light, with a camera that has both kinds of zone.
@@ -998,17 +1039,23 @@ async fn demo_page_end_to_end() {
     const H: u32 = 240;
     const FRAMES: usize = 24;
     const STEP: [f64; 2] = [1.5, 0.75];
-    let Some(driver) = chromedriver("demo_page_end_to_end") else {
+    let Some(Stage {
+        a,
+        s,
+        shots,
+        work,
+        db: _db,
+        driver: _driver,
+    }) = stage(
+        "demo_page_end_to_end",
+        "demo_page_end_to_end",
+        &[],
+        ["Ilse Marrow", "ilse", "seed trays 22"],
+    )
+    .await
+    else {
         return;
     };
-    let db = fresh_db(Db::Sqlite, "demo_page_end_to_end")
-        .await
-        .expect("sqlite");
-    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
-    let shots = screenshots();
-    let work = tempfile::tempdir().unwrap();
-    let a = browser(&driver, &work.path().join("a")).await;
-    sign_up(&a, &link, "Ilse Marrow", "ilse", "seed trays 22").await;
     let api = s.token("my team", "editor");
     let (st, cam) = s
         .post(
@@ -1346,17 +1393,23 @@ async fn demo_scenario_on_the_demo_page() {
     // `serve --demo`: the team home lists the painted demonstrations; the first one's page
     // shows the track started at load once it has run, and plays. Screenshots:
     // target/screenshots/demo-scenario-*.png.
-    let Some(driver) = chromedriver("demo_scenario_on_the_demo_page") else {
+    let Some(Stage {
+        a,
+        s: _s,
+        shots,
+        work: _work,
+        db: _db,
+        driver: _driver,
+    }) = stage(
+        "demo_scenario_on_the_demo_page",
+        "demo_scenario_page",
+        &["--demo"],
+        ["Ilse Marrow", "ilse", "seed trays 22"],
+    )
+    .await
+    else {
         return;
     };
-    let db = fresh_db(Db::Sqlite, "demo_scenario_page")
-        .await
-        .expect("sqlite");
-    let (_s, link) = start_with_link(&db.url, &db.data_dir, &["--demo"]);
-    let shots = screenshots();
-    let work = tempfile::tempdir().unwrap();
-    let a = browser(&driver, &work.path().join("a")).await;
-    sign_up(&a, &link, "Ilse Marrow", "ilse", "seed trays 22").await;
     let names = js(
         &a,
         "return [...document.querySelectorAll('a.demo-link')].map((a) => a.textContent).sort();",

@@ -42,6 +42,7 @@
 use crate::cost::{CostModel, CostPoint, CostSettings, MapBatch, Metric, Mode, Steps, TargetShape};
 use crate::distance::{self, Mask};
 use crate::geometry::{PixelPoint, Polygon};
+use crate::rng::SplitMix64;
 use half::f16;
 use half::slice::HalfFloatSliceExt;
 use std::hint::black_box;
@@ -135,23 +136,6 @@ pub fn run(name: &str) -> Result<Vec<BenchRow>, String> {
             "unknown benchmark {other:?}; known: {}",
             NAMES.join(", ")
         )),
-    }
-}
-
-/// SplitMix64 (Steele, Lea & Flood 2014): the k-th call returns output k of `seed`.
-struct SplitMix64(u64);
-
-impl SplitMix64 {
-    fn next_u64(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    /// Uniform in [0, 1) with 53 random bits.
-    fn next_f64(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
     }
 }
 

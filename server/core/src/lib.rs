@@ -19,4 +19,5 @@ pub mod irl;
 pub mod names;
 pub mod npy;
 pub mod rigid;
+pub mod rng;
 pub mod track;

@@ -8,24 +8,8 @@ use goalsmith_core::irl::{
     PathSample, Progress, RewardFitInput, StopReason,
 };
 
-/// SplitMix64 (Steele, Lea & Flood 2014), the tests' only source of randomness.
-struct Rng(u64);
-
-impl Rng {
-    fn next_u64(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-    fn uniform(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64)
-    }
-    fn below(&mut self, n: usize) -> usize {
-        (self.uniform() * n as f64) as usize % n
-    }
-}
+// SplitMix64 (Steele, Lea & Flood 2014) is the tests' only source of randomness.
+use goalsmith_core::rng::SplitMix64 as Rng;
 
 fn poly(pts: &[[f64; 2]]) -> Polygon {
     Polygon::new(
@@ -128,10 +112,10 @@ fn small_problem(cols: u32, rows: u32, remove: bool, w_scale: f64, seed: u64) ->
     let grid = Grid::new(&spec).unwrap();
     assert_eq!(grid.states(), (cols * rows) as usize - usize::from(remove));
     let k = 3;
-    let raw: Vec<f64> = (0..grid.states() * k).map(|_| rng.uniform()).collect();
+    let raw: Vec<f64> = (0..grid.states() * k).map(|_| rng.next_f64()).collect();
     let features = Features::from_raw(k, raw);
     let w: Vec<f64> = (0..k)
-        .map(|_| w_scale * (2.0 * rng.uniform() - 1.0))
+        .map(|_| w_scale * (2.0 * rng.next_f64() - 1.0))
         .collect();
     let mut demos = Vec::new();
     for horizon in [2, 6, 0, 2 + rng.below(5)] {
@@ -293,7 +277,7 @@ fn sample_demos(
             let mut path = vec![s];
             for t in 0..horizon {
                 let probs = values.policy(grid, horizon - t, s);
-                let u = rng.uniform();
+                let u = rng.next_f64();
                 let mut acc = 0.0;
                 let nb = grid.neighbours(s);
                 let mut next = nb[nb.len() - 1] as usize;
