@@ -16,6 +16,8 @@ pub const FILES: &[(&str, &[u8])] = &[
     ("compare.js", include_bytes!("../web/static/compare.js")),
     ("demo.js", include_bytes!("../web/static/demo.js")),
     ("editor.js", include_bytes!("../web/static/editor.js")),
+    ("fit.js", include_bytes!("../web/static/fit.js")),
+    ("ops.js", include_bytes!("../web/static/ops.js")),
     ("site.css", include_bytes!("../web/static/site.css")),
     ("site.js", include_bytes!("../web/static/site.js")),
     ("view.js", include_bytes!("../web/static/view.js")),

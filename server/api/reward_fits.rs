@@ -4,7 +4,7 @@ use super::error::ServiceResult;
 use super::extract::JsonBody;
 use crate::service::AppState;
 use crate::service::auth::Principal;
-use crate::service::reward_fits::{self, NewRewardFit, RewardFitView, Started};
+use crate::service::reward_fits::{self, NewRewardFit, RewardFitSummary, RewardFitView, Started};
 use axum::Json;
 use axum::extract::{Path, State};
 use axum::http::{StatusCode, header};
@@ -20,6 +20,16 @@ pub async fn start(
         StatusCode::ACCEPTED,
         Json(reward_fits::start(&state, &who, input).await?),
     ))
+}
+
+/// `GET /api/reward-fits`: the team's fits, newest first.
+pub async fn list(
+    State(state): State<AppState>,
+    who: Principal,
+) -> ServiceResult<Json<super::Items<RewardFitSummary>>> {
+    Ok(Json(super::Items {
+        items: reward_fits::list(&state, &who).await?,
+    }))
 }
 
 /// `GET /api/reward-fits/{id}`.
@@ -39,4 +49,22 @@ pub async fn reward_map_npy(
 ) -> ServiceResult<Response> {
     let bytes = reward_fits::reward_map_npy(&state, &who, &id).await?;
     Ok(([(header::CONTENT_TYPE, "application/x-npy")], bytes).into_response())
+}
+
+/// `GET /api/reward-fits/{id}/reward-map.png`: the reward heat on the fit's frame with the
+/// demos drawn, 409 until the fit has run.
+pub async fn reward_map_png(
+    State(state): State<AppState>,
+    who: Principal,
+    Path(id): Path<String>,
+) -> ServiceResult<Response> {
+    let bytes = reward_fits::reward_map_png(&state, &who, &id).await?;
+    Ok((
+        [
+            ("content-type", "image/png"),
+            (super::CAUTION_HEADER, crate::SAFETY_CAUTION),
+        ],
+        bytes,
+    )
+        .into_response())
 }

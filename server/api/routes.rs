@@ -268,10 +268,14 @@ pub fn table() -> Vec<Route> {
         Route::post("/api/reward-fits", "Start a reward fit: maximum-entropy inverse RL over the frame's cells (cell_px) with linear features, from tracks of demos of the frame's camera or paths drawn by hand; everything is checked before the operation is queued", reward_fits::start)
             .json_body::<service::reward_fits::NewRewardFit>()
             .ok::<service::reward_fits::Started>(202, "the fit, with the operation that runs it", &[]),
+        Route::get("/api/reward-fits", "The team's reward fits, newest first (at most 200), with their main figures once run", reward_fits::list)
+            .ok::<super::Items<service::reward_fits::RewardFitSummary>>(200, "the fits", &[]),
         Route::get("/api/reward-fits/{id}", "A reward fit: its settings, and once it has run its weights, diagnostics (log-likelihood per move, held-out and uniform-walk figures) and the reward's argmax", reward_fits::get_one)
             .ok::<service::reward_fits::RewardFitView>(200, "the fit", &[]),
         Route::get("/api/reward-fits/{id}/reward-map.npy", "The fitted reward per cell, float32 NPY of shape (rows, cols); 409 until the fit has run", reward_fits::reward_map_npy)
             .ok_binary(&["application/x-npy"], "the reward map", &[]),
+        Route::get("/api/reward-fits/{id}/reward-map.png", "The fitted reward as a heat over the fit's frame (the learned term's cost, in the editor's cost heat: sky where the reward is highest), with the demonstrations drawn and the best cell marked; 409 until the fit has run", reward_fits::reward_map_png)
+            .ok_binary(&["image/png"], "the reward map on the frame", &[]),
         Route::get("/api/operations/{id}", "A long-running operation: kind, progress 0..1, done, error or result", operations::get_one)
             .ok::<service::operations::OperationView>(200, "the operation", &[]),
         Route::get("/api/operations/{id}/events", "The operation as server-sent events (event `operation`, data as GET), each time it changes, until it is done", operations::events)

@@ -1,5 +1,5 @@
-//! Drawing: the overlay PNG of a goal on its frame, the editor's cost-heat colours, and the
-//! marking code the browser draws with too.
+//! Drawing: the overlay PNG of a goal on its frame, the reward map of a fit on its frame, the
+//! editor's cost-heat colours, and the marking code the browser draws with too.
 //!
 //! Paths, strokes, dashes and fills are tiny-skia's; text is DejaVu Sans (embedded, read with
 //! ab_glyph). Everything is in frame pixel coordinates: x to the right, y down, the centre of
@@ -29,9 +29,11 @@ pub mod marks;
 mod overlay;
 pub mod palette;
 mod place;
+mod reward;
 mod text;
 
 pub use overlay::{OverlayItem, ZoneKind, goal_items, render_overlay, unit_for_frame};
+pub use reward::{DemoPath, render_reward_map};
 
 #[cfg(test)]
 mod tests;

@@ -48,6 +48,9 @@ pub(super) struct SetRow {
     pub when: String,
 }
 
+/// Reward fits listed on the home page (the newest).
+const HOME_FITS: usize = 12;
+
 #[derive(Template)]
 #[template(path = "home.html")]
 struct HomePage {
@@ -58,6 +61,7 @@ struct HomePage {
     goals: Vec<GoalRow>,
     sets: Vec<SetRow>,
     demos: Vec<super::demos::DemoCard>,
+    fits: Vec<super::fits::FitCard>,
     can_edit: bool,
     uploaded: bool,
     frame_limit_mb: usize,
@@ -198,6 +202,7 @@ pub(super) async fn home(
         .into_iter()
         .filter(|d| matches(&q, &d.camera) || matches(&q, &d.name))
         .collect();
+    let fits = super::fits::cards(&state, &signed, HOME_FITS).await?;
     let page = HomePage {
         chrome: Chrome::signed(&state, &signed, &headers, "home").await,
         q,
@@ -206,6 +211,7 @@ pub(super) async fn home(
         goals,
         sets,
         demos,
+        fits,
         can_edit: signed.can_edit(),
         uploaded: !fresh.is_empty(),
         frame_limit_mb: state.limits.frame_upload_bytes >> 20,

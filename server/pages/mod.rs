@@ -10,6 +10,7 @@ pub mod account;
 pub mod compare;
 pub mod demos;
 pub mod error;
+pub mod fits;
 pub mod goals;
 pub mod home;
 
@@ -47,6 +48,8 @@ pub fn router() -> Router<AppState> {
         .route("/", get(home::home))
         .route("/cameras", post(home::create_camera))
         .route("/demos/{id}", get(demos::show))
+        .route("/fits/new", get(fits::new_fit))
+        .route("/fits/{id}", get(fits::show))
         .route("/goals/new", get(goals::new_goal))
         .route("/goals/{id}", get(goals::editor))
         .route("/goals/{id}/history", get(goals::history))

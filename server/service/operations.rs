@@ -29,6 +29,12 @@ const IDLE: Duration = Duration::from_millis(200);
 // Fields in alphabetical order, as every typed view of the API.
 #[derive(Debug, Clone, PartialEq, Serialize, JsonSchema)]
 pub struct OperationView {
+    /// What the work says about itself beyond its progress, while and after it runs: for
+    /// `reward_fit`, `{stage, iteration, log_likelihood_per_step, grad_norm, trace}` (`stage`
+    /// is `fit`, then `held_out` with `fold` and `folds`; `trace` holds
+    /// `[iteration, log_likelihood_per_step, grad_norm]` for each iteration so far).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub detail: Option<Value>,
     /// Whether it has ended (succeeded, failed or cancelled).
     pub done: bool,
     /// Why it failed.
@@ -50,6 +56,10 @@ pub struct OperationView {
 
 pub(super) fn view(op: &OperationRow) -> OperationView {
     OperationView {
+        detail: op
+            .detail
+            .as_deref()
+            .and_then(|d| serde_json::from_str(d).ok()),
         done: op.state.is_done(),
         error: op.error.clone(),
         id: op.id.clone(),
@@ -97,6 +107,8 @@ pub(super) async fn queue(
 pub struct Progress {
     value: Arc<AtomicU64>,
     stop: Arc<AtomicBool>,
+    /// The latest detail, and whether a heartbeat has carried it yet.
+    detail: Arc<std::sync::Mutex<(Option<String>, bool)>>,
 }
 
 impl Progress {
@@ -107,6 +119,22 @@ impl Progress {
     }
     fn get(&self) -> f64 {
         f64::from_bits(self.value.load(Ordering::Relaxed))
+    }
+    /// Sets what the work says about itself beyond its progress (served as the operation's
+    /// `detail`); the next heartbeat stores it.
+    pub fn set_detail(&self, detail: &Value) {
+        if let Ok(mut d) = self.detail.lock() {
+            *d = (Some(detail.to_string()), false);
+        }
+    }
+    /// The detail not yet stored, if any; marks it stored.
+    fn take_new_detail(&self) -> Option<String> {
+        let mut d = self.detail.lock().ok()?;
+        if d.1 {
+            return None;
+        }
+        d.1 = true;
+        d.0.clone()
     }
     /// Whether the work should stop (cancelled, or no longer this worker's).
     pub fn stopped(&self) -> bool {
@@ -178,7 +206,15 @@ async fn run_one(state: &AppState, worker: &str, op: OperationRow) {
     let ended = loop {
         tokio::select! {
             r = &mut work => break Some(r),
-            _ = beat.tick() => match ops::heartbeat(&state.store, &op.id, worker, progress.get()).await {
+            _ = beat.tick() => match ops::heartbeat(
+                &state.store,
+                &op.id,
+                worker,
+                progress.get(),
+                progress.take_new_detail().as_deref(),
+            )
+            .await
+            {
                 Ok(Some(true)) => progress.halt(),
                 Ok(Some(false)) => {}
                 // Given up as stale and perhaps claimed elsewhere: stop and record nothing.
@@ -193,6 +229,13 @@ async fn run_one(state: &AppState, worker: &str, op: OperationRow) {
     let Some(ended) = ended else {
         return;
     };
+    // The last detail the work gave, so the final event carries it too.
+    if let Some(detail) = progress.take_new_detail()
+        && let Err(e) =
+            ops::heartbeat(&state.store, &op.id, worker, progress.get(), Some(&detail)).await
+    {
+        tracing::warn!(error = %e, operation = %op.id, "cannot record an operation's detail");
+    }
     let (state_to, result, error) = match ended {
         Ok(v) => (OpState::Succeeded, Some(v.to_string()), None),
         Err(RunError::Stopped) => (OpState::Cancelled, None, None),

@@ -422,6 +422,8 @@ pub struct RewardFitView {
     pub demos: usize,
     /// Features, by name, in weight order.
     pub feature_names: Vec<String>,
+    /// The features as submitted, in weight order.
+    pub features: Vec<FeatureInput>,
     /// The frame.
     pub frame_id: String,
     /// |∇f|₂ at the weights.
@@ -468,6 +470,73 @@ pub struct RewardFitView {
     pub weights: Option<Vec<f64>>,
 }
 
+/// A fit in a list: where it stands and its main figures, without its trace and weights.
+// Fields in alphabetical order, as every typed view of the API.
+#[derive(Debug, Clone, Serialize, JsonSchema)]
+pub struct RewardFitSummary {
+    /// Who started it.
+    pub author: String,
+    /// Side of a cell, pixels.
+    pub cell_px: u32,
+    /// Created, RFC 3339 UTC.
+    pub created_at: String,
+    /// Number of demonstrations.
+    pub demos: usize,
+    /// Features, by name, in weight order.
+    pub feature_names: Vec<String>,
+    /// Whether the fit has run (its result and reward map exist).
+    pub finished: bool,
+    /// The frame.
+    pub frame_id: String,
+    /// Leave-one-out log-likelihood per move, once run (3 or more demos).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub held_out_log_likelihood_per_step: Option<f64>,
+    /// Fit id.
+    pub id: String,
+    /// Log-likelihood per move of all demos at the weights, once run.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub log_likelihood_per_step: Option<f64>,
+    /// The operation that runs it.
+    pub operation_id: String,
+}
+
+/// Most fits [`list`] returns.
+pub const LIST_LIMIT: i64 = 200;
+
+/// The team's fits, newest first (at most [`LIST_LIMIT`]).
+pub async fn list(state: &AppState, who: &Principal) -> ServiceResult<Vec<RewardFitSummary>> {
+    let rows = store::reward_fits::list(&state.store, &who.team_id, LIST_LIMIT).await?;
+    rows.into_iter()
+        .map(|row| {
+            let s = settings_of(&row)?;
+            let r: Option<ResultDoc> = row
+                .result
+                .as_deref()
+                .map(serde_json::from_str)
+                .transpose()
+                .map_err(|e| {
+                    ServiceError::Internal(format!("fit {} result unreadable: {e}", row.id))
+                })?;
+            Ok(RewardFitSummary {
+                author: row.author,
+                cell_px: s.cell_px,
+                created_at: rfc3339(row.created_at),
+                demos: s.demos.len(),
+                feature_names: s.features.iter().map(FeatureInput::name).collect(),
+                finished: r.is_some(),
+                frame_id: row.frame_id,
+                held_out_log_likelihood_per_step: r
+                    .as_ref()
+                    .and_then(|r| r.held_out.as_ref())
+                    .map(|h| h.log_likelihood_per_step),
+                id: row.id,
+                log_likelihood_per_step: r.as_ref().map(|r| r.log_likelihood_per_step),
+                operation_id: row.operation_id,
+            })
+        })
+        .collect()
+}
+
 fn settings_of(row: &RewardFitRow) -> ServiceResult<Settings> {
     serde_json::from_str(&row.settings)
         .map_err(|e| ServiceError::Internal(format!("fit {} unreadable: {e}", row.id)))
@@ -504,6 +573,7 @@ pub async fn view(state: &AppState, who: &Principal, id: &str) -> ServiceResult<
         created_at: rfc3339(row.created_at),
         demos: s.demos.len(),
         feature_names: s.features.iter().map(FeatureInput::name).collect(),
+        features: s.features.clone(),
         frame_id: row.frame_id,
         grad_norm: r.map(|r| r.grad_norm),
         held_out_log_likelihood_per_step: r
@@ -527,22 +597,71 @@ pub async fn view(state: &AppState, who: &Principal, id: &str) -> ServiceResult<
     })
 }
 
-/// The reward map as NPY: float32 (rows, cols), once the fit has run (409 before).
-pub async fn reward_map_npy(state: &AppState, who: &Principal, id: &str) -> ServiceResult<Vec<u8>> {
-    let row = load(state, who, id).await?;
+/// The values of a stored reward map: float32 little-endian, row-major.
+fn map_values(bytes: &[u8]) -> Vec<f32> {
+    bytes
+        .chunks_exact(4)
+        .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+        .collect()
+}
+
+/// A finished fit's result and reward map, or `None` while it has not run.
+fn finished(row: &RewardFitRow) -> ServiceResult<Option<(ResultDoc, Vec<f32>)>> {
     let (Some(result), Some(map)) = (row.result.as_deref(), row.reward_map.as_deref()) else {
-        return Err(ServiceError::Conflict(
-            "the fit has not finished yet; follow its operation".into(),
-        ));
+        return Ok(None);
     };
     let r: ResultDoc = serde_json::from_str(result)
         .map_err(|e| ServiceError::Internal(format!("fit {} result unreadable: {e}", row.id)))?;
-    let values: Vec<f32> = map
-        .chunks_exact(4)
-        .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
-        .collect();
+    Ok(Some((r, map_values(map))))
+}
+
+fn not_finished() -> ServiceError {
+    ServiceError::Conflict("the fit has not finished yet; follow its operation".into())
+}
+
+/// The reward map as NPY: float32 (rows, cols), once the fit has run (409 before).
+pub async fn reward_map_npy(state: &AppState, who: &Principal, id: &str) -> ServiceResult<Vec<u8>> {
+    let row = load(state, who, id).await?;
+    let (r, values) = finished(&row)?.ok_or_else(not_finished)?;
     goalsmith_core::npy::write_f32(&[r.rows, r.cols], &values)
         .map_err(|e| ServiceError::Internal(e.to_string()))
+}
+
+/// The reward map as a PNG of the fit's frame: the heat of the `learned` cost, the demos as
+/// fitted and the best cell (see `draw::render_reward_map`), carrying the safety caution like
+/// every picture the server makes. 409 until the fit has run.
+pub async fn reward_map_png(state: &AppState, who: &Principal, id: &str) -> ServiceResult<Vec<u8>> {
+    let row = load(state, who, id).await?;
+    let settings = settings_of(&row)?;
+    let (r, values) = finished(&row)?.ok_or_else(not_finished)?;
+    let frame = frames::load(state, who, &row.frame_id).await?;
+    let (_, image) = store::frames::image_bytes(&state.store, &frame.sha256)
+        .await?
+        .ok_or_else(|| ServiceError::Internal(format!("image of frame {} missing", frame.id)))?;
+    let grid = RewardGrid::new(settings.cell_px, r.cols, r.rows, values)
+        .map_err(|e| ServiceError::Internal(format!("fit {}: {e}", row.id)))?;
+    let demos: Vec<crate::draw::DemoPath> = settings
+        .demos
+        .iter()
+        .map(|d| {
+            d.samples
+                .iter()
+                .map(|&(x, y, lost)| (!lost).then_some([x, y]))
+                .collect()
+        })
+        .collect();
+    let permit = state.heavy_permits.acquire().await?;
+    tokio::task::spawn_blocking(move || {
+        let _permit = permit;
+        let frame = image::load_from_memory(&image)
+            .map_err(|e| ServiceError::Internal(format!("stored frame unreadable: {e}")))?
+            .to_rgba8();
+        let drawn = crate::draw::render_reward_map(&frame, &grid, &demos, r.reward_argmax);
+        crate::scoring::encode_png_with_caution(drawn.width(), drawn.height(), drawn.as_raw())
+            .map_err(|e| ServiceError::Internal(e.to_string()))
+    })
+    .await
+    .map_err(|e| ServiceError::Internal(e.to_string()))?
 }
 
 /// The reward grids of the finished fits among `ids` that are the team's and on `frame_id`, by
@@ -566,21 +685,29 @@ pub async fn grids_for<'a>(
         if row.frame_id != frame_id {
             continue;
         }
-        let (Some(result), Some(map)) = (row.result.as_deref(), row.reward_map.as_deref()) else {
+        let Some((r, values)) = finished(&row)? else {
             continue;
         };
         let settings = settings_of(&row)?;
-        let r: ResultDoc = serde_json::from_str(result)
-            .map_err(|e| ServiceError::Internal(format!("fit {id} result unreadable: {e}")))?;
-        let values: Vec<f32> = map
-            .chunks_exact(4)
-            .map(|b| f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
-            .collect();
         let grid = RewardGrid::new(settings.cell_px, r.cols, r.rows, values)
             .map_err(|e| ServiceError::Internal(format!("fit {id}: {e}")))?;
         out.insert(raw.to_string(), std::sync::Arc::new(grid));
     }
     Ok(out)
+}
+
+/// A number for JSON, or null where it is not finite (JSON has no infinities).
+fn finite_or_null(x: f64) -> Value {
+    if x.is_finite() { json!(x) } else { Value::Null }
+}
+
+fn trace_json(trace: &[[f64; 3]]) -> Value {
+    Value::Array(
+        trace
+            .iter()
+            .map(|&[i, ll, g]| json!([i as usize, finite_or_null(ll), finite_or_null(g)]))
+            .collect(),
+    )
 }
 
 fn stop_name(s: irl::StopReason) -> &'static str {
@@ -617,14 +744,41 @@ pub(super) async fn run(
     let cap = fit_settings.lbfgs.max_iterations.max(1) as f64;
     let p = progress.clone();
     let fitted = tokio::task::spawn_blocking(move || {
+        // The fit's trace so far, streamed as the operation's detail.
+        let mut trace: Vec<[f64; 3]> = Vec::new();
+        let mut last = None::<irl::IterationReport>;
         irl::fit_reward(&fit_input, &fit_settings, &mut |event| {
             match event {
                 // The main fit is the first half of the bar, the folds the second.
                 irl::Progress::Iteration(r) => {
                     p.set((r.iteration as f64 / cap).min(1.0) * 0.5);
+                    trace.push([
+                        r.iteration as f64,
+                        r.log_likelihood_per_step,
+                        r.grad_norm,
+                    ]);
+                    last = Some(*r);
+                    p.set_detail(&json!({
+                        "stage": "fit",
+                        "iteration": r.iteration,
+                        "log_likelihood_per_step": finite_or_null(r.log_likelihood_per_step),
+                        "grad_norm": finite_or_null(r.grad_norm),
+                        "trace": trace_json(&trace),
+                    }));
                 }
                 irl::Progress::HeldOutFold { fold, folds } => {
                     p.set(0.5 + 0.5 * *fold as f64 / (*folds).max(1) as f64);
+                    if let Some(r) = last {
+                        p.set_detail(&json!({
+                            "stage": "held_out",
+                            "fold": fold,
+                            "folds": folds,
+                            "iteration": r.iteration,
+                            "log_likelihood_per_step": finite_or_null(r.log_likelihood_per_step),
+                            "grad_norm": finite_or_null(r.grad_norm),
+                            "trace": trace_json(&trace),
+                        }));
+                    }
                 }
             }
             if p.stopped() {

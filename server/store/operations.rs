@@ -75,10 +75,12 @@ pub struct OperationRow {
     pub cancel_requested: bool,
     /// Created, unix ms.
     pub created_at: i64,
+    /// What the work says about itself beyond its progress, JSON (see migration 0010).
+    pub detail: Option<String>,
 }
 
 const COLUMNS: &str = "id, team_id, kind, state, input, progress, result, error, attempts, \
-                       cancel_requested, created_at";
+                       cancel_requested, created_at, detail";
 
 fn from_row(r: &AnyRow) -> Result<OperationRow> {
     Ok(OperationRow {
@@ -93,6 +95,7 @@ fn from_row(r: &AnyRow) -> Result<OperationRow> {
         attempts: r.get(8),
         cancel_requested: r.get::<i64, _>(9) != 0,
         created_at: r.get(10),
+        detail: r.get(11),
     })
 }
 
@@ -185,18 +188,33 @@ pub async fn heartbeat(
     id: &str,
     worker: &str,
     progress: f64,
+    detail: Option<&str>,
 ) -> Result<Option<bool>> {
-    let row = sqlx::query(
-        "UPDATE operations SET heartbeat_at = $1, progress = $2 \
-         WHERE id = $3 AND worker = $4 AND state = 'running' RETURNING cancel_requested",
-    )
-    .bind(now_ms())
-    .bind(progress)
-    .bind(id)
-    .bind(worker)
-    .fetch_optional(store.pool())
-    .await
-    .map_err(classify)?;
+    // Two statements rather than a NULL parameter: the Any driver's NULLs carry a type of
+    // their own (see DEVELOPERS.md), and a heartbeat without news leaves the detail as it was.
+    let query = match detail {
+        Some(d) => sqlx::query(
+            "UPDATE operations SET heartbeat_at = $1, progress = $2, detail = $5 \
+             WHERE id = $3 AND worker = $4 AND state = 'running' RETURNING cancel_requested",
+        )
+        .bind(now_ms())
+        .bind(progress)
+        .bind(id)
+        .bind(worker)
+        .bind(d.to_string()),
+        None => sqlx::query(
+            "UPDATE operations SET heartbeat_at = $1, progress = $2 \
+             WHERE id = $3 AND worker = $4 AND state = 'running' RETURNING cancel_requested",
+        )
+        .bind(now_ms())
+        .bind(progress)
+        .bind(id)
+        .bind(worker),
+    };
+    let row = query
+        .fetch_optional(store.pool())
+        .await
+        .map_err(classify)?;
     Ok(row.map(|r| r.get::<i64, _>(0) != 0))
 }
 

@@ -100,3 +100,30 @@ pub async fn put_result(store: &Store, id: &str, result: &str, reward_map: &[u8]
         .map_err(classify)?;
     Ok(())
 }
+
+/// A team's fits, newest first, at most `limit`, without their reward maps (`reward_map` is
+/// `None` in every row; `get` has it).
+pub async fn list(store: &Store, team_id: &str, limit: i64) -> Result<Vec<RewardFitRow>> {
+    let rows = sqlx::query(
+        "SELECT id, team_id, frame_id, operation_id, settings, result, author, created_at \
+         FROM reward_fits WHERE team_id = $1 ORDER BY created_at DESC, id LIMIT $2",
+    )
+    .bind(team_id)
+    .bind(limit)
+    .fetch_all(store.pool())
+    .await?;
+    Ok(rows
+        .iter()
+        .map(|r| RewardFitRow {
+            id: r.get(0),
+            team_id: r.get(1),
+            frame_id: r.get(2),
+            operation_id: r.get(3),
+            settings: r.get(4),
+            result: r.get(5),
+            reward_map: None,
+            author: r.get(6),
+            created_at: r.get(7),
+        })
+        .collect())
+}

@@ -308,6 +308,18 @@ async fn matrix(s: Server) {
         ),
         (
             Method::GET,
+            format!("/api/reward-fits/{fit}/reward-map.png"),
+            Body::None,
+            [unauth, nf, ok, ok, ok],
+        ),
+        (
+            Method::GET,
+            "/api/reward-fits".into(),
+            Body::None,
+            [unauth, ok, ok, ok, ok],
+        ),
+        (
+            Method::GET,
             format!("/api/demos/{demo}"),
             Body::None,
             [unauth, nf, ok, ok, ok],

@@ -1475,3 +1475,309 @@ async fn demo_scenario_on_the_demo_page() {
         .unwrap();
     a.quit().await.ok();
 }
+
+/// The fit page's view: (zoom, pan x, pan y, canvas left, canvas top) in CSS px.
+async fn fit_view(d: &WebDriver) -> [f64; 5] {
+    let v = js(
+        d,
+        "const v = window.fitPage.view; const r = document.getElementById('fit-canvas').getBoundingClientRect(); return [v.z, v.px, v.py, r.left, r.top];",
+    )
+    .await;
+    let f = |i: usize| v[i].as_f64().expect("number");
+    [f(0), f(1), f(2), f(3), f(4)]
+}
+
+/// The viewport pixel over frame point (x, y) of the fit canvas, and the frame point that pixel
+/// really is: x = (cx − px)/z − 0.5.
+async fn fit_pixel(d: &WebDriver, x: f64, y: f64) -> ([i64; 2], [f64; 2]) {
+    let [z, px, py, left, top] = fit_view(d).await;
+    let vx = (left + px + (x + 0.5) * z).round();
+    let vy = (top + py + (y + 0.5) * z).round();
+    (
+        [vx as i64, vy as i64],
+        [(vx - left - px) / z - 0.5, (vy - top - py) / z - 0.5],
+    )
+}
+
+async fn click_fit(d: &WebDriver, x: f64, y: f64) -> [f64; 2] {
+    let (px, at) = fit_pixel(d, x, y).await;
+    d.action_chain()
+        .move_to(px[0], px[1])
+        .click()
+        .perform()
+        .await
+        .expect("click on the fit canvas");
+    at
+}
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn reward_fit_pages_end_to_end() {
+    // Tracks of a demo (started over the API) → the fit page: the tracks ticked, a path drawn,
+    // features placed with the tools → the fit runs → its page: the log-likelihood plot, the
+    // held-out figures and the reward map → a goal with a learned term made there → its cost
+    // maps and bundle. Screenshots: target/screenshots/fit-*.png.
+    const W: u32 = 320;
+    const H: u32 = 240;
+    const FRAMES: usize = 16;
+    const STEP: [f64; 2] = [2.0, 1.0];
+    let Some(Stage {
+        a,
+        s,
+        shots,
+        work: _work,
+        db: _db,
+        driver: _driver,
+    }) = stage(
+        "reward_fit_pages_end_to_end",
+        "reward_fit_pages_end_to_end",
+        &[],
+        ["Oona Pettersen", "oona", "watering mat 7"],
+    )
+    .await
+    else {
+        return;
+    };
+    let api = s.token("my team", "editor");
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&api),
+            &json!({"name": "potting bench", "width": W, "height": H}),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{cam}");
+    let cam = cam["id"].as_str().expect("camera").to_string();
+    let (st, frame) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/frames"),
+            Some(&api),
+            "image/png",
+            texture_frame(W, H, [0.0, 0.0]),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{frame}");
+    let frame = frame["id"].as_str().expect("frame").to_string();
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos?name=trays%20slide%20right"),
+            Some(&api),
+            "application/zip",
+            texture_demo_zip(W, H, FRAMES, STEP),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().expect("demo").to_string();
+    for (label, x, y) in [
+        ("tray a", 70.0, 55.0),
+        ("tray b", 95.0, 70.0),
+        ("tray c", 60.0, 75.0),
+    ] {
+        let (st, started) = s
+            .post(
+                &format!("/api/demos/{demo}/tracks"),
+                Some(&api),
+                &json!({"label": label, "frame": 0, "x": x, "y": y}),
+            )
+            .await;
+        assert_eq!(st, reqwest::StatusCode::ACCEPTED, "{started}");
+        let op = operation_done(&s, &api, started["operation_id"].as_str().expect("op")).await;
+        assert_eq!(op["state"], "succeeded", "{op}");
+    }
+
+    // From the demo page's link to the fit page, with the demo's tracks ticked.
+    a.goto(format!("{}/demos/{demo}", s.base)).await.unwrap();
+    click(&a, "#fit-from-demo").await;
+    wait_js(
+        &a,
+        "return location.pathname === '/fits/new' && document.getElementById('fit')?.dataset.ready === '1' && !!document.getElementById('fit').dataset.picture;",
+        "the fit page with its frame",
+    )
+    .await;
+    assert_eq!(
+        js(&a, "return document.getElementById('fit').dataset.demos;").await,
+        json!("3"),
+        "the demo's three tracks are ticked"
+    );
+    // A path drawn by dragging along the top of the frame, towards where the trays go.
+    let (from, _) = fit_pixel(&a, 40.0, 30.0).await;
+    let (mid, _) = fit_pixel(&a, 90.0, 50.0).await;
+    let (to, _) = fit_pixel(&a, 130.0, 70.0).await;
+    click(&a, ".tool[data-tool=path]").await;
+    a.action_chain()
+        .move_to(from[0], from[1])
+        .click_and_hold()
+        .move_to(mid[0], mid[1])
+        .move_to(to[0], to[1])
+        .release()
+        .perform()
+        .await
+        .expect("drag a path");
+    wait_js(
+        &a,
+        "return document.getElementById('fit').dataset.demos === '4';",
+        "the drawn path listed",
+    )
+    .await;
+    // Features: the distance to where the trays end up, a bump there, and an area clicked
+    // corner by corner and closed with Enter.
+    click(&a, ".tool[data-tool=distance_to]").await;
+    let goal_at = click_fit(&a, 110.0, 80.0).await;
+    click(&a, ".tool[data-tool=rbf]").await;
+    fill(&a, "#rbf-sigma", "25").await;
+    let bump_at = click_fit(&a, 110.0, 80.0).await;
+    click(&a, ".tool[data-tool=inside]").await;
+    let mut corners = Vec::new();
+    for (x, y) in [(200.0, 150.0), (300.0, 150.0), (300.0, 220.0), (200.0, 220.0)] {
+        corners.push(click_fit(&a, x, y).await);
+    }
+    a.find(By::Id("fit-canvas"))
+        .await
+        .unwrap()
+        .send_keys(thirtyfour::Key::Enter)
+        .await
+        .unwrap();
+    wait_js(
+        &a,
+        "return document.getElementById('fit').dataset.features === '3';",
+        "three features",
+    )
+    .await;
+    fill(&a, "#cell-px", "10").await;
+    let readout = js(&a, "return document.getElementById('grid-readout').value;").await;
+    assert_eq!(readout, json!("32 × 24 = 768 cells"), "{readout}");
+    a.screenshot(&shots.join("fit-new.png")).await.unwrap();
+    click(&a, "#start-fit").await;
+
+    // The fit's page: it runs, and shows its trace, figures and map.
+    wait_js(
+        &a,
+        "return location.pathname.startsWith('/fits/') && document.getElementById('fit')?.dataset.state === 'succeeded' && (document.getElementById('fit').dataset.picture || '').endsWith('reward-map.png');",
+        "the finished fit with its reward map",
+    )
+    .await;
+    let fit_id = js(
+        &a,
+        "return location.pathname.slice('/fits/'.length);",
+    )
+    .await
+    .as_str()
+    .expect("fit id")
+    .to_string();
+    let (st, fit) = s
+        .get(&format!("/api/reward-fits/{fit_id}"), Some(&api))
+        .await;
+    assert_eq!(st, reqwest::StatusCode::OK, "{fit}");
+    assert_eq!(fit["demos"], 4, "{fit}");
+    assert_eq!(fit["cell_px"], 10);
+    // The features are where the clicks landed, by the page's pixel convention.
+    let f = &fit["features"];
+    assert_eq!(f[0]["kind"], "distance_to");
+    assert!(close(goal_at, &f[0]["point"], 1e-9), "{f}");
+    assert_eq!(f[1]["kind"], "rbf");
+    assert!(close(bump_at, &f[1]["center"], 1e-9), "{f}");
+    assert_eq!(f[1]["sigma_px"], 25.0);
+    assert_eq!(f[2]["kind"], "inside");
+    for (k, c) in corners.iter().enumerate() {
+        assert!(close(*c, &f[2]["polygon"][k], 1e-9), "{f}");
+    }
+    // Every iteration of the trace is plotted; the held-out figures sit beside the walk's.
+    let iterations = fit["iterations"].as_u64().expect("iterations");
+    assert_eq!(
+        js(&a, "return document.getElementById('fit').dataset.plotted;").await,
+        json!((iterations + 1).to_string())
+    );
+    let plotted = js(
+        &a,
+        "return document.querySelector('#trace-plot polyline').getAttribute('points').trim().split(/\\s+/).length;",
+    )
+    .await;
+    assert_eq!(plotted, json!(iterations + 1));
+    let figures = js(&a, "return document.getElementById('figures').textContent;").await;
+    let figures = figures.as_str().expect("figures");
+    assert!(figures.contains("Held out, each demo left out in turn"), "{figures}");
+    assert!(figures.contains("better than a random walk by"), "{figures}");
+    let weights = js(
+        &a,
+        "return [...document.querySelectorAll('#weights tr')].map((r) => r.cells[0].textContent);",
+    )
+    .await;
+    assert_eq!(weights, fit["feature_names"]);
+    a.screenshot(&shots.join("fit-result.png")).await.unwrap();
+
+    // A goal with a learned term, its point clicked on the reward map.
+    let source = click_fit(&a, 70.0, 55.0).await;
+    fill(&a, "#term-goal-name", "trays where the demos take them").await;
+    fill(&a, "#term-label", "tray a").await;
+    click(&a, "#make-term").await;
+    wait_js(
+        &a,
+        "return location.pathname.startsWith('/goals/') && !!document.getElementById('editor');",
+        "the new goal's editor",
+    )
+    .await;
+    let goal = js(&a, "return location.pathname.slice('/goals/'.length);")
+        .await
+        .as_str()
+        .expect("goal id")
+        .to_string();
+    let (st, rev) = s
+        .get(&format!("/api/goals/{goal}/revisions/1"), Some(&api))
+        .await;
+    assert_eq!(st, reqwest::StatusCode::OK, "{rev}");
+    let term = &rev["document"]["terms"][0];
+    assert_eq!(term["kind"], "learned", "{rev}");
+    assert_eq!(term["reward_fit_id"], fit_id.as_str());
+    assert_eq!(rev["document"]["frame_id"], frame.as_str());
+    let typed = [
+        (source[0] * 10.0).round() / 10.0,
+        (source[1] * 10.0).round() / 10.0,
+    ];
+    assert!(close(typed, &term["source"], 1e-9), "{term}");
+
+    // Its cost maps are the fit's learned cost; its bundle downloads.
+    let (st, npy) = get_bytes(
+        &s,
+        &format!("/api/reward-fits/{fit_id}/reward-map.npy"),
+        &api,
+    )
+    .await;
+    assert_eq!(st, reqwest::StatusCode::OK);
+    let reward = goalsmith_core::npy::read(&npy, 1 << 20).expect("npy");
+    let reward = reward.as_f32().expect("f32");
+    let max = reward.iter().fold(f32::NEG_INFINITY, |m, &v| m.max(v));
+    let (st, maps) = get_bytes(
+        &s,
+        &format!("/api/goals/{goal}/revisions/1/cost-maps.npy"),
+        &api,
+    )
+    .await;
+    assert_eq!(st, reqwest::StatusCode::OK);
+    let maps = goalsmith_core::npy::read(&maps, 1 << 24).expect("maps");
+    assert_eq!(maps.header.shape, vec![1, H as usize, W as usize]);
+    let maps = maps.as_f32().expect("f32");
+    for (j, i) in [(0usize, 0usize), (55, 70), (80, 110), (239, 319), (150, 200)] {
+        let cell = (j / 10) * 32 + i / 10;
+        assert_eq!(
+            maps[j * W as usize + i],
+            (f64::from(max) - f64::from(reward[cell])) as f32,
+            "pixel ({i}, {j})"
+        );
+    }
+    let (st, bundle) = get_bytes(
+        &s,
+        &format!("/api/goals/{goal}/revisions/1/bundle.zip"),
+        &api,
+    )
+    .await;
+    assert_eq!(st, reqwest::StatusCode::OK);
+    assert!(bundle.starts_with(b"PK"), "a ZIP");
+
+    // The fit is listed on the team home.
+    a.goto(&s.base).await.unwrap();
+    let listed = js(
+        &a,
+        &format!("return !!document.querySelector('a.fit-link[href=\"/fits/{fit_id}\"]');"),
+    )
+    .await;
+    assert_eq!(listed, json!(true));
+}

@@ -411,6 +411,17 @@ async fn scenario(s: &Server) -> Vec<Sample> {
     )
     .await;
     c.call(
+        M::GET,
+        "/api/reward-fits/{id}/reward-map.png",
+        &format!("/api/reward-fits/{fit}/reward-map.png"),
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(M::GET, "/api/reward-fits", "/api/reward-fits", v, Req::None, &[])
+        .await;
+    c.call(
         M::PUT,
         "/api/demos/{id}/tracks/{track_id}/samples/{frame}",
         &format!("/api/demos/{demo}/tracks/{track}/samples/1"),

@@ -102,7 +102,7 @@ async fn stale_and_cancel(kind: Db) {
         .expect("op");
     assert_eq!(op.id, id);
     assert_eq!(
-        operations::heartbeat(&store, &id, "w1", 0.25)
+        operations::heartbeat(&store, &id, "w1", 0.25, None)
             .await
             .expect("beat"),
         Some(false)
@@ -123,7 +123,7 @@ async fn stale_and_cancel(kind: Db) {
     assert_eq!(again.progress, 0.25, "progress so far is kept");
     // w1 has lost it: its heartbeats and its finish change nothing.
     assert_eq!(
-        operations::heartbeat(&store, &id, "w1", 0.5)
+        operations::heartbeat(&store, &id, "w1", 0.5, Some("{\"x\":1}"))
             .await
             .expect("beat"),
         None
@@ -195,7 +195,7 @@ async fn stale_and_cancel(kind: Db) {
             .expect("cancel")
     );
     assert_eq!(
-        operations::heartbeat(&store, &running, "w4", 0.1)
+        operations::heartbeat(&store, &running, "w4", 0.1, None)
             .await
             .expect("beat"),
         Some(true),

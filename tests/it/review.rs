@@ -178,18 +178,6 @@ fn token_create_refuses_blank_and_overlong_team_names() {
     assert!(!long_label.status.success());
 }
 
-/// The PNG tEXt chunks of a PNG, keyword → text.
-fn png_text(bytes: &[u8]) -> Vec<(String, String)> {
-    let decoder = png::Decoder::new(std::io::Cursor::new(bytes));
-    let reader = decoder.read_info().expect("png");
-    reader
-        .info()
-        .uncompressed_latin1_text
-        .iter()
-        .map(|t| (t.keyword.clone(), t.text.clone()))
-        .collect()
-}
-
 const CAUTION_HEADER: &str = "x-goalsmith-caution";
 
 async fn caution_travels_with_every_export(s: Server) {

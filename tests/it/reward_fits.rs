@@ -160,6 +160,77 @@ async fn fits(s: Server) {
         .expect("values");
     assert_eq!(best, 9 * 16 + 12, "{values:?}");
 
+    // What the operation streamed while it ran ends with the fit's own trace, line for line.
+    let streamed = op["detail"]["trace"].as_array().expect("detail trace");
+    assert_eq!(streamed.len(), trace.len(), "{op}");
+    for (a, b) in streamed.iter().zip(trace) {
+        assert_eq!(a[0], b["iteration"]);
+        assert_eq!(a[1], b["log_likelihood_per_step"]);
+        assert_eq!(a[2], b["grad_norm"]);
+    }
+    assert_eq!(op["detail"]["stage"], "held_out", "{op}");
+
+    // The reward map as a picture: the frame's size, the caution inside, and most pixels the
+    // editor's cost heat of its cell's learned cost blended over the frame (the rest, about a
+    // quarter on this small frame, are the seven demos' paths and the best cell's mark).
+    let (st, png_bytes) = get_bytes(
+        &s,
+        &format!("/api/reward-fits/{id}/reward-map.png"),
+        &viewer,
+    )
+    .await;
+    assert_eq!(st, StatusCode::OK);
+    assert!(
+        png_text(&png_bytes)
+            .iter()
+            .any(|(k, t)| k == "Warning" && t == goalsmith::SAFETY_CAUTION)
+    );
+    let picture = image::load_from_memory(&png_bytes).expect("png").to_rgba8();
+    if let Ok(dir) = std::env::var("GOALSMITH_TEST_DUMP") {
+        picture.save(format!("{dir}/reward-map.png")).expect("dump");
+    }
+    assert_eq!(picture.dimensions(), (W, H));
+    let (st, frame_png) = get_bytes(&s, &format!("/api/frames/{frame}/image"), &viewer).await;
+    assert_eq!(st, StatusCode::OK);
+    let under = image::load_from_memory(&frame_png).expect("frame").to_rgba8();
+    let (lo, hi) = values.iter().fold((f32::INFINITY, f32::NEG_INFINITY), |(l, h), &v| {
+        (l.min(v), h.max(v))
+    });
+    let mut heat_pixels = 0usize;
+    for (i, j, p) in picture.enumerate_pixels() {
+        let v = values[(j as usize / 10) * 16 + i as usize / 10];
+        let t = f64::from(hi - v) / f64::from(hi - lo);
+        let [r, g, b, a] = goalsmith::draw::palette::heat(t, false);
+        let alpha = f64::from(a) / 255.0;
+        let base = under.get_pixel(i, j).0;
+        let want = [r, g, b]
+            .into_iter()
+            .zip(base)
+            .map(|(c, u)| (f64::from(c) * alpha + f64::from(u) * (1.0 - alpha)).round());
+        if want.zip(p.0).all(|(w, got)| (w - f64::from(got)).abs() <= 1.0) {
+            heat_pixels += 1;
+        }
+    }
+    let all = (W * H) as usize;
+    assert!(
+        heat_pixels * 10 >= all * 7,
+        "{heat_pixels} of {all} pixels show their cell's heat"
+    );
+
+    // The team's fits, newest first, this one among them with its figures.
+    let (st, list) = s.get("/api/reward-fits", Some(&viewer)).await;
+    assert_eq!(st, StatusCode::OK, "{list}");
+    let listed = list["items"]
+        .as_array()
+        .expect("items")
+        .iter()
+        .find(|f| f["id"] == id.as_str())
+        .expect("listed")
+        .clone();
+    assert_eq!(listed["finished"], true);
+    assert_eq!(listed["log_likelihood_per_step"], fit["log_likelihood_per_step"]);
+    assert_eq!(listed["feature_names"], fit["feature_names"]);
+
     // A `learned` term on the fit: its cost at a point is the best reward minus the reward of
     // the point's cell (cell ⌊(x + 0.5)/10⌋, ⌊(y + 0.5)/10⌋), at the frame's size and, exactly,
     // at any other.
@@ -347,13 +418,17 @@ async fn a_queued_fit_has_no_map_and_can_be_cancelled() {
         .await;
     assert_eq!(st, StatusCode::OK);
     assert!(fit.get("weights").is_none(), "{fit}");
-    let (st, err) = s
-        .get(
-            &format!("/api/reward-fits/{id}/reward-map.npy"),
-            Some(&editor),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CONFLICT, "{err}");
+    for map in ["reward-map.npy", "reward-map.png"] {
+        let (st, err) = s
+            .get(&format!("/api/reward-fits/{id}/{map}"), Some(&editor))
+            .await;
+        assert_eq!(st, StatusCode::CONFLICT, "{map}: {err}");
+        assert_eq!(err["error"]["code"], "conflict", "{err}");
+    }
+    let (st, list) = s.get("/api/reward-fits", Some(&editor)).await;
+    assert_eq!(st, StatusCode::OK);
+    assert_eq!(list["items"][0]["id"], id, "{list}");
+    assert_eq!(list["items"][0]["finished"], false, "{list}");
     let (st, v) = s
         .post(
             &format!("/api/operations/{op}/cancel"),

@@ -545,3 +545,15 @@ pub fn sample_at(track: &Value, frame: i64) -> Value {
         .cloned()
         .unwrap_or_else(|| panic!("no sample at frame {frame} in {track}"))
 }
+
+/// The PNG tEXt chunks of a PNG, keyword → text.
+pub fn png_text(bytes: &[u8]) -> Vec<(String, String)> {
+    let decoder = png::Decoder::new(std::io::Cursor::new(bytes));
+    let reader = decoder.read_info().expect("png");
+    reader
+        .info()
+        .uncompressed_latin1_text
+        .iter()
+        .map(|t| (t.keyword.clone(), t.text.clone()))
+        .collect()
+}

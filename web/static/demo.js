@@ -10,8 +10,10 @@
 //
 // Everything the page changes goes through the JSON API with the session cookie and the
 // X-CSRF-Token header: starting a track, correcting a sample, making the goal. Operations are
-// followed over server-sent events (`/api/operations/{id}/events`), with polling as a fallback.
+// followed over server-sent events (`/api/operations/{id}/events`), with polling as a fallback
+// (ops.js).
 import { csrfToken, apiErrorText } from './site.js';
+import { followOperation, cancelOperation } from './ops.js';
 import { View, Obstacles, css, cased, drawMark, sourceMark, drawLabel, drawZones, INKS, SIZES, TRACKS } from './view.js';
 
 const $ = (id) => document.getElementById(id);
@@ -33,7 +35,7 @@ const state = {
   selected: null, // track id
   drag: null, // {track, x, y, moved}
   tracks: data.tracks.map(indexTrack),
-  running: new Map(), // operation id -> {track_id, li, source, timer}
+  running: new Map(), // operation id -> {trackId, li, follow}
 };
 
 /** A track from the API with its samples indexed by frame. */
@@ -336,61 +338,30 @@ function watch(operationId, trackId, what) {
   stop.type = 'button';
   stop.className = 'quiet small';
   stop.textContent = 'Stop';
-  stop.addEventListener('click', async () => {
+  stop.addEventListener('click', () => {
     stop.disabled = true;
-    await fetch(`/api/operations/${operationId}/cancel`, {
-      method: 'POST',
-      headers: { 'X-CSRF-Token': csrfToken() },
-      credentials: 'same-origin',
-    });
+    cancelOperation(operationId);
+  });
   });
   li.append(label, bar, out);
   if (canEdit) li.append(stop);
   $('running-list').appendChild(li);
-  const entry = { trackId, li, source: null, timer: null };
+  const entry = { trackId, li, follow: null };
   state.running.set(operationId, entry);
-
-  const update = (op) => {
+  entry.follow = followOperation(operationId, (op) => {
     bar.value = op.progress;
     li.dataset.progress = String(op.progress);
     li.dataset.state = op.state;
     out.textContent = `${Math.round(op.progress * 100)} %`;
     if (op.done) finish(operationId, op);
-  };
-  if (window.EventSource) {
-    const es = new EventSource(`/api/operations/${operationId}/events`);
-    entry.source = es;
-    es.addEventListener('operation', (e) => {
-      try {
-        update(JSON.parse(e.data));
-      } catch (_) { /* a malformed event is skipped */ }
-    });
-    es.onerror = () => {
-      es.close();
-      entry.source = null;
-      if (state.running.has(operationId)) poll(operationId, update);
-    };
-  } else {
-    poll(operationId, update);
-  }
-}
-
-function poll(operationId, update) {
-  const entry = state.running.get(operationId);
-  if (!entry) return;
-  entry.timer = setTimeout(async () => {
-    const resp = await fetch(`/api/operations/${operationId}`, { credentials: 'same-origin' });
-    if (resp.ok) update(await resp.json());
-    if (state.running.has(operationId)) poll(operationId, update);
-  }, 500);
+  });
 }
 
 async function finish(operationId, op) {
   const entry = state.running.get(operationId);
   if (!entry) return;
   state.running.delete(operationId);
-  if (entry.source) entry.source.close();
-  if (entry.timer) clearTimeout(entry.timer);
+  entry.follow.stop();
   const out = entry.li.querySelector('output');
   entry.li.classList.add('done');
   entry.li.querySelector('button')?.remove();
