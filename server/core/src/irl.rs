@@ -17,6 +17,7 @@
 //! The exact definitions are in the "Reward fits" section of `docs/conventions.md`.
 
 pub mod lbfgs;
+pub mod sample;
 
 use crate::geometry::Polygon;
 pub use lbfgs::{Control, LbfgsSettings, StopReason};
