@@ -129,9 +129,8 @@ mod tests {
             let mix = |c: u8| (f64::from(c) * a + 255.0 * (1.0 - a)).round() as i32;
             [mix(r), mix(g), mix(b)]
         };
-        let near = |p: [u8; 4], want: [i32; 3]| {
-            (0..3).all(|k| (i32::from(p[k]) - want[k]).abs() <= 1)
-        };
+        let near =
+            |p: [u8; 4], want: [i32; 3]| (0..3).all(|k| (i32::from(p[k]) - want[k]).abs() <= 1);
         assert!(near(out.get_pixel(35, 5).0, blend(heat(0.0, false))));
         assert!(near(out.get_pixel(30, 0).0, blend(heat(0.0, false))));
         assert!(near(out.get_pixel(5, 25).0, blend(heat(1.0, false))));
@@ -148,7 +147,12 @@ mod tests {
             Ok(g) => g,
             Err(e) => panic!("{e}"),
         };
-        let demo = vec![Some([20.0, 75.0]), Some([60.0, 75.0]), None, Some([180.0, 75.0])];
+        let demo = vec![
+            Some([20.0, 75.0]),
+            Some([60.0, 75.0]),
+            None,
+            Some([180.0, 75.0]),
+        ];
         let out = render_reward_map(&frame, &g, &[demo], [175.0, 25.0]);
         // The start disc in the first track colour, the path along y = 75 up to the lost
         // sample, nothing drawn across the gap, and the best cell's mark.

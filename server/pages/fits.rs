@@ -43,7 +43,11 @@ pub(super) async fn cards(
             features: f.feature_names.join(", "),
             demos: f.demos,
             author: f.author,
-            when: f.created_at.replace('T', " ").trim_end_matches('Z').to_string(),
+            when: f
+                .created_at
+                .replace('T', " ")
+                .trim_end_matches('Z')
+                .to_string(),
             id: f.id,
         })
         .collect())

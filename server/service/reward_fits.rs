@@ -57,16 +57,27 @@ pub enum FeatureInput {
     NoGo,
 }
 
+/// A number as a feature's name shows it: at most two decimals, trailing zeros dropped (the
+/// exact values are in the fit's `features`).
+fn short(v: f64) -> String {
+    let t = format!("{v:.2}");
+    let t = t.trim_end_matches('0').trim_end_matches('.');
+    if t == "-0" { "0".into() } else { t.into() }
+}
+
 impl FeatureInput {
     fn name(&self) -> String {
         match self {
             FeatureInput::DistanceTo { point } => {
-                format!("distance_to({}, {})", point[0], point[1])
+                format!("distance_to({}, {})", short(point[0]), short(point[1]))
             }
             FeatureInput::Inside { polygon } => format!("inside({} vertices)", polygon.len()),
-            FeatureInput::Rbf { center, sigma_px } => {
-                format!("rbf({}, {}; sigma {sigma_px} px)", center[0], center[1])
-            }
+            FeatureInput::Rbf { center, sigma_px } => format!(
+                "rbf({}, {}; sigma {} px)",
+                short(center[0]),
+                short(center[1]),
+                short(*sigma_px)
+            ),
             FeatureInput::NoGo => "no_go".into(),
         }
     }
@@ -752,11 +763,7 @@ pub(super) async fn run(
                 // The main fit is the first half of the bar, the folds the second.
                 irl::Progress::Iteration(r) => {
                     p.set((r.iteration as f64 / cap).min(1.0) * 0.5);
-                    trace.push([
-                        r.iteration as f64,
-                        r.log_likelihood_per_step,
-                        r.grad_norm,
-                    ]);
+                    trace.push([r.iteration as f64, r.log_likelihood_per_step, r.grad_norm]);
                     last = Some(*r);
                     p.set_detail(&json!({
                         "stage": "fit",

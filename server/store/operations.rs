@@ -211,10 +211,7 @@ pub async fn heartbeat(
         .bind(id)
         .bind(worker),
     };
-    let row = query
-        .fetch_optional(store.pool())
-        .await
-        .map_err(classify)?;
+    let row = query.fetch_optional(store.pool()).await.map_err(classify)?;
     Ok(row.map(|r| r.get::<i64, _>(0) != 0))
 }
 

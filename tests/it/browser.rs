@@ -1627,7 +1627,12 @@ async fn reward_fit_pages_end_to_end() {
     let bump_at = click_fit(&a, 110.0, 80.0).await;
     click(&a, ".tool[data-tool=inside]").await;
     let mut corners = Vec::new();
-    for (x, y) in [(200.0, 150.0), (300.0, 150.0), (300.0, 220.0), (200.0, 220.0)] {
+    for (x, y) in [
+        (200.0, 150.0),
+        (300.0, 150.0),
+        (300.0, 220.0),
+        (200.0, 220.0),
+    ] {
         corners.push(click_fit(&a, x, y).await);
     }
     a.find(By::Id("fit-canvas"))
@@ -1655,14 +1660,11 @@ async fn reward_fit_pages_end_to_end() {
         "the finished fit with its reward map",
     )
     .await;
-    let fit_id = js(
-        &a,
-        "return location.pathname.slice('/fits/'.length);",
-    )
-    .await
-    .as_str()
-    .expect("fit id")
-    .to_string();
+    let fit_id = js(&a, "return location.pathname.slice('/fits/'.length);")
+        .await
+        .as_str()
+        .expect("fit id")
+        .to_string();
     let (st, fit) = s
         .get(&format!("/api/reward-fits/{fit_id}"), Some(&api))
         .await;
@@ -1694,8 +1696,14 @@ async fn reward_fit_pages_end_to_end() {
     assert_eq!(plotted, json!(iterations + 1));
     let figures = js(&a, "return document.getElementById('figures').textContent;").await;
     let figures = figures.as_str().expect("figures");
-    assert!(figures.contains("Held out, each demo left out in turn"), "{figures}");
-    assert!(figures.contains("better than a random walk by"), "{figures}");
+    assert!(
+        figures.contains("Held out, each demo left out in turn"),
+        "{figures}"
+    );
+    assert!(
+        figures.contains("better than a random walk by"),
+        "{figures}"
+    );
     let weights = js(
         &a,
         "return [...document.querySelectorAll('#weights tr')].map((r) => r.cells[0].textContent);",
@@ -1703,6 +1711,12 @@ async fn reward_fit_pages_end_to_end() {
     .await;
     assert_eq!(weights, fit["feature_names"]);
     a.screenshot(&shots.join("fit-result.png")).await.unwrap();
+    let wide = js(
+        &a,
+        "const w = document.documentElement.clientWidth; return [...document.querySelectorAll('body *')].filter((e) => e.getBoundingClientRect().right > w + 0.5).map((e) => e.tagName + '#' + e.id + '.' + e.className).slice(0, 8);",
+    )
+    .await;
+    assert_eq!(wide, json!([]), "elements wider than the window");
 
     // A goal with a learned term, its point clicked on the reward map.
     let source = click_fit(&a, 70.0, 55.0).await;
@@ -1724,10 +1738,10 @@ async fn reward_fit_pages_end_to_end() {
         .get(&format!("/api/goals/{goal}/revisions/1"), Some(&api))
         .await;
     assert_eq!(st, reqwest::StatusCode::OK, "{rev}");
-    let term = &rev["document"]["terms"][0];
+    let term = &rev["terms"][0];
     assert_eq!(term["kind"], "learned", "{rev}");
     assert_eq!(term["reward_fit_id"], fit_id.as_str());
-    assert_eq!(rev["document"]["frame_id"], frame.as_str());
+    assert_eq!(rev["frame_id"], frame.as_str());
     let typed = [
         (source[0] * 10.0).round() / 10.0,
         (source[1] * 10.0).round() / 10.0,
@@ -1755,7 +1769,13 @@ async fn reward_fit_pages_end_to_end() {
     let maps = goalsmith_core::npy::read(&maps, 1 << 24).expect("maps");
     assert_eq!(maps.header.shape, vec![1, H as usize, W as usize]);
     let maps = maps.as_f32().expect("f32");
-    for (j, i) in [(0usize, 0usize), (55, 70), (80, 110), (239, 319), (150, 200)] {
+    for (j, i) in [
+        (0usize, 0usize),
+        (55, 70),
+        (80, 110),
+        (239, 319),
+        (150, 200),
+    ] {
         let cell = (j / 10) * 32 + i / 10;
         assert_eq!(
             maps[j * W as usize + i],

@@ -419,8 +419,15 @@ async fn scenario(s: &Server) -> Vec<Sample> {
         &[],
     )
     .await;
-    c.call(M::GET, "/api/reward-fits", "/api/reward-fits", v, Req::None, &[])
-        .await;
+    c.call(
+        M::GET,
+        "/api/reward-fits",
+        "/api/reward-fits",
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
     c.call(
         M::PUT,
         "/api/demos/{id}/tracks/{track_id}/samples/{frame}",

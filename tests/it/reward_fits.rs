@@ -192,10 +192,14 @@ async fn fits(s: Server) {
     assert_eq!(picture.dimensions(), (W, H));
     let (st, frame_png) = get_bytes(&s, &format!("/api/frames/{frame}/image"), &viewer).await;
     assert_eq!(st, StatusCode::OK);
-    let under = image::load_from_memory(&frame_png).expect("frame").to_rgba8();
-    let (lo, hi) = values.iter().fold((f32::INFINITY, f32::NEG_INFINITY), |(l, h), &v| {
-        (l.min(v), h.max(v))
-    });
+    let under = image::load_from_memory(&frame_png)
+        .expect("frame")
+        .to_rgba8();
+    let (lo, hi) = values
+        .iter()
+        .fold((f32::INFINITY, f32::NEG_INFINITY), |(l, h), &v| {
+            (l.min(v), h.max(v))
+        });
     let mut heat_pixels = 0usize;
     for (i, j, p) in picture.enumerate_pixels() {
         let v = values[(j as usize / 10) * 16 + i as usize / 10];
@@ -207,7 +211,10 @@ async fn fits(s: Server) {
             .into_iter()
             .zip(base)
             .map(|(c, u)| (f64::from(c) * alpha + f64::from(u) * (1.0 - alpha)).round());
-        if want.zip(p.0).all(|(w, got)| (w - f64::from(got)).abs() <= 1.0) {
+        if want
+            .zip(p.0)
+            .all(|(w, got)| (w - f64::from(got)).abs() <= 1.0)
+        {
             heat_pixels += 1;
         }
     }
@@ -228,7 +235,10 @@ async fn fits(s: Server) {
         .expect("listed")
         .clone();
     assert_eq!(listed["finished"], true);
-    assert_eq!(listed["log_likelihood_per_step"], fit["log_likelihood_per_step"]);
+    assert_eq!(
+        listed["log_likelihood_per_step"],
+        fit["log_likelihood_per_step"]
+    );
     assert_eq!(listed["feature_names"], fit["feature_names"]);
 
     // A `learned` term on the fit: its cost at a point is the best reward minus the reward of
