@@ -1103,6 +1103,106 @@ async fn invite_links(kind: Db) {
     );
 }
 
+/// The reward-fit pages: set-up and result pages escape every user string, unknown ids are
+/// 404 pages, and the team home lists the fit.
+async fn fit_pages(kind: Db) {
+    let Some(db) = fresh_db(kind, "pages_fits").await else {
+        return;
+    };
+    let (s, link) = start_with_link(&db.url, &db.data_dir, &[]);
+    let (mut owner, _) = join(&s.base, &link, "wren", "Wren", "seed drill 44").await;
+    let api = s.token("my team", "editor");
+    let evil = "<script>alert(1)</script>";
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&api),
+            &json!({"name": evil, "width": 160, "height": 120}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{cam}");
+    let cam = cam["id"].as_str().unwrap().to_string();
+    let (st, frame) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/frames"),
+            Some(&api),
+            "image/png",
+            png(160, 120, 3),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{frame}");
+    let frame = frame["id"].as_str().unwrap().to_string();
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam}/demos?name=%3Cscript%3Ealert(1)%3C%2Fscript%3E"),
+            Some(&api),
+            "application/zip",
+            texture_demo_zip(160, 120, 6, [2.0, 1.0]),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().unwrap().to_string();
+    let (st, started) = s
+        .post(
+            &format!("/api/demos/{demo}/tracks"),
+            Some(&api),
+            &json!({"label": evil, "frame": 0, "x": 70.0, "y": 55.0}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let track = started["track_id"].as_str().unwrap().to_string();
+    operation_done(&s, &api, started["operation_id"].as_str().unwrap()).await;
+    let (st, fit) = s
+        .post(
+            "/api/reward-fits",
+            Some(&api),
+            &json!({"frame_id": frame, "cell_px": 10,
+                "features": [{"kind": "distance_to", "point": [100.0, 60.0]}],
+                "demos": [{"demo_id": demo, "track_id": track},
+                          {"path": [[10.0, 10.0], [60.0, 40.0], [100.0, 60.0]]}]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{fit}");
+    let fit_id = fit["id"].as_str().unwrap().to_string();
+    operation_done(&s, &api, fit["operation_id"].as_str().unwrap()).await;
+    for path in [
+        format!("/fits/new?camera={cam}"),
+        format!("/fits/new?camera={cam}&demo={demo}"),
+        format!("/fits/{fit_id}"),
+        format!("/demos/{demo}"),
+        "/".to_string(),
+    ] {
+        let page = owner.get(&path).await;
+        assert_eq!(page.status, StatusCode::OK, "{path}: {}", page.body);
+        assert!(
+            !page.body.contains(evil),
+            "{path} carries a string unescaped"
+        );
+        assert!(
+            page.body.contains("&lt;script&gt;alert(1)&lt;/script&gt;")
+                || page
+                    .body
+                    .contains("&#60;script&#62;alert(1)&#60;/script&#62;"),
+            "{path} lacks the escaped string"
+        );
+    }
+    let home = owner.get("/").await;
+    assert!(home.body.contains(&format!("href=\"/fits/{fit_id}\"")));
+    assert!(
+        home.body
+            .contains(&format!("href=\"/fits/new?camera={cam}\""))
+    );
+    for path in [
+        format!("/fits/{}", uuid::Uuid::new_v4()),
+        "/fits/not-an-id".to_string(),
+        format!("/fits/new?camera={}", uuid::Uuid::new_v4()),
+    ] {
+        let page = owner.get(&path).await;
+        assert_eq!(page.status, StatusCode::NOT_FOUND, "{path}");
+        assert!(page.content_type.starts_with("text/html"), "{path}");
+    }
+}
+
 macro_rules! both {
     ($name:ident, $body:ident) => {
         mod $name {
@@ -1136,3 +1236,4 @@ both!(
 );
 both!(next_after_signin_stays_on_this_site, next_stays_on_site);
 both!(invite_links_use_the_real_or_public_address, invite_links);
+both!(reward_fit_pages_escape_and_refuse, fit_pages);

@@ -342,7 +342,6 @@ function watch(operationId, trackId, what) {
     stop.disabled = true;
     cancelOperation(operationId);
   });
-  });
   li.append(label, bar, out);
   if (canEdit) li.append(stop);
   $('running-list').appendChild(li);
