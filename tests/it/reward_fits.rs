@@ -403,6 +403,71 @@ async fn fits(s: Server) {
 
 on_both_databases!(reward_fits_end_to_end, fits);
 
+/// A fit that runs for a while (an 80 × 60 grid and zigzag paths of some 1 600 moves) is
+/// stopped by a cancel while it runs: the operation ends `cancelled`, having streamed at least
+/// one iteration, and the fit keeps no result and no map.
+async fn running_cancel(s: Server) {
+    let editor = s.token("long bench", "editor");
+    let (_cam, frame) = camera_frame(&s, &editor, 640, 480).await;
+    let zigzag = |y0: f64| -> Value {
+        let pts: Vec<[f64; 2]> = (0..10)
+            .flat_map(|k| {
+                let y = y0 + f64::from(k) * 40.0;
+                [[10.0, y], [630.0, y]]
+            })
+            .collect();
+        json!({"path": pts})
+    };
+    let body = json!({"frame_id": frame, "cell_px": 8,
+        "features": [{"kind": "distance_to", "point": [320.0, 240.0]},
+                     {"kind": "rbf", "center": [100.0, 100.0], "sigma_px": 50.0}],
+        "demos": [zigzag(20.0), zigzag(40.0), zigzag(60.0)]});
+    let (st, started) = s.post("/api/reward-fits", Some(&editor), &body).await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let id = started["id"].as_str().expect("fit").to_string();
+    let op = started["operation_id"].as_str().expect("op").to_string();
+    let until = std::time::Instant::now() + std::time::Duration::from_secs(120);
+    loop {
+        let (_, v) = s.get(&format!("/api/operations/{op}"), Some(&editor)).await;
+        assert_ne!(
+            v["done"], true,
+            "the fit ended before it could be cancelled: {v}"
+        );
+        if v["state"] == "running" && v["detail"]["iteration"].as_u64().is_some_and(|i| i >= 1) {
+            break;
+        }
+        assert!(
+            std::time::Instant::now() < until,
+            "no iteration streamed: {v}"
+        );
+        tokio::time::sleep(std::time::Duration::from_millis(50)).await;
+    }
+    let (st, v) = s
+        .post(
+            &format!("/api/operations/{op}/cancel"),
+            Some(&editor),
+            &json!({}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{v}");
+    let ended = operation_done(&s, &editor, &op).await;
+    assert_eq!(ended["state"], "cancelled", "{ended}");
+    let (st, fit) = s
+        .get(&format!("/api/reward-fits/{id}"), Some(&editor))
+        .await;
+    assert_eq!(st, StatusCode::OK);
+    assert!(fit.get("weights").is_none(), "{fit}");
+    let (st, _) = s
+        .get(
+            &format!("/api/reward-fits/{id}/reward-map.npy"),
+            Some(&editor),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CONFLICT);
+}
+
+on_both_databases!(a_running_fit_can_be_cancelled, running_cancel);
+
 /// With no worker to run it, a fit stays queued: its map is not there yet (409), and a cancel
 /// ends it.
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
