@@ -579,11 +579,23 @@ pub fn overlay_png(
     frame_bytes: &[u8],
     zones: Zones<'_>,
 ) -> Result<Vec<u8>, ScoreError> {
+    overlay_png_until(spec, frame_bytes, zones, &|| false)
+}
+
+/// [`overlay_png`], given up with an error when `stop` answers true (the client hung up).
+pub fn overlay_png_until(
+    spec: &GoalSpec,
+    frame_bytes: &[u8],
+    zones: Zones<'_>,
+    stop: &dyn Fn() -> bool,
+) -> Result<Vec<u8>, ScoreError> {
     let frame = image::load_from_memory(frame_bytes)
         .map_err(|e| ScoreError::Internal(format!("stored frame unreadable: {e}")))?
         .to_rgba8();
     let items = draw::goal_items(spec, zones.safe, zones.no_go);
-    let drawn = draw::render_overlay(&frame, &items);
+    let drawn = draw::render_overlay_until(&frame, &items, stop).ok_or_else(|| {
+        ScoreError::Internal("overlay drawing stopped: the client hung up".into())
+    })?;
     encode_png_with_caution(drawn.width(), drawn.height(), drawn.as_raw())
 }
 

@@ -32,7 +32,9 @@ mod place;
 mod reward;
 mod text;
 
-pub use overlay::{OverlayItem, ZoneKind, goal_items, render_overlay, unit_for_frame};
+pub use overlay::{
+    OverlayItem, ZoneKind, goal_items, render_overlay, render_overlay_until, unit_for_frame,
+};
 pub use reward::{DemoPath, render_reward_map};
 
 #[cfg(test)]

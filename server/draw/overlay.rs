@@ -171,19 +171,36 @@ enum Layer {
 /// Draws `items` over a copy of `frame`. Items with coordinates that are not finite are left
 /// out rather than failing the whole overlay.
 pub fn render_overlay(frame: &image::RgbaImage, items: &[OverlayItem]) -> image::RgbaImage {
+    render_overlay_until(frame, items, &|| false).unwrap_or_else(|| frame.clone())
+}
+
+/// [`render_overlay`], given up (`None`) when `stop` answers true, which it is asked before
+/// each item of each layer and before the labels: a client that hung up stops the drawing of a
+/// goal of many large terms within one term's work.
+pub fn render_overlay_until(
+    frame: &image::RgbaImage,
+    items: &[OverlayItem],
+    stop: &dyn Fn() -> bool,
+) -> Option<image::RgbaImage> {
     let Some(mut canvas) = Canvas::from_frame(frame) else {
-        return frame.clone();
+        return Some(frame.clone());
     };
     let u = unit_for_frame(canvas.width(), canvas.height());
     for layer in [Layer::Zones, Layer::Fills, Layer::Lines, Layer::Marks] {
         for item in items {
+            if stop() {
+                return None;
+            }
             draw_item(&mut canvas, item, layer, u);
         }
+    }
+    if stop() {
+        return None;
     }
     for (line, min, _) in place_labels(canvas.width(), canvas.height(), items, u) {
         draw_label(&mut canvas, &line, min, u);
     }
-    canvas.into_image().unwrap_or_else(|| frame.clone())
+    Some(canvas.into_image().unwrap_or_else(|| frame.clone()))
 }
 
 fn draw_item(c: &mut Canvas, item: &OverlayItem, layer: Layer, u: f64) {

@@ -5,7 +5,7 @@ use super::canvas::{Canvas, Pen, circle, polyline, rect, to_skia};
 use super::marks;
 use super::overlay::place_labels;
 use super::text::{Line, glyph_id};
-use super::{OverlayItem, ZoneKind, render_overlay};
+use super::{OverlayItem, ZoneKind, render_overlay, render_overlay_until};
 use ab_glyph::GlyphId;
 use image::{Rgba, RgbaImage};
 use serde_json::{Value, json};
@@ -394,4 +394,28 @@ fn labels_in_three_scripts_are_drawn_with_real_glyphs() {
             "{l}: only {differ} of {all} pixels differ from missing-glyph boxes"
         );
     }
+}
+
+#[test]
+fn overlay_drawing_stops_when_asked() {
+    let items: Vec<OverlayItem> = (0..8)
+        .map(|k| OverlayItem::PointMove {
+            source: [10.0 + 5.0 * f64::from(k), 30.0],
+            target: [50.0, 10.0 + 4.0 * f64::from(k)],
+            tolerance_px: 3.0,
+            label: format!("{k}"),
+        })
+        .collect();
+    let f = frame(64, 48, 40);
+    // Never stopped: the same picture as the plain call.
+    let whole = render_overlay_until(&f, &items, &|| false).expect("drawn");
+    assert_eq!(whole, render_overlay(&f, &items));
+    // Stopped after a few items: given up, and asked no more than once past that point.
+    let asked = std::cell::Cell::new(0usize);
+    let stopped = render_overlay_until(&f, &items, &|| {
+        asked.set(asked.get() + 1);
+        asked.get() > 5
+    });
+    assert!(stopped.is_none());
+    assert_eq!(asked.get(), 6);
 }

@@ -476,19 +476,23 @@ pub async fn overlay(
     let (_, bytes) = l.frame_image(state).await?;
     let rev = l.row.revision;
     let permit = l.work_permit(state).await?;
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
     let png = tokio::task::spawn_blocking(move || {
         let _permit = permit;
-        scoring::overlay_png(
+        scoring::overlay_png_until(
             l.spec(),
             &bytes,
             scoring::Zones {
                 safe: l.camera.safe_zone.as_deref(),
                 no_go: &l.camera.no_go_zones,
             },
+            &|| stop.load(Ordering::Relaxed),
         )
     })
     .await
     .map_err(|e| ServiceError::Internal(e.to_string()))??;
+    drop(cancel);
     Ok(Download::hashed(
         "image/png",
         format!("goal-{id}-r{rev}-overlay.png"),
