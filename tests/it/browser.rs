@@ -1003,27 +1003,38 @@ fn kind_words(kind: &str) -> &'static str {
     }
 }
 
-/// The demo page's view: (zoom, pan x, pan y, canvas left, canvas top) in CSS px.
-async fn demo_view(d: &WebDriver) -> [f64; 5] {
+/// A page's view: (zoom, pan x, pan y, canvas left, canvas top) in CSS px, from the view the
+/// page exposes as `window.<page>.view` and its canvas `#<canvas>`.
+async fn page_view(d: &WebDriver, page: &str, canvas: &str) -> [f64; 5] {
     let v = js(
         d,
-        "const v = window.demoPage.view; const r = document.getElementById('demo-canvas').getBoundingClientRect(); return [v.z, v.px, v.py, r.left, r.top];",
+        &format!("const v = window.{page}.view; const r = document.getElementById('{canvas}').getBoundingClientRect(); return [v.z, v.px, v.py, r.left, r.top];"),
     )
     .await;
     let f = |i: usize| v[i].as_f64().expect("number");
     [f(0), f(1), f(2), f(3), f(4)]
 }
 
-/// The viewport pixel over frame point (x, y) of the demo canvas, and the frame point that
+/// The viewport pixel over frame point (x, y) of a page's canvas, and the frame point that
 /// pixel really is (the pointer lands on whole viewport pixels): x = (cx − px)/z − 0.5.
-async fn demo_pixel(d: &WebDriver, x: f64, y: f64) -> ([i64; 2], [f64; 2]) {
-    let [z, px, py, left, top] = demo_view(d).await;
+async fn page_pixel(
+    d: &WebDriver,
+    page: &str,
+    canvas: &str,
+    x: f64,
+    y: f64,
+) -> ([i64; 2], [f64; 2]) {
+    let [z, px, py, left, top] = page_view(d, page, canvas).await;
     let vx = (left + px + (x + 0.5) * z).round();
     let vy = (top + py + (y + 0.5) * z).round();
     (
         [vx as i64, vy as i64],
         [(vx - left - px) / z - 0.5, (vy - top - py) / z - 0.5],
     )
+}
+
+async fn demo_pixel(d: &WebDriver, x: f64, y: f64) -> ([i64; 2], [f64; 2]) {
+    page_pixel(d, "demoPage", "demo-canvas", x, y).await
 }
 
 fn xy(s: &Value) -> [f64; 2] {
@@ -1476,27 +1487,8 @@ async fn demo_scenario_on_the_demo_page() {
     a.quit().await.ok();
 }
 
-/// The fit page's view: (zoom, pan x, pan y, canvas left, canvas top) in CSS px.
-async fn fit_view(d: &WebDriver) -> [f64; 5] {
-    let v = js(
-        d,
-        "const v = window.fitPage.view; const r = document.getElementById('fit-canvas').getBoundingClientRect(); return [v.z, v.px, v.py, r.left, r.top];",
-    )
-    .await;
-    let f = |i: usize| v[i].as_f64().expect("number");
-    [f(0), f(1), f(2), f(3), f(4)]
-}
-
-/// The viewport pixel over frame point (x, y) of the fit canvas, and the frame point that pixel
-/// really is: x = (cx − px)/z − 0.5.
 async fn fit_pixel(d: &WebDriver, x: f64, y: f64) -> ([i64; 2], [f64; 2]) {
-    let [z, px, py, left, top] = fit_view(d).await;
-    let vx = (left + px + (x + 0.5) * z).round();
-    let vy = (top + py + (y + 0.5) * z).round();
-    (
-        [vx as i64, vy as i64],
-        [(vx - left - px) / z - 0.5, (vy - top - py) / z - 0.5],
-    )
+    page_pixel(d, "fitPage", "fit-canvas", x, y).await
 }
 
 async fn click_fit(d: &WebDriver, x: f64, y: f64) -> [f64; 2] {

@@ -14,7 +14,7 @@
 // (ops.js).
 import { csrfToken, apiErrorText } from './site.js';
 import { followOperation, cancelOperation } from './ops.js';
-import { View, Obstacles, css, cased, drawMark, sourceMark, drawLabel, drawZones, INKS, SIZES, TRACKS } from './view.js';
+import { View, fitCanvas, Obstacles, css, cased, drawMark, sourceMark, drawLabel, drawZones, INKS, SIZES, TRACKS } from './view.js';
 
 const $ = (id) => document.getElementById(id);
 const root = $('demo');
@@ -99,15 +99,7 @@ function go(k) {
 // ---------- drawing ----------
 
 function resize() {
-  const box = canvas.parentElement.getBoundingClientRect();
-  const cw = Math.max(200, Math.floor(box.width));
-  const ch = Math.max(150, Math.min(Math.floor(cw * (demo.height / demo.width)), Math.floor(window.innerHeight * 0.72)));
-  const dpr = window.devicePixelRatio || 1;
-  canvas.style.width = `${cw}px`;
-  canvas.style.height = `${ch}px`;
-  canvas.width = Math.round(cw * dpr);
-  canvas.height = Math.round(ch * dpr);
-  view.fit(cw, ch);
+  fitCanvas(canvas, view);
   draw();
 }
 

@@ -17,7 +17,7 @@
 // the frame ↔ canvas mapping is view.js's `View`, and the marks are the marking code's.
 import { csrfToken, apiErrorText } from './site.js';
 import { followOperation, cancelOperation } from './ops.js';
-import { View, css, cased, drawMark, sourceMark, targetMark, drawLabel, drawZones, polygonPath, kindColour, SHAPES, SIZES, TRACKS } from './view.js';
+import { View, fitCanvas, css, cased, drawMark, sourceMark, targetMark, drawLabel, drawZones, polygonPath, kindColour, SHAPES, SIZES, TRACKS } from './view.js';
 
 const $ = (id) => document.getElementById(id);
 const root = $('fit');
@@ -44,15 +44,7 @@ function loadPicture(url) {
 }
 
 function resize() {
-  const box = canvas.parentElement.getBoundingClientRect();
-  const cw = Math.max(200, Math.floor(box.width));
-  const ch = Math.max(150, Math.min(Math.floor(cw * (camera.height / camera.width)), Math.floor(window.innerHeight * 0.72)));
-  const dpr = window.devicePixelRatio || 1;
-  canvas.style.width = `${cw}px`;
-  canvas.style.height = `${ch}px`;
-  canvas.width = Math.round(cw * dpr);
-  canvas.height = Math.round(ch * dpr);
-  view.fit(cw, ch);
+  fitCanvas(canvas, view);
   draw();
 }
 

@@ -60,6 +60,23 @@ export class View {
   }
 }
 
+/**
+ * Sizes a page's frame canvas to its box's width and the frame's aspect (at most 72 % of the
+ * window's height), in device pixels for a sharp picture, and fits `view` (the frame's W × H)
+ * to it. The caller draws afterwards.
+ */
+export function fitCanvas(canvas, view) {
+  const box = canvas.parentElement.getBoundingClientRect();
+  const cw = Math.max(200, Math.floor(box.width));
+  const ch = Math.max(150, Math.min(Math.floor(cw * (view.H / view.W)), Math.floor(window.innerHeight * 0.72)));
+  const dpr = window.devicePixelRatio || 1;
+  canvas.style.width = `${cw}px`;
+  canvas.style.height = `${ch}px`;
+  canvas.width = Math.round(cw * dpr);
+  canvas.height = Math.round(ch * dpr);
+  view.fit(cw, ch);
+}
+
 /** A marks.js colour [r, g, b, a] (a in 0–255) as CSS, optionally with another opacity. */
 export function css(c, alpha) {
   const a = alpha === undefined ? c[3] : alpha;
