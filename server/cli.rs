@@ -141,8 +141,9 @@ fn run_cost(
     maps: Option<&std::path::Path>,
 ) -> Result<(), Box<dyn std::error::Error>> {
     let read = |p: &std::path::Path| std::fs::read(p).map_err(|e| format!("{}: {e}", p.display()));
-    let (goal, w, h) = crate::scoring::read_bundle(&read(bundle)?)?;
-    let spec = crate::scoring::spec_from_revision(&goal, w, h, &|_| None)?;
+    // Learned terms are scored from the reward maps the bundle carries, checked against the
+    // manifest's SHA-256 like goal.json.
+    let spec = crate::scoring::read_bundle(&read(bundle)?)?.spec()?;
     let model = crate::scoring::model(&spec)?;
     let (content_type, body) = match (points, maps) {
         (Some(p), _) => ("application/json", read(p)?),

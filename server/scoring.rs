@@ -3,7 +3,7 @@
 
 use crate::draw;
 use crate::images;
-use goalsmith_core::cost::{CostModel, CostResult, MapBatch, PreparedMaps};
+use goalsmith_core::cost::{CostModel, CostResult, MapBatch, PreparedMaps, RewardGrid};
 use goalsmith_core::goal::{CheckContext, GoalDocument, GoalSpec, RewardLookup};
 use goalsmith_core::npy;
 use schemars::JsonSchema;
@@ -12,8 +12,10 @@ use serde_json::{Value, json};
 use sha2::{Digest, Sha256};
 use std::io::{Cursor, Write};
 
-/// Version of the bundle layout; bumped on any incompatible change.
-pub const BUNDLE_FORMAT_VERSION: u32 = 1;
+/// Version of the bundle layout; bumped whenever the bytes of a bundle change for the same
+/// revision (the bundle's ETag is derived from it). 2: bundles carry the reward fits of
+/// `learned` terms (`reward_fits/<id>.json` and `.npy`).
+pub const BUNDLE_FORMAT_VERSION: u32 = 2;
 
 /// Why scoring or exporting failed, in words for the caller.
 #[derive(Debug, thiserror::Error)]
@@ -647,6 +649,55 @@ pub struct BundleParts<'a> {
     pub width: u32,
     /// Frame height.
     pub height: u32,
+    /// The reward fits of the revision's `learned` terms, one per distinct fit, in id order.
+    pub reward_fits: &'a [BundledRewardFit],
+}
+
+/// A reward fit as a bundle carries it, for the revision's `learned` terms that name it.
+#[derive(Debug, Clone)]
+pub struct BundledRewardFit {
+    /// The fit's id, canonical (lower-case, hyphenated): see [`fit_file_id`].
+    pub id: String,
+    /// `reward_fits/<id>.json`: canonical JSON of the fit (see docs/conventions.md).
+    pub json: Vec<u8>,
+    /// `reward_fits/<id>.npy`: the reward map, float32 (rows, cols), the bytes of
+    /// `GET /api/reward-fits/{id}/reward-map.npy`.
+    pub npy: Vec<u8>,
+    /// Grid rows.
+    pub rows: usize,
+    /// Grid columns.
+    pub cols: usize,
+    /// Side of a cell, pixels.
+    pub cell_px: u32,
+}
+
+/// Bundle paths of a fit's JSON and reward map, from its canonical id.
+pub fn reward_fit_paths(id: &str) -> (String, String) {
+    (
+        format!("reward_fits/{id}.json"),
+        format!("reward_fits/{id}.npy"),
+    )
+}
+
+/// The id under which a bundle files a fit: the canonical form of a term's `reward_fit_id`
+/// (any form the server accepts names the same fit), or None when it is no fit id at all.
+pub fn fit_file_id(raw: &str) -> Option<String> {
+    uuid::Uuid::parse_str(raw).ok().map(|u| u.to_string())
+}
+
+/// The `learned` terms of a revision document: (term index, its `reward_fit_id` as stored).
+pub fn learned_terms(goal: &Value) -> Vec<(usize, &str)> {
+    goal["terms"]
+        .as_array()
+        .map(|terms| {
+            terms
+                .iter()
+                .enumerate()
+                .filter(|(_, t)| t["kind"] == "learned")
+                .filter_map(|(k, t)| t["reward_fit_id"].as_str().map(|id| (k, id)))
+                .collect()
+        })
+        .unwrap_or_default()
 }
 
 fn readme(parts: &BundleParts<'_>) -> String {
@@ -658,6 +709,7 @@ fn readme(parts: &BundleParts<'_>) -> String {
          \x20               cost of source point p being at pixel centre (x = i, y = j)\n\
          frame.{ext}       the camera frame the goal is drawn on\n\
          camera.json     the camera: intrinsics (also as ROS CameraInfo), work plane, pose, zones\n\
+         {fits}\
          manifest.json   SHA-256 of every other file, format version, this caution\n\n\
          Pixel coordinates are [x, y], x right, y down, the centre of the top-left pixel at (0, 0).\n\
          Source points are numbered over all terms in term order (goal.json derived.points);\n\
@@ -668,12 +720,22 @@ fn readme(parts: &BundleParts<'_>) -> String {
         h = parts.height,
         w = parts.width,
         ext = parts.frame_ext,
+        fits = if parts.reward_fits.is_empty() {
+            ""
+        } else {
+            "reward_fits/<id>.json  a learned term's reward fit (one file per fit): grid,\n\
+             \x20                      features as submitted, standardisation, weights,\n\
+             \x20                      diagnostics, and how to recompute its reward per cell\n\
+             reward_fits/<id>.npy   its reward map r, float32, C order, shape (rows, cols); the\n\
+             \x20                      term's cost at (x, y) is max(r) - r[floor((y + 0.5) /\n\
+             \x20                      cell_px), floor((x + 0.5) / cell_px)], clamped to the grid\n"
+        },
     )
 }
 
 /// The files of one revision's bundle (without the manifest), in bundle order.
 pub fn revision_files(parts: &BundleParts<'_>) -> Vec<(String, Vec<u8>)> {
-    vec![
+    let mut files = vec![
         ("goal.json".into(), parts.goal_json.as_bytes().to_vec()),
         ("cost-maps.npy".into(), parts.cost_maps_npy.to_vec()),
         (format!("frame.{}", parts.frame_ext), parts.frame.to_vec()),
@@ -681,8 +743,14 @@ pub fn revision_files(parts: &BundleParts<'_>) -> Vec<(String, Vec<u8>)> {
             "camera.json".into(),
             goalsmith_core::canonical::to_string(parts.camera).into_bytes(),
         ),
-        ("README.txt".into(), readme(parts).into_bytes()),
-    ]
+    ];
+    for fit in parts.reward_fits {
+        let (json_name, npy_name) = reward_fit_paths(&fit.id);
+        files.push((json_name, fit.json.clone()));
+        files.push((npy_name, fit.npy.clone()));
+    }
+    files.push(("README.txt".into(), readme(parts).into_bytes()));
+    files
 }
 
 /// SHA-256 of each file, by name.
@@ -692,6 +760,32 @@ pub fn file_hashes(files: &[(String, Vec<u8>)]) -> Value {
         hashes.insert(name.clone(), json!(hex::encode(Sha256::digest(bytes))));
     }
     Value::Object(hashes)
+}
+
+/// The manifest's list of reward fits: per fit its files, grid and the learned terms using it.
+fn manifest_reward_fits(parts: &BundleParts<'_>) -> Value {
+    let learned = learned_terms(parts.goal);
+    Value::Array(
+        parts
+            .reward_fits
+            .iter()
+            .map(|fit| {
+                let (json_name, npy_name) = reward_fit_paths(&fit.id);
+                let terms: Vec<usize> = learned
+                    .iter()
+                    .filter(|(_, raw)| fit_file_id(raw).as_deref() == Some(fit.id.as_str()))
+                    .map(|(k, _)| *k)
+                    .collect();
+                json!({
+                    "id": fit.id,
+                    "file": json_name,
+                    "reward_map": {"file": npy_name, "dtype": "float32", "shape": [fit.rows, fit.cols]},
+                    "cell_px": fit.cell_px,
+                    "terms": terms,
+                })
+            })
+            .collect(),
+    )
 }
 
 /// The manifest of one revision's bundle.
@@ -706,6 +800,7 @@ pub fn revision_manifest(parts: &BundleParts<'_>, files: &[(String, Vec<u8>)]) -
         "created_at": parts.goal["created_at"],
         "frame": {"file": format!("frame.{}", parts.frame_ext), "width": parts.width, "height": parts.height},
         "cost_maps": {"file": "cost-maps.npy", "dtype": "float32", "shape": [parts.points, parts.height, parts.width]},
+        "reward_fits": manifest_reward_fits(parts),
         "files": file_hashes(files),
         "caution": crate::SAFETY_CAUTION,
     })
@@ -787,45 +882,162 @@ pub fn goal_set_zip(set: &Value, items: &[BundleParts<'_>]) -> Result<Vec<u8>, S
     zip_files(&all)
 }
 
-/// Reads a bundle back: (revision document, frame width, frame height).
-pub fn read_bundle(bytes: &[u8]) -> Result<(Value, u32, u32), ScoreError> {
+/// A bundle read back by [`read_bundle`].
+pub struct ReadBundle {
+    /// The revision document (goal.json, checked against its SHA-256).
+    pub goal: Value,
+    /// Frame width.
+    pub width: u32,
+    /// Frame height.
+    pub height: u32,
+    /// The reward grid of each `learned` term's fit, by the term's `reward_fit_id` as stored.
+    pub reward_grids: std::collections::HashMap<String, std::sync::Arc<RewardGrid>>,
+}
+
+impl ReadBundle {
+    /// The checked goal, its `learned` terms scored from the bundled reward maps.
+    pub fn spec(&self) -> Result<GoalSpec, ScoreError> {
+        spec_from_revision(&self.goal, self.width, self.height, &|id: &str| {
+            self.reward_grids.get(id).cloned()
+        })
+    }
+}
+
+fn bad_bundle(message: impl Into<String>) -> ScoreError {
+    invalid("bad_bundle", None, message)
+}
+
+/// Reads a bundle back: the revision document, the frame size, and the reward grid of every
+/// fit a `learned` term names. goal.json and each fit's files must be listed in manifest.json
+/// and match their SHA-256 there; a bundle without a referenced fit (format 1 bundles carried
+/// none) is refused, naming the file it lacks.
+pub fn read_bundle(bytes: &[u8]) -> Result<ReadBundle, ScoreError> {
     let mut archive = zip::ZipArchive::new(Cursor::new(bytes))
-        .map_err(|e| invalid("bad_bundle", None, format!("not a goalsmith bundle: {e}")))?;
+        .map_err(|e| bad_bundle(format!("not a goalsmith bundle: {e}")))?;
     let mut read = |name: &str| -> Result<Vec<u8>, ScoreError> {
         let mut f = archive
             .by_name(name)
-            .map_err(|_| invalid("bad_bundle", None, format!("the bundle has no {name}")))?;
+            .map_err(|_| bad_bundle(format!("the bundle has no {name}")))?;
         let mut out = Vec::new();
         std::io::Read::read_to_end(&mut f, &mut out)
-            .map_err(|e| invalid("bad_bundle", None, e.to_string()))?;
+            .map_err(|e| bad_bundle(format!("{name}: {e}")))?;
         Ok(out)
     };
     let manifest: Value = serde_json::from_slice(&read("manifest.json")?)
-        .map_err(|e| invalid("bad_bundle", None, format!("manifest.json: {e}")))?;
+        .map_err(|e| bad_bundle(format!("manifest.json: {e}")))?;
     let goal_bytes = read("goal.json")?;
     let want = manifest["files"]["goal.json"].as_str().unwrap_or_default();
     if hex::encode(Sha256::digest(&goal_bytes)) != want {
-        return Err(invalid(
-            "bad_bundle",
-            None,
+        return Err(bad_bundle(
             "goal.json does not match its SHA-256 in manifest.json",
         ));
     }
-    let goal: Value = serde_json::from_slice(&goal_bytes)
-        .map_err(|e| invalid("bad_bundle", None, format!("goal.json: {e}")))?;
+    let goal: Value =
+        serde_json::from_slice(&goal_bytes).map_err(|e| bad_bundle(format!("goal.json: {e}")))?;
     let dim = |k: &str| {
         manifest["frame"][k]
             .as_u64()
             .and_then(|v| u32::try_from(v).ok())
-            .ok_or_else(|| {
-                invalid(
-                    "bad_bundle",
-                    None,
-                    format!("manifest.json has no frame {k}"),
-                )
-            })
+            .ok_or_else(|| bad_bundle(format!("manifest.json has no frame {k}")))
     };
-    Ok((goal, dim("width")?, dim("height")?))
+    let (width, height) = (dim("width")?, dim("height")?);
+    let mut reward_grids = std::collections::HashMap::new();
+    let mut by_file_id: std::collections::HashMap<String, std::sync::Arc<RewardGrid>> =
+        std::collections::HashMap::new();
+    for (k, raw) in learned_terms(&goal) {
+        if reward_grids.contains_key(raw) {
+            continue;
+        }
+        let id = fit_file_id(raw).ok_or_else(|| {
+            bad_bundle(format!(
+                "goal.json: terms[{k}].reward_fit_id {raw:?} is not a reward fit id"
+            ))
+        })?;
+        let grid = match by_file_id.get(&id) {
+            Some(g) => g.clone(),
+            None => {
+                let g = std::sync::Arc::new(read_reward_fit(
+                    &mut read, &manifest, &goal, &id, k, width, height,
+                )?);
+                by_file_id.insert(id, g.clone());
+                g
+            }
+        };
+        reward_grids.insert(raw.to_string(), grid);
+    }
+    Ok(ReadBundle {
+        goal,
+        width,
+        height,
+        reward_grids,
+    })
+}
+
+/// Reads and checks one bundled fit (its JSON and reward map), for learned term `k`.
+fn read_reward_fit(
+    read: &mut dyn FnMut(&str) -> Result<Vec<u8>, ScoreError>,
+    manifest: &Value,
+    goal: &Value,
+    id: &str,
+    k: usize,
+    width: u32,
+    height: u32,
+) -> Result<RewardGrid, ScoreError> {
+    let (json_name, npy_name) = reward_fit_paths(id);
+    let mut checked = |name: &str, what: &str| -> Result<Vec<u8>, ScoreError> {
+        let Some(want) = manifest["files"][name].as_str() else {
+            return Err(bad_bundle(format!(
+                "manifest.json does not list {name}, {what} of the reward fit that learned term \
+                 terms[{k}] uses; bundles of format 1 do not carry reward fits: export the \
+                 bundle again"
+            )));
+        };
+        let bytes = read(name)?;
+        if hex::encode(Sha256::digest(&bytes)) != want {
+            return Err(bad_bundle(format!(
+                "{name} does not match its SHA-256 in manifest.json"
+            )));
+        }
+        Ok(bytes)
+    };
+    let doc: Value = serde_json::from_slice(&checked(&json_name, "the description")?)
+        .map_err(|e| bad_bundle(format!("{json_name}: {e}")))?;
+    let npy_bytes = checked(&npy_name, "the reward map")?;
+    let field = |key: &str| {
+        doc[key]
+            .as_u64()
+            .ok_or_else(|| bad_bundle(format!("{json_name} has no whole number {key}")))
+    };
+    let cell_px = u32::try_from(field("cell_px")?)
+        .map_err(|_| bad_bundle(format!("{json_name}: cell_px is out of range")))?;
+    let to_usize = |v: u64, key: &str| {
+        usize::try_from(v).map_err(|_| bad_bundle(format!("{json_name}: {key} is out of range")))
+    };
+    let cols = to_usize(field("cols")?, "cols")?;
+    let rows = to_usize(field("rows")?, "rows")?;
+    if doc["id"].as_str() != Some(id) {
+        return Err(bad_bundle(format!("{json_name} describes another fit")));
+    }
+    if doc["frame_id"] != goal["frame_id"]
+        || (field("width")?, field("height")?) != (u64::from(width), u64::from(height))
+    {
+        return Err(bad_bundle(format!(
+            "{json_name} is a fit on another frame than goal.json's"
+        )));
+    }
+    let arr = npy::read(&npy_bytes, npy_bytes.len())
+        .map_err(|e| bad_bundle(format!("{npy_name}: {e}")))?;
+    if arr.header.shape != [rows, cols] {
+        return Err(bad_bundle(format!(
+            "{npy_name} has shape {:?}, not ({rows}, {cols}) as {json_name} says",
+            arr.header.shape
+        )));
+    }
+    let values = arr
+        .as_f32()
+        .map_err(|e| bad_bundle(format!("{npy_name}: {e}")))?
+        .to_vec();
+    RewardGrid::new(cell_px, cols, rows, values).map_err(|e| bad_bundle(format!("{npy_name}: {e}")))
 }
 
 #[cfg(test)]

@@ -174,12 +174,25 @@ impl Loaded {
         check_map_values(limits, self.model().len(), w as usize, h as usize, None)
     }
 
+    /// The reward fits of this revision's `learned` terms, as its bundle carries them.
+    pub async fn bundled_reward_fits(
+        &self,
+        state: &AppState,
+        who: &Principal,
+    ) -> ServiceResult<Vec<scoring::BundledRewardFit>> {
+        let ids = scoring::learned_terms(&self.doc)
+            .into_iter()
+            .map(|(_, id)| id);
+        super::reward_fits::bundled(state, who, &self.frame.id, ids).await
+    }
+
     /// What the bundle of this revision is made of.
     pub fn bundle_parts<'a>(
         &'a self,
         content_type: &str,
         frame: &'a [u8],
         maps: &'a [u8],
+        reward_fits: &'a [scoring::BundledRewardFit],
     ) -> scoring::BundleParts<'a> {
         let (width, height) = self.spec().frame_size();
         scoring::BundleParts {
@@ -196,6 +209,7 @@ impl Loaded {
             points: self.model().len(),
             width,
             height,
+            reward_fits,
         }
     }
 
@@ -517,6 +531,7 @@ pub async fn bundle(
     let mut l = load_row(state, who, row).await?;
     l.check_full_size_maps(&state.limits)?;
     let (content_type, frame) = l.frame_image(state).await?;
+    let fits = l.bundled_reward_fits(state, who).await?;
     let rev = l.row.revision;
     let permit = l.work_permit(state).await?;
     let cancel = Cancel::new();
@@ -524,7 +539,7 @@ pub async fn bundle(
     let zip = tokio::task::spawn_blocking(move || {
         let _permit = permit;
         let maps = l.full_size_maps(&stop)?;
-        scoring::bundle_zip(&l.bundle_parts(&content_type, &frame, &maps))
+        scoring::bundle_zip(&l.bundle_parts(&content_type, &frame, &maps, &fits))
     })
     .await
     .map_err(|e| ServiceError::Internal(e.to_string()))??;

@@ -265,7 +265,8 @@ pub async fn bundle(
             ));
         }
         let (content_type, frame) = l.frame_image(state).await?;
-        loaded.push((l, content_type, frame));
+        let fits = l.bundled_reward_fits(state, who).await?;
+        loaded.push((l, content_type, frame, fits));
     }
     let permit = state.heavy_permits.acquire().await?;
     let cancel = super::heavy::Cancel::new();
@@ -274,12 +275,12 @@ pub async fn bundle(
         let _permit = permit;
         let maps = loaded
             .iter()
-            .map(|(l, _, _)| l.full_size_maps(&stop))
+            .map(|(l, _, _, _)| l.full_size_maps(&stop))
             .collect::<Result<Vec<_>, _>>()?;
         let parts: Vec<scoring::BundleParts<'_>> = loaded
             .iter()
             .zip(&maps)
-            .map(|((l, ct, frame), m)| l.bundle_parts(ct, frame, m))
+            .map(|((l, ct, frame, fits), m)| l.bundle_parts(ct, frame, m, fits))
             .collect();
         scoring::goal_set_zip(&set, &parts)
     })

@@ -849,3 +849,194 @@ pub(super) async fn run(
         "converged": doc.converged,
     }))
 }
+
+/// A reward fit as a bundle describes it in `reward_fits/<id>.json` (canonical JSON): the grid,
+/// the features as submitted, the standardisation, the weights, the fit's diagnostics, and the
+/// formulas that give the reward map back from them.
+// Fields in alphabetical order, like the API's views (the canonical form sorts them anyway).
+#[derive(Debug, Serialize)]
+struct BundledFitDoc<'a> {
+    cell_px: u32,
+    cols: usize,
+    collapse_repeats: bool,
+    constant_features: &'a [bool],
+    converged: bool,
+    created_at: String,
+    demos: usize,
+    feature_means: &'a [f64],
+    feature_names: Vec<String>,
+    feature_scales: &'a [f64],
+    features: &'a [FeatureInput],
+    format: &'static str,
+    frame_id: &'a str,
+    grad_norm: f64,
+    grad_tolerance: f64,
+    height: u32,
+    held_out: Option<&'a HeldOutDoc>,
+    id: &'a str,
+    iterations: usize,
+    l2: f64,
+    log_likelihood_per_step: f64,
+    max_iterations: usize,
+    moves: usize,
+    no_go_zones: &'a [Vec<Xy>],
+    raw_offset: f64,
+    raw_weights: &'a [f64],
+    recompute: BundledFitFormulas,
+    reward_argmax: [f64; 2],
+    reward_map: BundledFitMap,
+    rows: usize,
+    stop: &'a str,
+    uniform_log_likelihood_per_step: f64,
+    weights: &'a [f64],
+    width: u32,
+}
+
+/// Where a bundled fit's reward map is and what it holds.
+#[derive(Debug, Serialize)]
+struct BundledFitMap {
+    dtype: &'static str,
+    file: String,
+    layout: &'static str,
+    shape: [usize; 2],
+}
+
+/// How a bundled fit's reward is recomputed from its features, in words a planner can code
+/// from (the same rules as docs/conventions.md, "Reward fits").
+#[derive(Debug, Serialize)]
+struct BundledFitFormulas {
+    cell_centre: &'static str,
+    cost: &'static str,
+    features: &'static str,
+    reward: &'static str,
+    standardise: &'static str,
+}
+
+fn bundled_fit_formulas() -> BundledFitFormulas {
+    BundledFitFormulas {
+        cell_centre: "cell (c, r), c = 0 … cols − 1, r = 0 … rows − 1, of side p = cell_px covers x \
+                  in [c·p − 0.5, min((c + 1)·p, width) − 0.5) and y likewise; its features are \
+                  taken at the centre of that part, x = (c·p + min((c + 1)·p, width) − 1) / 2, \
+                  y = (r·p + min((r + 1)·p, height) − 1) / 2 (frame pixels, x right, y down, \
+                  the centre of the top-left pixel at (0, 0))",
+        features: "raw_i at the cell centre (x, y), for features[i] by its kind: distance_to \
+               {point: [px, py]}: sqrt((x − px)² + (y − py)²) / sqrt(width² + height²); inside \
+               {polygon}: 1 when (x, y) lies in the closed polygon (its boundary included), \
+               else 0; rbf {center: [cx, cy], sigma_px: s}: exp(−((x − cx)² + (y − cy)²) / \
+               (2·s²)); no_go: 1 when (x, y) lies in one of no_go_zones (closed polygons), else 0",
+        standardise: "phi_i = (raw_i − feature_means[i]) / feature_scales[i], and phi_i = 0 where \
+                  constant_features[i]; the mean and the population standard deviation (the \
+                  scale, 1 for a constant feature) are taken over all rows · cols cells",
+        reward: "r(c, r) = sum over i of weights[i] · phi_i, in float64 in feature order, rounded to \
+             float32: entry [r, c] of the reward map. The same up to float64 rounding: sum over \
+             i of raw_weights[i] · raw_i, plus raw_offset (raw_weights[i] = weights[i] / \
+             feature_scales[i], 0 where constant; raw_offset = −sum over the features not \
+             constant of weights[i] · feature_means[i] / feature_scales[i])",
+        cost: "a learned term's cost at frame point (x, y) is max(r) − r(c, r) over the reward map \
+           as float32, with c = floor((x + 0.5) / cell_px) and r = floor((y + 0.5) / cell_px), \
+           each clamped to the grid; in reward units, 0 in the best cells",
+    }
+}
+
+/// The reward fits a bundle carries for a revision's `learned` terms on `frame_id`: one per
+/// distinct fit among `ids` (in id order), each with its JSON (see [`BundledFitDoc`]) and its
+/// reward map exactly as [`reward_map_npy`] serves it. The revision was checked against every
+/// one of them when it was saved and a finished fit never changes, so a bundle's bytes still
+/// depend only on the revision; a fit that is gone or unfinished is a fault, not the client's.
+pub async fn bundled<'a>(
+    state: &AppState,
+    who: &Principal,
+    frame_id: &str,
+    ids: impl IntoIterator<Item = &'a str>,
+) -> ServiceResult<Vec<crate::scoring::BundledRewardFit>> {
+    let mut wanted = std::collections::BTreeSet::new();
+    for raw in ids {
+        let id = crate::scoring::fit_file_id(raw).ok_or_else(|| {
+            ServiceError::Internal(format!("a learned term names {raw:?}, which is no fit id"))
+        })?;
+        wanted.insert(id);
+    }
+    let mut out = Vec::with_capacity(wanted.len());
+    for id in wanted {
+        let fault = |why: &str| ServiceError::Internal(format!("reward fit {id} {why}"));
+        let row = store::reward_fits::get(&state.store, &who.team_id, &id)
+            .await?
+            .ok_or_else(|| fault("of a learned term is missing"))?;
+        if row.frame_id != frame_id {
+            return Err(fault("of a learned term is on another frame"));
+        }
+        let Some(result) = row.result.as_deref() else {
+            return Err(fault("of a learned term has not finished"));
+        };
+        let s = settings_of(&row)?;
+        let r: ResultDoc = serde_json::from_str(result)
+            .map_err(|e| ServiceError::Internal(format!("fit {id} result unreadable: {e}")))?;
+        // The offset of the reward in raw feature units, as `irl::Features::raw_weights` has it.
+        let mut raw_offset = 0.0;
+        for ((w, mean), (scale, constant)) in r
+            .weights
+            .iter()
+            .zip(&r.feature_means)
+            .zip(r.feature_scales.iter().zip(&r.constant_features))
+        {
+            if !constant {
+                raw_offset -= w * mean / scale;
+            }
+        }
+        let (_, npy_name) = crate::scoring::reward_fit_paths(&id);
+        let doc = BundledFitDoc {
+            cell_px: s.cell_px,
+            cols: r.cols,
+            collapse_repeats: s.collapse_repeats,
+            constant_features: &r.constant_features,
+            converged: r.converged,
+            created_at: rfc3339(row.created_at),
+            demos: s.demos.len(),
+            feature_means: &r.feature_means,
+            feature_names: s.features.iter().map(FeatureInput::name).collect(),
+            feature_scales: &r.feature_scales,
+            features: &s.features,
+            format: "goalsmith-reward-fit",
+            frame_id: &row.frame_id,
+            grad_norm: r.grad_norm,
+            grad_tolerance: s.grad_tolerance,
+            height: s.height,
+            held_out: r.held_out.as_ref(),
+            id: &row.id,
+            iterations: r.iterations,
+            l2: s.l2,
+            log_likelihood_per_step: r.log_likelihood_per_step,
+            max_iterations: s.max_iterations,
+            moves: r.moves,
+            no_go_zones: &s.no_go_zones,
+            raw_offset,
+            raw_weights: &r.raw_weights,
+            recompute: bundled_fit_formulas(),
+            reward_argmax: r.reward_argmax,
+            reward_map: BundledFitMap {
+                dtype: "float32",
+                file: npy_name,
+                layout: "C order, little-endian: entry [r, c] is the reward of cell (c, r)",
+                shape: [r.rows, r.cols],
+            },
+            rows: r.rows,
+            stop: &r.stop,
+            uniform_log_likelihood_per_step: r.uniform_log_likelihood_per_step,
+            weights: &r.weights,
+            width: s.width,
+        };
+        let value =
+            serde_json::to_value(&doc).map_err(|e| ServiceError::Internal(e.to_string()))?;
+        let json = goalsmith_core::canonical::to_string(&value).into_bytes();
+        let npy = reward_map_npy(state, who, &id).await?;
+        out.push(crate::scoring::BundledRewardFit {
+            id,
+            json,
+            npy,
+            rows: r.rows,
+            cols: r.cols,
+            cell_px: s.cell_px,
+        });
+    }
+    Ok(out)
+}

@@ -10,6 +10,7 @@ mod concurrency;
 mod demo_scenario;
 mod demos;
 mod export;
+mod fit_bundles;
 mod goal_sets;
 mod limits;
 mod openapi;

@@ -334,7 +334,7 @@ async fn bundle_etag_answers_without_building(s: Server) {
     };
     use sha2::Digest;
     let mut h = sha2::Sha256::new();
-    h.update(b"goal bundle format 1\n");
+    h.update(b"goal bundle format 2\n");
     h.update(rev_bytes.as_bytes());
     assert_eq!(tag, format!("\"{}\"", hex::encode(h.finalize())));
     let again = s
