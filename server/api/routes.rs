@@ -313,7 +313,7 @@ pub fn table() -> Vec<Route> {
             .heavy()
             .conditional()
             .ok_binary(&["image/png"], "the overlay", DOWNLOAD),
-        Route::get("/api/goals/{id}/revisions/{n}/bundle.zip", "Reproducible bundle: goal.json, cost-maps.npy, frame, camera.json, README.txt, manifest.json", export::bundle)
+        Route::get("/api/goals/{id}/revisions/{n}/bundle.zip", "Reproducible bundle: goal.json, cost-maps.npy, frame, camera.json, for each reward fit a learned term uses reward_fits/<id>.json (weights, features, standardisation) and reward_fits/<id>.npy (its reward map), README.txt, manifest.json", export::bundle)
             .heavy()
             .conditional()
             .ok_binary(&["application/zip"], "the bundle; the same bytes for the same revision", DOWNLOAD),

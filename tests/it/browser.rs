@@ -1748,8 +1748,8 @@ async fn reward_fit_pages_end_to_end() {
     )
     .await;
     assert_eq!(st, reqwest::StatusCode::OK);
-    let reward = goalsmith_core::npy::read(&npy, 1 << 20).expect("npy");
-    let reward = reward.as_f32().expect("f32");
+    let parsed = goalsmith_core::npy::read(&npy, 1 << 20).expect("npy");
+    let reward = parsed.as_f32().expect("f32");
     let max = reward.iter().fold(f32::NEG_INFINITY, |m, &v| m.max(v));
     let (st, maps) = get_bytes(
         &s,
@@ -1782,7 +1782,17 @@ async fn reward_fit_pages_end_to_end() {
     )
     .await;
     assert_eq!(st, reqwest::StatusCode::OK);
-    assert!(bundle.starts_with(b"PK"), "a ZIP");
+    let mut zip = zip::ZipArchive::new(std::io::Cursor::new(bundle)).expect("a ZIP");
+    let mut fit_map = Vec::new();
+    std::io::Read::read_to_end(
+        &mut zip
+            .by_name(&format!("reward_fits/{fit_id}.npy"))
+            .expect("the fit's map in the bundle"),
+        &mut fit_map,
+    )
+    .unwrap();
+    assert_eq!(fit_map, npy, "the bundled map is the fit's reward map");
+    assert!(zip.by_name(&format!("reward_fits/{fit_id}.json")).is_ok());
 
     // The fit is listed on the team home.
     a.goto(&s.base).await.unwrap();
