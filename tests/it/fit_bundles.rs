@@ -28,26 +28,17 @@ const INSIDE: [[f64; 2]; 4] = [[60.0, 60.0], [100.0, 60.0], [100.0, 100.0], [60.
 
 /// Hand-drawn paths from five starts straight to GOAL, a point every 4 px.
 fn paths() -> Vec<Value> {
-    [
-        [10.0, 10.0],
-        [150.0, 5.0],
-        [5.0, 110.0],
-        [80.0, 20.0],
-        [20.0, 60.0],
-    ]
-    .iter()
-    .map(|s: &[f64; 2]| {
-        let d = (GOAL[0] - s[0]).hypot(GOAL[1] - s[1]);
-        let n = (d / 4.0).ceil() as usize;
-        let pts: Vec<[f64; 2]> = (0..=n)
-            .map(|k| {
-                let t = k as f64 / n as f64;
-                [s[0] + t * (GOAL[0] - s[0]), s[1] + t * (GOAL[1] - s[1])]
-            })
-            .collect();
-        json!({ "path": pts })
-    })
-    .collect()
+    straight_paths(
+        &[
+            [10.0, 10.0],
+            [150.0, 5.0],
+            [5.0, 110.0],
+            [80.0, 20.0],
+            [20.0, 60.0],
+        ],
+        GOAL,
+        4.0,
+    )
 }
 
 /// Starts a fit and waits for it to finish; its id.

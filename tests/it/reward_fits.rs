@@ -17,27 +17,18 @@ const GOAL: [f64; 2] = [125.0, 95.0];
 
 /// Hand-drawn paths from six starts straight to GOAL, a point every 4 px.
 fn paths() -> Vec<Value> {
-    [
-        [10.0, 10.0],
-        [150.0, 5.0],
-        [5.0, 110.0],
-        [80.0, 20.0],
-        [20.0, 60.0],
-        [140.0, 40.0],
-    ]
-    .iter()
-    .map(|s: &[f64; 2]| {
-        let d = ((GOAL[0] - s[0]).powi(2) + (GOAL[1] - s[1]).powi(2)).sqrt();
-        let n = (d / 4.0).ceil() as usize;
-        let pts: Vec<[f64; 2]> = (0..=n)
-            .map(|k| {
-                let t = k as f64 / n as f64;
-                [s[0] + t * (GOAL[0] - s[0]), s[1] + t * (GOAL[1] - s[1])]
-            })
-            .collect();
-        json!({ "path": pts })
-    })
-    .collect()
+    straight_paths(
+        &[
+            [10.0, 10.0],
+            [150.0, 5.0],
+            [5.0, 110.0],
+            [80.0, 20.0],
+            [20.0, 60.0],
+            [140.0, 40.0],
+        ],
+        GOAL,
+        4.0,
+    )
 }
 
 fn features() -> Value {

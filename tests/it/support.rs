@@ -557,3 +557,22 @@ pub fn png_text(bytes: &[u8]) -> Vec<(String, String)> {
         .map(|t| (t.keyword.clone(), t.text.clone()))
         .collect()
 }
+
+/// Paths drawn by hand for reward fits: from each start straight to `goal`, a point every
+/// `step` px, as `{"path": [[x, y], …]}` demos.
+pub fn straight_paths(starts: &[[f64; 2]], goal: [f64; 2], step: f64) -> Vec<Value> {
+    starts
+        .iter()
+        .map(|s| {
+            let d = (goal[0] - s[0]).hypot(goal[1] - s[1]);
+            let n = ((d / step).ceil() as usize).max(1);
+            let pts: Vec<[f64; 2]> = (0..=n)
+                .map(|k| {
+                    let t = k as f64 / n as f64;
+                    [s[0] + t * (goal[0] - s[0]), s[1] + t * (goal[1] - s[1])]
+                })
+                .collect();
+            serde_json::json!({ "path": pts })
+        })
+        .collect()
+}
