@@ -16,6 +16,7 @@ pub const FILES: &[(&str, &[u8])] = &[
     ("compare.js", include_bytes!("../web/static/compare.js")),
     ("demo.js", include_bytes!("../web/static/demo.js")),
     ("editor.js", include_bytes!("../web/static/editor.js")),
+    ("favicon.svg", include_bytes!("../web/static/favicon.svg")),
     ("fit.js", include_bytes!("../web/static/fit.js")),
     ("ops.js", include_bytes!("../web/static/ops.js")),
     ("site.css", include_bytes!("../web/static/site.css")),
