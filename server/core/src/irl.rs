@@ -27,7 +27,8 @@ use thiserror::Error;
 pub const MAX_CELLS: usize = 100_000;
 
 /// At most this many entries states × (longest horizon + 1) in the soft value table
-/// (2²⁶ float64, 512 MiB).
+/// (2²⁶ float64, 512 MiB; the linear passes of [`MaxEnt::evaluate`] may add a u32 a deep
+/// entry, up to 256 MiB more).
 pub const MAX_VALUE_TABLE: usize = 1 << 26;
 
 /// Below this log-ratio a log-sum-exp term is recomputed with its own shift (see
@@ -989,8 +990,8 @@ impl<'a> MaxEnt<'a> {
     /// one forward pass in which every demo's start mass enters when as many moves are left as
     /// its horizon (the policy depends only on the moves left, so this is exact for every
     /// horizon at once). The passes run on the rescaled exponentials of the values, with no
-    /// `exp` or `ln` per state and step (`irl/linear.rs`), while the rewards span less than 600
-    /// and no sum of a step falls under e^−600; otherwise in log space.
+    /// `exp` or `ln` per state and step but at the few states whose sums fall under e^−600
+    /// (`irl/linear.rs`), when the rewards span less than 600; otherwise in log space.
     pub fn evaluate(&mut self, w: &[f64], l2: f64) -> Evaluation {
         self.features.rewards_into(w, &mut self.r);
         let ll = if self

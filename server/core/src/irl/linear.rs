@@ -1,27 +1,36 @@
 //! The fast path of [`MaxEnt::evaluate`](super::MaxEnt::evaluate): the backward and forward
-//! passes of the shifted log-space recursion of [`super::backward`] done on the exponentials
-//! of the shifted values, rescaled at every step (as the scaled forward–backward recursion of
-//! a hidden Markov model is), so that no state needs an `exp` or a `ln` in any step.
+//! passes of the shifted recursion of [`super::backward`] done on the exponentials of the
+//! shifted values, rescaled at every step (as the scaled forward–backward recursion of a
+//! hidden Markov model is), so that a state needs no `exp` or `ln` in a step.
 //!
 //! With a(s) = exp(r(s) − max r), Eₖ = exp Ṽₖ and Zₖ = exp Q̃ₖ (see [`super::Table`]):
 //!
 //! - backward: E₀ = a, Z₀ = 1, and for k ≥ 1 Zₖ(s) = Σ_{s′ ∈ N(s)} Eₖ₋₁(s′) (a 3 × 3 box sum),
-//!   mₖ = maxₛ a(s)·Zₖ(s), Eₖ = a·Zₖ / mₖ. Then topₖ = max r + ln mₖ, and Vₖ(s) = r(s) + ln Zₖ(s)
-//!   + offsetₖ as before: one `ln` per step, none per state.
-//! - forward: with Dₖ the visit mass with k moves left and Gₖ = Dₖ / Zₖ, the move
-//!   Dₖ₋₁(s′) = Eₖ₋₁(s′)·Σ_{s ∈ N(s′)} Gₖ(s) gives Gₖ₋₁ = a·(box sum of Gₖ) / mₖ₋₁: Z cancels,
-//!   and only the visits Dₖ = Gₖ·Zₖ and the start masses (c / Zₖ(s₀)) read it.
+//!   mₖ = maxₛ a(s)·Zₖ(s), Eₖ = a·(Zₖ/mₖ). Then topₖ = max r + ln mₖ and Vₖ(s) = r(s) +
+//!   ln Zₖ(s) + offsetₖ as in log space: one `ln` a step, none a state.
+//! - forward: with Dₖ the visit mass with k moves left and Gₖ = Dₖ/Zₖ, the move Dₖ₋₁(s′) =
+//!   Eₖ₋₁(s′)·Σ_{s ∈ N(s′)} Gₖ(s) gives Gₖ₋₁ = a·(box sum of Gₖ)/mₖ₋₁: Z cancels, and only the
+//!   visits Dₖ = Gₖ·Zₖ and the start masses (c/Zₖ(s₀)) read it.
 //!
 //! Every per-state array is kept in the padded (rows + 2) × (cols + 2) layout of
 //! [`super::BoxSum`], zero in the padding and in removed cells (a = 0 there), and the table
-//! row of step k in state order; the kept cells of one grid row that are consecutive states
-//! form a run, so every loop is contiguous and branch-free.
+//! row of step k in state order; the kept cells of a grid row that are consecutive states form
+//! a run, so the loops over the states are contiguous and branch-free.
 //!
-//! The path is taken only while nothing in it can underflow to a wrong result: every state's
-//! a(s) ≥ e^LOG_FLOOR (the rewards span less than 600) and every Zₖ(s) ≥ e^LOG_FLOOR. Then a
-//! term lost to underflow (under e^−708) is below e^−108 of every sum it belongs to, as in the
-//! log-space pass, and mₖ ≥ a(argmax Eₖ₋₁) ≥ e^LOG_FLOOR keeps 1/mₖ finite. Otherwise
-//! [`Linear::backward`] returns false and the evaluation runs the log-space passes.
+//! Deep states. A state whose Zₖ is under e^LOG_FLOOR (all its moves far below the best state:
+//! far corners at long horizons, say) is handled as the log-space pass handles it: its Q̃ₖ is
+//! the log-sum-exp of Ṽₖ₋₁ over its moves shifted by their own maximum (the exponentials of
+//! all the step's deep states computed together), kept in the table as the negative number
+//! Q̃ₖ (a Z entry is positive), and its Eₖ is the exponential of its Ṽₖ; in the forward pass
+//! its mass Dₖ is kept as such (Gₖ could overflow) and pushed move by move with πₖ(t | s) =
+//! exp(Ṽₖ₋₁(t) − Q̃ₖ(s)).
+//!
+//! Exactness. Every a(s) ≥ e^LOG_FLOOR (the rewards span less than 600), so a is normal, mₖ ≥
+//! a(argmax Eₖ₋₁) ≥ e^LOG_FLOOR keeps Zₖ/mₖ finite, and an E is either a·(Z/m), to a few
+//! roundings, or the exponential of an exact log value; a term lost to underflow (under
+//! e^−708) is under e^−108 of every sum that is not deep, as in the log-space pass. When the
+//! rewards span more (or are not finite), [`Linear::backward`] returns false and the
+//! evaluation runs the log-space passes.
 
 use super::{Grid, LOG_FLOOR, exp_nonpositive};
 
@@ -63,6 +72,10 @@ pub(super) struct Linear {
     /// that of step k − 1 being made.
     dd: Vec<f64>,
     dd_next: Vec<f64>,
+    /// Scratch for the deep states: exponents (9 a state), shifts, sources.
+    buf: Vec<f64>,
+    lm: Vec<f64>,
+    src: Vec<u32>,
 }
 
 /// Q̃ from a table entry: ln Z when positive, else Q̃ itself (a deep state's).
@@ -101,6 +114,9 @@ impl Linear {
             deep_at: Vec::with_capacity(t_max + 2),
             dd: vec![0.0; n],
             dd_next: vec![0.0; n],
+            buf: Vec::new(),
+            lm: Vec::new(),
+            src: Vec::new(),
         }
     }
 
@@ -152,7 +168,7 @@ impl Linear {
             box_rows(&self.e, &mut self.h, lo, hi);
             let (done, rest) = z.split_at_mut(k * n);
             let (zp, zk) = (&done[(k - 1) * n..], &mut rest[..n]);
-            let mut low = false;
+            let (mut low, mut mk) = (false, [0.0; LANES]);
             for run in &self.runs {
                 let (p, len) = (run.pad, run.len);
                 let zr = &mut zk[run.state..run.state + len];
@@ -164,12 +180,10 @@ impl Linear {
                 for ((zs, &u), (&c, &d)) in zr.iter_mut().zip(up).zip(mid.iter().zip(down)) {
                     *zs = u + c + d;
                 }
-                let (ar, er) = (&self.a[p..p + len], &mut self.e[p..p + len]);
-                for ((e, &a), &zs) in er.iter_mut().zip(ar).zip(zr.iter()) {
-                    *e = a * zs;
-                }
+                max_product_lanes(&mut mk, &self.a[p..p + len], zr);
                 low |= min_lanes(zr) < floor;
             }
+            let m = mk.iter().copied().fold(0.0, f64::max);
             if low {
                 // The deep states: Q̃ₖ(s) by their own log-sum-exp over Ṽₖ₋₁ of their moves.
                 let top_prev = self.top[k - 1];
@@ -185,41 +199,56 @@ impl Linear {
                         );
                     }
                 }
-                for &s in &self.deep[self.deep_at[k]..] {
-                    let s = s as usize;
-                    let nb = grid.neighbours(s);
-                    let mut v = [f64::NEG_INFINITY; 9];
-                    for (vj, &t) in v.iter_mut().zip(nb) {
-                        let t = t as usize;
-                        *vj = (r[t] - top_prev) + log_z(zp[t]);
+                // One row of 9 exponents per deep state (−∞ past its last move), their
+                // exponentials at once (vectorised), then the sums.
+                let deep = &self.deep[self.deep_at[k]..];
+                self.buf.clear();
+                self.buf.resize(9 * deep.len(), f64::NEG_INFINITY);
+                self.lm.clear();
+                for (row, &s) in self.buf.chunks_exact_mut(9).zip(deep) {
+                    move_values(grid, r, zp, top_prev, s as usize, row);
+                    let lm = row.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+                    for x in row.iter_mut() {
+                        *x -= lm;
                     }
-                    let lm = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
-                    let sum: f64 = v.iter().map(|&x| exp_nonpositive(x - lm)).sum();
-                    let q = lm + sum.ln();
+                    self.lm.push(lm);
+                }
+                exp_all(&mut self.buf);
+                for ((row, &lm), &s) in self.buf.chunks_exact(9).zip(&self.lm).zip(deep) {
+                    let q = lm + row.iter().sum::<f64>().ln();
                     if q.is_nan() || q >= 0.0 {
                         return false;
                     }
-                    zk[s] = q;
-                    self.e[grid.pad[s] as usize] = 0.0;
+                    zk[s as usize] = q;
                 }
             }
             self.deep_at.push(self.deep.len());
-            let m = max_lanes(&self.e[lo..hi]);
             if !(m >= floor && m.is_finite()) {
                 return false;
             }
             let top = rmax + m.ln();
             let inv = 1.0 / m;
-            for e in &mut self.e[lo..hi] {
-                *e *= inv;
+            // Eₖ = a·(Zₖ/mₖ): Zₖ/mₖ ≤ 9/e^LOG_FLOOR, and the product underflows only where Eₖ
+            // does. (At a deep state this writes a wrong value, replaced just below.)
+            for run in &self.runs {
+                let (p, len) = (run.pad, run.len);
+                let (ar, er) = (&self.a[p..p + len], &mut self.e[p..p + len]);
+                for ((e, &a), &zs) in er.iter_mut().zip(ar).zip(&zk[run.state..run.state + len]) {
+                    *e = a * (zs * inv);
+                }
             }
-            for &s in &self.deep[self.deep_at[k]..self.deep_at[k + 1]] {
-                let s = s as usize;
-                let v = r[s] + zk[s] - top;
+            let deep = &self.deep[self.deep_at[k]..];
+            self.buf.clear();
+            for &s in deep {
+                let v = r[s as usize] + zk[s as usize] - top;
                 if v > 0.0 {
                     return false;
                 }
-                self.e[grid.pad[s] as usize] = exp_nonpositive(v);
+                self.buf.push(v);
+            }
+            exp_all(&mut self.buf);
+            for (&s, &e) in deep.iter().zip(&self.buf) {
+                self.e[grid.pad[s as usize] as usize] = e;
             }
             self.inv_m[k] = inv;
             self.top[k] = top;
@@ -287,66 +316,79 @@ impl Linear {
                     self.dd[s] += c;
                 }
             }
-            // Visits with k moves left: Dₖ = Gₖ·Zₖ (Gₖ = 0 at a deep state), and the deep
-            // states' own.
-            for run in &self.runs {
-                let states = run.state..run.state + run.len;
-                let (vr, zr) = (&mut visits[states.clone()], &zk[states]);
-                let gr = &self.e[run.pad..run.pad + run.len];
-                for ((v, &gs), &zs) in vr.iter_mut().zip(gr).zip(zr) {
-                    *v += gs * zs;
-                }
-            }
             let deep_k = &self.deep[self.deep_at[k]..self.deep_at[k + 1]];
             let deep_prev = &self.deep[self.deep_at[k - 1]..self.deep_at[k]];
             for &s in deep_k {
                 visits[s as usize] += self.dd[s as usize];
             }
-            // One move: Gₖ₋₁ = a·(box sum of Gₖ) / mₖ₋₁, or Dₖ₋₁ = Eₖ₋₁·(box sum) at a state
-            // deep at step k − 1.
+            // The visits with k moves left, Dₖ = Gₖ·Zₖ (Gₖ = 0 at a deep state, whose own were
+            // just added), and one move: Gₖ₋₁ = a·(box sum of Gₖ) / mₖ₋₁ (made Dₖ₋₁ =
+            // Eₖ₋₁·(box sum) below at a state deep at step k − 1).
             box_rows(&self.e, &mut self.h, lo, hi);
             let inv = self.inv_m[k - 1];
             for run in &self.runs {
                 let (p, len) = (run.pad, run.len);
+                let states = run.state..run.state + len;
+                let (vr, zr) = (&mut visits[states.clone()], &zk[states]);
                 let (up, mid, down) = (
                     &self.h[p - w..p - w + len],
                     &self.h[p..p + len],
                     &self.h[p + w..p + w + len],
                 );
                 let (ar, gr) = (&self.a[p..p + len], &mut self.e[p..p + len]);
-                for ((gs, &a), ((&u, &c), &d)) in
-                    gr.iter_mut().zip(ar).zip(up.iter().zip(mid).zip(down))
+                for (((gs, &a), (v, &zs)), ((&u, &c), &d)) in gr
+                    .iter_mut()
+                    .zip(ar)
+                    .zip(vr.iter_mut().zip(zr))
+                    .zip(up.iter().zip(mid).zip(down))
                 {
+                    *v += *gs * zs;
                     *gs = (a * (u + c + d)) * inv;
                 }
             }
             let top_prev = self.top[k - 1];
-            for &s in deep_prev {
+            self.buf.clear();
+            self.buf.extend(
+                deep_prev
+                    .iter()
+                    .map(|&s| r[s as usize] + zp[s as usize] - top_prev),
+            );
+            exp_all(&mut self.buf);
+            for (&s, &e) in deep_prev.iter().zip(&self.buf) {
                 let (s, p) = (s as usize, grid.pad[s as usize] as usize);
-                let u = self.h[p - w] + self.h[p] + self.h[p + w];
-                self.dd_next[s] = exp_nonpositive(r[s] + zp[s] - top_prev) * u;
+                self.dd_next[s] = e * (self.h[p - w] + self.h[p] + self.h[p + w]);
                 self.e[p] = 0.0;
             }
-            // The deep states of step k push their mass move by move: πₖ(t | s) =
-            // exp(Ṽₖ₋₁(t) − Q̃ₖ(s)), which is Gₖ₋₁(t) += D·exp(r(t) − topₖ₋₁ − Q̃ₖ(s)) at a
-            // state t that is not deep at step k − 1.
-            for &s in deep_k {
-                let s = s as usize;
-                let d = self.dd[s];
-                if d == 0.0 {
-                    continue;
+            // The deep states of step k push their mass move by move, πₖ(t | s) =
+            // exp(Ṽₖ₋₁(t) − Q̃ₖ(s)), into Gₖ₋₁(t) = Dₖ₋₁(t) / Zₖ₋₁(t), or into Dₖ₋₁(t) at a
+            // state deep at step k − 1.
+            self.src.clear();
+            self.src
+                .extend(deep_k.iter().filter(|&&s| self.dd[s as usize] != 0.0));
+            self.buf.clear();
+            self.buf.resize(9 * self.src.len(), f64::NEG_INFINITY);
+            for (row, &s) in self.buf.chunks_exact_mut(9).zip(&self.src) {
+                move_values(grid, r, zp, top_prev, s as usize, row);
+                let q = zk[s as usize];
+                for x in row.iter_mut() {
+                    *x -= q;
                 }
-                let q = zk[s];
-                for &t in grid.neighbours(s) {
-                    let t = t as usize;
+            }
+            exp_all(&mut self.buf);
+            for (row, &s) in self.buf.chunks_exact(9).zip(&self.src) {
+                let d = self.dd[s as usize];
+                for (&pi, &t) in row.iter().zip(grid.neighbours(s as usize)) {
+                    let (t, flow) = (t as usize, d * pi);
                     let x = zp[t];
                     if x > 0.0 {
-                        self.e[grid.pad[t] as usize] += d * (r[t] - top_prev - q).exp();
+                        self.e[grid.pad[t] as usize] += flow / x;
                     } else {
-                        self.dd_next[t] += d * exp_nonpositive(r[t] - top_prev + x - q);
+                        self.dd_next[t] += flow;
                     }
                 }
-                self.dd[s] = 0.0;
+            }
+            for &s in deep_k {
+                self.dd[s as usize] = 0.0;
             }
             std::mem::swap(&mut self.dd, &mut self.dd_next);
         }
@@ -365,7 +407,25 @@ impl Linear {
     }
 }
 
-/// h[i] = x[i − 1] + x[i] + x[i + 1] for i in lo..hi (1 ≤ lo, hi < len).
+/// Ṽₖ₋₁ of the moves from `s` into `row` (in the order of [`Grid::neighbours`]), from row
+/// k − 1 of the table (`zp`) and topₖ₋₁; the rest of `row` is left as it is.
+#[inline(always)]
+fn move_values(grid: &Grid, r: &[f64], zp: &[f64], top_prev: f64, s: usize, row: &mut [f64]) {
+    for (v, &t) in row.iter_mut().zip(grid.neighbours(s)) {
+        let t = t as usize;
+        *v = (r[t] - top_prev) + log_z(zp[t]);
+    }
+}
+
+/// x ← exp(x) for x ≤ 0 (0 for −∞), in a loop that vectorises.
+#[inline(always)]
+fn exp_all(x: &mut [f64]) {
+    for v in x {
+        *v = exp_nonpositive(*v);
+    }
+}
+
+/// `h[i] = x[i − 1] + x[i] + x[i + 1]` for i in lo..hi (1 ≤ lo, hi < len).
 #[inline(always)]
 fn box_rows(x: &[f64], h: &mut [f64], lo: usize, hi: usize) {
     let (a, b, c) = (&x[lo - 1..hi - 1], &x[lo..hi], &x[lo + 1..hi + 1]);
@@ -376,21 +436,22 @@ fn box_rows(x: &[f64], h: &mut [f64], lo: usize, hi: usize) {
 
 const LANES: usize = 4;
 
-/// The largest of `x` (−∞ when empty; NaN is passed over), in lanes that vectorise.
+/// `m[j] ← max(m[j], a[i]·z[i])` over the lanes j = i mod LANES (products that are NaN are
+/// passed over), in lanes that vectorise.
 #[inline(always)]
-fn max_lanes(x: &[f64]) -> f64 {
-    let mut m = [f64::NEG_INFINITY; LANES];
-    let chunks = x.chunks_exact(LANES);
-    let rest = chunks.remainder();
-    for c in chunks {
+fn max_product_lanes(m: &mut [f64; LANES], a: &[f64], z: &[f64]) {
+    let (ca, cz) = (a.chunks_exact(LANES), z.chunks_exact(LANES));
+    let (ra, rz) = (ca.remainder(), cz.remainder());
+    for (x, y) in ca.zip(cz) {
         for j in 0..LANES {
-            m[j] = if c[j] > m[j] { c[j] } else { m[j] };
+            let p = x[j] * y[j];
+            m[j] = if p > m[j] { p } else { m[j] };
         }
     }
-    rest.iter()
-        .chain(&m)
-        .copied()
-        .fold(f64::NEG_INFINITY, f64::max)
+    for (j, (x, y)) in ra.iter().zip(rz).enumerate() {
+        let p = x * y;
+        m[j] = if p > m[j] { p } else { m[j] };
+    }
 }
 
 /// The smallest of `x` (+∞ when empty; NaN is passed over), in lanes that vectorise.
