@@ -17,6 +17,7 @@
 //! The exact definitions are in the "Reward fits" section of `docs/conventions.md`.
 
 pub mod lbfgs;
+mod linear;
 pub mod sample;
 
 use crate::geometry::Polygon;
@@ -27,7 +28,8 @@ use thiserror::Error;
 pub const MAX_CELLS: usize = 100_000;
 
 /// At most this many entries states × (longest horizon + 1) in the soft value table
-/// (2²⁶ float64, 512 MiB).
+/// (2²⁶ float64, 512 MiB; the linear passes of [`MaxEnt::evaluate`] may add a u32 a deep
+/// entry, up to 256 MiB more).
 pub const MAX_VALUE_TABLE: usize = 1 << 26;
 
 /// Below this log-ratio a log-sum-exp term is recomputed with its own shift (see
@@ -35,6 +37,14 @@ pub const MAX_VALUE_TABLE: usize = 1 << 26;
 const LOG_FLOOR: f64 = -600.0;
 
 const NO_STATE: u32 = u32::MAX;
+
+/// Whether this CPU runs the AVX2 builds of the passes (checked once, then cached by std).
+/// Both builds do the same f64 operations in the same order (no FMA), so their results are
+/// identical bit for bit.
+#[cfg(target_arch = "x86_64")]
+fn has_avx2() -> bool {
+    std::arch::is_x86_feature_detected!("avx2")
+}
 
 /// What is wrong with a reward fit's input.
 #[derive(Debug, Clone, PartialEq, Error)]
@@ -642,7 +652,8 @@ pub struct SoftValues {
 /// then as exact at horizon 500 as at horizon 5.
 #[derive(Debug, Clone)]
 struct Table {
-    /// q[k·n + s] = Q̃ₖ(s) = Qₖ(s) − offset[k] (Q̃₀ = 0).
+    /// q[k·n + s] = Q̃ₖ(s) = Qₖ(s) − offset[k] (Q̃₀ = 0). In [`MaxEnt`], the linear passes
+    /// (`linear.rs`) keep exp Q̃ₖ(s) here instead, when they apply.
     q: Vec<f64>,
     /// top[k] = maxₛ (r(s) + Q̃ₖ(s)).
     top: Vec<f64>,
@@ -876,6 +887,7 @@ pub struct MaxEnt<'a> {
     d_next: Vec<f64>,
     visits: Vec<f64>,
     fallback: Vec<u32>,
+    linear: linear::Linear,
 }
 
 impl<'a> MaxEnt<'a> {
@@ -948,6 +960,7 @@ impl<'a> MaxEnt<'a> {
             d_next: vec![0.0; n],
             visits: vec![0.0; n],
             fallback: Vec::new(),
+            linear: linear::Linear::new(grid, t_max),
         })
     }
 
@@ -977,24 +990,26 @@ impl<'a> MaxEnt<'a> {
     /// f(w) and ∇f(w) with L2 weight `l2` (λ): one backward pass to the longest horizon, and
     /// one forward pass in which every demo's start mass enters when as many moves are left as
     /// its horizon (the policy depends only on the moves left, so this is exact for every
-    /// horizon at once).
+    /// horizon at once). The passes run on the rescaled exponentials of the values, with no
+    /// `exp` or `ln` per state and step but at the few states whose sums fall under e^−600
+    /// (`irl/linear.rs`), when the rewards span less than 600; otherwise in log space.
     pub fn evaluate(&mut self, w: &[f64], l2: f64) -> Evaluation {
-        let n = self.grid.states();
         self.features.rewards_into(w, &mut self.r);
-        backward(
-            self.grid,
-            &self.r,
-            self.t_max,
-            &mut self.table,
-            &mut self.scratch,
-        );
-        // Log-likelihood.
-        let mut ll = 0.0;
-        for d in &self.demos {
-            let t = d.len() - 1;
-            ll += d.iter().map(|&s| self.r[s]).sum::<f64>() - self.table.value(n, &self.r, t, d[0]);
-        }
-        self.forward();
+        let ll = if self
+            .linear
+            .backward(self.grid, &self.r, self.t_max, &mut self.table.q)
+        {
+            self.linear.forward(
+                self.grid,
+                &self.r,
+                &self.table.q,
+                &self.starts,
+                &mut self.visits,
+            );
+            self.log_likelihood(|me, k, s| me.linear.value(&me.r, &me.table.q, k, s))
+        } else {
+            self.log_space_passes()
+        };
         let k = self.features.len();
         let mut expected = vec![0.0; k];
         for (s, &c) in self.visits.iter().enumerate() {
@@ -1015,6 +1030,29 @@ impl<'a> MaxEnt<'a> {
             log_likelihood_per_step: ll / mf,
             gradient,
         }
+    }
+
+    /// Σ over the demos of Σₜ r(sₜ) − V_T(s₀), with Vₖ(s) read by `value`.
+    fn log_likelihood(&self, value: impl Fn(&Self, usize, usize) -> f64) -> f64 {
+        self.demos
+            .iter()
+            .map(|d| d.iter().map(|&s| self.r[s]).sum::<f64>() - value(self, d.len() - 1, d[0]))
+            .sum()
+    }
+
+    /// The backward and forward passes in log space (when the linear ones do not apply);
+    /// returns the log-likelihood.
+    fn log_space_passes(&mut self) -> f64 {
+        let n = self.grid.states();
+        backward(
+            self.grid,
+            &self.r,
+            self.t_max,
+            &mut self.table,
+            &mut self.scratch,
+        );
+        self.forward();
+        self.log_likelihood(|me, k, s| me.table.value(n, &me.r, k, s))
     }
 
     /// The forward pass over the value table of the last backward pass.
@@ -1405,5 +1443,128 @@ mod tests {
         assert_eq!(exp_nonpositive(0.0), 1.0);
         assert_eq!(exp_nonpositive(-800.0), 0.0);
         assert_eq!(exp_nonpositive(f64::NEG_INFINITY), 0.0);
+    }
+    /// A grid of 13 × 9 cells with a removed block (so rows hold several runs of states), 3
+    /// random features and demos of horizons 0, 3, 17 and 40 from random starts.
+    fn mixed_problem(seed: u64) -> (Grid, Features, Vec<Vec<usize>>) {
+        use crate::geometry::PixelPoint;
+        let pts = [[20.0, 12.0], [35.0, 12.0], [35.0, 27.0], [20.0, 27.0]];
+        let block = Polygon::new(
+            pts.iter()
+                .map(|p| PixelPoint::new(p[0], p[1]).expect("finite"))
+                .collect(),
+        )
+        .expect("a rectangle");
+        let spec = GridSpec {
+            width: 51,
+            height: 35,
+            cell_px: 4,
+            no_go: vec![block],
+            remove_no_go: true,
+        };
+        let grid = Grid::new(&spec).expect("a grid");
+        assert!(grid.states() < grid.cols() * grid.rows());
+        let mut rng = crate::rng::SplitMix64(seed);
+        let raw = (0..grid.states() * 3).map(|_| rng.next_f64()).collect();
+        let features = Features::from_raw(3, raw);
+        let demos = [0, 3, 17, 40]
+            .into_iter()
+            .map(|moves| {
+                let mut path = vec![rng.below(grid.states())];
+                for _ in 0..moves {
+                    let nb = grid.neighbours(path[path.len() - 1]);
+                    path.push(nb[rng.below(nb.len())] as usize);
+                }
+                path
+            })
+            .collect();
+        (grid, features, demos)
+    }
+
+    /// Evaluates `me` at `w` by the linear passes (which must apply) and by the log-space
+    /// passes, and returns the relative log-likelihood difference and the largest visit
+    /// difference relative to max(1, visits).
+    fn linear_against_log_space(me: &mut MaxEnt<'_>, w: &[f64]) -> (f64, f64) {
+        let ev = me.evaluate(w, 0.0);
+        let visits = me.expected_visits().to_vec();
+        assert!(
+            me.linear
+                .backward(me.grid, &me.r, me.t_max, &mut me.table.q)
+        );
+        let ll = me.log_space_passes();
+        let ll_err = (ev.log_likelihood - ll).abs() / ll.abs().max(1.0);
+        let visit_err = visits
+            .iter()
+            .zip(me.expected_visits())
+            .map(|(a, b)| (a - b).abs() / b.abs().max(1.0))
+            .fold(0.0, f64::max);
+        (ll_err, visit_err)
+    }
+
+    /// The linear passes give the log-space passes' log-likelihood and visits (to 1e-12), on
+    /// a grid with removed cells at moderate weights, and rewards spanning more than 600 (or
+    /// NaN) take the log-space passes.
+    #[test]
+    fn linear_passes_match_log_space() {
+        for seed in 0..4 {
+            let (grid, features, demos) = mixed_problem(seed);
+            let mut me = MaxEnt::new(&grid, &features, demos).expect("a problem");
+            let scale = [0.5, 3.0, 20.0, 60.0][seed as usize];
+            let (ll_err, visit_err) =
+                linear_against_log_space(&mut me, &[scale, -0.7 * scale, 0.4 * scale]);
+            eprintln!("w×{scale}: log-likelihood {ll_err:.1e}, visits {visit_err:.1e}");
+            assert!(
+                ll_err < 1e-12 && visit_err < 1e-12,
+                "w×{scale}: {ll_err:e} {visit_err:e}"
+            );
+        }
+        let (grid, features, demos) = mixed_problem(9);
+        let mut me = MaxEnt::new(&grid, &features, demos).expect("a problem");
+        me.features.rewards_into(&[400.0, -300.0, 350.0], &mut me.r);
+        assert!(!me.linear.backward(&grid, &me.r, me.t_max, &mut me.table.q));
+        me.features.rewards_into(&[f64::NAN, 0.0, 0.0], &mut me.r);
+        assert!(!me.linear.backward(&grid, &me.r, me.t_max, &mut me.table.q));
+    }
+
+    /// The linear passes with deep states (sums under e^LOG_FLOOR, whose Q̃ is its own
+    /// log-sum-exp and whose mass moves move by move), some of them demo starts: the
+    /// benchmark's problem at weights near its fit, and at twice and four times them, agree with
+    /// the log-space passes to 1e-12.
+    #[test]
+    fn linear_passes_with_deep_states_match_log_space() {
+        let (spec, feats, cells) = crate::bench::irl_bench_problem();
+        let grid = Grid::new(&spec).expect("a grid");
+        let features = Features::new(&grid, &feats).expect("features");
+        let demos: Vec<Vec<usize>> = cells
+            .iter()
+            .map(|d| d.iter().filter_map(|&(c, r)| grid.state(c, r)).collect())
+            .collect();
+        let starts: Vec<(usize, usize)> = demos.iter().map(|d| (d.len() - 1, d[0])).collect();
+        let mut me = MaxEnt::new(&grid, &features, demos).expect("a problem");
+        let fitted = [-6.6, -1.2, -0.33, -1.8, -4.7, 0.0];
+        for factor in [1.0, 2.0, 4.0] {
+            let w: Vec<f64> = fitted.iter().map(|x| x * factor).collect();
+            let (ll_err, visit_err) = linear_against_log_space(&mut me, &w);
+            assert!(
+                ll_err < 1e-12 && visit_err < 1e-12,
+                "w×{factor}: {ll_err:e} {visit_err:e}"
+            );
+            assert!(me.linear.backward(&grid, &me.r, me.t_max, &mut me.table.q));
+            assert!(!me.linear.deep.is_empty(), "w×{factor}: no deep state");
+            let n = grid.states();
+            let deep_starts = starts
+                .iter()
+                .filter(|&&(t, s)| me.table.q[t * n + s] < 0.0)
+                .count();
+            assert!(
+                deep_starts > 0,
+                "w×{factor}: no demo starts in a deep state"
+            );
+            eprintln!(
+                "w×{factor}: log-likelihood {ll_err:.1e}, visits {visit_err:.1e}, {} deep \
+                 entries, {deep_starts} deep starts",
+                me.linear.deep.len()
+            );
+        }
     }
 }
