@@ -335,7 +335,9 @@ function newFit() {
     const rows = Math.ceil(camera.height / c);
     const cells = cols * rows;
     const over = cells > data.limits.max_cells;
-    say('grid-readout', `${cols} × ${rows} = ${cells.toLocaleString('en')} cells${over ? ` — more than ${data.limits.max_cells.toLocaleString('en')}; take larger cells` : ''}`, over);
+    let smallest = c;
+    while (over && Math.ceil(camera.width / smallest) * Math.ceil(camera.height / smallest) > data.limits.max_cells) smallest += 1;
+    say('grid-readout', `${cols} × ${rows} = ${cells.toLocaleString('en')} cells${over ? ` — more than ${data.limits.max_cells.toLocaleString('en')}; take cells of ${smallest} px or more` : ''}`, over);
     draw();
   }
   $('cell-px').addEventListener('input', gridReadout);

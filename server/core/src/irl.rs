@@ -68,12 +68,17 @@ pub enum IrlError {
         height: u32,
     },
     /// The grid would have more than [`MAX_CELLS`] cells.
-    #[error("cell_px: the grid would have {cells} cells, more than {max}")]
+    #[error(
+        "cell_px: the grid would have {cells} cells, more than {max}; take cells of {smallest} px \
+         or more"
+    )]
     TooManyCells {
         /// cols × rows.
         cells: usize,
         /// The limit.
         max: usize,
+        /// The smallest cell side whose grid stays within the limit.
+        smallest: u32,
     },
     /// The soft value table would be too large (states × (longest horizon + 1)).
     #[error("demos: the value table would hold {values} values, more than {max}")]
@@ -166,16 +171,25 @@ impl Grid {
                 return Err(invalid(field, "must be at least 1"));
             }
         }
-        let p = spec.cell_px as usize;
-        let cols = (spec.width as usize).div_ceil(p);
-        let rows = (spec.height as usize).div_ceil(p);
-        let cells = cols * rows;
+        let cells_of = |p: u32| {
+            (spec.width as usize).div_ceil(p as usize) * (spec.height as usize).div_ceil(p as usize)
+        };
+        let cells = cells_of(spec.cell_px);
         if cells > MAX_CELLS {
+            // The cell count only falls as cells grow, and a cell of the frame's longer side
+            // makes one cell: the search ends.
+            let smallest = (spec.cell_px..=spec.width.max(spec.height))
+                .find(|&p| cells_of(p) <= MAX_CELLS)
+                .unwrap_or(spec.width.max(spec.height));
             return Err(IrlError::TooManyCells {
                 cells,
                 max: MAX_CELLS,
+                smallest,
             });
         }
+        let p = spec.cell_px as usize;
+        let cols = (spec.width as usize).div_ceil(p);
+        let rows = (spec.height as usize).div_ceil(p);
         for (i, poly) in spec.no_go.iter().enumerate() {
             if poly
                 .vertices()

@@ -745,7 +745,9 @@ fn bad_input_is_refused_with_the_field() {
         fit_err(&big),
         IrlError::TooManyCells {
             cells: 334 * 334,
-            max: 100_000
+            max: 100_000,
+            // 1000 / 4 = 250 a side: 62 500 cells; 4 px is the smallest that fits.
+            smallest: 4,
         }
     );
     assert!(Grid::new(&grid_spec(400, 250, 1)).is_ok());
