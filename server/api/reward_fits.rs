@@ -28,7 +28,7 @@ pub async fn list(
     who: Principal,
 ) -> ServiceResult<Json<super::Items<RewardFitSummary>>> {
     Ok(Json(super::Items {
-        items: reward_fits::list(&state, &who).await?,
+        items: reward_fits::list(&state, &who, reward_fits::LIST_LIMIT as usize).await?,
     }))
 }
 

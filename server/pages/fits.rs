@@ -31,10 +31,9 @@ pub(super) async fn cards(
     signed: &Signed,
     limit: usize,
 ) -> Result<Vec<FitCard>, PageError> {
-    let all = reward_fits::list(state, &signed.who).await?;
+    let all = reward_fits::list(state, &signed.who, limit).await?;
     Ok(all
         .into_iter()
-        .take(limit)
         .map(|f| FitCard {
             figure: match (f.finished, f.log_likelihood_per_step) {
                 (true, Some(ll)) => format!("log-likelihood {ll:.3} per move"),

@@ -514,12 +514,26 @@ pub struct RewardFitSummary {
 /// Most fits [`list`] returns.
 pub const LIST_LIMIT: i64 = 200;
 
-/// The team's fits, newest first (at most [`LIST_LIMIT`]).
-pub async fn list(state: &AppState, who: &Principal) -> ServiceResult<Vec<RewardFitSummary>> {
-    let rows = store::reward_fits::list(&state.store, &who.team_id, LIST_LIMIT).await?;
+/// A fit's settings as a list needs them: the demos counted, their samples skipped unread.
+#[derive(Deserialize)]
+struct SettingsOutline {
+    cell_px: u32,
+    features: Vec<FeatureInput>,
+    demos: Vec<serde::de::IgnoredAny>,
+}
+
+/// The team's fits, newest first: at most `limit` ([`LIST_LIMIT`] at most).
+pub async fn list(
+    state: &AppState,
+    who: &Principal,
+    limit: usize,
+) -> ServiceResult<Vec<RewardFitSummary>> {
+    let limit = (limit as i64).min(LIST_LIMIT);
+    let rows = store::reward_fits::list(&state.store, &who.team_id, limit).await?;
     rows.into_iter()
         .map(|row| {
-            let s = settings_of(&row)?;
+            let s: SettingsOutline = serde_json::from_str(&row.settings)
+                .map_err(|e| ServiceError::Internal(format!("fit {} unreadable: {e}", row.id)))?;
             let r: Option<ResultDoc> = row
                 .result
                 .as_deref()
@@ -645,10 +659,7 @@ pub async fn reward_map_png(state: &AppState, who: &Principal, id: &str) -> Serv
     let row = load(state, who, id).await?;
     let settings = settings_of(&row)?;
     let (r, values) = finished(&row)?.ok_or_else(not_finished)?;
-    let frame = frames::load(state, who, &row.frame_id).await?;
-    let (_, image) = store::frames::image_bytes(&state.store, &frame.sha256)
-        .await?
-        .ok_or_else(|| ServiceError::Internal(format!("image of frame {} missing", frame.id)))?;
+    let (_, _, image) = frames::image(state, who, &row.frame_id).await?;
     let grid = RewardGrid::new(settings.cell_px, r.cols, r.rows, values)
         .map_err(|e| ServiceError::Internal(format!("fit {}: {e}", row.id)))?;
     let demos: Vec<crate::draw::DemoPath> = settings
