@@ -7,18 +7,17 @@ use crate::service::AppState;
 use crate::store::Store;
 use axum::Router;
 use axum::extract::MatchedPath;
-use axum::http::{HeaderName, Request};
+use axum::http::{HeaderName, HeaderValue, Request};
+use axum::response::{IntoResponse, Response};
 use std::sync::Arc;
 use std::time::Duration;
 use tokio::net::TcpListener;
-use tower_http::request_id::{MakeRequestUuid, PropagateRequestIdLayer, SetRequestIdLayer};
 use tower_http::set_header::SetResponseHeaderLayer;
 use tower_http::trace::TraceLayer;
 
 /// The whole application: API, pages and the layers around them.
 pub fn app(state: AppState) -> Router {
-    let request_id = HeaderName::from_static("x-request-id");
-    api::router(state.clone())
+    let router = api::router(state.clone())
         .merge(crate::pages::router())
         // One fallback for both edges, here where they are put together: API paths get the
         // contract's JSON 404, everything else the readable page.
@@ -43,7 +42,22 @@ pub fn app(state: AppState) -> Router {
                 .fallback(|| async { api::not_found() })
                 .layer(axum::middleware::map_response(api::contract_errors)),
         )
-        .with_state(state)
+        .with_state(state.clone());
+    around(router, state)
+}
+
+/// The layers around both edges, innermost first: a panic becomes a 500; every answer is
+/// counted for `/metrics`; each request gets a log span; security headers go on every
+/// response; and the request id is chosen first, so the span, the response header and any
+/// error body carry it.
+pub fn around(router: Router, state: AppState) -> Router {
+    let inner = router
+        .layer(axum::middleware::from_fn(catch_panic))
+        .layer(axum::middleware::from_fn_with_state(state.clone(), audit))
+        .layer(axum::middleware::from_fn_with_state(
+            state,
+            crate::metrics::record,
+        ))
         .layer(
             TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
                 let route = req
@@ -53,20 +67,169 @@ pub fn app(state: AppState) -> Router {
                     .unwrap_or("-");
                 let id = req
                     .headers()
-                    .get("x-request-id")
+                    .get(REQUEST_ID)
                     .and_then(|v| v.to_str().ok())
                     .unwrap_or("-");
                 tracing::info_span!("request", method = %req.method(), route, request_id = id)
             }),
-        )
+        );
+    security_headers(inner).layer(axum::middleware::from_fn(request_id))
+}
+
+/// Writes the audit log's entry of every change (see [`crate::service::audit`]).
+async fn audit(
+    axum::extract::State(state): axum::extract::State<AppState>,
+    mut req: axum::extract::Request,
+    next: axum::middleware::Next,
+) -> Response {
+    use crate::service::audit::{self, AuditSlot, Change};
+    let method = req.method().as_str().to_string();
+    if !audit::may_change(&method) {
+        return next.run(req).await;
+    }
+    let slot = AuditSlot::default();
+    req.extensions_mut().insert(slot.clone());
+    let route = req
+        .extensions()
+        .get::<MatchedPath>()
+        .map_or("unmatched", MatchedPath::as_str)
+        .to_string();
+    let path = req.uri().path().to_string();
+    let address = req
+        .extensions()
+        .get::<axum::extract::ConnectInfo<std::net::SocketAddr>>()
+        .map_or_else(|| "unknown".to_string(), |c| c.0.ip().to_string());
+    let resp = next.run(req).await;
+    let change = Change {
+        method,
+        route,
+        path,
+        status: resp.status().as_u16(),
+        address,
+    };
+    audit::record(&state, &slot, change).await;
+    resp
+}
+
+/// The header that carries a request's id, in both directions.
+pub const REQUEST_ID: &str = "x-request-id";
+
+/// The page's policy: scripts, styles, fonts and connections only from this server (no inline
+/// script anywhere, so none is allowed); images also from `data:` and `blob:` URLs (painted
+/// masks travel as PNG data URLs); no plug-ins, no framing by other sites, forms post only
+/// here.
+pub const CONTENT_SECURITY_POLICY: &str = "default-src 'self'; script-src 'self'; \
+     style-src 'self'; img-src 'self' data: blob:; font-src 'self'; connect-src 'self'; \
+     object-src 'none'; base-uri 'none'; form-action 'self'; frame-ancestors 'none'";
+
+/// Headers every response carries unless the handler set its own.
+fn security_headers(router: Router) -> Router {
+    use axum::http::header;
+    let set = |name: HeaderName, value: &'static str| {
+        SetResponseHeaderLayer::if_not_present(name, HeaderValue::from_static(value))
+    };
+    router
         // Browsers must take every response as the type it says it is (no sniffing a JSON
         // error or an uploaded image into something else).
-        .layer(SetResponseHeaderLayer::if_not_present(
-            axum::http::header::X_CONTENT_TYPE_OPTIONS,
-            axum::http::HeaderValue::from_static("nosniff"),
+        .layer(set(header::X_CONTENT_TYPE_OPTIONS, "nosniff"))
+        .layer(set(
+            header::CONTENT_SECURITY_POLICY,
+            CONTENT_SECURITY_POLICY,
         ))
-        .layer(PropagateRequestIdLayer::new(request_id.clone()))
-        .layer(SetRequestIdLayer::new(request_id, MakeRequestUuid))
+        // For browsers older than `frame-ancestors`.
+        .layer(set(header::X_FRAME_OPTIONS, "DENY"))
+        // Ids in our URLs stay on this server.
+        .layer(set(header::REFERRER_POLICY, "same-origin"))
+        .layer(set(
+            HeaderName::from_static("cross-origin-opener-policy"),
+            "same-origin",
+        ))
+}
+
+/// Gives the request its id: the client's own `X-Request-Id` when it is a short token
+/// (letters, digits, `.`, `_`, `-`; at most 64), otherwise a new UUID. The id goes back in the
+/// response header and into the `error` object of every JSON error body, so a person can quote
+/// it and an operator find the log lines.
+async fn request_id(mut req: axum::extract::Request, next: axum::middleware::Next) -> Response {
+    let given = req
+        .headers()
+        .get(REQUEST_ID)
+        .and_then(|v| v.to_str().ok())
+        .filter(|v| {
+            !v.is_empty()
+                && v.len() <= 64
+                && v.bytes()
+                    .all(|b| b.is_ascii_alphanumeric() || matches!(b, b'.' | b'_' | b'-'))
+        })
+        .map(str::to_owned);
+    let id = given.unwrap_or_else(|| uuid::Uuid::new_v4().to_string());
+    let Ok(value) = HeaderValue::from_str(&id) else {
+        return next.run(req).await;
+    };
+    req.headers_mut().insert(REQUEST_ID, value.clone());
+    let resp = next.run(req).await;
+    let mut resp = stamp_error_body(resp, &id).await;
+    resp.headers_mut().insert(REQUEST_ID, value);
+    resp
+}
+
+/// Adds `request_id` to the `error` object of a JSON error body (bodies of errors are small;
+/// anything else passes untouched).
+async fn stamp_error_body(resp: Response, id: &str) -> Response {
+    let status = resp.status();
+    let json = resp
+        .headers()
+        .get(axum::http::header::CONTENT_TYPE)
+        .and_then(|v| v.to_str().ok())
+        .is_some_and(|v| v.starts_with("application/json"));
+    if !(status.is_client_error() || status.is_server_error()) || !json {
+        return resp;
+    }
+    let (mut parts, body) = resp.into_parts();
+    let Ok(bytes) = axum::body::to_bytes(body, 256 * 1024).await else {
+        parts.headers.remove(axum::http::header::CONTENT_LENGTH);
+        return Response::from_parts(parts, axum::body::Body::empty());
+    };
+    let stamped = serde_json::from_slice::<serde_json::Value>(&bytes)
+        .ok()
+        .and_then(|mut v| {
+            v.get_mut("error")?
+                .as_object_mut()?
+                .insert("request_id".into(), id.into());
+            serde_json::to_vec(&v).ok()
+        });
+    let body = stamped.map_or(bytes, bytes::Bytes::from);
+    parts.headers.remove(axum::http::header::CONTENT_LENGTH);
+    Response::from_parts(parts, axum::body::Body::from(body))
+}
+
+/// A panic in a handler (a bug) answers 500 with the contract's body on API paths and the
+/// error page elsewhere, is logged with the request's span, and leaves the process serving.
+/// Work moved to the blocking pool is not covered here: its panics come back as join errors,
+/// which the service turns into the same 500.
+async fn catch_panic(req: axum::extract::Request, next: axum::middleware::Next) -> Response {
+    use futures_util::FutureExt;
+    let api = api::owns_path(req.uri().path());
+    match std::panic::AssertUnwindSafe(next.run(req))
+        .catch_unwind()
+        .await
+    {
+        Ok(resp) => resp,
+        Err(payload) => {
+            let what = payload
+                .downcast_ref::<&str>()
+                .map(|s| (*s).to_string())
+                .or_else(|| payload.downcast_ref::<String>().cloned())
+                .unwrap_or_else(|| "a panic without a message".into());
+            tracing::error!(panic = %what, "handler panicked");
+            let e = crate::service::ServiceError::Internal(format!("handler panicked: {what}"));
+            if api {
+                e.into_response()
+            } else {
+                crate::pages::error_response(e)
+            }
+        }
+    }
 }
 
 /// Connects to the database, runs migrations and (with `--demo`) loads the demo scenario.
@@ -92,6 +255,7 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
         pyramids: Arc::new(crate::service::tracks::PyramidCache::with_budget(
             config.limits.pyramid_cache_bytes,
         )),
+        metrics: Arc::new(crate::metrics::Metrics::new(config.metrics_token.clone())),
     };
     Ok(state)
 }
@@ -159,4 +323,90 @@ async fn shutdown_signal() {
         tracing::warn!("in-flight requests did not finish within 30 s; exiting");
         std::process::exit(0);
     });
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use axum::body::Body;
+    use tower::ServiceExt;
+
+    async fn state() -> (AppState, tempfile::TempDir) {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let url = format!("sqlite://{}?mode=rwc", dir.path().join("t.db").display());
+        let store = Store::connect(&url).await.expect("store");
+        let state = AppState {
+            store,
+            limits: Arc::default(),
+            models: Arc::default(),
+            security: Arc::new(
+                crate::security::Security::new(&Default::default(), None).expect("security"),
+            ),
+            heavy_permits: Arc::default(),
+            pyramids: Arc::default(),
+            metrics: Arc::default(),
+        };
+        (state, dir)
+    }
+
+    fn boom() -> &'static str {
+        panic!("a bug in a handler")
+    }
+
+    /// A panicking handler answers 500 with the contract's body (API) or the error page, and
+    /// the same router goes on serving.
+    #[tokio::test]
+    async fn a_panic_becomes_a_500_and_serving_goes_on() {
+        let (state, _dir) = state().await;
+        let router = Router::new()
+            .route("/api/boom", axum::routing::get(|| async { boom() }))
+            .route("/boom", axum::routing::get(|| async { boom() }))
+            .route("/api/fine", axum::routing::get(|| async { "fine" }));
+        let app = around(router, state);
+        let call = |path: &'static str| {
+            let app = app.clone();
+            async move {
+                let req = Request::builder()
+                    .uri(path)
+                    .body(Body::empty())
+                    .expect("request");
+                let resp = app.oneshot(req).await.expect("infallible");
+                let status = resp.status();
+                let headers = resp.headers().clone();
+                let bytes = axum::body::to_bytes(resp.into_body(), 1 << 20)
+                    .await
+                    .expect("body");
+                (status, headers, bytes)
+            }
+        };
+        let (status, headers, bytes) = call("/api/boom").await;
+        assert_eq!(status, axum::http::StatusCode::INTERNAL_SERVER_ERROR);
+        let body: serde_json::Value = serde_json::from_slice(&bytes).expect("JSON body");
+        assert_eq!(body["error"]["code"], "internal");
+        let id = headers
+            .get(REQUEST_ID)
+            .and_then(|v| v.to_str().ok())
+            .expect("request id");
+        assert_eq!(body["error"]["request_id"], id);
+        assert!(
+            !body.to_string().contains("a bug in a handler"),
+            "the panic's text stays in the log"
+        );
+        let (status, headers, bytes) = call("/boom").await;
+        assert_eq!(status, axum::http::StatusCode::INTERNAL_SERVER_ERROR);
+        assert!(
+            headers
+                .get(axum::http::header::CONTENT_TYPE)
+                .and_then(|v| v.to_str().ok())
+                .is_some_and(|v| v.starts_with("text/html"))
+        );
+        assert!(!bytes.is_empty());
+        for _ in 0..3 {
+            let (status, _, bytes) = call("/api/fine").await;
+            assert_eq!(status, axum::http::StatusCode::OK);
+            assert_eq!(&bytes[..], b"fine");
+        }
+        let (status, _, _) = call("/api/boom").await;
+        assert_eq!(status, axum::http::StatusCode::INTERNAL_SERVER_ERROR);
+    }
 }

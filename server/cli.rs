@@ -93,6 +93,10 @@ enum Command {
         /// invite and start-up links; default: the address it listens on
         #[arg(long, env = "GOALSMITH_PUBLIC_URL")]
         public_url: Option<String>,
+        /// A secret that lets scrapers off this host read /metrics (as `Authorization: Bearer
+        /// …`); without it only loopback clients may
+        #[arg(long, env = "GOALSMITH_METRICS_TOKEN", hide_env_values = true)]
+        metrics_token: Option<String>,
         #[command(flatten)]
         signin: SignInArgs,
     },
@@ -226,6 +230,7 @@ pub fn main() -> ExitCode {
             db,
             demo,
             public_url,
+            metrics_token,
             signin,
         } => public_url
             .as_deref()
@@ -244,6 +249,7 @@ pub fn main() -> ExitCode {
                     demo,
                     limits,
                     public_url,
+                    metrics_token,
                 };
                 let rt = runtime()?;
                 rt.block_on(crate::app::serve(config))

@@ -108,7 +108,9 @@ impl Default for Limits {
 
 impl Limits {
     /// The defaults with `GOALSMITH_HEAVY_PERMITS`, `GOALSMITH_HEAVY_QUEUE`,
-    /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES` and
+    /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES`, the
+    /// body limits `GOALSMITH_JSON_BODY_BYTES`, `GOALSMITH_FRAME_UPLOAD_BYTES`,
+    /// `GOALSMITH_COST_BODY_BYTES`, and
     /// `GOALSMITH_MODEL_CACHE_BYTES`, `GOALSMITH_PYRAMID_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
     /// `GOALSMITH_DEMO_MAX_BYTES`, `GOALSMITH_DEMO_MAX_DECODED_BYTES`, and
     /// `GOALSMITH_OPERATION_WORKERS`, applied where set (whole numbers; permits at least 1; the
@@ -142,6 +144,9 @@ impl Limits {
             ("GOALSMITH_MAX_MAP_VALUES", &mut l.max_map_values),
             ("GOALSMITH_MAX_NPY_POINTS", &mut l.max_npy_points),
             ("GOALSMITH_COST_JSON_BYTES", &mut l.cost_json_bytes),
+            ("GOALSMITH_JSON_BODY_BYTES", &mut l.json_body_bytes),
+            ("GOALSMITH_FRAME_UPLOAD_BYTES", &mut l.frame_upload_bytes),
+            ("GOALSMITH_COST_BODY_BYTES", &mut l.cost_body_bytes),
             ("GOALSMITH_MODEL_CACHE_BYTES", &mut l.model_cache_bytes),
             ("GOALSMITH_PYRAMID_CACHE_BYTES", &mut l.pyramid_cache_bytes),
             ("GOALSMITH_DEMO_MAX_FRAMES", &mut l.demo.max_frames),
@@ -175,6 +180,8 @@ pub struct ServeConfig {
     /// The address people reach the server at (`https://goals.example.org`), for the links it
     /// hands out; `None` means the address it listens on.
     pub public_url: Option<String>,
+    /// A bearer token that lets clients off the loopback interface read `/metrics`.
+    pub metrics_token: Option<String>,
 }
 
 /// Checks a `--public-url`: an absolute `http` or `https` URL of a host, without query or

@@ -4,6 +4,7 @@
 use super::error::ServiceError;
 use crate::service::AppState;
 use crate::service::accounts::SESSION_COOKIE;
+use crate::service::audit::AuditSlot;
 use crate::service::auth::{self, Principal, same_secret};
 use crate::store;
 use axum::extract::FromRequestParts;
@@ -47,6 +48,9 @@ impl FromRequestParts<AppState> for Principal {
             .filter(|t| !t.is_empty())
             .ok_or(ServiceError::Unauthorized)?;
         let principal = auth::principal_for_token(state, token).await?;
+        if let Some(slot) = parts.extensions.get::<AuditSlot>() {
+            slot.fill(&principal, "token", &principal.author);
+        }
         parts.extensions.insert(principal.clone());
         Ok(principal)
     }
@@ -77,6 +81,9 @@ async fn from_session(parts: &mut Parts, state: &AppState) -> Result<Principal, 
         }
     }
     let principal = auth::session_principal(&info);
+    if let Some(slot) = parts.extensions.get::<AuditSlot>() {
+        slot.fill(&principal, "session", &auth::session_actor(&info));
+    }
     parts.extensions.insert(principal.clone());
     parts.extensions.insert(SessionAuth(info));
     Ok(principal)

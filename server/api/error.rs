@@ -27,6 +27,11 @@ pub struct ErrorDetail {
     pub field: Option<String>,
     /// For a person.
     pub message: String,
+    /// The request's id (also in the `X-Request-Id` response header), to quote when asking
+    /// about the error: the server's log lines of the request carry it. Added by the layer
+    /// around both edges.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub request_id: Option<String>,
 }
 
 impl ErrorBody {
@@ -37,6 +42,7 @@ impl ErrorBody {
                 code,
                 field: None,
                 message: message.into(),
+                request_id: None,
             },
         }
     }
@@ -78,6 +84,7 @@ impl IntoResponse for ServiceError {
                 code: self.code(),
                 field: self.field().map(str::to_string),
                 message,
+                request_id: None,
             },
         };
         let mut resp = (status, axum::Json(body)).into_response();

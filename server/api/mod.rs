@@ -3,6 +3,7 @@
 //! Handlers parse into domain types at the boundary, authorise, call core and store, and shape
 //! the response. They hold no SQL and compute no geometry themselves.
 
+pub mod audit;
 pub mod auth;
 pub mod cameras;
 pub mod demos;

@@ -205,6 +205,9 @@ pub fn table() -> Vec<Route> {
             .limit(BodyLimit::Default)
             .public()
             .ok::<super::Health>(200, "the database is reachable", &[]),
+        Route::get("/metrics", "Prometheus text exposition (0.0.4): requests and latency histograms per route, operations by kind and state, database pool use, heavy work, resident memory; for loopback clients, or with the metrics token (`--metrics-token`) as the bearer token", crate::metrics::page)
+            .limit(BodyLimit::Default)
+            .ok_binary(&["text/plain; version=0.0.4; charset=utf-8"], "the metrics", &[]),
         Route::get("/api/openapi.json", "This document", openapi::document)
             .limit(BodyLimit::Default)
             .public()
@@ -265,6 +268,9 @@ pub fn table() -> Vec<Route> {
         Route::post("/api/demos/{id}/goal", "Make a goal from a demo: its start frame becomes a frame of the camera, each chosen track a point term from its position there to its position at the end frame (or one rigid term over them); checked like any goal, the revision records from_demo", demos::make_goal)
             .json_body::<service::tracks::DemoGoal>()
             .ok::<service::goals::RevisionDocument>(201, "revision 1, as stored", &[Header::ETag, Header::Location]),
+        Route::get("/api/audit-log", "The team's audit log, newest first: every change answered with success (who, credential, role, method, route, path, status, client address); owners only", super::audit::list)
+            .query::<super::audit::AuditQuery>()
+            .ok::<super::audit::AuditPage>(200, "a page of the log", &[]),
         Route::post("/api/reward-fits", "Start a reward fit: maximum-entropy inverse RL over the frame's cells (cell_px) with linear features, from tracks of demos of the frame's camera or paths drawn by hand; everything is checked before the operation is queued", reward_fits::start)
             .json_body::<service::reward_fits::NewRewardFit>()
             .ok::<service::reward_fits::Started>(202, "the fit, with the operation that runs it", &[]),
@@ -376,6 +382,7 @@ mod tests {
             ),
             heavy_permits: Arc::default(),
             pyramids: Arc::default(),
+            metrics: Arc::default(),
         });
         let rows = table();
         let mut paths: Vec<&str> = rows.iter().map(|r| r.path).collect();

@@ -8,6 +8,7 @@ use super::session::{
 };
 use crate::security::ClientAddr;
 use crate::service::accounts::{self, Joiner, MIN_PASSWORD_CHARS, SignIn};
+use crate::service::audit::AuditSlot;
 use crate::service::{AppState, ServiceError, auth};
 use crate::store::accounts::InviteRow;
 use askama::Template;
@@ -92,6 +93,7 @@ pub(super) async fn signin(
     State(state): State<AppState>,
     headers: HeaderMap,
     client: ClientAddr,
+    slot: Option<axum::Extension<AuditSlot>>,
     PreForm(form): PreForm<SignInForm>,
 ) -> Result<Response, PageError> {
     let next = safe_next(&form.next).to_string();
@@ -118,10 +120,13 @@ pub(super) async fn signin(
             true,
             &headers,
         )),
-        SignIn::Started(session) => Ok(with_cookie(
-            redirect(&next),
-            &session_cookie(&session, &headers),
-        )),
+        SignIn::Started(session) => {
+            audit_session(&state, slot, &session.secret).await;
+            Ok(with_cookie(
+                redirect(&next),
+                &session_cookie(&session, &headers),
+            ))
+        }
     }
 }
 
@@ -179,6 +184,7 @@ pub(super) async fn welcome(
     State(state): State<AppState>,
     headers: HeaderMap,
     Path(token): Path<String>,
+    slot: Option<axum::Extension<AuditSlot>>,
     PreForm(form): PreForm<WelcomeForm>,
 ) -> Result<Response, PageError> {
     let back = format!("/welcome/{}", super::error::percent_encode(&token));
@@ -215,6 +221,7 @@ pub(super) async fn welcome(
         joined.invite.team_name,
         with_article(joined.invite.role.as_str())
     );
+    audit_session(&state, slot, &joined.session.secret).await;
     let resp = redirect_flash("/", &text, false, &headers);
     Ok(with_cookie(
         resp,
@@ -298,5 +305,20 @@ fn with_article(role: &str) -> String {
     match role.chars().next() {
         Some('a' | 'e' | 'i' | 'o' | 'u') => format!("an {role}"),
         _ => format!("a {role}"),
+    }
+}
+
+/// A sign-in or a join is made before anyone is identified: name the new session's person in
+/// the audit log's entry.
+async fn audit_session(state: &AppState, slot: Option<axum::Extension<AuditSlot>>, secret: &str) {
+    let Some(axum::Extension(slot)) = slot else {
+        return;
+    };
+    if let Ok(Some(info)) = auth::session_for_secret(state, secret).await {
+        slot.fill(
+            &auth::session_principal(&info),
+            "session",
+            &auth::session_actor(&info),
+        );
     }
 }

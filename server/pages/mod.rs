@@ -58,6 +58,7 @@ pub fn router() -> Router<AppState> {
         .route("/goal-sets", get(sets::list).post(sets::create))
         .route("/goal-sets/{id}", get(sets::show).post(sets::update))
         .route("/team", get(team::team))
+        .route("/team/changes", get(team::changes))
         .route("/team/name", post(team::rename))
         .route("/team/invites", post(team::invite))
         .route("/team/invites/{id}/withdraw", post(team::withdraw_invite))
@@ -73,6 +74,12 @@ pub fn router() -> Router<AppState> {
         .merge(uploads)
         .merge(forms)
         .layer(axum::middleware::map_response(readable_errors))
+}
+
+/// The readable page for a service error (for layers outside the pages, such as the panic
+/// catcher).
+pub fn error_response(e: crate::service::ServiceError) -> Response {
+    error::PageError::from(e).into_response()
 }
 
 /// The HTML 404 for paths that are not pages; the application's fallback answers with it for

@@ -5,6 +5,7 @@ use super::error::PageError;
 use crate::cookies;
 use crate::service::AppState;
 use crate::service::accounts::{NewSession, SESSION_COOKIE};
+use crate::service::audit::AuditSlot;
 use crate::service::auth::{self, Principal, Role, same_secret};
 use crate::store::accounts::SessionInfo;
 use axum::extract::{FromRequest, FromRequestParts, Request};
@@ -69,6 +70,9 @@ impl FromRequestParts<AppState> for Signed {
             .await?
             .ok_or(PageError::SignIn { next })?;
         let who = auth::session_principal(&info);
+        if let Some(slot) = parts.extensions.get::<AuditSlot>() {
+            slot.fill(&who, "session", &auth::session_actor(&info));
+        }
         Ok(Signed { info, who })
     }
 }

@@ -314,3 +314,44 @@ pub(super) async fn rename(
         Err(e) => Err(e.into()),
     }
 }
+
+/// The audit log as the page shows it.
+#[derive(Template)]
+#[template(path = "changes.html")]
+struct ChangesPage {
+    chrome: Chrome,
+    entries: Vec<crate::service::audit::AuditEntry>,
+    older: Option<String>,
+    first: bool,
+}
+
+page!(ChangesPage);
+
+#[derive(Deserialize)]
+pub(super) struct ChangesQuery {
+    before: Option<String>,
+}
+
+/// `GET /team/changes[?before=]`: the audit log, 50 entries a page, for owners.
+pub(super) async fn changes(
+    State(state): State<AppState>,
+    headers: HeaderMap,
+    signed: Signed,
+    query: Result<axum::extract::Query<ChangesQuery>, axum::extract::rejection::QueryRejection>,
+) -> Result<Response, PageError> {
+    signed.require(Role::Owner)?;
+    let axum::extract::Query(q) =
+        query.map_err(|e| PageError::BadRequest(format!("the address could not be read: {e}")))?;
+    let (entries, next) =
+        crate::service::audit::list(&state, &signed.who, q.before.as_deref(), Some(50)).await?;
+    let page = ChangesPage {
+        chrome: Chrome::signed(&state, &signed, &headers, "team").await,
+        entries,
+        older: next.map(|n| {
+            percent_encoding::utf8_percent_encode(&n, percent_encoding::NON_ALPHANUMERIC)
+                .to_string()
+        }),
+        first: q.before.is_none(),
+    };
+    Ok(ok(&page))
+}

@@ -122,6 +122,11 @@ pub async fn session_for_secret(
     Ok(store::accounts::find_session(&state.store, &hash_token(secret)).await?)
 }
 
+/// How the audit log names a signed-in person: display name and login.
+pub fn session_actor(info: &store::accounts::SessionInfo) -> String {
+    format!("{} ({})", info.display_name, info.login)
+}
+
 /// The principal a session acts as.
 pub fn session_principal(info: &store::accounts::SessionInfo) -> Principal {
     Principal {

@@ -16,6 +16,7 @@ pub struct Heavy {
     permits: Arc<Semaphore>,
     waiting: AtomicUsize,
     queue: usize,
+    total: usize,
 }
 
 impl Heavy {
@@ -25,6 +26,7 @@ impl Heavy {
             permits: Arc::new(Semaphore::new(permits.max(1))),
             waiting: AtomicUsize::new(0),
             queue,
+            total: permits.max(1),
         }
     }
 
@@ -51,6 +53,17 @@ impl Heavy {
             .acquire_owned()
             .await
             .map_err(|e| ServiceError::Internal(format!("heavy permits closed: {e}")))
+    }
+}
+
+impl Heavy {
+    /// (running, waiting) now.
+    pub fn in_use(&self) -> (usize, usize) {
+        let free = self.permits.available_permits();
+        (
+            self.total.saturating_sub(free),
+            self.waiting.load(Ordering::SeqCst),
+        )
     }
 }
 

@@ -8,6 +8,7 @@
 //! bundles, overlays) and the core crate (geometry and costs).
 
 pub mod accounts;
+pub mod audit;
 pub mod auth;
 pub mod byte_lru;
 pub mod cameras;
@@ -45,6 +46,8 @@ pub struct AppState {
     pub heavy_permits: Arc<heavy::Heavy>,
     /// Grey-level pyramids of demo frames, built once and shared by every track of a demo.
     pub pyramids: Arc<tracks::PyramidCache>,
+    /// Request counts and latencies for `/metrics`.
+    pub metrics: Arc<crate::metrics::Metrics>,
 }
 
 /// RFC 3339 UTC with milliseconds, from unix milliseconds.

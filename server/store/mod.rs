@@ -4,6 +4,7 @@
 //! executor or a transaction; they store and load, and compute nothing.
 
 pub mod accounts;
+pub mod audit;
 pub mod cameras;
 pub mod demos;
 pub mod frames;
@@ -151,6 +152,17 @@ impl Role {
     }
 }
 
+/// Connections of the pool, for `/metrics`.
+#[derive(Debug, Clone, Copy)]
+pub struct PoolUse {
+    /// Lent out to a query now.
+    pub in_use: u32,
+    /// Open and waiting.
+    pub idle: u32,
+    /// The most the pool opens.
+    pub max: u32,
+}
+
 /// The pool and what it talks to.
 #[derive(Clone, Debug)]
 pub struct Store {
@@ -216,6 +228,19 @@ impl Store {
     pub async fn ping(&self) -> Result<()> {
         sqlx::query("SELECT 1").execute(&self.pool).await?;
         Ok(())
+    }
+
+    /// How many of this process's connections are in use, idle, and the bound.
+    pub fn pool_use(&self) -> PoolUse {
+        let size = self.pool.size();
+        let idle = u32::try_from(self.pool.num_idle())
+            .unwrap_or(u32::MAX)
+            .min(size);
+        PoolUse {
+            in_use: size - idle,
+            idle,
+            max: self.pool.options().get_max_connections(),
+        }
     }
 
     /// Closes the pool, waiting for connections to be returned.

@@ -172,13 +172,14 @@ pub async fn claim(store: &Store, worker: &str) -> Result<Option<OperationRow>> 
                      ORDER BY created_at, id LIMIT 1{lock}) \
          AND state = 'queued' RETURNING {COLUMNS}"
     );
-    let row = sqlx::query(sqlx::AssertSqlSafe(sql))
+    // Run to its end (see `heartbeat`): at most one row.
+    let rows = sqlx::query(sqlx::AssertSqlSafe(sql))
         .bind(worker)
         .bind(now)
-        .fetch_optional(store.pool())
+        .fetch_all(store.pool())
         .await
         .map_err(classify)?;
-    row.as_ref().map(from_row).transpose()
+    rows.first().map(from_row).transpose()
 }
 
 /// Records progress and that `worker` is alive; returns whether a cancel was asked for, or
@@ -211,8 +212,11 @@ pub async fn heartbeat(
         .bind(id)
         .bind(worker),
     };
-    let row = query.fetch_optional(store.pool()).await.map_err(classify)?;
-    Ok(row.map(|r| r.get::<i64, _>(0) != 0))
+    // `fetch_all`: SQLite commits an UPDATE … RETURNING only when the statement has run to its
+    // end, so it is always stepped to the end here rather than left to the driver after the
+    // first row (the test below checks no write lock is left behind).
+    let rows = query.fetch_all(store.pool()).await.map_err(classify)?;
+    Ok(rows.first().map(|r| r.get::<i64, _>(0) != 0))
 }
 
 /// Ends an operation `worker` holds: `Succeeded` with a result, `Failed` with an error, or
@@ -314,4 +318,70 @@ pub async fn recover_stale(
     .map_err(classify)?
     .rows_affected();
     Ok((requeued, failed))
+}
+
+/// How many operations there are of each kind in each state, for `/metrics`.
+pub async fn counts(store: &Store) -> Result<Vec<(String, String, i64)>> {
+    let rows = sqlx::query(
+        "SELECT kind, state, COUNT(*) AS n FROM operations GROUP BY kind, state ORDER BY kind, state",
+    )
+    .fetch_all(store.pool())
+    .await?;
+    rows.iter()
+        .map(|r| Ok((r.try_get("kind")?, r.try_get("state")?, r.try_get("n")?)))
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A claim and a heartbeat leave no write lock behind: writes from the pool's other
+    /// connections go straight through (with a held lock they would wait out the busy timeout
+    /// and fail with `database is locked`).
+    #[tokio::test]
+    async fn claims_and_heartbeats_release_the_write_lock() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let url = format!("sqlite://{}?mode=rwc", dir.path().join("t.db").display());
+        let store = Store::connect(&url).await.expect("store");
+        let team = super::super::teams::get_or_create_team(&store, "bench")
+            .await
+            .expect("team");
+        for round in 0..4 {
+            let id = create(&store, &team.id, "track", "{}")
+                .await
+                .expect("create");
+            let claimed = claim(&store, "w1")
+                .await
+                .expect("claim")
+                .expect("one queued");
+            assert_eq!(claimed.id, id);
+            assert_eq!(
+                heartbeat(&store, &id, "w1", 0.5, Some("{}"))
+                    .await
+                    .expect("beat"),
+                Some(false)
+            );
+            // Writes on other connections, held at once so the pool must use several.
+            let mut conns = Vec::new();
+            for _ in 0..4 {
+                conns.push(store.pool().acquire().await.expect("connection"));
+            }
+            for conn in &mut conns {
+                sqlx::query("PRAGMA busy_timeout = 200")
+                    .execute(&mut **conn)
+                    .await
+                    .expect("pragma");
+                sqlx::query("UPDATE teams SET name = name WHERE id = $1")
+                    .bind(&team.id)
+                    .execute(&mut **conn)
+                    .await
+                    .unwrap_or_else(|e| panic!("round {round}: a write was locked out: {e}"));
+                sqlx::query("PRAGMA busy_timeout = 10000")
+                    .execute(&mut **conn)
+                    .await
+                    .expect("pragma");
+            }
+        }
+    }
 }

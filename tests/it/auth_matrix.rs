@@ -112,6 +112,20 @@ async fn matrix(s: Server) {
             Body::None,
             [ok, ok, ok, ok, ok],
         ),
+        // Owners only; another team's owner reads its own (empty) log.
+        (
+            Method::GET,
+            "/api/audit-log".into(),
+            Body::None,
+            [unauth, ok, forbidden, forbidden, ok],
+        ),
+        // Loopback clients (these tests) need no token; see `metrics` for the others.
+        (
+            Method::GET,
+            "/metrics".into(),
+            Body::None,
+            [ok, ok, ok, ok, ok],
+        ),
         (
             Method::GET,
             "/api/openapi.json".into(),

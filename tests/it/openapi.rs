@@ -126,6 +126,9 @@ async fn scenario(s: &Server) -> Vec<Sample> {
 
     c.call(M::GET, "/healthz", "/healthz", None, Req::None, &[])
         .await;
+    c.call(M::GET, "/metrics", "/metrics", None, Req::None, &[])
+        .await;
+
     c.call(
         M::GET,
         "/api/openapi.json",
@@ -783,6 +786,26 @@ async fn scenario(s: &Server) -> Vec<Sample> {
         let (st, err, _) = c.call(m, template, &path, token, body, &headers).await;
         assert!(st.is_client_error(), "{template}: {st} {err}");
     }
+    // The audit log, for owners (after the writes above); a viewer is refused.
+    let owner = s.token("openapi", "owner");
+    c.call(
+        M::GET,
+        "/api/audit-log",
+        "/api/audit-log?limit=3",
+        Some(owner.as_str()),
+        Req::None,
+        &[],
+    )
+    .await;
+    c.call(
+        M::GET,
+        "/api/audit-log",
+        "/api/audit-log",
+        v,
+        Req::None,
+        &[],
+    )
+    .await;
     c.samples
 }
 

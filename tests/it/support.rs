@@ -517,6 +517,27 @@ pub fn start_with_stderr(
     (Server::from_child(child, db_url, data_dir), rx)
 }
 
+/// Starts the server with its log at `level` (a `GOALSMITH_LOG` filter) and hands back every
+/// line it writes to stderr.
+pub fn start_logging(
+    db_url: &str,
+    data_dir: &std::path::Path,
+    level: &str,
+) -> (Server, std::sync::mpsc::Receiver<String>) {
+    let mut child = Server::command(db_url, data_dir, &[], Stdio::piped())
+        .env("GOALSMITH_LOG", level)
+        .spawn()
+        .expect("spawn goalsmith serve");
+    let stderr = child.stderr.take().expect("stderr");
+    let (tx, rx) = std::sync::mpsc::channel::<String>();
+    std::thread::spawn(move || {
+        for line in BufReader::new(stderr).lines().map_while(Result::ok) {
+            tx.send(line).ok();
+        }
+    });
+    (Server::from_child(child, db_url, data_dir), rx)
+}
+
 /// Waits for an operation to end and returns it as `GET /api/operations/{id}` serves it (the
 /// bound is a liveness guard, not a speed check).
 pub async fn operation_done(s: &Server, token: &str, op: &str) -> Value {
