@@ -185,8 +185,11 @@ fn templates_hold_no_inline_script_or_style() {
     assert!(seen >= 10, "read {seen} templates");
 }
 
+/// A parsed sample: name, labels, value.
+type Sample = (String, Vec<(String, String)>, f64);
+
 /// One sample line of the exposition format: `name{labels} value`.
-fn sample(line: &str) -> Option<(String, Vec<(String, String)>, f64)> {
+fn sample(line: &str) -> Option<Sample> {
     let (head, value) = line.rsplit_once(' ')?;
     let value: f64 = match value {
         "+Inf" => f64::INFINITY,
@@ -210,11 +213,7 @@ fn sample(line: &str) -> Option<(String, Vec<(String, String)>, f64)> {
     ok_name.then_some((name, labels, value))
 }
 
-fn value_of(
-    samples: &[(String, Vec<(String, String)>, f64)],
-    name: &str,
-    want: &[(&str, &str)],
-) -> Option<f64> {
+fn value_of(samples: &[Sample], name: &str, want: &[(&str, &str)]) -> Option<f64> {
     samples
         .iter()
         .find(|(n, labels, _)| {
