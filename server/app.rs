@@ -54,10 +54,7 @@ pub fn around(router: Router, state: AppState) -> Router {
     let inner = router
         .layer(axum::middleware::from_fn(catch_panic))
         .layer(axum::middleware::from_fn_with_state(state.clone(), audit))
-        .layer(axum::middleware::from_fn_with_state(
-            state,
-            crate::metrics::record,
-        ))
+        .layer(axum::middleware::from_fn_with_state(state, count))
         .layer(
             TraceLayer::new_for_http().make_span_with(|req: &Request<_>| {
                 let route = req
@@ -74,6 +71,29 @@ pub fn around(router: Router, state: AppState) -> Router {
             }),
         );
     security_headers(inner).layer(axum::middleware::from_fn(request_id))
+}
+
+/// Counts every answer of both edges for `/metrics`.
+async fn count(
+    axum::extract::State(state): axum::extract::State<AppState>,
+    req: axum::extract::Request,
+    next: axum::middleware::Next,
+) -> Response {
+    let started = std::time::Instant::now();
+    let method = req.method().as_str().to_string();
+    let route = req
+        .extensions()
+        .get::<MatchedPath>()
+        .map_or("unmatched", MatchedPath::as_str)
+        .to_string();
+    let resp = next.run(req).await;
+    state.metrics.observe(
+        &method,
+        &route,
+        resp.status().as_u16(),
+        started.elapsed().as_secs_f64(),
+    );
+    resp
 }
 
 /// Writes the audit log's entry of every change (see [`crate::service::audit`]).
@@ -255,7 +275,9 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
         pyramids: Arc::new(crate::service::tracks::PyramidCache::with_budget(
             config.limits.pyramid_cache_bytes,
         )),
-        metrics: Arc::new(crate::metrics::Metrics::new(config.metrics_token.clone())),
+        metrics: Arc::new(crate::service::metrics::Metrics::new(
+            config.metrics_token.clone(),
+        )),
     };
     Ok(state)
 }

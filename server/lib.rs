@@ -15,7 +15,6 @@ pub mod demo_archive;
 pub mod draw;
 pub mod images;
 mod layers;
-pub mod metrics;
 pub mod pages;
 pub mod scoring;
 pub mod security;

@@ -13,6 +13,7 @@ pub mod extract;
 pub mod frames;
 pub mod goal_sets;
 pub mod goals;
+pub mod metrics;
 pub mod openapi;
 pub mod operations;
 pub mod preview;

@@ -205,7 +205,7 @@ pub fn table() -> Vec<Route> {
             .limit(BodyLimit::Default)
             .public()
             .ok::<super::Health>(200, "the database is reachable", &[]),
-        Route::get("/metrics", "Prometheus text exposition (0.0.4): requests and latency histograms per route, operations by kind and state, database pool use, heavy work, resident memory; for loopback clients, or with the metrics token (`--metrics-token`) as the bearer token", crate::metrics::page)
+        Route::get("/metrics", "Prometheus text exposition (0.0.4): requests and latency histograms per route, operations by kind and state, database pool use, heavy work, resident memory; for loopback clients, or with the metrics token (`--metrics-token`) as the bearer token", super::metrics::page)
             .limit(BodyLimit::Default)
             .ok_binary(&["text/plain; version=0.0.4; charset=utf-8"], "the metrics", &[]),
         Route::get("/api/openapi.json", "This document", openapi::document)

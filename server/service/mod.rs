@@ -19,6 +19,7 @@ pub mod frames;
 pub mod goal_sets;
 pub mod goals;
 pub mod heavy;
+pub mod metrics;
 pub mod operations;
 pub mod outcomes;
 pub mod reward_fits;
@@ -47,7 +48,7 @@ pub struct AppState {
     /// Grey-level pyramids of demo frames, built once and shared by every track of a demo.
     pub pyramids: Arc<tracks::PyramidCache>,
     /// Request counts and latencies for `/metrics`.
-    pub metrics: Arc<crate::metrics::Metrics>,
+    pub metrics: Arc<metrics::Metrics>,
 }
 
 /// RFC 3339 UTC with milliseconds, from unix milliseconds.

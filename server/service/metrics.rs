@@ -1,4 +1,4 @@
-//! `GET /metrics`: what the server has answered and what it holds, in the Prometheus text
+//! What `GET /metrics` shows: what the server has answered and what it holds, in the Prometheus text
 //! exposition format (version 0.0.4), written here rather than through a metrics crate: a few
 //! counters and one histogram family need no registry.
 //!
@@ -9,17 +9,12 @@
 //! The page is served to clients on the loopback interface, or to anyone presenting the metrics
 //! token (`--metrics-token`); it shows counts and route names, never ids or people.
 
+use super::AppState;
 use crate::security::same_secret;
-use crate::service::AppState;
-use axum::extract::{ConnectInfo, MatchedPath, Request, State};
-use axum::http::{HeaderMap, StatusCode, header};
-use axum::middleware::Next;
-use axum::response::{IntoResponse, Response};
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::net::SocketAddr;
 use std::sync::Mutex;
-use std::time::Instant;
 
 /// Upper bounds (seconds) of the latency histogram's buckets; `+Inf` follows.
 pub const BUCKETS_S: [f64; 14] = [
@@ -128,50 +123,23 @@ fn label(v: &str) -> String {
         .replace('\n', "\\n")
 }
 
-/// The layer that counts every answer of both edges (added once, in `app`).
-pub async fn record(State(state): State<AppState>, req: Request, next: Next) -> Response {
-    let started = Instant::now();
-    let method = req.method().as_str().to_string();
-    let route = req
-        .extensions()
-        .get::<MatchedPath>()
-        .map_or("unmatched", MatchedPath::as_str)
-        .to_string();
-    let resp = next.run(req).await;
-    state.metrics.observe(
-        &method,
-        &route,
-        resp.status().as_u16(),
-        started.elapsed().as_secs_f64(),
-    );
-    resp
-}
-
-/// Whether this client may read the page: a loopback peer, or the metrics token.
-fn allowed(metrics: &Metrics, peer: Option<SocketAddr>, headers: &HeaderMap) -> bool {
+/// Whether a client may read the page: a loopback peer, or one presenting the metrics token
+/// (the value of its `Authorization` header, any letter case of `Bearer`).
+pub fn may_read(metrics: &Metrics, peer: Option<SocketAddr>, authorization: Option<&str>) -> bool {
     if peer.is_some_and(|p| p.ip().is_loopback()) {
         return true;
     }
     let Some(expected) = metrics.token.as_deref() else {
         return false;
     };
-    headers
-        .get(header::AUTHORIZATION)
-        .and_then(|v| v.to_str().ok())
+    authorization
         .and_then(|v| v.split_once(' '))
         .filter(|(scheme, _)| scheme.eq_ignore_ascii_case("bearer"))
         .is_some_and(|(_, t)| same_secret(t.trim(), expected))
 }
 
-/// `GET /metrics`.
-pub async fn page(
-    State(state): State<AppState>,
-    peer: Option<axum::Extension<ConnectInfo<SocketAddr>>>,
-    headers: HeaderMap,
-) -> Response {
-    if !allowed(&state.metrics, peer.map(|c| c.0.0), &headers) {
-        return crate::service::ServiceError::Unauthorized.into_response();
-    }
+/// The whole page in the text exposition format.
+pub async fn exposition(state: &AppState) -> String {
     let mut out = String::with_capacity(16 * 1024);
     state.metrics.write_requests(&mut out);
 
@@ -223,15 +191,7 @@ pub async fn page(
              # TYPE process_resident_memory_bytes gauge\nprocess_resident_memory_bytes {rss}\n"
         );
     }
-    (
-        StatusCode::OK,
-        [(
-            header::CONTENT_TYPE,
-            "text/plain; version=0.0.4; charset=utf-8",
-        )],
-        out,
-    )
-        .into_response()
+    out
 }
 
 /// Resident set size from `/proc/self/statm` (Linux), in bytes.
@@ -284,20 +244,11 @@ mod tests {
         let guarded = Metrics::new(Some("s3cret".into()));
         let outside: SocketAddr = "192.0.2.7:4000".parse().expect("addr");
         let inside: SocketAddr = "127.0.0.1:4000".parse().expect("addr");
-        let mut with = HeaderMap::new();
-        with.insert(
-            header::AUTHORIZATION,
-            "bearer s3cret".parse().expect("header"),
-        );
-        let mut wrong = HeaderMap::new();
-        wrong.insert(
-            header::AUTHORIZATION,
-            "Bearer nope".parse().expect("header"),
-        );
-        assert!(allowed(&open, Some(inside), &HeaderMap::new()));
-        assert!(!allowed(&open, Some(outside), &with));
-        assert!(!allowed(&open, None, &HeaderMap::new()));
-        assert!(allowed(&guarded, Some(outside), &with));
-        assert!(!allowed(&guarded, Some(outside), &wrong));
+        let (with, wrong) = (Some("bearer s3cret"), Some("Bearer nope"));
+        assert!(may_read(&open, Some(inside), None));
+        assert!(!may_read(&open, Some(outside), with));
+        assert!(!may_read(&open, None, None));
+        assert!(may_read(&guarded, Some(outside), with));
+        assert!(!may_read(&guarded, Some(outside), wrong));
     }
 }
