@@ -4,7 +4,9 @@
 //! executor or a transaction; they store and load, and compute nothing.
 
 pub mod accounts;
+pub mod backup;
 pub mod cameras;
+pub mod copy;
 pub mod demos;
 pub mod frames;
 pub mod goal_sets;
