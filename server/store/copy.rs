@@ -1072,7 +1072,9 @@ async fn copy_into(
     let mut reports = Vec::new();
     for plan in &plans {
         let (copied, present) = copy_table(&mut *conn, pool, plan).await?;
-        tracing::info!(table = plan.table.name, copied, present, "copied");
+        if copied + present > 0 {
+            tracing::info!(table = plan.table.name, copied, present, "copied");
+        }
         reports.push(TableReport {
             table: plan.table.name.to_string(),
             source_rows: 0,
@@ -1090,7 +1092,7 @@ async fn copy_into(
         report.target_rows = ours.rows.len() as u64;
         report.hashes_checked = ours.hashed;
         report.problems = compare(&theirs, &ours);
-        tracing::info!(
+        tracing::debug!(
             table = plan.table.name,
             verified = report.problems.is_empty(),
             "verified"
