@@ -54,83 +54,30 @@ pub struct Table {
 /// added by a migration must be added here; the copy refuses a database with a table it does
 /// not know.
 pub const TABLES: &[Table] = &[
-    Table {
-        name: "teams",
-        key: &["id"],
-    },
-    Table {
-        name: "people",
-        key: &["id"],
-    },
-    Table {
-        name: "tokens",
-        key: &["id"],
-    },
-    Table {
-        name: "memberships",
-        key: &["team_id", "person_id"],
-    },
-    Table {
-        name: "sessions",
-        key: &["id"],
-    },
-    Table {
-        name: "invites",
-        key: &["id"],
-    },
-    Table {
-        name: "cameras",
-        key: &["id"],
-    },
-    Table {
-        name: "images",
-        key: &["sha256"],
-    },
-    Table {
-        name: "frames",
-        key: &["id"],
-    },
-    Table {
-        name: "goals",
-        key: &["id"],
-    },
-    Table {
-        name: "goal_revisions",
-        key: &["goal_id", "revision"],
-    },
-    Table {
-        name: "outcomes",
-        key: &["id"],
-    },
-    Table {
-        name: "goal_sets",
-        key: &["id"],
-    },
-    Table {
-        name: "demos",
-        key: &["id"],
-    },
-    Table {
-        name: "demo_frames",
-        key: &["demo_id", "idx"],
-    },
-    Table {
-        name: "tracks",
-        key: &["id"],
-    },
-    Table {
-        name: "track_samples",
-        key: &["track_id", "frame"],
-    },
-    Table {
-        name: "operations",
-        key: &["id"],
-    },
-    Table {
-        name: "reward_fits",
-        key: &["id"],
-    },
+    table("teams", &["id"]),
+    table("people", &["id"]),
+    table("tokens", &["id"]),
+    table("memberships", &["team_id", "person_id"]),
+    table("sessions", &["id"]),
+    table("invites", &["id"]),
+    table("cameras", &["id"]),
+    table("images", &["sha256"]),
+    table("frames", &["id"]),
+    table("goals", &["id"]),
+    table("goal_revisions", &["goal_id", "revision"]),
+    table("outcomes", &["id"]),
+    table("goal_sets", &["id"]),
+    table("demos", &["id"]),
+    table("demo_frames", &["demo_id", "idx"]),
+    table("tracks", &["id"]),
+    table("track_samples", &["track_id", "frame"]),
+    table("operations", &["id"]),
+    table("reward_fits", &["id"]),
 ];
+
+const fn table(name: &'static str, key: &'static [&'static str]) -> Table {
+    Table { name, key }
+}
 
 /// The migrations table: never copied, each database keeps its own.
 pub(super) const MIGRATIONS_TABLE: &str = "_sqlx_migrations";
