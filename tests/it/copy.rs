@@ -708,3 +708,37 @@ async fn restore_refuses_what_is_not_a_backup() {
         "{err}"
     );
 }
+
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn copy_reports_an_image_whose_bytes_do_not_match() {
+    let a = fresh_db(Db::Sqlite, "copy_bad_image")
+        .await
+        .expect("sqlite");
+    let b = fresh_db(Db::Sqlite, "copy_bad_image")
+        .await
+        .expect("sqlite");
+    let mut s = Server::start(&a.url, &a.data_dir, &[]);
+    camera_and_frame(&s, "bench", json!({})).await;
+    s.kill();
+    {
+        use sqlx::Connection;
+        let mut conn = sqlx::sqlite::SqliteConnection::connect(&a.url)
+            .await
+            .expect("open");
+        sqlx::query("UPDATE images SET bytes = x'00'")
+            .execute(&mut conn)
+            .await
+            .expect("corrupt");
+        conn.close().await.ok();
+    }
+    let (ok, out, err) = run(&["copy", "--from", &a.url, "--to", &b.url]);
+    assert!(!ok, "{out}");
+    let line = out
+        .lines()
+        .find(|l| l.starts_with("images "))
+        .unwrap_or_else(|| panic!("no images line: {out}"));
+    assert!(line.contains("MISMATCH"), "{line}");
+    assert!(line.contains("so does the source"), "{line}");
+    assert!(out.contains("VERIFICATION FAILED for images"), "{out}");
+    assert!(err.contains("does not match its source"), "{err}");
+}
