@@ -1,4 +1,5 @@
-//! Command-line interface: `serve`, `token create`, and the tools for planners.
+//! Command-line interface: `serve`, `token create`, the tools for planners, and `copy`,
+//! `backup` and `restore` for moving and keeping data.
 
 use crate::config::{Limits, ServeConfig, SignInLimits, check_public_url, default_database_url};
 use crate::service::auth::{self, Role};
@@ -116,6 +117,38 @@ enum Command {
         /// NPY file of float32/float16 probability maps (N, T, P, h, w) or points (N, T, P, 2)
         #[arg(long)]
         maps: Option<PathBuf>,
+    },
+    /// Copy every table of one database into another (e.g. SQLite to PostgreSQL), never
+    /// overwriting, then verify row counts, a SHA-256 per table and the stored hashes; rerun to
+    /// take rows written since
+    Copy {
+        /// Source database URL (only read)
+        #[arg(long)]
+        from: String,
+        /// Target database URL: migrated first; must be another database that no server uses
+        #[arg(long)]
+        to: String,
+    },
+    /// Write a consistent snapshot of a SQLite database to a new file (safe while the server
+    /// runs); PostgreSQL keeps pg_dump and its replication
+    Backup {
+        #[command(flatten)]
+        db: DbArgs,
+        /// The backup file to write; never overwritten
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Put a backup made by `goalsmith backup` in place as the SQLite database; stop the server
+    /// first (into PostgreSQL: `goalsmith copy --from sqlite://BACKUP --to postgres://…`)
+    Restore {
+        /// The backup file
+        #[arg(long)]
+        from: PathBuf,
+        #[command(flatten)]
+        db: DbArgs,
+        /// Replace an existing database (refused while a process has it open)
+        #[arg(long)]
+        force: bool,
     },
     /// Run a built-in benchmark on synthetic data; one JSON object per line
     Bench {
@@ -281,6 +314,25 @@ pub fn main() -> ExitCode {
             points,
             maps,
         } => run_cost(&bundle, points.as_deref(), maps.as_deref()),
+        Command::Copy { from, to } => runtime().map_err(Into::into).and_then(|rt| {
+            let report = rt.block_on(crate::store::copy::copy(&from, &to))?;
+            println!("{report}");
+            if report.verified() {
+                Ok(())
+            } else {
+                Err("the copy does not match its source (see above)".into())
+            }
+        }),
+        Command::Backup { db, out } => runtime().map_err(Into::into).and_then(|rt| {
+            let snapshot = rt.block_on(crate::store::backup::backup(&db.url(), &out))?;
+            println!("{snapshot}");
+            Ok(())
+        }),
+        Command::Restore { from, db, force } => runtime().map_err(Into::into).and_then(|rt| {
+            let snapshot = rt.block_on(crate::store::backup::restore(&from, &db.url(), force))?;
+            println!("restored {}\n{snapshot}", from.display());
+            Ok(())
+        }),
         Command::Bench { name, json: _ } => {
             let name = match name {
                 BenchName::Cost => "cost",

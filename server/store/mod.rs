@@ -5,7 +5,9 @@
 
 pub mod accounts;
 pub mod audit;
+pub mod backup;
 pub mod cameras;
+pub mod copy;
 pub mod demos;
 pub mod frames;
 pub mod goal_sets;

@@ -7,6 +7,7 @@ mod auth_matrix;
 mod bad_input;
 mod browser;
 mod concurrency;
+mod copy;
 mod demo_scenario;
 mod demos;
 mod export;
