@@ -550,7 +550,11 @@ fn assert_array_refused(what: &str, st: StatusCode, err: &Value, field: &str) {
     };
     let mut keys: Vec<&str> = error.keys().map(String::as_str).collect();
     keys.sort_unstable();
-    assert_eq!(keys, ["code", "field", "message"], "{what}: {err}");
+    assert_eq!(
+        keys,
+        ["code", "field", "message", "request_id"],
+        "{what}: {err}"
+    );
     assert_eq!(error["code"], "bad_field", "{what}: {err}");
     assert_eq!(error["field"], field, "{what}: {err}");
     let message = error["message"].as_str().unwrap_or("");
