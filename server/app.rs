@@ -104,16 +104,16 @@ async fn audit(
 ) -> Response {
     use crate::service::audit::{self, AuditSlot, Change};
     let method = req.method().as_str().to_string();
-    if !audit::may_change(&method) {
-        return next.run(req).await;
-    }
-    let slot = AuditSlot::default();
-    req.extensions_mut().insert(slot.clone());
     let route = req
         .extensions()
         .get::<MatchedPath>()
         .map_or("unmatched", MatchedPath::as_str)
         .to_string();
+    if !audit::may_change(&method, &route) {
+        return next.run(req).await;
+    }
+    let slot = AuditSlot::default();
+    req.extensions_mut().insert(slot.clone());
     let path = req.uri().path().to_string();
     let address = req
         .extensions()

@@ -1,7 +1,8 @@
 //! The audit log: who changed what, when, from where.
 //!
 //! One layer around both edges writes the entries, so no route or form can forget to: for each
-//! request that may change something (every method but GET, HEAD and OPTIONS) it puts an empty
+//! request that may change something (every method but GET, HEAD and OPTIONS, except the
+//! scoring and preview routes, which only compute) it puts an empty
 //! [`AuditSlot`] in the request; whichever credential check lets the request in (a bearer
 //! token, or a session at either edge) fills it with the [`Principal`]; and when the answer is a
 //! success (2xx, or the pages' 303 after a form), the layer stores the entry. Requests refused
@@ -63,9 +64,17 @@ pub struct Change {
     pub address: String,
 }
 
-/// Whether a request with this method may change something (and so gets a slot).
-pub fn may_change(method: &str) -> bool {
-    !matches!(method, "GET" | "HEAD" | "OPTIONS")
+/// Routes that take a POST body but change nothing: scoring candidates and the editor's
+/// preview. A planner scores many times a second; its calls are not changes to log.
+pub const READ_ONLY_POSTS: &[&str] = &[
+    "/api/goals/{id}/revisions/{n}/cost",
+    "/api/preview/cost-map.png",
+];
+
+/// Whether a request with this method on this route pattern may change something (and so
+/// gets a slot).
+pub fn may_change(method: &str, route: &str) -> bool {
+    !matches!(method, "GET" | "HEAD" | "OPTIONS") && !READ_ONLY_POSTS.contains(&route)
 }
 
 /// Stores the entry for a request that was answered, if someone was identified and the answer
@@ -176,4 +185,24 @@ pub async fn list(
         })
         .collect();
     Ok((entries, next))
+}
+
+#[cfg(test)]
+mod tests {
+    /// The read-only list names routes that exist, spelled as the route table spells them.
+    #[test]
+    fn read_only_posts_are_routes_of_the_table() {
+        let table = crate::api::routes::table();
+        for path in super::READ_ONLY_POSTS {
+            assert!(
+                table
+                    .iter()
+                    .any(|r| r.path == *path && r.verb.as_str() == "POST"),
+                "{path} is not a POST route"
+            );
+        }
+        assert!(super::may_change("POST", "/api/goals"));
+        assert!(!super::may_change("POST", super::READ_ONLY_POSTS[0]));
+        assert!(!super::may_change("GET", "/api/goals"));
+    }
 }

@@ -391,6 +391,18 @@ async fn audit_log(kind: Db) {
         )
         .await;
     assert_eq!(st, StatusCode::CREATED, "{rev}");
+    // Scoring changes nothing and leaves no entry.
+    let (st, scored) = s
+        .post(
+            &format!(
+                "/api/goals/{}/revisions/1/cost",
+                rev["goal_id"].as_str().unwrap()
+            ),
+            Some(&editor),
+            &json!({"points": [[[[12.0, 13.0]]]]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::OK, "{scored}");
     // A change by the signed-in owner through a page form.
     let page = owner
         .post_form(
