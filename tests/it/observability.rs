@@ -345,7 +345,6 @@ async fn audit_log(kind: Db) {
     let editor = s.token("my team", "editor");
     let viewer = s.token("my team", "viewer");
     let owner_token = s.token("my team", "owner");
-    let _ = (&editor, &viewer);
 
     let (st, cam) = s
         .post(
@@ -514,7 +513,6 @@ async fn audit_log(kind: Db) {
     let mut stranger = Person::new(&s.base);
     let page = stranger.get("/team/changes").await;
     assert_eq!(page.status, StatusCode::SEE_OTHER, "sent to sign in");
-    let _ = csrf_in;
 }
 
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]

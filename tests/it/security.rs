@@ -60,7 +60,6 @@ async fn world(s: &Server) -> World {
         .await;
     assert_eq!(st, StatusCode::CREATED, "{rev}");
     let goal = rev["goal_id"].as_str().unwrap().to_string();
-    let (_, latest) = s.get(&format!("/api/goals/{goal}"), Some(&editor)).await;
     let resp = s
         .client
         .get(s.url(&format!("/api/goals/{goal}")))
@@ -69,7 +68,6 @@ async fn world(s: &Server) -> World {
         .await
         .unwrap();
     let etag = etag(&resp).unwrap();
-    let _ = latest;
     let (st, set) = s
         .post(
             "/api/goal-sets",
@@ -78,41 +76,17 @@ async fn world(s: &Server) -> World {
         )
         .await;
     assert_eq!(st, StatusCode::CREATED, "{set}");
-    let (st, demo) = s
-        .post_bytes(
-            &format!("/api/cameras/{camera}/demos"),
-            Some(&editor),
-            "application/zip",
-            texture_demo_zip(64, 48, 3, [1.0, 0.0]),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CREATED, "{demo}");
-    let demo = demo["id"].as_str().unwrap().to_string();
-    let (st, started) = s
-        .post(
-            &format!("/api/demos/{demo}/tracks"),
-            Some(&editor),
-            &json!({"label": "rim", "frame": 0, "x": 30.0, "y": 20.0}),
-        )
-        .await;
-    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
-    let operation = started["operation_id"].as_str().unwrap().to_string();
-    operation_done(s, &editor, &operation).await;
-    let fit_body = json!({"frame_id": frame, "cell_px": 8,
-        "features": [{"kind": "distance_to", "point": [40.0, 30.0]}],
-        "demos": [{"path": [[5.0, 5.0], [20.0, 15.0], [40.0, 30.0]]}]});
-    let (st, fit) = s.post("/api/reward-fits", Some(&editor), &fit_body).await;
-    assert_eq!(st, StatusCode::ACCEPTED, "{fit}");
+    let made = demo_track_fit(s, &editor, &camera, &frame, "", "rim").await;
     World {
         editor,
         goal,
         camera,
         frame,
-        demo,
-        track: started["track_id"].as_str().unwrap().to_string(),
+        demo: made.demo,
+        track: made.track,
         set: set["id"].as_str().unwrap().to_string(),
-        operation,
-        fit: fit["id"].as_str().unwrap().to_string(),
+        operation: made.track_operation,
+        fit: made.fit,
         etag,
     }
 }
@@ -474,31 +448,8 @@ async fn hostile_strings(kind: Db) {
     assert_eq!(st, StatusCode::CREATED, "{set}");
     let set = set["id"].as_str().unwrap().to_string();
     let name = percent_encoding::utf8_percent_encode(HOSTILE, percent_encoding::NON_ALPHANUMERIC);
-    let (st, demo) = s
-        .post_bytes(
-            &format!("/api/cameras/{cam}/demos?name={name}"),
-            Some(&editor),
-            "application/zip",
-            texture_demo_zip(64, 48, 3, [1.0, 0.0]),
-        )
-        .await;
-    assert_eq!(st, StatusCode::CREATED, "{demo}");
-    let demo = demo["id"].as_str().unwrap().to_string();
-    let (st, started) = s
-        .post(
-            &format!("/api/demos/{demo}/tracks"),
-            Some(&editor),
-            &json!({"label": HOSTILE, "frame": 0, "x": 30.0, "y": 20.0}),
-        )
-        .await;
-    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
-    operation_done(&s, &editor, started["operation_id"].as_str().unwrap()).await;
-    let fit_body = json!({"frame_id": frame, "cell_px": 8,
-        "features": [{"kind": "distance_to", "point": [40.0, 30.0]}],
-        "demos": [{"path": [[5.0, 5.0], [20.0, 15.0], [40.0, 30.0]]}]});
-    let (st, fit) = s.post("/api/reward-fits", Some(&editor), &fit_body).await;
-    assert_eq!(st, StatusCode::ACCEPTED, "{fit}");
-    let fit = fit["id"].as_str().unwrap().to_string();
+    let made = demo_track_fit(&s, &editor, &cam, &frame, &format!("?name={name}"), HOSTILE).await;
+    let (demo, fit) = (made.demo, made.fit);
     for (path, fields) in [
         ("/team/tokens", vec![("label", HOSTILE), ("role", "viewer")]),
         ("/team/invites", vec![("note", HOSTILE), ("role", "viewer")]),

@@ -597,3 +597,55 @@ pub fn straight_paths(starts: &[[f64; 2]], goal: [f64; 2], step: f64) -> Vec<Val
         })
         .collect()
 }
+
+/// What [`demo_track_fit`] makes.
+pub struct DemoTrackFit {
+    pub demo: String,
+    pub track: String,
+    pub track_operation: String,
+    pub fit: String,
+}
+
+/// A demo of three textured 64 × 48 frames on `camera` (uploaded with `query`, e.g.
+/// `?name=…`), one track labelled `label` followed to its end, and a reward fit of `frame`
+/// started.
+pub async fn demo_track_fit(
+    s: &Server,
+    editor: &str,
+    camera: &str,
+    frame: &str,
+    query: &str,
+    label: &str,
+) -> DemoTrackFit {
+    let (st, demo) = s
+        .post_bytes(
+            &format!("/api/cameras/{camera}/demos{query}"),
+            Some(editor),
+            "application/zip",
+            texture_demo_zip(64, 48, 3, [1.0, 0.0]),
+        )
+        .await;
+    assert_eq!(st, StatusCode::CREATED, "{demo}");
+    let demo = demo["id"].as_str().expect("demo id").to_string();
+    let (st, started) = s
+        .post(
+            &format!("/api/demos/{demo}/tracks"),
+            Some(editor),
+            &serde_json::json!({"label": label, "frame": 0, "x": 30.0, "y": 20.0}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{started}");
+    let track_operation = started["operation_id"].as_str().expect("op").to_string();
+    operation_done(s, editor, &track_operation).await;
+    let fit_body = serde_json::json!({"frame_id": frame, "cell_px": 8,
+        "features": [{"kind": "distance_to", "point": [40.0, 30.0]}],
+        "demos": [{"path": [[5.0, 5.0], [20.0, 15.0], [40.0, 30.0]]}]});
+    let (st, fit) = s.post("/api/reward-fits", Some(editor), &fit_body).await;
+    assert_eq!(st, StatusCode::ACCEPTED, "{fit}");
+    DemoTrackFit {
+        demo,
+        track: started["track_id"].as_str().expect("track id").to_string(),
+        track_operation,
+        fit: fit["id"].as_str().expect("fit id").to_string(),
+    }
+}
