@@ -114,7 +114,13 @@ async fn audit(
     }
     let slot = AuditSlot::default();
     req.extensions_mut().insert(slot.clone());
-    let path = req.uri().path().to_string();
+    // A path that carries a secret (an invitation's `/welcome/{token}`) is kept as its
+    // pattern: the log is read by people, and a link's secret stays out of it.
+    let path = if route.contains("{token}") {
+        route.clone()
+    } else {
+        req.uri().path().to_string()
+    };
     let address = req
         .extensions()
         .get::<axum::extract::ConnectInfo<std::net::SocketAddr>>()

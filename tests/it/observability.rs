@@ -447,6 +447,13 @@ async fn audit_log(kind: Db) {
         ],
         "{log}"
     );
+    // The invitation's secret stays out of the log.
+    assert_eq!(items[4]["path"], "/welcome/{token}");
+    let secret = link.rsplit('/').next().unwrap();
+    assert!(
+        secret.len() >= 32 && !log.to_string().contains(secret),
+        "{log}"
+    );
     let by_token = &items[1];
     assert_eq!(by_token["credential"], "token");
     assert_eq!(by_token["role"], "editor");
