@@ -29,8 +29,9 @@ impl Principal {
             Ok(())
         } else {
             Err(ServiceError::Forbidden(format!(
-                "this needs the {} role; you are a {}",
+                "this needs the {} role; you are {} {}",
                 needed.as_str(),
+                if self.role == Role::Viewer { "a" } else { "an" },
                 self.role.as_str()
             )))
         }
