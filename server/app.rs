@@ -265,12 +265,13 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
     }
     let store = Store::connect(&config.database_url).await?;
     let state = AppState {
-        store,
-        limits: Arc::new(config.limits.clone()),
         security: Arc::new(crate::security::Security::new(
             &config.limits.signin,
             config.public_url.clone(),
-        )?),
+            crate::store::secrets::shared_key(&store, "form_token_key").await?,
+        )),
+        store,
+        limits: Arc::new(config.limits.clone()),
         models: Arc::new(crate::service::export::ModelCache::with_budget(
             config.limits.model_cache_bytes,
         )),
@@ -367,9 +368,11 @@ mod tests {
             store,
             limits: Arc::default(),
             models: Arc::default(),
-            security: Arc::new(
-                crate::security::Security::new(&Default::default(), None).expect("security"),
-            ),
+            security: Arc::new(crate::security::Security::new(
+                &Default::default(),
+                None,
+                [7; 32],
+            )),
             heavy_permits: Arc::default(),
             pyramids: Arc::default(),
             metrics: Arc::default(),

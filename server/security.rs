@@ -1,10 +1,12 @@
 //! What the pages need to defend the sign-in: the throttles, the bound on password hashes running
 //! at once, the key that signs pre-session form tokens, and the base of the links we hand out.
 //!
-//! All of it lives in this process's memory. Several server processes sharing one PostgreSQL each
-//! keep their own throttle counts and form key, so the limits are per process and a sign-in form
-//! must be posted to the process that served it; that is acceptable while we run one or two
-//! processes behind a sticky proxy, and is the thing to move into the database when we run more.
+//! The form key is shared through the database (`server_secrets`), so a sign-in form served by
+//! one process can be posted to another behind a load balancer. The throttle counts and the
+//! hashing slots live in this process's memory: with several processes the limits hold per
+//! process, so a guesser spread over N processes gets at most N times the allowance. That is
+//! acceptable for the few processes a team runs, and is the thing to move into the database
+//! when we run many.
 
 /// Why a sign-in step was refused; the pages turn it into a page with the right status.
 #[derive(Debug)]
@@ -160,12 +162,11 @@ pub struct Security {
 }
 
 impl Security {
-    /// Fresh state with a new random form key.
-    pub fn new(limits: &SignInLimits, public_url: Option<String>) -> Result<Self, String> {
-        let mut form_key = [0u8; 32];
-        getrandom::fill(&mut form_key).map_err(|e| format!("no randomness: {e}"))?;
+    /// Fresh state around `form_key`, the secret that signs pre-session form tokens (shared by
+    /// every process on the database: see [`crate::store::secrets::shared_key`]).
+    pub fn new(limits: &SignInLimits, public_url: Option<String>, form_key: [u8; 32]) -> Self {
         let window = Duration::from_secs(limits.window_s);
-        Ok(Security {
+        Security {
             limits: limits.clone(),
             form_key,
             logins: Mutex::new(Throttle::new(
@@ -182,7 +183,7 @@ impl Security {
             waiting: AtomicUsize::new(0),
             public_url,
             bound: OnceLock::new(),
-        })
+        }
     }
 
     /// Records a sign-in attempt for the login and the client address, refusing with 429 when
@@ -259,7 +260,7 @@ impl Security {
         }
     }
 
-    /// A new pre-session form token: `time.nonce.mac`, the MAC keyed by this process's secret,
+    /// A new pre-session form token: `time.nonce.mac`, the MAC keyed by the database's shared secret,
     /// so only tokens we issued pass [`Self::form_token_age`].
     pub fn issue_form_token(&self) -> Result<String, SecurityError> {
         let mut nonce = [0u8; 16];
@@ -447,6 +448,10 @@ fn address_key(ip: IpAddr) -> String {
 mod tests {
     use super::*;
 
+    fn key(b: u8) -> [u8; 32] {
+        [b; 32]
+    }
+
     #[test]
     fn throttle_refuses_over_the_limit_and_forgets_after_the_window() {
         let mut t = Throttle::new(2, Duration::from_secs(60), 10);
@@ -479,10 +484,10 @@ mod tests {
 
     #[test]
     fn form_tokens_are_ours_or_refused() {
-        let s = Security::new(&SignInLimits::default(), None).expect("security");
+        let s = Security::new(&SignInLimits::default(), None, key(1));
         let t = s.issue_form_token().expect("token");
         assert_eq!(s.form_token_age(&t), Some(0));
-        let other = Security::new(&SignInLimits::default(), None).expect("security");
+        let other = Security::new(&SignInLimits::default(), None, key(2));
         assert_eq!(other.form_token_age(&t), None, "another key");
         // The last hex digit changed to another one (never the same digit again).
         let last = if t.ends_with('0') { '1' } else { '0' };
@@ -516,7 +521,7 @@ mod tests {
             hash_wait_ms: 10,
             ..SignInLimits::default()
         };
-        let s = Security::new(&limits, None).expect("security");
+        let s = Security::new(&limits, None, key(1));
         let held = s.hash_slot().await.expect("the one slot");
         match s.hash_slot().await {
             Err(SecurityError::Busy { retry_after_s }) => assert_eq!(retry_after_s, 1),

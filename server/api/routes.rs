@@ -377,9 +377,11 @@ mod tests {
             store,
             limits: Arc::default(),
             models: Arc::default(),
-            security: Arc::new(
-                crate::security::Security::new(&Default::default(), None).expect("security state"),
-            ),
+            security: Arc::new(crate::security::Security::new(
+                &Default::default(),
+                None,
+                [7; 32],
+            )),
             heavy_permits: Arc::default(),
             pyramids: Arc::default(),
             metrics: Arc::default(),

@@ -163,7 +163,13 @@ impl From<ServiceError> for RunError {
 /// Starts `workers` workers (none for 0) and the sweeper on the current runtime; they run as
 /// long as it.
 pub fn start(state: AppState, workers: usize) {
-    let process = uuid::Uuid::new_v4().to_string();
+    // `<pid>-<random>/<n>`: the pid says which process holds an operation (in the operations
+    // table and the logs); the random part keeps two hosts' equal pids apart.
+    let process = format!(
+        "{}-{}",
+        std::process::id(),
+        &uuid::Uuid::new_v4().simple().to_string()[..8]
+    );
     for w in 0..workers {
         let state = state.clone();
         let worker = format!("{process}/{w}");

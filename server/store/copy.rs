@@ -76,6 +76,11 @@ pub const TABLES: &[Table] = &[
     table("audit_log", &["id"]),
 ];
 
+/// Tables that are deliberately not copied: `server_secrets` holds the key that signs the
+/// short-lived pre-session form tokens of the processes on one database; the target's servers
+/// make their own (a sign-in form open during the move is simply shown again).
+pub const NOT_COPIED: &[&str] = &["server_secrets"];
+
 const fn table(name: &'static str, key: &'static [&'static str]) -> Table {
     Table { name, key }
 }
@@ -938,7 +943,11 @@ async fn copy_into(
     ] {
         let mut unknown: Vec<&String> = names
             .iter()
-            .filter(|n| n.as_str() != MIGRATIONS_TABLE && !known.contains(n.as_str()))
+            .filter(|n| {
+                n.as_str() != MIGRATIONS_TABLE
+                    && !known.contains(n.as_str())
+                    && !NOT_COPIED.contains(&n.as_str())
+            })
             .collect();
         unknown.sort();
         if let Some(n) = unknown.first() {
@@ -1422,6 +1431,9 @@ mod tests {
             .await
             .expect("tables");
         names.remove(MIGRATIONS_TABLE);
+        for t in NOT_COPIED {
+            assert!(names.remove(*t), "{t} is a table");
+        }
         let listed: HashSet<String> = TABLES.iter().map(|t| t.name.to_string()).collect();
         assert_eq!(names, listed);
         for (i, t) in TABLES.iter().enumerate() {

@@ -15,6 +15,7 @@ pub mod goals;
 pub mod operations;
 pub mod outcomes;
 pub mod reward_fits;
+pub mod secrets;
 pub mod teams;
 pub mod tracks;
 
