@@ -6,7 +6,7 @@
 -- LIMIT bounds the requests of each thread: a thread stops after LIMIT answers, so a run ends
 -- at the first of its duration (-d) and its request budget. `done` prints one JSON line.
 
-local mode, limit, token, path, body, write_path, write_body
+local mode, limit, token, path, body, write_path, write_body, json_headers
 local answered = 0
 local counter = 0
 
@@ -23,6 +23,8 @@ function init(args)
   write_path = args[6]
   if args[7] then write_body = slurp(args[7]) end
   wrk.headers["Authorization"] = "Bearer " .. token
+  -- wrk.format uses the table it is given instead of wrk.headers, not with it.
+  json_headers = { ["Authorization"] = "Bearer " .. token, ["Content-Type"] = "application/json" }
 end
 
 function request()
@@ -30,11 +32,11 @@ function request()
   if mode == "get" then
     return wrk.format("GET", path)
   elseif mode == "post" then
-    return wrk.format("POST", path, { ["Content-Type"] = "application/json" }, body)
+    return wrk.format("POST", path, json_headers, body)
   else
     -- One write in every ten requests, evenly spread.
     if counter % 10 == 0 then
-      return wrk.format("POST", write_path, { ["Content-Type"] = "application/json" }, write_body)
+      return wrk.format("POST", write_path, json_headers, write_body)
     end
     return wrk.format("GET", path)
   end

@@ -20,7 +20,7 @@ secs=${1:-10}
 rounds=${2:-3}
 mem_secs=${3:-120}
 conns=64
-threads=2
+threads=${GOALSMITH_WRK_THREADS:-2}
 # Each thread's request budget: far above what a run reaches in its time on this machine, so the
 # time ends a run and the budget only guards against a runaway.
 budget=2000000
@@ -122,7 +122,9 @@ for rnd in sorted({r["round"] for r in rows if r["round"] != "memory"}):
     if h and d:
         ratios.append(d[0]["rps"] / h[0]["rps"])
 print("\nrevision reads ÷ /healthz throughput, per round: " + ", ".join(f"{x:.2f}" for x in ratios))
+third = max(1, len(rss) // 3)
+mean = lambda xs: sum(xs) / len(xs)
 if rss:
     print(f"resident memory over the long run: first {rss[0]/1024:.1f} MiB, max {max(rss)/1024:.1f} MiB, last {rss[-1]/1024:.1f} MiB; "
-          f"last third vs first third: {sum(rss[-len(rss)//3:])/len(rss[-len(rss)//3:])/1024:.1f} vs {sum(rss[:len(rss)//3])/len(rss[:len(rss)//3])/1024:.1f} MiB")
+          f"mean of the last third vs the first third: {mean(rss[-third:])/1024:.1f} vs {mean(rss[:third])/1024:.1f} MiB")
 PY

@@ -285,6 +285,9 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
         metrics: Arc::new(crate::service::metrics::Metrics::new(
             config.metrics_token.clone(),
         )),
+        revisions: Arc::new(crate::service::revision_cache::RevisionCache::with_budget(
+            config.limits.revision_cache_bytes,
+        )),
     };
     Ok(state)
 }
@@ -376,6 +379,7 @@ mod tests {
             heavy_permits: Arc::default(),
             pyramids: Arc::default(),
             metrics: Arc::default(),
+            revisions: Arc::default(),
         };
         (state, dir)
     }

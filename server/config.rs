@@ -32,6 +32,8 @@ pub struct Limits {
     pub model_cache_bytes: usize,
     /// Bytes of demo frame pyramids kept for tracking, shared by every track of a demo.
     pub pyramid_cache_bytes: usize,
+    /// Bytes of recently read revisions kept in memory (`GOALSMITH_REVISION_CACHE_BYTES`).
+    pub revision_cache_bytes: usize,
     /// Sign-in throttle and password-hashing bounds.
     pub signin: SignInLimits,
     /// Demonstration uploads: frames, upload size, decoded bytes, ZIP entry bounds.
@@ -101,6 +103,7 @@ impl Default for Limits {
             signin: SignInLimits::default(),
             demo: crate::demo_archive::DemoLimits::default(),
             pyramid_cache_bytes: 256 << 20,
+            revision_cache_bytes: crate::service::revision_cache::DEFAULT_BYTES,
             operation_workers: cores().div_ceil(2),
         }
     }
@@ -111,7 +114,8 @@ impl Limits {
     /// `GOALSMITH_MAX_MAP_VALUES`, `GOALSMITH_MAX_NPY_POINTS`, `GOALSMITH_COST_JSON_BYTES`, the
     /// body limits `GOALSMITH_JSON_BODY_BYTES`, `GOALSMITH_FRAME_UPLOAD_BYTES`,
     /// `GOALSMITH_COST_BODY_BYTES`, and
-    /// `GOALSMITH_MODEL_CACHE_BYTES`, `GOALSMITH_PYRAMID_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
+    /// `GOALSMITH_MODEL_CACHE_BYTES`, `GOALSMITH_PYRAMID_CACHE_BYTES`,
+    /// `GOALSMITH_REVISION_CACHE_BYTES`, and for demos `GOALSMITH_DEMO_MAX_FRAMES`,
     /// `GOALSMITH_DEMO_MAX_BYTES`, `GOALSMITH_DEMO_MAX_DECODED_BYTES`, and
     /// `GOALSMITH_OPERATION_WORKERS`, applied where set (whole numbers; permits at least 1; the
     /// queue defaults to 4 × permits). A value that does not parse is an error rather
@@ -149,6 +153,10 @@ impl Limits {
             ("GOALSMITH_COST_BODY_BYTES", &mut l.cost_body_bytes),
             ("GOALSMITH_MODEL_CACHE_BYTES", &mut l.model_cache_bytes),
             ("GOALSMITH_PYRAMID_CACHE_BYTES", &mut l.pyramid_cache_bytes),
+            (
+                "GOALSMITH_REVISION_CACHE_BYTES",
+                &mut l.revision_cache_bytes,
+            ),
             ("GOALSMITH_DEMO_MAX_FRAMES", &mut l.demo.max_frames),
             ("GOALSMITH_DEMO_MAX_BYTES", &mut l.demo.max_archive_bytes),
             ("GOALSMITH_OPERATION_WORKERS", &mut l.operation_workers),

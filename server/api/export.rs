@@ -119,11 +119,14 @@ pub async fn cost(
         // The body first (it is small and bounded), then the model: no permit is held while a
         // client uploads, and a model built here keeps the permit it was built under for the
         // scoring, so it never waits in the queue holding a model.
+        // A small body on a cached model is light work and needs no permit
+        // (`export::is_light_json`).
         let body = read_json_cost_body(req, state.limits.cost_json_bytes).await?;
         let (checked, permit) = export::checked_model(&state, &who, &id, &n).await?;
         let _permit = match permit {
-            Some(p) => p,
-            None => state.heavy_permits.acquire().await?,
+            Some(p) => Some(p),
+            None if export::is_light_json(&checked, body.len()) => None,
+            None => Some(state.heavy_permits.acquire().await?),
         };
         let result = export::score_buffered(checked, content_type, body, max).await?;
         return Ok(Json(scoring::cost_response(&result)));

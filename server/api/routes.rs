@@ -385,6 +385,7 @@ mod tests {
             heavy_permits: Arc::default(),
             pyramids: Arc::default(),
             metrics: Arc::default(),
+            revisions: Arc::default(),
         });
         let rows = table();
         let mut paths: Vec<&str> = rows.iter().map(|r| r.path).collect();

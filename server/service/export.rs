@@ -360,6 +360,37 @@ pub async fn checked_model(
     Ok((l.checked, l.permit))
 }
 
+/// A JSON cost body of at most this many bytes may be light work (see [`is_light_json`]).
+pub const LIGHT_JSON_BYTES: usize = 256 << 10;
+/// Point-distance evaluations a light request may ask for at most (a few milliseconds).
+pub const LIGHT_WORK: usize = 4 << 20;
+
+/// Whether scoring a JSON body of `body_bytes` on `checked` is light enough to run without a
+/// heavy-work permit: the body is small and the work it can ask for is bounded. A body of L
+/// bytes holds at most L / 4 coordinate pairs (`0,0,` is the shortest), and each costs one
+/// distance per point term, counted at its worst: 1 for point and learned targets, the vertex
+/// count for a region, the frame's width for a mask (a query scans at most the columns that
+/// hold painted pixels). Planners scoring small batches at a high rate at
+/// many connections are then not shed with 503 `busy` behind the heavy queue, while a body
+/// that could ask for real work still waits for a permit.
+pub fn is_light_json(checked: &Checked, body_bytes: usize) -> bool {
+    if body_bytes > LIGHT_JSON_BYTES {
+        return false;
+    }
+    let per_pair = checked
+        .1
+        .points()
+        .iter()
+        .map(|p| match &p.target {
+            goalsmith_core::cost::TargetShape::Region(poly) => poly.vertices().len(),
+            goalsmith_core::cost::TargetShape::Mask(_) => checked.1.frame_size().0,
+            _ => 1,
+        })
+        .max()
+        .unwrap_or(1);
+    (body_bytes / 4).saturating_mul(per_pair) <= LIGHT_WORK
+}
+
 /// Largest prepared map set kept in the cache (P·h·w float32 values and weights).
 const PREPARED_CACHE_BYTES: usize = 64 << 20;
 

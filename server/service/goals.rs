@@ -376,12 +376,22 @@ pub async fn load_revision(
     revision: Option<i64>,
 ) -> ServiceResult<RevisionRow> {
     let id = parse_id(id, "goal")?;
-    store::goals::get_revision(&state.store, &who.team_id, &id, revision)
+    if let Some(n) = revision
+        && let Some(row) = state.revisions.get(&who.team_id, &id, n)
+    {
+        return Ok(RevisionRow::clone(&row));
+    }
+    let row = store::goals::get_revision(&state.store, &who.team_id, &id, revision)
         .await?
         .ok_or_else(|| match revision {
             Some(n) => ServiceError::NotFound(format!("goal {id} has no revision {n}")),
             None => ServiceError::NotFound(format!("no goal with id {id}")),
-        })
+        })?;
+    // The latest revision is read by number too once known; a numbered one never changes.
+    state
+        .revisions
+        .put(&who.team_id, std::sync::Arc::new(row.clone()));
+    Ok(row)
 }
 
 /// Parses the `{n}` of a revision path.

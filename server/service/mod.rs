@@ -22,6 +22,7 @@ pub mod heavy;
 pub mod metrics;
 pub mod operations;
 pub mod outcomes;
+pub mod revision_cache;
 pub mod reward_fits;
 pub mod team;
 pub mod tracks;
@@ -49,6 +50,8 @@ pub struct AppState {
     pub pyramids: Arc<tracks::PyramidCache>,
     /// Request counts and latencies for `/metrics`.
     pub metrics: Arc<metrics::Metrics>,
+    /// Recently read revisions (immutable), bounded by bytes.
+    pub revisions: Arc<revision_cache::RevisionCache>,
 }
 
 /// RFC 3339 UTC with milliseconds, from unix milliseconds.
