@@ -379,6 +379,17 @@ async fn burst(s: Server) {
     }
     let (st, health) = s.get("/healthz", None).await;
     assert_eq!(st, StatusCode::OK, "{health}");
+    // A small JSON batch on the cached model is light work: it needs no permit, so it is
+    // scored while the burst holds the permit and fills the queue.
+    let (st, scored) = s
+        .post(
+            &format!("{base}/cost"),
+            Some(&editor),
+            &json!({"points": [[[[12.0, 14.0], [20.0, 20.0]]], [[[40.0, 30.0], [0.0, 0.0]]]]}),
+        )
+        .await;
+    assert_eq!(st, StatusCode::OK, "{scored}");
+    assert_eq!(scored["costs"].as_array().map(Vec::len), Some(2), "{scored}");
     let mut ok = 0;
     let mut busy = 0;
     for t in tasks {
