@@ -103,7 +103,7 @@ impl Default for Limits {
             signin: SignInLimits::default(),
             demo: crate::demo_archive::DemoLimits::default(),
             pyramid_cache_bytes: 256 << 20,
-            revision_cache_bytes: crate::service::revision_cache::DEFAULT_BYTES,
+            revision_cache_bytes: 32 << 20,
             operation_workers: cores().div_ceil(2),
         }
     }

@@ -9,7 +9,8 @@ use crate::store::goals::RevisionRow;
 use std::sync::{Arc, Mutex};
 
 /// Default budget: 32 MiB of documents (goal documents are a few kB; the largest allowed are
-/// a few MB, and one larger than the budget is simply not kept).
+/// a few MB, and one larger than the budget is simply not kept); `Limits` has the same
+/// default for the server.
 pub const DEFAULT_BYTES: usize = 32 << 20;
 
 type Key = (String, i64);
