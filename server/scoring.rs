@@ -98,13 +98,21 @@ pub fn spec_from_revision(
 
 /// The cost model of a checked goal.
 pub fn model(spec: &GoalSpec) -> Result<CostModel, ScoreError> {
+    model_until(spec, &|| false).map(|m| m.expect("never stopped"))
+}
+
+/// [`model`], given up (`Ok(None)`) when `stop` says so between mask terms.
+pub fn model_until(
+    spec: &GoalSpec,
+    stop: &dyn Fn() -> bool,
+) -> Result<Option<CostModel>, ScoreError> {
     let points = spec.cost_points().map_err(|e| ScoreError::Invalid {
         code: e.code,
         message: e.message,
         field: Some(e.field),
     })?;
     let (w, h) = spec.frame_size();
-    CostModel::new(w as usize, h as usize, points, *spec.settings())
+    CostModel::new_until(w as usize, h as usize, points, *spec.settings(), stop)
         .map_err(|e| ScoreError::Internal(e.to_string()))
 }
 

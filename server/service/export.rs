@@ -285,6 +285,10 @@ pub async fn load_row(
                 .unwrap_or_default();
             let grids = super::reward_fits::grids_for(state, who, &frame.id, learned).await?;
             let permit = state.heavy_permits.acquire().await?;
+            // Part of the handler's future: a client that hangs up drops it, and the build
+            // stops before its next mask index.
+            let cancel = Cancel::new();
+            let stop = cancel.flag();
             // The permit comes back with the model: a model too large for the cache is held by
             // this request alone, and it must not wait in the queue for a second permit while
             // holding it (the memory envelope counts one model per permit).
@@ -292,14 +296,17 @@ pub async fn load_row(
                 let reward_grid = |id: &str| grids.get(id).cloned();
                 let built =
                     scoring::spec_from_revision(&doc2, w, h, &reward_grid).and_then(|spec| {
-                        let model = scoring::model(&spec)?;
-                        Ok(std::sync::Arc::new((spec, model)))
+                        let model = scoring::model_until(&spec, &|| stop.load(Ordering::Relaxed))?;
+                        Ok(model.map(|m| std::sync::Arc::new((spec, m))))
                     });
                 (built, permit)
             })
             .await
             .map_err(|e| ServiceError::Internal(e.to_string()))?;
-            let built = built?;
+            drop(cancel);
+            let built = built?.ok_or_else(|| {
+                ServiceError::Internal("model building stopped: the client hung up".into())
+            })?;
             state.models.put(key, built.clone());
             (built, Some(permit))
         }

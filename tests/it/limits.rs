@@ -389,7 +389,11 @@ async fn burst(s: Server) {
         )
         .await;
     assert_eq!(st, StatusCode::OK, "{scored}");
-    assert_eq!(scored["costs"].as_array().map(Vec::len), Some(2), "{scored}");
+    assert_eq!(
+        scored["costs"].as_array().map(Vec::len),
+        Some(2),
+        "{scored}"
+    );
     let mut ok = 0;
     let mut busy = 0;
     for t in tasks {

@@ -381,6 +381,20 @@ impl CostModel {
         points: Vec<CostPoint>,
         settings: CostSettings,
     ) -> Result<Self, CostError> {
+        Self::new_until(frame_width, frame_height, points, settings, &|| false)
+            .map(|m| m.expect("never stopped"))
+    }
+
+    /// [`Self::new`], asking `stop` before each mask's index is built (the one part of a
+    /// model that takes long: a pass over the mask per mask term); `Ok(None)` when it said
+    /// stop, so work for a client that has gone is given up.
+    pub fn new_until(
+        frame_width: usize,
+        frame_height: usize,
+        points: Vec<CostPoint>,
+        settings: CostSettings,
+        stop: &dyn Fn() -> bool,
+    ) -> Result<Option<Self>, CostError> {
         if frame_width == 0 || frame_height == 0 {
             return Err(CostError::BadFrameSize {
                 width: frame_width,
@@ -415,18 +429,21 @@ impl CostModel {
                             height: frame_height,
                         });
                     }
+                    if stop() {
+                        return Ok(None);
+                    }
                     Some(MaskIndex::new(m))
                 }
                 _ => None,
             });
         }
-        Ok(Self {
+        Ok(Some(Self {
             width: frame_width,
             height: frame_height,
             points,
             settings,
             mask_index,
-        })
+        }))
     }
 
     /// Number of source points P.
@@ -1629,6 +1646,42 @@ mod tests {
         .unwrap();
         // Two float32 per pixel per mask index and a byte per mask pixel at least.
         assert!(model.approx_bytes() >= masks * 24 * 18 * 9);
+    }
+
+    /// A model build asked to stop gives up before a mask index and returns nothing; one never
+    /// asked builds the same model as `new`.
+    #[test]
+    fn a_model_build_stops_when_asked() {
+        let mask = |seed| TargetShape::Mask(Arc::new(random_mask(24, 18, seed, 0.1)));
+        let points: Vec<CostPoint> = (0..3)
+            .map(|k| CostPoint {
+                target: mask(k),
+                weight: 1.0,
+                tolerance_px: 0.0,
+            })
+            .collect();
+        let settings = CostSettings::new(Metric::Squared, Steps::Final, Mode::Expected).unwrap();
+        let asked = std::cell::Cell::new(0);
+        let stopped = CostModel::new_until(24, 18, points.clone(), settings, &|| {
+            asked.set(asked.get() + 1);
+            asked.get() > 1
+        })
+        .unwrap();
+        assert!(stopped.is_none());
+        assert_eq!(
+            asked.get(),
+            2,
+            "asked before each mask, stopped at the second"
+        );
+        let whole = CostModel::new_until(24, 18, points.clone(), settings, &|| false)
+            .unwrap()
+            .expect("built");
+        let plain = CostModel::new(24, 18, points, settings).unwrap();
+        for (x, y) in [(0.0, 0.0), (7.5, 3.25), (30.0, -4.0)] {
+            for p in 0..3 {
+                assert_eq!(whole.distance(p, x, y), plain.distance(p, x, y));
+            }
+        }
     }
 
     #[test]
