@@ -13,6 +13,7 @@ pub mod cookies;
 pub mod demo;
 pub mod demo_archive;
 pub mod draw;
+pub mod fuzzing;
 pub mod images;
 mod layers;
 pub mod pages;

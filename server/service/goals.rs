@@ -8,6 +8,7 @@ use super::{AppState, frames, parse_id, rfc3339};
 use crate::images;
 use crate::store::{self, goals::RevisionRow};
 use goalsmith_core::canonical;
+use goalsmith_core::cost::RewardGrid;
 use goalsmith_core::geometry::Polygon;
 use goalsmith_core::goal::{
     CheckContext, CostDocument, GoalDocument, GoalSpec, Term, TermDocument, check_zone,
@@ -16,6 +17,8 @@ use schemars::JsonSchema;
 use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use sha2::{Digest, Sha256};
+use std::collections::HashMap;
+use std::sync::Arc;
 
 /// The strong ETag of a stored revision: the SHA-256 of the exact bytes served.
 pub fn etag_of(document: &str) -> String {
@@ -41,17 +44,6 @@ pub async fn check_document(
     };
     let camera_row = cameras::load(state, who, &frame.camera_id).await?;
     let camera = cameras::parse_doc(&camera_row)?;
-    let (w, h) = (camera.width, camera.height);
-    let safe_zone = camera
-        .safe_zone
-        .as_ref()
-        .map(|z| check_zone(w, h, z, "camera.safe_zone"))
-        .transpose()?;
-    let no_go: Vec<Polygon> = camera
-        .no_go_zones
-        .iter()
-        .map(|z| check_zone(w, h, z, "camera.no_go_zones"))
-        .collect::<Result<_, _>>()?;
     let limits = state.limits.clone();
     let learned: Vec<&str> = doc
         .terms
@@ -65,25 +57,48 @@ pub async fn check_document(
         .collect();
     let grids = super::reward_fits::grids_for(state, who, &frame.id, learned).await?;
     // Mask decoding and checks are CPU work: keep them off the async workers.
-    let spec = tokio::task::spawn_blocking(move || {
-        let decode_mask =
-            |b64: &str| images::decode_mask(b64, limits.max_image_side, limits.max_decode_bytes);
-        let reward_grid = |id: &str| grids.get(id).cloned();
-        GoalSpec::check(
-            doc,
-            &CheckContext {
-                width: w,
-                height: h,
-                safe_zone: safe_zone.as_ref(),
-                no_go_zones: &no_go,
-                decode_mask: &decode_mask,
-                reward_grid: &reward_grid,
-            },
-        )
+    tokio::task::spawn_blocking(move || {
+        let spec = check_against_camera(doc, &camera, &limits, &grids)?;
+        Ok((spec, camera))
     })
     .await
-    .map_err(|e| ServiceError::Internal(format!("goal check task failed: {e}")))??;
-    Ok((spec, camera))
+    .map_err(|e| ServiceError::Internal(format!("goal check task failed: {e}")))?
+}
+
+/// The check of [`check_document`] once the camera and the reward grids of the document's
+/// learned terms are loaded: the camera's zones, then every rule of [`GoalSpec::check`], masks
+/// decoded under `limits`. Blocking CPU work; the fuzz target `goal_document` calls it too.
+pub fn check_against_camera(
+    doc: GoalDocument,
+    camera: &CameraDoc,
+    limits: &crate::config::Limits,
+    grids: &HashMap<String, Arc<RewardGrid>>,
+) -> ServiceResult<GoalSpec> {
+    let (w, h) = (camera.width, camera.height);
+    let safe_zone = camera
+        .safe_zone
+        .as_ref()
+        .map(|z| check_zone(w, h, z, "camera.safe_zone"))
+        .transpose()?;
+    let no_go: Vec<Polygon> = camera
+        .no_go_zones
+        .iter()
+        .map(|z| check_zone(w, h, z, "camera.no_go_zones"))
+        .collect::<Result<_, _>>()?;
+    let decode_mask =
+        |b64: &str| images::decode_mask(b64, limits.max_image_side, limits.max_decode_bytes);
+    let reward_grid = |id: &str| grids.get(id).cloned();
+    Ok(GoalSpec::check(
+        doc,
+        &CheckContext {
+            width: w,
+            height: h,
+            safe_zone: safe_zone.as_ref(),
+            no_go_zones: &no_go,
+            decode_mask: &decode_mask,
+            reward_grid: &reward_grid,
+        },
+    )?)
 }
 
 fn to_value<T: serde::Serialize>(v: &T) -> ServiceResult<Value> {

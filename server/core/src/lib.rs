@@ -13,6 +13,7 @@ pub mod camera;
 pub mod canonical;
 pub mod cost;
 pub mod distance;
+pub mod fuzzing;
 pub mod geometry;
 pub mod goal;
 pub mod irl;
