@@ -541,7 +541,7 @@ pub fn start_logging(
 /// Waits for an operation to end and returns it as `GET /api/operations/{id}` serves it (the
 /// bound is a liveness guard, not a speed check).
 pub async fn operation_done(s: &Server, token: &str, op: &str) -> Value {
-    let until = std::time::Instant::now() + Duration::from_secs(180);
+    let until = std::time::Instant::now() + Duration::from_secs(600);
     loop {
         let (st, v) = s.get(&format!("/api/operations/{op}"), Some(token)).await;
         assert_eq!(st, StatusCode::OK, "{v}");
