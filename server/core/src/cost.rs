@@ -507,7 +507,11 @@ impl CostModel {
         let point = self.points.get(p)?;
         let unit = |ux: f64, uy: f64| {
             let d = ux.hypot(uy);
-            if d > 0.0 { [ux / d, uy / d] } else { [0.0, 0.0] }
+            if d > 0.0 {
+                [ux / d, uy / d]
+            } else {
+                [0.0, 0.0]
+            }
         };
         Some(match &point.target {
             TargetShape::Point(t) => unit(x - t.x(), y - t.y()),
@@ -2387,7 +2391,7 @@ mod tests {
                 let (res, grad) = model.evaluate_points_grad(&pts, n, t).unwrap();
                 assert_eq!(res, model.evaluate_points(&pts, n, t).unwrap());
                 let mut checked = 0;
-                for k in 0..pts.len() {
+                for (k, &gk) in grad.iter().enumerate() {
                     let h = 1e-5;
                     let fd = central_difference(&model, &pts, t, k, h);
                     let fd_half = central_difference(&model, &pts, t, k, h / 2.0);
@@ -2396,12 +2400,14 @@ mod tests {
                     }
                     checked += 1;
                     assert!(
-                        (grad[k] - fd).abs() <= 1e-6 * (1.0 + fd.abs()),
-                        "{metric:?} {steps:?} coordinate {k}: analytic {} vs differences {fd}",
-                        grad[k]
+                        (gk - fd).abs() <= 1e-6 * (1.0 + fd.abs()),
+                        "{metric:?} {steps:?} coordinate {k}: analytic {gk} vs differences {fd}"
                     );
                 }
-                assert!(checked > pts.len() * 3 / 4, "only {checked} smooth coordinates");
+                assert!(
+                    checked > pts.len() * 3 / 4,
+                    "only {checked} smooth coordinates"
+                );
                 if steps == Steps::Final {
                     let stride = t * 4 * 2;
                     for c in 0..n {
@@ -2454,7 +2460,10 @@ mod tests {
         // from it diagonally out.
         let g = square.distance_gradient(13.0, -3.0);
         let r = std::f64::consts::FRAC_1_SQRT_2;
-        assert!((g[0] - r).abs() < 1e-15 && (g[1] + r).abs() < 1e-15, "{g:?}");
+        assert!(
+            (g[0] - r).abs() < 1e-15 && (g[1] + r).abs() < 1e-15,
+            "{g:?}"
+        );
         // Inside: zero.
         assert_eq!(square.distance_gradient(5.0, 5.0), [0.0, 0.0]);
         // Straight below the bottom edge (y = 10): (0, 1).

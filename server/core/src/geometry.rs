@@ -509,7 +509,11 @@ pub fn segment_distance_squared(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> f64 {
 pub fn segment_distance_gradient(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> [f64; 2] {
     let unit = |ux: f64, uy: f64| {
         let d = ux.hypot(uy);
-        if d > 0.0 { [ux / d, uy / d] } else { [0.0, 0.0] }
+        if d > 0.0 {
+            [ux / d, uy / d]
+        } else {
+            [0.0, 0.0]
+        }
     };
     let (dx, dy) = (b[0] - a[0], b[1] - a[1]);
     let (wx, wy) = (p[0] - a[0], p[1] - a[1]);
