@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 
 import goalsmith
-from conftest import ROOT, png_gray
+from support import ROOT, png_gray
 
 sys.path.insert(0, str(ROOT / "tests" / "reference"))
 import gen_route_cost as ref  # noqa: E402  (numpy evaluation of the documented formulas)
@@ -335,3 +335,19 @@ def test_client_round_trip(server, team, goals, tmp_path):
     path.write_bytes(png_gray(W, H, pixels))
     frame = c.upload_frame(cam, path)
     assert frame["width"] == W and frame["height"] == H and len(frame["sha256"]) == 64
+
+
+def test_readme_example_runs(server, team, goals, tmp_path):
+    """The MPC example of server/py/README.md, run as written against the test server."""
+    editor = team[0]
+    goal_id = goals[0][1]
+    text = (ROOT / "server" / "py" / "README.md").read_text()
+    code = text.split("```python\n", 1)[1].split("```", 1)[0]
+    code = code.replace('"http://goals.lab.example:8080", token="…"',
+                        f'{server.base!r}, token={editor!r}, cache_dir={str(tmp_path)!r}')
+    code = code.replace('"6f1c…", revision=3', f"{goal_id!r}, revision=1")
+    assert "lab.example" not in code and "6f1c" not in code
+    scope: dict = {}
+    exec(compile(code, "README example", "exec"), scope)
+    assert scope["scored"].costs.shape == (512,)
+    assert scope["verdict"]["cost"] >= 0.0
