@@ -505,14 +505,7 @@ impl CostModel {
     /// `docs/conventions.md`), a subgradient. `None` when `p` is not a point index.
     pub fn distance_gradient(&self, p: usize, x: f64, y: f64) -> Option<[f64; 2]> {
         let point = self.points.get(p)?;
-        let unit = |ux: f64, uy: f64| {
-            let d = ux.hypot(uy);
-            if d > 0.0 {
-                [ux / d, uy / d]
-            } else {
-                [0.0, 0.0]
-            }
-        };
+        let unit = crate::geometry::unit_vector;
         Some(match &point.target {
             TargetShape::Point(t) => unit(x - t.x(), y - t.y()),
             TargetShape::Region(poly) => poly.distance_gradient(x, y),

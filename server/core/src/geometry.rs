@@ -507,23 +507,15 @@ pub fn segment_distance_squared(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> f64 {
 /// ∇ of the distance √[`segment_distance_squared`] from `p` to the segment `a`–`b`, case by case
 /// as that function measures it; (0, 0) where the distance is 0.
 pub fn segment_distance_gradient(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> [f64; 2] {
-    let unit = |ux: f64, uy: f64| {
-        let d = ux.hypot(uy);
-        if d > 0.0 {
-            [ux / d, uy / d]
-        } else {
-            [0.0, 0.0]
-        }
-    };
     let (dx, dy) = (b[0] - a[0], b[1] - a[1]);
     let (wx, wy) = (p[0] - a[0], p[1] - a[1]);
     let along = wx * dx + wy * dy;
     if along <= 0.0 {
-        return unit(wx, wy);
+        return unit_vector(wx, wy);
     }
     let len2 = dx * dx + dy * dy;
     if along >= len2 {
-        return unit(p[0] - b[0], p[1] - b[1]);
+        return unit_vector(p[0] - b[0], p[1] - b[1]);
     }
     let cross = wx * dy - wy * dx;
     if cross == 0.0 {
@@ -532,6 +524,17 @@ pub fn segment_distance_gradient(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> [f64;
     let len = len2.sqrt();
     let s = cross.signum();
     [s * dy / len, -s * dx / len]
+}
+
+/// (ux, uy) scaled to unit length; (0, 0) for the zero vector: the gradient of the distance
+/// from a fixed point, at the offset (ux, uy) from it.
+pub fn unit_vector(ux: f64, uy: f64) -> [f64; 2] {
+    let d = ux.hypot(uy);
+    if d > 0.0 {
+        [ux / d, uy / d]
+    } else {
+        [0.0, 0.0]
+    }
 }
 
 /// Exact sign of the cross product (b − a) × (c − a) = (bx − ax)(cy − ay) − (by − ay)(cx − ax).
