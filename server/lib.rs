@@ -14,7 +14,6 @@ pub mod demo;
 pub mod demo_archive;
 pub mod draw;
 pub mod fuzzing;
-pub mod images;
 mod layers;
 pub mod pages;
 pub mod scoring;
@@ -23,22 +22,8 @@ pub mod service;
 pub mod store;
 pub mod strict_json;
 
-/// The caution carried by the README, every export and the editor.
-pub const SAFETY_CAUTION: &str = "Goals move real robots. Check every new goal in simulation or at \
-reduced speed first, keep an emergency stop within reach, respect the cell's safeguarding, and \
-follow ISO 10218, ISO/TS 15066, local rules and licensed practice. goalsmith defers to the robot's \
-safety-rated controller; it is not a safety function.";
-
-#[cfg(test)]
-mod tests {
-    /// The caution travels as an HTTP header value and a PNG tEXt chunk (Latin-1): it must stay
-    /// printable ASCII.
-    #[test]
-    fn caution_is_printable_ascii() {
-        assert!(
-            super::SAFETY_CAUTION
-                .bytes()
-                .all(|b| (0x20..0x7f).contains(&b))
-        );
-    }
-}
+/// The caution carried by the README, every export and the editor (kept with the bundle
+/// format, which carries it too).
+pub use goalsmith_bundle::SAFETY_CAUTION;
+/// Image decoding under limits (in the bundle crate, which decodes the masks of a revision).
+pub use goalsmith_bundle::images;

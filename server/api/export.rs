@@ -163,7 +163,7 @@ pub async fn cost(
         // gets the error body rather than a reset connection halfway through its upload.
         drain(&mut body).await;
     }
-    result.map(|r| Json(scoring::cost_response(&r)))
+    result.map(|r| Json(scoring::cost_response(&r.into())))
 }
 
 /// Reads a JSON cost body of at most `max` bytes, refusing (413) as soon as it is known to be

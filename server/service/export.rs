@@ -342,7 +342,7 @@ pub async fn score_buffered(
     content_type: String,
     body: impl AsRef<[u8]> + Send + 'static,
     max: usize,
-) -> ServiceResult<goalsmith_core::cost::CostResult> {
+) -> ServiceResult<scoring::Scored> {
     Ok(tokio::task::spawn_blocking(move || {
         scoring::evaluate(&checked.1, &content_type, body.as_ref(), max)
     })
@@ -611,7 +611,9 @@ pub async fn score_npy<B: ChunkSource>(
             Some(chunk) => head.extend_from_slice(&chunk),
             None => {
                 // The whole body was shorter than its header: let the buffered path say why.
-                return score_buffered(checked, content_type, head, max).await;
+                return score_buffered(checked, content_type, head, max)
+                    .await
+                    .map(|s| s.result);
             }
         }
     };
@@ -671,7 +673,9 @@ pub async fn score_npy<B: ChunkSource>(
             }
             head.extend_from_slice(&chunk);
         }
-        return score_buffered(checked, content_type, head, max).await;
+        return score_buffered(checked, content_type, head, max)
+            .await
+            .map(|s| s.result);
     };
     check_map_values(&state.limits, p, w, h, None)?;
     let prepared = prepared_maps(state, &checked, w, h).await?;

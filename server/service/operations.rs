@@ -206,12 +206,23 @@ pub fn start(state: AppState, workers: usize) {
 async fn run_one(state: &AppState, worker: &str, op: OperationRow) {
     let progress = Progress::default();
     progress.set(op.progress);
-    let work = run_kind(state, &op, progress.clone());
-    tokio::pin!(work);
+    // The work runs as a task of its own, so it keeps going while a heartbeat waits. Polled
+    // from this loop instead, it stood still whenever a heartbeat waited for SQLite's write
+    // lock, and the lock could be held by the work itself (a transaction writing its result
+    // across awaits): each heartbeat then waited out the busy timeout, the work moved one
+    // statement on, and the next tick began again, so a finished tracking took hours to write.
+    let mut work = {
+        let (state, op, progress) = (state.clone(), op.clone(), progress.clone());
+        tokio::spawn(async move { run_kind(&state, &op, progress).await })
+    };
     let mut beat = tokio::time::interval(HEARTBEAT);
+    // After a slow heartbeat, the next one waits a full period rather than firing at once.
+    beat.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Delay);
     let ended = loop {
         tokio::select! {
-            r = &mut work => break Some(r),
+            r = &mut work => break Some(r.unwrap_or_else(|e| {
+                Err(RunError::Failed(format!("the operation stopped unexpectedly: {e}")))
+            })),
             _ = beat.tick() => match ops::heartbeat(
                 &state.store,
                 &op.id,
@@ -226,6 +237,7 @@ async fn run_one(state: &AppState, worker: &str, op: OperationRow) {
                 // Given up as stale and perhaps claimed elsewhere: stop and record nothing.
                 Ok(None) => {
                     progress.halt();
+                    work.abort();
                     break None;
                 }
                 Err(e) => tracing::warn!(error = %e, operation = %op.id, "heartbeat failed"),

@@ -490,6 +490,38 @@ async fn route_and_cli_match_numpy(s: Server) {
         let (st, route) = s.post(&format!("{base}/cost"), Some(&editor), &pts).await;
         assert_eq!(st, StatusCode::OK, "{name}: {route}");
         assert_costs_close(&format!("{name}: route (numpy reference)"), &route, want);
+        // With "grad": true the same costs, bit for bit, and ∂C/∂x shaped like the points
+        // (its values are checked against differences of the numpy evaluation in the Python
+        // package's tests); a grad that is not a boolean is refused, naming the field.
+        let with_grad = json!({"points": want["points"], "grad": true});
+        let (st, graded) = s
+            .post(&format!("{base}/cost"), Some(&editor), &with_grad)
+            .await;
+        assert_eq!(st, StatusCode::OK, "{name}: {graded}");
+        assert_eq!(graded["costs"], route["costs"], "{name}");
+        assert_eq!(graded["per_point"], route["per_point"], "{name}");
+        assert!(route.get("grad").is_none(), "{name}: grad only when asked");
+        let g = graded["grad"].as_array().expect("grad");
+        assert_eq!(g.len(), want["points"].as_array().unwrap().len());
+        assert_eq!(
+            g[0].as_array().unwrap().len(),
+            want["points"][0].as_array().unwrap().len()
+        );
+        assert_eq!(g[0][0].as_array().unwrap().len(), p);
+        let hit = want["cost"]["mode"] == "hit";
+        let nonzero = graded["grad"]
+            .to_string()
+            .split(|c: char| !(c.is_ascii_digit() || c == '.' || c == '-' || c == 'e'))
+            .filter(|t| !t.is_empty())
+            .any(|t| t.parse::<f64>().is_ok_and(|v| v != 0.0));
+        assert_eq!(
+            nonzero, !hit,
+            "{name}: hit mode has zero gradient, the others not"
+        );
+        let bad = json!({"points": want["points"], "grad": "yes"});
+        let (st, err) = s.post(&format!("{base}/cost"), Some(&editor), &bad).await;
+        assert_eq!(st, StatusCode::UNPROCESSABLE_ENTITY, "{err}");
+        assert_eq!(err["error"]["field"], "grad", "{err}");
 
         let (st, bundle) = get_bytes(&s, &format!("{base}/bundle.zip"), &editor).await;
         assert_eq!(st, StatusCode::OK);

@@ -175,6 +175,24 @@ impl Metric {
     }
 }
 
+impl Metric {
+    /// m′(d) for a distance d ≥ 0: 1 for `euclidean`, 2d for `squared`, d up to δ and δ beyond
+    /// for `huber` (continuous at δ, so Huber's m is differentiable everywhere).
+    pub fn derivative(&self, d: f64) -> f64 {
+        match *self {
+            Metric::Euclidean => 1.0,
+            Metric::Squared => 2.0 * d,
+            Metric::Huber { delta_px } => {
+                if d <= delta_px {
+                    d
+                } else {
+                    delta_px
+                }
+            }
+        }
+    }
+}
+
 /// Which predicted steps count.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Steps {
@@ -479,6 +497,26 @@ impl CostModel {
         })
     }
 
+    /// ∇d_p at frame position (x, y): the unit vector from the nearest target point (the target
+    /// point, the nearest point of the region's boundary, the nearest painted pixel centre)
+    /// towards (x, y); (0, 0) at the target point, inside the region or on a painted pixel
+    /// centre, and for `learned` terms (their cost is constant on each grid cell). Where the
+    /// nearest point is not unique, the first found is used (documented per shape in
+    /// `docs/conventions.md`), a subgradient. `None` when `p` is not a point index.
+    pub fn distance_gradient(&self, p: usize, x: f64, y: f64) -> Option<[f64; 2]> {
+        let point = self.points.get(p)?;
+        let unit = crate::geometry::unit_vector;
+        Some(match &point.target {
+            TargetShape::Point(t) => unit(x - t.x(), y - t.y()),
+            TargetShape::Region(poly) => poly.distance_gradient(x, y),
+            TargetShape::Mask(_) => match self.mask_index[p].as_ref()?.nearest(x, y) {
+                Some((i, j)) => unit(x - i, y - j),
+                None => [0.0, 0.0],
+            },
+            TargetShape::Reward(_) => [0.0, 0.0],
+        })
+    }
+
     /// Frame coordinates of the pixel centres of a (h, w) map: (xs of length w, ys of length h),
     /// x_i = (i + 0.5)·W/w − 0.5, y_j = (j + 0.5)·H/h − 0.5 (exactly i, j at the frame size).
     pub fn map_coordinates(&self, width: usize, height: usize) -> (Vec<f64>, Vec<f64>) {
@@ -705,6 +743,55 @@ impl CostModel {
                 .for_each(score);
         }
         finish(per, np)
+    }
+
+    /// [`Self::evaluate_points`] and the exact gradient of each candidate's cost C_n with respect
+    /// to its predicted points, shaped as `points` (N, T, P, 2):
+    /// ∂C_n/∂x_{n,t,p} = w_p · m′(d_p(x)) · ∇d_p(x) for each counted step (`final`: T − 1 only,
+    /// zero elsewhere) in `expected` mode, see [`Self::distance_gradient`]. In `hit` mode the
+    /// cost is constant except where d_p = tol_p, so the gradient is zero (and zero is taken on
+    /// that boundary too). The costs are those of [`Self::evaluate_points`] bit for bit.
+    pub fn evaluate_points_grad(
+        &self,
+        points: &[f64],
+        n: usize,
+        t: usize,
+    ) -> Result<(CostResult, Vec<f64>), CostError> {
+        let result = self.evaluate_points(points, n, t)?;
+        let np = self.len();
+        let mut grad = vec![0.0f64; points.len()];
+        if self.settings.mode == Mode::Hit {
+            return Ok((result, grad));
+        }
+        let steps = step_range(self.settings.steps, t);
+        let stride = t * np * 2;
+        let metric = self.settings.metric;
+        let fill = |(cand, out): (&[f64], &mut [f64])| {
+            for s in steps.clone() {
+                let at = s * np * 2;
+                for (p, point) in self.points.iter().enumerate() {
+                    let (x, y) = (cand[at + 2 * p], cand[at + 2 * p + 1]);
+                    let d = self.distance(p, x, y).unwrap_or(f64::INFINITY);
+                    let g = self.distance_gradient(p, x, y).unwrap_or([0.0, 0.0]);
+                    let k = point.weight * metric.derivative(d);
+                    out[at + 2 * p] = k * g[0];
+                    out[at + 2 * p + 1] = k * g[1];
+                }
+            }
+        };
+        if n * steps.len() * np >= 4096 {
+            points
+                .par_chunks_exact(stride)
+                .zip(grad.par_chunks_exact_mut(stride))
+                .with_min_len(64)
+                .for_each(fill);
+        } else {
+            points
+                .chunks_exact(stride)
+                .zip(grad.chunks_exact_mut(stride))
+                .for_each(fill);
+        }
+        Ok((result, grad))
     }
 
     fn check_map_size(&self, width: usize, height: usize) -> Result<usize, CostError> {
@@ -1403,6 +1490,22 @@ impl MaskIndex {
     }
 
     fn distance(&self, x: f64, y: f64) -> f64 {
+        self.search::<false>(x, y).0.sqrt()
+    }
+
+    /// The painted pixel centre (i, j) nearest to (x, y), the first found in the search's order
+    /// where several are equally near (the columns next to x, left to right, then those further
+    /// left, then those further right; in a column the row above on a tie). `None` for a
+    /// non-finite query.
+    fn nearest(&self, x: f64, y: f64) -> Option<(f64, f64)> {
+        let (d2, i, j) = self.search::<true>(x, y);
+        d2.is_finite().then_some((i as f64, f64::from(j)))
+    }
+
+    /// The least squared distance, and with `ARG` the column and row where it is reached (with
+    /// `ARG` false the compiler drops the bookkeeping, so [`Self::distance`] pays nothing).
+    #[inline(always)]
+    fn search<const ARG: bool>(&self, x: f64, y: f64) -> (f64, usize, f32) {
         let (w, h) = (self.width, self.height);
         let (c0, c1) = (self.first_col, self.last_col);
         let last_row = (h - 1) as f64;
@@ -1411,17 +1514,21 @@ impl MaskIndex {
         let jc = y.ceil().clamp(0.0, last_row) as usize;
         let up = &self.up[jf * w..(jf + 1) * w];
         let down = &self.down[jc * w..(jc + 1) * w];
-        let d2_range = |lo: usize, hi: usize| -> f64 {
+        let d2_range = |lo: usize, hi: usize| -> (f64, usize, f32) {
             let mut best = f64::INFINITY;
+            let mut arg = (lo, f32::NAN);
             for i in lo..=hi {
                 let a = (y - f64::from(up[i])).abs();
                 let b = (f64::from(down[i]) - y).abs();
                 let dy = if a < b { a } else { b };
                 let dx = x - i as f64;
                 let d2 = dx * dx + dy * dy;
+                if ARG && d2 < best {
+                    arg = (i, if a <= b { up[i] } else { down[i] });
+                }
                 best = if d2 < best { d2 } else { best };
             }
-            best
+            (best, arg.0, arg.1)
         };
         // Start next to x, within the columns that hold painted pixels at all.
         let i0 = x.round().clamp(c0 as f64, c1 as f64) as usize;
@@ -1429,7 +1536,7 @@ impl MaskIndex {
         let (wlo, whi) = (i0.saturating_sub(WINDOW).max(c0), (i0 + WINDOW).min(c1));
         let mut best = d2_range(wlo, whi);
         // Columns farther than sqrt(best) from x cannot do better.
-        let r = best.sqrt();
+        let r = best.0.sqrt();
         let (lo, hi) = if r.is_finite() {
             (
                 (x - r).ceil().max(c0 as f64),
@@ -1438,16 +1545,23 @@ impl MaskIndex {
         } else {
             (c0 as f64, c1 as f64)
         };
+        let better = |best: (f64, usize, f32), other: (f64, usize, f32)| {
+            if ARG {
+                if other.0 < best.0 { other } else { best }
+            } else {
+                (best.0.min(other.0), 0, 0.0)
+            }
+        };
         if lo <= hi {
             let (lo, hi) = (lo as usize, hi as usize);
             if lo < wlo {
-                best = best.min(d2_range(lo, wlo - 1));
+                best = better(best, d2_range(lo, wlo - 1));
             }
             if hi > whi {
-                best = best.min(d2_range(whi + 1, hi));
+                best = better(best, d2_range(whi + 1, hi));
             }
         }
-        best.sqrt()
+        best
     }
 }
 
@@ -2227,5 +2341,125 @@ mod tests {
             .evaluate_maps(MapBatch::F32(&maps), 300, 2, 16, 16)
             .unwrap();
         assert_eq!(a, b);
+    }
+
+    /// Central finite differences of C_n in one coordinate of one predicted point.
+    fn central_difference(model: &CostModel, pts: &[f64], t: usize, k: usize, h: f64) -> f64 {
+        let n = pts.len() / (t * model.len() * 2);
+        let mut plus = pts.to_vec();
+        let mut minus = pts.to_vec();
+        plus[k] += h;
+        minus[k] -= h;
+        let cand = k / (t * model.len() * 2);
+        let a = model.evaluate_points(&plus, n, t).unwrap().costs[cand];
+        let b = model.evaluate_points(&minus, n, t).unwrap().costs[cand];
+        (a - b) / (2.0 * h)
+    }
+
+    /// The analytic gradient against central differences of the cost itself, for every kind
+    /// of target and metric, at points away from the non-smooth places (target points, region
+    /// boundaries and medial axes, mask ties): a fixed grid of queries offset by irrational-ish
+    /// fractions, keeping those whose neighbourhood is smooth (the differences at ±h and ±h/2
+    /// agree).
+    #[test]
+    fn gradients_match_central_differences() {
+        for metric in [
+            Metric::Euclidean,
+            Metric::Squared,
+            Metric::Huber { delta_px: 2.5 },
+        ] {
+            for steps in [Steps::Final, Steps::All] {
+                let settings = CostSettings::new(metric, steps, Mode::Expected).unwrap();
+                let model = CostModel::new(30, 20, mixed_points(), settings).unwrap();
+                let t = 2;
+                let mut pts = vec![];
+                for q in 0..24 {
+                    for k in 0..t * 4 {
+                        let f = (q * 8 + k) as f64;
+                        pts.push(-4.0 + (f * 0.618_034 * 37.0) % 38.0);
+                        pts.push(-4.0 + (f * 0.414_214 * 29.0) % 28.0);
+                    }
+                }
+                let n = 24;
+                let (res, grad) = model.evaluate_points_grad(&pts, n, t).unwrap();
+                assert_eq!(res, model.evaluate_points(&pts, n, t).unwrap());
+                let mut checked = 0;
+                for (k, &gk) in grad.iter().enumerate() {
+                    let h = 1e-5;
+                    let fd = central_difference(&model, &pts, t, k, h);
+                    let fd_half = central_difference(&model, &pts, t, k, h / 2.0);
+                    if (fd - fd_half).abs() > 1e-7 * (1.0 + fd.abs()) {
+                        continue; // a kink within h: no derivative to compare with
+                    }
+                    checked += 1;
+                    assert!(
+                        (gk - fd).abs() <= 1e-6 * (1.0 + fd.abs()),
+                        "{metric:?} {steps:?} coordinate {k}: analytic {gk} vs differences {fd}"
+                    );
+                }
+                assert!(
+                    checked > pts.len() * 3 / 4,
+                    "only {checked} smooth coordinates"
+                );
+                if steps == Steps::Final {
+                    let stride = t * 4 * 2;
+                    for c in 0..n {
+                        assert!(grad[c * stride..c * stride + 8].iter().all(|&g| g == 0.0));
+                    }
+                }
+            }
+        }
+    }
+
+    /// Zero gradient on a target: at the target point, inside the region, on a painted pixel;
+    /// zero everywhere in `hit` mode; unit length for `euclidean` off the targets.
+    #[test]
+    fn gradients_are_zero_on_targets_and_in_hit_mode() {
+        let model = mixed_model(Steps::Final, Mode::Expected);
+        let mask = match &model.points()[2].target {
+            TargetShape::Mask(m) => m.clone(),
+            _ => unreachable!(),
+        };
+        let k = mask.data().iter().position(|&b| b).unwrap();
+        let (mx, my) = ((k % 30) as f64, (k / 30) as f64);
+        let on = [3.0, 4.0, 8.0, 7.5, mx, my, 25.5, 15.25];
+        let (_, g) = model.evaluate_points_grad(&on, 1, 1).unwrap();
+        assert!(g.iter().all(|&v| v == 0.0), "{g:?}");
+        let off = [13.0, 14.0, 40.0, 30.0, -7.0, 33.0, 0.0, 0.0];
+        let (_, g) = model.evaluate_points_grad(&off, 1, 1).unwrap();
+        let weights = [1.0, 0.5, 2.0, 0.25];
+        for p in 0..4 {
+            let len = g[2 * p].hypot(g[2 * p + 1]);
+            assert!((len - weights[p]).abs() < 1e-12, "point {p}: {len}");
+        }
+        let hit = mixed_model(Steps::All, Mode::Hit);
+        let (_, g) = hit.evaluate_points_grad(&off, 1, 1).unwrap();
+        assert!(g.iter().all(|&v| v == 0.0));
+    }
+
+    /// Where two region edges are equally near, the first edge in vertex order gives the
+    /// gradient (the documented subgradient): on the diagonal outside a corner of the square
+    /// the vertex is nearest either way, and below the square's middle the bottom edge is.
+    #[test]
+    fn gradient_ties_take_the_first_nearest() {
+        let square = Polygon::new(vec![
+            pt(0.0, 0.0),
+            pt(10.0, 0.0),
+            pt(10.0, 10.0),
+            pt(0.0, 10.0),
+        ])
+        .unwrap();
+        // Corner (10, 0): the nearest boundary point is the vertex; the unit vector points
+        // from it diagonally out.
+        let g = square.distance_gradient(13.0, -3.0);
+        let r = std::f64::consts::FRAC_1_SQRT_2;
+        assert!(
+            (g[0] - r).abs() < 1e-15 && (g[1] + r).abs() < 1e-15,
+            "{g:?}"
+        );
+        // Inside: zero.
+        assert_eq!(square.distance_gradient(5.0, 5.0), [0.0, 0.0]);
+        // Straight below the bottom edge (y = 10): (0, 1).
+        assert_eq!(square.distance_gradient(5.0, 14.0), [0.0, 1.0]);
     }
 }

@@ -217,6 +217,32 @@ impl Polygon {
             .fold(f64::INFINITY, f64::min)
             .sqrt()
     }
+    /// The gradient ∇d of [`Polygon::distance`] at `(x, y)`: (0, 0) inside or on an edge, else
+    /// the unit vector from the nearest boundary point towards `(x, y)`. Computed per case of
+    /// [`segment_distance_squared`]: from a vertex, (p − a)/|p − a|; from the inside of an edge,
+    /// sign(w × d)·(d_y, −d_x)/|d|, the derivative of |w × d|/|d|. Where several edges are
+    /// equally near (a point on the medial axis, where d has no derivative), the first of them
+    /// in vertex order is taken: a subgradient, one of the one-sided derivatives.
+    /// (0, 0) for a non-finite coordinate.
+    pub fn distance_gradient(&self, x: f64, y: f64) -> [f64; 2] {
+        if !(x.is_finite() && y.is_finite()) || self.contains(x, y) {
+            return [0.0, 0.0];
+        }
+        let p = [x, y];
+        let mut best = f64::INFINITY;
+        let mut nearest = None;
+        for (a, b) in self.edges() {
+            let d2 = segment_distance_squared(p, a, b);
+            if d2 < best {
+                best = d2;
+                nearest = Some((a, b));
+            }
+        }
+        match nearest {
+            Some((a, b)) => segment_distance_gradient(p, a, b),
+            None => [0.0, 0.0],
+        }
+    }
     /// [`Polygon::distance`] at every point of the Cartesian grid `xs × ys`, row-major
     /// `(ys.len(), xs.len())`: entry `[j * xs.len() + i]` is the distance at `(xs[i], ys[j])`.
     /// Rows are computed in parallel (rayon).
@@ -476,6 +502,39 @@ pub fn segment_distance_squared(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> f64 {
     // Perpendicular foot inside the segment: |w × d|² / |d|².
     let cross = wx * dy - wy * dx;
     cross * cross / len2
+}
+
+/// ∇ of the distance √[`segment_distance_squared`] from `p` to the segment `a`–`b`, case by case
+/// as that function measures it; (0, 0) where the distance is 0.
+pub fn segment_distance_gradient(p: [f64; 2], a: [f64; 2], b: [f64; 2]) -> [f64; 2] {
+    let (dx, dy) = (b[0] - a[0], b[1] - a[1]);
+    let (wx, wy) = (p[0] - a[0], p[1] - a[1]);
+    let along = wx * dx + wy * dy;
+    if along <= 0.0 {
+        return unit_vector(wx, wy);
+    }
+    let len2 = dx * dx + dy * dy;
+    if along >= len2 {
+        return unit_vector(p[0] - b[0], p[1] - b[1]);
+    }
+    let cross = wx * dy - wy * dx;
+    if cross == 0.0 {
+        return [0.0, 0.0];
+    }
+    let len = len2.sqrt();
+    let s = cross.signum();
+    [s * dy / len, -s * dx / len]
+}
+
+/// (ux, uy) scaled to unit length; (0, 0) for the zero vector: the gradient of the distance
+/// from a fixed point, at the offset (ux, uy) from it.
+pub fn unit_vector(ux: f64, uy: f64) -> [f64; 2] {
+    let d = ux.hypot(uy);
+    if d > 0.0 {
+        [ux / d, uy / d]
+    } else {
+        [0.0, 0.0]
+    }
 }
 
 /// Exact sign of the cross product (b − a) × (c − a) = (bx − ax)(cy − ay) − (by − ay)(cx − ax).
