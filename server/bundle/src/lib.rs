@@ -501,11 +501,6 @@ pub fn read_bundle(bytes: &[u8]) -> Result<ReadBundle, ScoreError> {
             )));
         }
     }
-    if let Some(extra) = files.keys().find(|n| !listed.contains_key(*n)) {
-        return Err(bad_bundle(format!(
-            "{extra} is in the bundle but not listed in manifest.json"
-        )));
-    }
     let mut read = |name: &str| -> Result<Vec<u8>, ScoreError> {
         files
             .get(name)
@@ -544,6 +539,13 @@ pub fn read_bundle(bytes: &[u8]) -> Result<ReadBundle, ScoreError> {
             }
         };
         reward_grids.insert(raw.to_string(), grid);
+    }
+    // Last, so that a reward fit's file the manifest leaves out is named by the more telling
+    // message of `read_reward_fit` (format 1 bundles carried no fits).
+    if let Some(extra) = files.keys().find(|n| !listed.contains_key(*n)) {
+        return Err(bad_bundle(format!(
+            "{extra} is in the bundle but not listed in manifest.json"
+        )));
     }
     Ok(ReadBundle {
         goal,
