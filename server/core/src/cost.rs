@@ -497,23 +497,27 @@ impl CostModel {
         })
     }
 
-    /// ∇d_p at frame position (x, y): the unit vector from the nearest target point (the target
-    /// point, the nearest point of the region's boundary, the nearest painted pixel centre)
-    /// towards (x, y); (0, 0) at the target point, inside the region or on a painted pixel
-    /// centre, and for `learned` terms (their cost is constant on each grid cell). Where the
-    /// nearest point is not unique, the first found is used (documented per shape in
-    /// `docs/conventions.md`), a subgradient. `None` when `p` is not a point index.
-    pub fn distance_gradient(&self, p: usize, x: f64, y: f64) -> Option<[f64; 2]> {
+    /// d_p at (x, y), the value [`Self::distance`] gives, with its gradient ∇d_p from the same
+    /// search: the unit vector from the nearest target point (the target point, the nearest
+    /// point of the region's boundary, the nearest painted pixel centre) towards (x, y); (0, 0)
+    /// at the target point, inside the region or on a painted pixel centre, and for `learned`
+    /// terms (their cost is constant on each grid cell). Where the nearest point is not unique,
+    /// the first found is used (documented per shape in `docs/conventions.md`), a subgradient.
+    /// `None` when `p` is not a point index.
+    pub fn distance_and_gradient(&self, p: usize, x: f64, y: f64) -> Option<(f64, [f64; 2])> {
         let point = self.points.get(p)?;
         let unit = crate::geometry::unit_vector;
         Some(match &point.target {
-            TargetShape::Point(t) => unit(x - t.x(), y - t.y()),
-            TargetShape::Region(poly) => poly.distance_gradient(x, y),
-            TargetShape::Mask(_) => match self.mask_index[p].as_ref()?.nearest(x, y) {
-                Some((i, j)) => unit(x - i, y - j),
-                None => [0.0, 0.0],
-            },
-            TargetShape::Reward(_) => [0.0, 0.0],
+            TargetShape::Point(t) => (t.distance_to(x, y), unit(x - t.x(), y - t.y())),
+            TargetShape::Region(poly) => poly.distance_and_gradient(x, y),
+            TargetShape::Mask(_) => {
+                let index = self.mask_index[p].as_ref()?;
+                match index.nearest(x, y) {
+                    Some((d, i, j)) => (d, unit(x - i, y - j)),
+                    None => (index.distance(x, y), [0.0, 0.0]),
+                }
+            }
+            TargetShape::Reward(g) => (g.cost_at(x, y), [0.0, 0.0]),
         })
     }
 
@@ -748,7 +752,7 @@ impl CostModel {
     /// [`Self::evaluate_points`] and the exact gradient of each candidate's cost C_n with respect
     /// to its predicted points, shaped as `points` (N, T, P, 2):
     /// ∂C_n/∂x_{n,t,p} = w_p · m′(d_p(x)) · ∇d_p(x) for each counted step (`final`: T − 1 only,
-    /// zero elsewhere) in `expected` mode, see [`Self::distance_gradient`]. In `hit` mode the
+    /// zero elsewhere) in `expected` mode, see [`Self::distance_and_gradient`]. In `hit` mode the
     /// cost is constant except where d_p = tol_p, so the gradient is zero (and zero is taken on
     /// that boundary too). The costs are those of [`Self::evaluate_points`] bit for bit.
     pub fn evaluate_points_grad(
@@ -771,8 +775,9 @@ impl CostModel {
                 let at = s * np * 2;
                 for (p, point) in self.points.iter().enumerate() {
                     let (x, y) = (cand[at + 2 * p], cand[at + 2 * p + 1]);
-                    let d = self.distance(p, x, y).unwrap_or(f64::INFINITY);
-                    let g = self.distance_gradient(p, x, y).unwrap_or([0.0, 0.0]);
+                    let (d, g) = self
+                        .distance_and_gradient(p, x, y)
+                        .unwrap_or((f64::INFINITY, [0.0, 0.0]));
                     let k = point.weight * metric.derivative(d);
                     out[at + 2 * p] = k * g[0];
                     out[at + 2 * p + 1] = k * g[1];
@@ -1493,13 +1498,14 @@ impl MaskIndex {
         self.search::<false>(x, y).0.sqrt()
     }
 
-    /// The painted pixel centre (i, j) nearest to (x, y), the first found in the search's order
+    /// The distance to the painted pixel centre (i, j) nearest to (x, y), and (i, j), the first found in the search's order
     /// where several are equally near (the columns next to x, left to right, then those further
     /// left, then those further right; in a column the row above on a tie). `None` for a
     /// non-finite query.
-    fn nearest(&self, x: f64, y: f64) -> Option<(f64, f64)> {
+    fn nearest(&self, x: f64, y: f64) -> Option<(f64, f64, f64)> {
         let (d2, i, j) = self.search::<true>(x, y);
-        d2.is_finite().then_some((i as f64, f64::from(j)))
+        d2.is_finite()
+            .then_some((d2.sqrt(), i as f64, f64::from(j)))
     }
 
     /// The least squared distance, and with `ARG` the column and row where it is reached (with
@@ -2451,15 +2457,15 @@ mod tests {
         .unwrap();
         // Corner (10, 0): the nearest boundary point is the vertex; the unit vector points
         // from it diagonally out.
-        let g = square.distance_gradient(13.0, -3.0);
+        let g = square.distance_and_gradient(13.0, -3.0).1;
         let r = std::f64::consts::FRAC_1_SQRT_2;
         assert!(
             (g[0] - r).abs() < 1e-15 && (g[1] + r).abs() < 1e-15,
             "{g:?}"
         );
         // Inside: zero.
-        assert_eq!(square.distance_gradient(5.0, 5.0), [0.0, 0.0]);
+        assert_eq!(square.distance_and_gradient(5.0, 5.0).1, [0.0, 0.0]);
         // Straight below the bottom edge (y = 10): (0, 1).
-        assert_eq!(square.distance_gradient(5.0, 14.0), [0.0, 1.0]);
+        assert_eq!(square.distance_and_gradient(5.0, 14.0).1, [0.0, 1.0]);
     }
 }

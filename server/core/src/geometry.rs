@@ -217,16 +217,20 @@ impl Polygon {
             .fold(f64::INFINITY, f64::min)
             .sqrt()
     }
-    /// The gradient ∇d of [`Polygon::distance`] at `(x, y)`: (0, 0) inside or on an edge, else
-    /// the unit vector from the nearest boundary point towards `(x, y)`. Computed per case of
-    /// [`segment_distance_squared`]: from a vertex, (p − a)/|p − a|; from the inside of an edge,
-    /// sign(w × d)·(d_y, −d_x)/|d|, the derivative of |w × d|/|d|. Where several edges are
-    /// equally near (a point on the medial axis, where d has no derivative), the first of them
-    /// in vertex order is taken: a subgradient, one of the one-sided derivatives.
-    /// (0, 0) for a non-finite coordinate.
-    pub fn distance_gradient(&self, x: f64, y: f64) -> [f64; 2] {
-        if !(x.is_finite() && y.is_finite()) || self.contains(x, y) {
-            return [0.0, 0.0];
+    /// [`Polygon::distance`] at `(x, y)` (the same value) and its gradient ∇d from the same
+    /// search: (0, 0) inside or on an edge, else the unit vector from the nearest boundary point
+    /// towards `(x, y)`, computed per case of [`segment_distance_squared`]: from a vertex,
+    /// (p − a)/|p − a|; from the inside of an edge, sign(w × d)·(d_y, −d_x)/|d|, the derivative
+    /// of |w × d|/|d|. Where several edges are equally near (a point on the medial axis, where d
+    /// has no derivative), the first of them in vertex order is taken: a subgradient, one of the
+    /// one-sided derivatives. For a non-finite coordinate the distance of [`Polygon::distance`]
+    /// and a zero gradient.
+    pub fn distance_and_gradient(&self, x: f64, y: f64) -> (f64, [f64; 2]) {
+        if !(x.is_finite() && y.is_finite()) {
+            return (self.distance(x, y), [0.0, 0.0]);
+        }
+        if self.contains(x, y) {
+            return (0.0, [0.0, 0.0]);
         }
         let p = [x, y];
         let mut best = f64::INFINITY;
@@ -238,10 +242,11 @@ impl Polygon {
                 nearest = Some((a, b));
             }
         }
-        match nearest {
+        let grad = match nearest {
             Some((a, b)) => segment_distance_gradient(p, a, b),
             None => [0.0, 0.0],
-        }
+        };
+        (best.sqrt(), grad)
     }
     /// [`Polygon::distance`] at every point of the Cartesian grid `xs × ys`, row-major
     /// `(ys.len(), xs.len())`: entry `[j * xs.len() + i]` is the distance at `(xs[i], ys[j])`.

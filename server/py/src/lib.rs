@@ -170,9 +170,8 @@ impl NativeBundle {
     /// Reads and verifies a bundle's bytes and builds its cost model.
     #[new]
     fn new(py: Python<'_>, data: &[u8]) -> PyResult<Self> {
-        let data = data.to_vec();
-        py.detach(move || {
-            let read = goalsmith_bundle::read_bundle(&data).map_err(bundle_error)?;
+        py.detach(|| {
+            let read = goalsmith_bundle::read_bundle(data).map_err(bundle_error)?;
             let spec = read.spec().map_err(bundle_error)?;
             let model = goalsmith_bundle::model(&spec).map_err(bundle_error)?;
             Ok(NativeBundle {
