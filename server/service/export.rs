@@ -16,7 +16,6 @@ use goalsmith_core::goal::GoalSpec;
 use goalsmith_core::npy;
 use serde_json::Value;
 use sha2::{Digest, Sha256};
-use std::sync::atomic::{AtomicBool, Ordering};
 
 impl From<ScoreError> for ServiceError {
     fn from(e: ScoreError) -> Self {
@@ -160,11 +159,9 @@ impl Loaded {
 
     /// The full-size cost maps as NPY (CPU work: call it off the async workers), given up
     /// when `stop` is set (see [`super::heavy::Cancel`]).
-    pub fn full_size_maps(&self, stop: &AtomicBool) -> Result<Vec<u8>, ScoreError> {
+    pub fn full_size_maps(&self, stop: &super::heavy::Stop) -> Result<Vec<u8>, ScoreError> {
         let (w, h) = self.spec().frame_size();
-        scoring::cost_maps_npy_until(self.model(), w as usize, h as usize, &|| {
-            stop.load(Ordering::Relaxed)
-        })
+        scoring::cost_maps_npy_until(self.model(), w as usize, h as usize, &|| stop.is_set())
     }
 
     /// Refuses (422 `map_too_large`) a bundle whose full-size maps are over the limit, before
@@ -296,7 +293,7 @@ pub async fn load_row(
                 let reward_grid = |id: &str| grids.get(id).cloned();
                 let built =
                     scoring::spec_from_revision(&doc2, w, h, &reward_grid).and_then(|spec| {
-                        let model = scoring::model_until(&spec, &|| stop.load(Ordering::Relaxed))?;
+                        let model = scoring::model_until(&spec, &|| stop.is_set())?;
                         Ok(model.map(|m| std::sync::Arc::new((spec, m))))
                     });
                 (built, permit)
@@ -418,12 +415,11 @@ pub async fn prepared_maps(
     // Part of the handler's future: a client that hangs up drops it and the build stops.
     let cancel = Cancel::new();
     let stop = cancel.flag();
-    let (built, done) = tokio::task::spawn_blocking(move || {
-        c.1.prepare_maps_until(w, h, &|| stop.load(Ordering::Relaxed))
-    })
-    .await
-    .map_err(|e| ServiceError::Internal(e.to_string()))?
-    .map_err(|e| ServiceError::from(ScoreError::from_cost(e)))?;
+    let (built, done) =
+        tokio::task::spawn_blocking(move || c.1.prepare_maps_until(w, h, &|| stop.is_set()))
+            .await
+            .map_err(|e| ServiceError::Internal(e.to_string()))?
+            .map_err(|e| ServiceError::from(ScoreError::from_cost(e)))?;
     drop(cancel);
     if !done {
         return Err(ServiceError::Internal(
@@ -505,7 +501,7 @@ pub async fn cost_maps(
     let stop = cancel.flag();
     let bytes = tokio::task::spawn_blocking(move || {
         let _permit = permit;
-        scoring::cost_maps_npy_until(l.model(), w, h, &|| stop.load(Ordering::Relaxed))
+        scoring::cost_maps_npy_until(l.model(), w, h, &|| stop.is_set())
     })
     .await
     .map_err(|e| ServiceError::Internal(e.to_string()))??;
@@ -539,7 +535,7 @@ pub async fn overlay(
                 safe: l.camera.safe_zone.as_deref(),
                 no_go: &l.camera.no_go_zones,
             },
-            &|| stop.load(Ordering::Relaxed),
+            &|| stop.is_set(),
         )
     })
     .await

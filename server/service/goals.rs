@@ -4,6 +4,7 @@
 use super::auth::{Principal, Role};
 use super::cameras::{self, CameraDoc};
 use super::error::{ServiceError, ServiceResult};
+use super::heavy::{Cancel, Stop};
 use super::{AppState, frames, parse_id, rfc3339};
 use crate::images;
 use crate::store::{self, goals::RevisionRow};
@@ -56,14 +57,34 @@ pub async fn check_document(
         })
         .collect();
     let grids = super::reward_fits::grids_for(state, who, &frame.id, learned).await?;
+    // Decoding masks is image decoding, heavy work under the shared permits; a document
+    // without masks checks in a bounded, small time and does not queue behind heavy work.
+    let has_masks = doc
+        .terms
+        .iter()
+        .any(|t| matches!(t, TermDocument::Mask { .. }));
+    let permit = match has_masks {
+        true => Some(state.heavy_permits.acquire().await?),
+        false => None,
+    };
+    // Part of the handler's future: a client that hangs up drops it, and the check stops
+    // before its next mask.
+    let cancel = Cancel::new();
+    let stop = cancel.flag();
     // Mask decoding and checks are CPU work: keep them off the async workers.
-    tokio::task::spawn_blocking(move || {
-        let spec = check_against_camera(doc, &camera, &limits, &grids)?;
+    let checked = tokio::task::spawn_blocking(move || {
+        let _permit = permit;
+        let spec = check_against_camera_until(doc, &camera, &limits, &grids, &stop)?;
         Ok((spec, camera))
     })
     .await
-    .map_err(|e| ServiceError::Internal(format!("goal check task failed: {e}")))?
+    .map_err(|e| ServiceError::Internal(format!("goal check task failed: {e}")))?;
+    drop(cancel);
+    checked
 }
+
+/// What a mask decoder answers once the client has hung up; nobody reads it.
+const STOPPED: &str = "the check stopped: the client hung up";
 
 /// The check of [`check_document`] once the camera and the reward grids of the document's
 /// learned terms are loaded: the camera's zones, then every rule of [`GoalSpec::check`], masks
@@ -73,6 +94,17 @@ pub fn check_against_camera(
     camera: &CameraDoc,
     limits: &crate::config::Limits,
     grids: &HashMap<String, Arc<RewardGrid>>,
+) -> ServiceResult<GoalSpec> {
+    check_against_camera_until(doc, camera, limits, grids, &Stop::never())
+}
+
+/// [`check_against_camera`], given up before the next mask once `stop` is set.
+fn check_against_camera_until(
+    doc: GoalDocument,
+    camera: &CameraDoc,
+    limits: &crate::config::Limits,
+    grids: &HashMap<String, Arc<RewardGrid>>,
+    stop: &Stop,
 ) -> ServiceResult<GoalSpec> {
     let (w, h) = (camera.width, camera.height);
     let safe_zone = camera
@@ -85,8 +117,12 @@ pub fn check_against_camera(
         .iter()
         .map(|z| check_zone(w, h, z, "camera.no_go_zones"))
         .collect::<Result<_, _>>()?;
-    let decode_mask =
-        |b64: &str| images::decode_mask(b64, limits.max_image_side, limits.max_decode_bytes);
+    let decode_mask = |b64: &str| {
+        if stop.is_set() {
+            return Err(STOPPED.to_string());
+        }
+        images::decode_mask(b64, limits.max_image_side, limits.max_decode_bytes)
+    };
     let reward_grid = |id: &str| grids.get(id).cloned();
     Ok(GoalSpec::check(
         doc,

@@ -8,7 +8,7 @@
 
 use super::error::ServiceError;
 use std::sync::Arc;
-use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+use std::sync::atomic::{AtomicBool, AtomicU64, AtomicUsize, Ordering};
 use tokio::sync::{OwnedSemaphorePermit, Semaphore};
 
 /// The permits and the count of requests waiting for one.
@@ -74,18 +74,27 @@ impl Default for Heavy {
     }
 }
 
+/// Heavy computations that stopped early because their client hung up, since the process
+/// started (`goalsmith_heavy_stopped_total` in `/metrics`).
+static STOPPED_EARLY: AtomicU64 = AtomicU64::new(0);
+
+/// How many heavy computations stopped early because their client hung up.
+pub fn stopped_early() -> u64 {
+    STOPPED_EARLY.load(Ordering::Relaxed)
+}
+
 /// Set when the handler future that holds it is dropped: a client that hung up drops the
 /// future, and the blocking work it started checks [`Cancel::flag`] to stop early.
-pub struct Cancel(Arc<AtomicBool>);
+pub struct Cancel(Stop);
 
 impl Cancel {
     /// A guard with a fresh flag.
     pub fn new() -> Self {
-        Self(Arc::new(AtomicBool::new(false)))
+        Self(Stop::never())
     }
 
     /// The flag to move into the blocking work.
-    pub fn flag(&self) -> Arc<AtomicBool> {
+    pub fn flag(&self) -> Stop {
         self.0.clone()
     }
 }
@@ -98,7 +107,38 @@ impl Default for Cancel {
 
 impl Drop for Cancel {
     fn drop(&mut self) {
-        self.0.store(true, Ordering::Relaxed);
+        self.0.0.set.store(true, Ordering::Relaxed);
+    }
+}
+
+/// The blocking side of a [`Cancel`]: whether the work should stop.
+#[derive(Clone)]
+pub struct Stop(Arc<StopInner>);
+
+struct StopInner {
+    set: AtomicBool,
+    noticed: AtomicBool,
+}
+
+impl Stop {
+    /// A flag nothing sets, for work run outside a request.
+    pub fn never() -> Self {
+        Self(Arc::new(StopInner {
+            set: AtomicBool::new(false),
+            noticed: AtomicBool::new(false),
+        }))
+    }
+
+    /// Whether the client hung up. The first time the work sees it, the stop is counted in
+    /// [`stopped_early`] (once per computation, however often it asks).
+    pub fn is_set(&self) -> bool {
+        if !self.0.set.load(Ordering::Relaxed) {
+            return false;
+        }
+        if !self.0.noticed.swap(true, Ordering::Relaxed) {
+            STOPPED_EARLY.fetch_add(1, Ordering::Relaxed);
+        }
+        true
     }
 }
 
@@ -131,8 +171,12 @@ mod tests {
     fn cancel_sets_its_flag_when_dropped() {
         let c = Cancel::new();
         let f = c.flag();
-        assert!(!f.load(Ordering::Relaxed));
+        assert!(!f.is_set());
+        let before = stopped_early();
         drop(c);
-        assert!(f.load(Ordering::Relaxed));
+        assert!(f.is_set());
+        assert!(f.is_set(), "it stays set");
+        // Counted once, however often the work asks (other tests may count their own meanwhile).
+        assert!(stopped_early() > before);
     }
 }

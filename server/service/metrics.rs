@@ -180,8 +180,13 @@ pub async fn exposition(state: &AppState) -> String {
         "# HELP goalsmith_heavy_running Heavy computations (scoring, maps, bundles, decoding) \
          running now.\n# TYPE goalsmith_heavy_running gauge\ngoalsmith_heavy_running {}\n\
          # HELP goalsmith_heavy_waiting Heavy computations waiting for a permit.\n\
-         # TYPE goalsmith_heavy_waiting gauge\ngoalsmith_heavy_waiting {}\n",
-        heavy.0, heavy.1
+         # TYPE goalsmith_heavy_waiting gauge\ngoalsmith_heavy_waiting {}\n\
+         # HELP goalsmith_heavy_stopped_total Heavy computations given up early because their \
+         client hung up.\n# TYPE goalsmith_heavy_stopped_total counter\n\
+         goalsmith_heavy_stopped_total {}\n",
+        heavy.0,
+        heavy.1,
+        super::heavy::stopped_early()
     );
 
     if let Some(rss) = resident_bytes() {

@@ -187,3 +187,126 @@ async fn first_scorings_of_a_large_model_stay_within_the_envelope() {
     assert_documented_answers(&report);
     assert_within_envelope(&report);
 }
+
+/// A metric without labels from the server's `/metrics` (read from loopback).
+async fn metric(s: &Server, name: &str) -> u64 {
+    let text = s
+        .client
+        .get(s.url("/metrics"))
+        .send()
+        .await
+        .expect("metrics")
+        .text()
+        .await
+        .expect("metrics text");
+    text.lines()
+        .find_map(|l| l.strip_prefix(name)?.strip_prefix(' '))
+        .and_then(|v| v.trim().parse().ok())
+        .unwrap_or_else(|| panic!("{name} in /metrics"))
+}
+
+/// A 512×512 mask PNG with one painted pixel at (i, j).
+fn one_pixel_mask(i: u32, j: u32) -> String {
+    use base64::Engine;
+    let img = image::GrayImage::from_fn(512, 512, |x, y| {
+        image::Luma([if (x, y) == (i, j) { 255 } else { 0 }])
+    });
+    let mut out = std::io::Cursor::new(Vec::new());
+    img.write_to(&mut out, image::ImageFormat::Png)
+        .expect("encode png");
+    base64::engine::general_purpose::STANDARD.encode(out.into_inner())
+}
+
+/// A goal save whose check decodes many masks stops when its client hangs up: the server
+/// counts the stop, writes nothing, and the same document saved by a client that waits is
+/// checked in full and stored.
+async fn a_goal_check_stops_when_its_client_hangs_up(s: Server) {
+    use tokio::io::AsyncWriteExt;
+    let editor = s.token("hang-up", "editor");
+    let (st, cam) = s
+        .post(
+            "/api/cameras",
+            Some(&editor),
+            &serde_json::json!({"name": "tray rack", "width": 512, "height": 512}),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{cam}");
+    let cam_id = cam["id"].as_str().expect("camera id");
+    let (st, frame) = s
+        .post_bytes(
+            &format!("/api/cameras/{cam_id}/frames"),
+            Some(&editor),
+            "image/png",
+            png(512, 512, 3),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{frame}");
+    let frame_id = frame["id"].as_str().expect("frame id");
+    // 256 masks of 512² (2^26 mask pixels, the per-goal limit): a check that decodes for a
+    // while, so the hang-up arrives while it runs.
+    let terms: Vec<_> = (0..256u32)
+        .map(|k| {
+            serde_json::json!({
+                "kind": "mask",
+                "source": [10.0, 10.0],
+                "mask_png_base64": one_pixel_mask(100 + k, 300),
+            })
+        })
+        .collect();
+    let body = serde_json::json!({"name": "every tray cell", "frame_id": frame_id, "terms": terms})
+        .to_string();
+    let before = metric(&s, "goalsmith_heavy_stopped_total").await;
+
+    // The whole request, then the connection closed without reading the answer.
+    let addr = s.base.trim_start_matches("http://");
+    let mut stream = tokio::net::TcpStream::connect(addr).await.expect("connect");
+    let head = format!(
+        "POST /api/goals HTTP/1.1\r\nHost: {addr}\r\nAuthorization: Bearer {editor}\r\n\
+         Content-Type: application/json\r\nContent-Length: {}\r\n\r\n",
+        body.len()
+    );
+    stream.write_all(head.as_bytes()).await.expect("write head");
+    stream.write_all(body.as_bytes()).await.expect("write body");
+    // Hung up once the check runs: it holds a heavy permit while it decodes the masks.
+    let deadline = std::time::Instant::now() + Duration::from_secs(120);
+    while metric(&s, "goalsmith_heavy_running").await == 0 {
+        assert!(
+            std::time::Instant::now() < deadline,
+            "the goal check never took a heavy permit"
+        );
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    }
+    drop(stream);
+
+    // The stop is counted once the check sees it (a wait, bounded for a clear failure).
+    while metric(&s, "goalsmith_heavy_stopped_total").await == before {
+        assert!(
+            std::time::Instant::now() < deadline,
+            "the goal check never stopped after the client hung up"
+        );
+        tokio::time::sleep(Duration::from_millis(50)).await;
+    }
+    let (st, goals) = s.get("/api/goals", Some(&editor)).await;
+    assert_eq!(st, reqwest::StatusCode::OK, "{goals}");
+    assert_eq!(
+        goals["items"].as_array().map(Vec::len),
+        Some(0),
+        "nothing was stored: {goals}"
+    );
+
+    // The same document from a client that waits: checked in full and stored.
+    let (st, rev) = s
+        .post(
+            "/api/goals",
+            Some(&editor),
+            &serde_json::from_str(&body).expect("json"),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{rev}");
+    assert_eq!(rev["terms"].as_array().map(Vec::len), Some(256));
+}
+
+crate::on_both_databases!(
+    goal_check_hang_up,
+    a_goal_check_stops_when_its_client_hangs_up
+);
