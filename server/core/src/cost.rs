@@ -734,7 +734,7 @@ impl CostModel {
             }
         };
         let work = n * steps.len() * np;
-        if work >= 4096 {
+        if work >= 4096 && may_fan_out() {
             points
                 .par_chunks_exact(stride)
                 .zip(per.par_chunks_exact_mut(np))
@@ -784,7 +784,7 @@ impl CostModel {
                 }
             }
         };
-        if n * steps.len() * np >= 4096 {
+        if n * steps.len() * np >= 4096 && may_fan_out() {
             points
                 .par_chunks_exact(stride)
                 .zip(grad.par_chunks_exact_mut(stride))
@@ -876,6 +876,32 @@ fn finish(per: Vec<f64>, np: usize) -> Result<CostResult, CostError> {
         per_point: per.chunks_exact(np).map(<[f64]>::to_vec).collect(),
         best,
     })
+}
+
+thread_local! {
+    /// Set while [`on_this_thread`] runs: scoring then stays on the calling thread.
+    static ON_THIS_THREAD: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
+}
+
+/// Runs `f` with every scoring call it makes (maps, points, gradients) on the calling thread
+/// alone, never handing work to rayon's workers. For a caller that asked for one thread: a
+/// one-thread pool would cost a hand-off to its worker and back on every call (tens to
+/// hundreds of microseconds when the worker has gone to sleep). Results are the same either
+/// way: each candidate is scored on its own, by the same code.
+pub fn on_this_thread<R>(f: impl FnOnce() -> R) -> R {
+    struct Restore(bool);
+    impl Drop for Restore {
+        fn drop(&mut self) {
+            ON_THIS_THREAD.with(|c| c.set(self.0));
+        }
+    }
+    let _restore = Restore(ON_THIS_THREAD.with(|c| c.replace(true)));
+    f()
+}
+
+/// Whether a scoring call may spread its candidates over rayon's workers.
+fn may_fan_out() -> bool {
+    !ON_THIS_THREAD.with(std::cell::Cell::get)
 }
 
 /// A model's maps at one size, ready to score batches of probability maps.
@@ -1303,7 +1329,7 @@ impl PreparedMaps {
         let steps = step_range(self.settings.steps, t);
         let mut per = vec![0.0f64; n * np];
         let work = n * steps.len() * np * plane;
-        let parallel = n > 1 && work >= 1 << 20;
+        let parallel = n > 1 && work >= 1 << 20 && may_fan_out();
         let result = match maps {
             MapBatch::F32(v) => {
                 #[cfg(target_arch = "x86_64")]
@@ -2250,6 +2276,39 @@ mod tests {
             .evaluate_maps(MapBatch::F32(&big), 64, 2, 64, 64)
             .unwrap();
         assert!(res.costs.iter().all(|c| *c == res.costs[0]));
+    }
+
+    #[test]
+    fn scoring_on_this_thread_gives_the_same_results() {
+        let model = mixed_model(Steps::All, Mode::Expected);
+        // Batches large enough for the parallel paths of maps, points and gradients.
+        let (n, t, w, h) = (64, 2, 64, 64);
+        let maps: Vec<f32> = (0..n * t * 4 * w * h)
+            .map(|k| (k % 97) as f32 / 9700.0)
+            .collect();
+        let points: Vec<f64> = (0..4096 * t * 4 * 2)
+            .map(|k| (k % 53) as f64 * 0.7 - 5.0)
+            .collect();
+        let all = |model: &CostModel| {
+            (
+                model.evaluate_maps(MapBatch::F32(&maps), n, t, h, w),
+                model.evaluate_points(&points, 4096, t),
+                model.evaluate_points_grad(&points, 4096, t),
+            )
+        };
+        let fanned = all(&model);
+        assert!(may_fan_out());
+        let (serial, inside) = on_this_thread(|| (all(&model), may_fan_out()));
+        assert!(!inside, "inside, scoring stays on the calling thread");
+        assert!(may_fan_out(), "the switch is put back afterwards");
+        assert!(fanned.0.is_ok() && fanned.1.is_ok() && fanned.2.is_ok());
+        assert_eq!(serial, fanned);
+        // Nested calls keep it set until the outermost ends.
+        on_this_thread(|| {
+            on_this_thread(|| ());
+            assert!(!may_fan_out());
+        });
+        assert!(may_fan_out());
     }
 
     #[test]

@@ -51,7 +51,8 @@ struct NativeBundle {
 /// Prepared cost maps and their (width, height).
 type PreparedAt = ((usize, usize), Arc<PreparedMaps>);
 
-/// Runs `f` on a pool of `threads` threads (`None`: rayon's global pool, one per core). Pools
+/// Runs `f` on a pool of `threads` threads (`None`: rayon's global pool, one per core; one: the
+/// calling thread itself, see [`goalsmith_core::cost::on_this_thread`]). Pools
 /// are made once per size and kept.
 fn on_threads<R: Send>(threads: Option<usize>, f: impl FnOnce() -> R + Send) -> PyResult<R> {
     let Some(k) = threads else {
@@ -61,6 +62,10 @@ fn on_threads<R: Send>(threads: Option<usize>, f: impl FnOnce() -> R + Send) -> 
         return Err(value_error(format!(
             "threads must be a whole number from 1 to {MAX_THREADS}, got {k}"
         )));
+    }
+    if k == 1 {
+        // On the calling thread itself (the GIL is released): no hand-off to a pool.
+        return Ok(goalsmith_core::cost::on_this_thread(f));
     }
     static POOLS: OnceLock<Mutex<HashMap<usize, Arc<rayon::ThreadPool>>>> = OnceLock::new();
     let pool = {
