@@ -4,7 +4,9 @@
 
 Starts a goalsmith server (as the tests do), makes a goal with 2 source points (a point and a
 region) and one with 4 (point, region, mask, point) on a 64×48 frame, downloads their bundles,
-then times, alternating the contenders run by run and reporting medians:
+then times, alternating the contenders run by run and reporting medians, each call from the
+same cache state (warm: just made once untimed; cold: after reading 1 GiB of other data; see
+`median_ms`):
 
 - maps 200 × 10 × 2 × 64 × 64 float32 (65 MB) on one thread: Bundle.cost against numpy's
   fastest expression of the same sum Σ_u P(u)·M_p(u) (the best of einsum, matmul over strided
@@ -99,11 +101,33 @@ def numpy_variants(maps, kernel):
     return {"einsum": einsum, "matmul over strided views": matmul_views, "tensordot": tensordot}
 
 
-def median_ms(fns, rounds):
-    """Runs the functions in turn, `rounds` times, and returns each one's median in ms."""
+_FLUSH = None
+
+
+def _flush_caches():
+    """Reads 1 GiB of unrelated data, more than this machine's last-level cache holds, so that
+    whatever a contender reads next comes from memory."""
+    global _FLUSH
+    if _FLUSH is None:
+        _FLUSH = np.ones(1 << 28, dtype=np.float32)
+    _FLUSH.max()
+
+
+def median_ms(fns, rounds, state="warm"):
+    """Runs the functions in turn, `rounds` times, and returns each one's median in ms.
+
+    Every timed call starts from the same cache state, whatever ran before it: ``"warm"``, the
+    call just made once untimed (its inputs as hot as the caches can keep them, as maps that a
+    model has just written are); ``"cold"``, the caches flushed first (inputs from memory).
+    Without this the order of the contenders decides which inputs the caches still hold.
+    """
     times = {k: [] for k in fns}
     for _ in range(rounds):
         for k, f in fns.items():
+            if state == "cold":
+                _flush_caches()
+            else:
+                f()
             t0 = time.perf_counter()
             f()
             times[k].append((time.perf_counter() - t0) * 1e3)
@@ -156,8 +180,17 @@ def main():
         "goalsmith f16, 1 thread": lambda: two.cost(maps=maps16, threads=1),
         **{f"numpy f32 {k}": v for k, v in variants.items()},
     }
-    maps_ms = median_ms(contenders, rounds)
-    numpy_best = min((v, k) for k, v in maps_ms.items() if k.startswith("numpy"))
+    states = {}
+    for state in ("warm", "cold"):
+        ms = median_ms(contenders, rounds, state)
+        best = min((v, k) for k, v in ms.items() if k.startswith("numpy"))
+        states[state] = {
+            "maps_ms": ms,
+            "numpy_fastest": best[1],
+            "numpy_fastest_ms": best[0],
+            "f32_vs_numpy": best[0] / ms["goalsmith f32, 1 thread"],
+            "f16_vs_numpy_f32": best[0] / ms["goalsmith f16, 1 thread"],
+        }
     pts = rng.uniform(-10, 75, size=(10_000, 10, 4, 2))
     pts_ms = median_ms({
         "points N=10000 T=10 P=4, 1 thread": lambda: four.cost(points=pts, threads=1),
@@ -168,10 +201,7 @@ def main():
                            text=True, check=True)
     mem = json.loads(child.stdout.strip().splitlines()[-1])
     report = {
-        "maps_ms": maps_ms,
-        "numpy_fastest": numpy_best[1],
-        "f32_vs_numpy": numpy_best[0] / maps_ms["goalsmith f32, 1 thread"],
-        "f16_vs_numpy_f32": numpy_best[0] / maps_ms["goalsmith f16, 1 thread"],
+        "maps": states,
         "points_ms": pts_ms,
         "memory": mem,
         "cpu": os.cpu_count(),
@@ -180,13 +210,16 @@ def main():
     if args.json:
         print(json.dumps(report, indent=2))
         return
-    print("| case | median |")
-    print("|---|---|")
-    for k, v in {**maps_ms, **pts_ms}.items():
-        print(f"| {k} | {v:.2f} ms |")
-    print(f"\nnumpy's fastest: {numpy_best[1]} ({numpy_best[0]:.2f} ms); "
-          f"goalsmith f32 is {report['f32_vs_numpy']:.2f}× numpy's speed, "
-          f"f16 {report['f16_vs_numpy_f32']:.2f}×.")
+    print("| case | warm | cold |")
+    print("|---|---|---|")
+    for k in contenders:
+        print(f"| {k} | {states['warm']['maps_ms'][k]:.2f} ms | {states['cold']['maps_ms'][k]:.2f} ms |")
+    for k, v in pts_ms.items():
+        print(f"| {k} | {v:.2f} ms | |")
+    for state, r in states.items():
+        print(f"\n{state}: numpy's fastest is {r['numpy_fastest']} ({r['numpy_fastest_ms']:.2f} ms); "
+              f"goalsmith f32 is {r['f32_vs_numpy']:.2f}× numpy's speed, "
+              f"f16 {r['f16_vs_numpy_f32']:.2f}×.")
     grow = (mem["hwm_after_kb"] - mem["hwm_before_kb"]) / 1024
     print(f"1 GiB f16 batch ({mem['batch_bytes'] / 2**30:.2f} GiB): peak RSS "
           f"{mem['hwm_before_kb'] / 1024:.0f} MiB before scoring, {mem['hwm_after_kb'] / 1024:.0f} "
