@@ -9,6 +9,7 @@ use axum::Router;
 use axum::extract::MatchedPath;
 use axum::http::{HeaderName, HeaderValue, Request};
 use axum::response::{IntoResponse, Response};
+use axum::serve::ListenerExt;
 use std::sync::Arc;
 use std::time::Duration;
 use tokio::net::TcpListener;
@@ -148,28 +149,27 @@ pub const CONTENT_SECURITY_POLICY: &str = "default-src 'self'; script-src 'self'
      style-src 'self'; img-src 'self' data: blob:; font-src 'self'; connect-src 'self'; \
      object-src 'none'; base-uri 'none'; form-action 'self'; frame-ancestors 'none'";
 
-/// Headers every response carries unless the handler set its own.
+/// Headers every response carries unless the handler set its own (the answers hyper writes by
+/// itself get them too, see [`crate::wire`]).
+pub const SECURITY_HEADERS: &[(&str, &str)] = &[
+    // Browsers must take every response as the type it says it is (no sniffing a JSON error or
+    // an uploaded image into something else).
+    ("x-content-type-options", "nosniff"),
+    ("content-security-policy", CONTENT_SECURITY_POLICY),
+    // For browsers older than `frame-ancestors`.
+    ("x-frame-options", "DENY"),
+    // Ids in our URLs stay on this server.
+    ("referrer-policy", "same-origin"),
+    ("cross-origin-opener-policy", "same-origin"),
+];
+
 fn security_headers(router: Router) -> Router {
-    use axum::http::header;
-    let set = |name: HeaderName, value: &'static str| {
-        SetResponseHeaderLayer::if_not_present(name, HeaderValue::from_static(value))
-    };
-    router
-        // Browsers must take every response as the type it says it is (no sniffing a JSON
-        // error or an uploaded image into something else).
-        .layer(set(header::X_CONTENT_TYPE_OPTIONS, "nosniff"))
-        .layer(set(
-            header::CONTENT_SECURITY_POLICY,
-            CONTENT_SECURITY_POLICY,
+    SECURITY_HEADERS.iter().fold(router, |r, &(name, value)| {
+        r.layer(SetResponseHeaderLayer::if_not_present(
+            HeaderName::from_static(name),
+            HeaderValue::from_static(value),
         ))
-        // For browsers older than `frame-ancestors`.
-        .layer(set(header::X_FRAME_OPTIONS, "DENY"))
-        // Ids in our URLs stay on this server.
-        .layer(set(header::REFERRER_POLICY, "same-origin"))
-        .layer(set(
-            HeaderName::from_static("cross-origin-opener-policy"),
-            "same-origin",
-        ))
+    })
 }
 
 /// Gives the request its id: the client's own `X-Request-Id` when it is a short token
@@ -316,6 +316,11 @@ pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>
     crate::service::operations::start(state.clone(), config.limits.operation_workers);
     let store = state.store.clone();
     // With the peer address on each request: the sign-in throttle counts attempts per client.
+    // Answers are written as soon as they are ready (no Nagle delay on keep-alive connections),
+    // and hyper's own answers to unreadable requests get the contract's body.
+    let listener = crate::wire::ContractListener::new(listener, SECURITY_HEADERS).tap_io(|io| {
+        let _ = io.get_ref().set_nodelay(true);
+    });
     let server = axum::serve(
         listener,
         app(state).into_make_service_with_connect_info::<std::net::SocketAddr>(),

@@ -34,6 +34,7 @@ mod tests {
             "scoring" | "images" | "config" | "cookies" | "strict_json" | "demo_archive"
             | "draw" => BELOW.to_vec(),
             "security" => vec!["security", "config", "SAFETY_CAUTION"],
+            "wire" => vec!["wire"],
             _ => Vec::new(),
         }
     }

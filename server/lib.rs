@@ -21,6 +21,7 @@ pub mod security;
 pub mod service;
 pub mod store;
 pub mod strict_json;
+pub mod wire;
 
 /// The caution carried by the README, every export and the editor (kept with the bundle
 /// format, which carries it too).
