@@ -82,6 +82,11 @@ pub struct Report {
     pub rss_after_kib: u64,
     /// Seconds from the first request sent to the last answer.
     pub burst_s: f64,
+    /// The server's own count of `/healthz` answers during the burst, and of those that took
+    /// over 100 ms from arrival to response head (its latency histogram in `/metrics`, read
+    /// before and after): what the server did, apart from the client's and the kernel's share
+    /// of the latencies above, on machine the probe's own senders share.
+    pub server_healthz: Option<(u64, u64)>,
 }
 
 impl Report {
@@ -128,6 +133,9 @@ impl Report {
                 "median_ms": r1(self.healthz_quantile(0.5)),
                 "p99_ms": r1(self.healthz_quantile(0.99)),
                 "max_ms": r1(self.healthz_quantile(1.0)),
+                "server_side": self.server_healthz.map(|(n, slow)| serde_json::json!({
+                    "answered": n, "over_100_ms": slow,
+                })),
             },
         })
     }
@@ -471,6 +479,7 @@ pub fn burst(
 ) -> Report {
     let auth = format!("Bearer {token}");
     let rss_before_kib = vm_kib(pid, "VmRSS:");
+    let healthz_before = server_healthz(addr);
     let stop = Arc::new(AtomicBool::new(false));
     let lat = Arc::new(Mutex::new(Vec::<(u16, f64)>::new()));
     let poller = {
@@ -542,6 +551,9 @@ pub fn burst(
     stop.store(true, Ordering::Relaxed);
     let _ = poller.join();
     let healthz = lat.lock().map(|l| l.clone()).unwrap_or_default();
+    let server_healthz = healthz_before
+        .zip(server_healthz(addr))
+        .map(|((n0, f0), (n1, f1))| (n1 - n0, (n1 - f1) - (n0 - f0)));
     Report {
         outcomes,
         healthz,
@@ -549,5 +561,29 @@ pub fn burst(
         peak_kib: vm_kib(pid, "VmHWM:"),
         rss_after_kib: vm_kib(pid, "VmRSS:"),
         burst_s,
+        server_healthz,
     }
+}
+
+/// From the server's `/metrics` (read from loopback): `/healthz` answers so far, and how many
+/// of them within 100 ms (`None` when `/metrics` cannot be read).
+fn server_healthz(addr: &str) -> Option<(u64, u64)> {
+    let (_, body) = http::request(addr, "GET", "/metrics", &[], &[]).ok()?;
+    let text = String::from_utf8(body).ok()?;
+    let value = |key: &str| -> Option<u64> {
+        text.lines()
+            .find_map(|l| l.strip_prefix(key))
+            .and_then(|v| v.trim().parse().ok())
+    };
+    let series = "method=\"GET\",route=\"/healthz\"";
+    // No series yet: none answered so far.
+    let count = value(&format!(
+        "goalsmith_http_request_duration_seconds_count{{{series}}} "
+    ))
+    .unwrap_or(0);
+    let fast = value(&format!(
+        "goalsmith_http_request_duration_seconds_bucket{{{series},le=\"0.1\"}} "
+    ))
+    .unwrap_or(0);
+    Some((count, fast))
 }

@@ -485,7 +485,17 @@ pub async fn cost_maps(
     n: &str,
     size: Option<(usize, usize)>,
 ) -> ServiceResult<Download> {
-    let mut l = load(state, who, id, n).await?;
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    // An asked size over the limit is refused from the stored document's source points, before
+    // the request waits for a permit to build the model.
+    if let Some((w, h)) = size {
+        let doc: Value = serde_json::from_str(&row.document)
+            .map_err(|e| ServiceError::Internal(format!("revision unreadable: {e}")))?;
+        if let Some(points) = doc["derived"]["points"].as_array() {
+            check_map_values(&state.limits, points.len(), w, h, Some("width"))?;
+        }
+    }
+    let mut l = load_row(state, who, row).await?;
     let (fw, fh) = l.spec().frame_size();
     let (w, h) = size.unwrap_or((fw as usize, fh as usize));
     check_map_values(

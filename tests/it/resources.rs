@@ -217,12 +217,11 @@ fn one_pixel_mask(i: u32, j: u32) -> String {
     base64::engine::general_purpose::STANDARD.encode(out.into_inner())
 }
 
-/// A goal save whose check decodes many masks stops when its client hangs up: the server
-/// counts the stop, writes nothing, and the same document saved by a client that waits is
-/// checked in full and stored.
-async fn a_goal_check_stops_when_its_client_hangs_up(s: Server) {
-    use tokio::io::AsyncWriteExt;
-    let editor = s.token("hang-up", "editor");
+/// A team with a 512×512 camera and frame: (editor token, frame id), and the body of a goal on
+/// that frame with 256 masks of 512² (2^26 mask pixels, the per-goal limit), whose check holds
+/// a heavy permit while it decodes them for a while (over a second in a debug build).
+async fn mask_heavy_goal(s: &Server, team: &str) -> (String, String, String) {
+    let editor = s.token(team, "editor");
     let (st, cam) = s
         .post(
             "/api/cameras",
@@ -241,9 +240,7 @@ async fn a_goal_check_stops_when_its_client_hangs_up(s: Server) {
         )
         .await;
     assert_eq!(st, reqwest::StatusCode::CREATED, "{frame}");
-    let frame_id = frame["id"].as_str().expect("frame id");
-    // 256 masks of 512² (2^26 mask pixels, the per-goal limit): a check that decodes for a
-    // while, so the hang-up arrives while it runs.
+    let frame_id = frame["id"].as_str().expect("frame id").to_string();
     let terms: Vec<_> = (0..256u32)
         .map(|k| {
             serde_json::json!({
@@ -255,6 +252,24 @@ async fn a_goal_check_stops_when_its_client_hangs_up(s: Server) {
         .collect();
     let body = serde_json::json!({"name": "every tray cell", "frame_id": frame_id, "terms": terms})
         .to_string();
+    (editor, frame_id, body)
+}
+
+/// Waits until the server runs a heavy computation (bounded, for a clear failure).
+async fn until_heavy_running(s: &Server, what: &str) {
+    let deadline = std::time::Instant::now() + Duration::from_secs(120);
+    while metric(s, "goalsmith_heavy_running").await == 0 {
+        assert!(std::time::Instant::now() < deadline, "{what}");
+        tokio::time::sleep(Duration::from_millis(10)).await;
+    }
+}
+
+/// A goal save whose check decodes many masks stops when its client hangs up: the server
+/// counts the stop, writes nothing, and the same document saved by a client that waits is
+/// checked in full and stored.
+async fn a_goal_check_stops_when_its_client_hangs_up(s: Server) {
+    use tokio::io::AsyncWriteExt;
+    let (editor, _frame_id, body) = mask_heavy_goal(&s, "hang-up").await;
     let before = metric(&s, "goalsmith_heavy_stopped_total").await;
 
     // The whole request, then the connection closed without reading the answer.
@@ -268,17 +283,11 @@ async fn a_goal_check_stops_when_its_client_hangs_up(s: Server) {
     stream.write_all(head.as_bytes()).await.expect("write head");
     stream.write_all(body.as_bytes()).await.expect("write body");
     // Hung up once the check runs: it holds a heavy permit while it decodes the masks.
-    let deadline = std::time::Instant::now() + Duration::from_secs(120);
-    while metric(&s, "goalsmith_heavy_running").await == 0 {
-        assert!(
-            std::time::Instant::now() < deadline,
-            "the goal check never took a heavy permit"
-        );
-        tokio::time::sleep(Duration::from_millis(10)).await;
-    }
+    until_heavy_running(&s, "the goal check never took a heavy permit").await;
     drop(stream);
 
     // The stop is counted once the check sees it (a wait, bounded for a clear failure).
+    let deadline = std::time::Instant::now() + Duration::from_secs(120);
     while metric(&s, "goalsmith_heavy_stopped_total").await == before {
         assert!(
             std::time::Instant::now() < deadline,
@@ -310,3 +319,65 @@ crate::on_both_databases!(
     goal_check_hang_up,
     a_goal_check_stops_when_its_client_hangs_up
 );
+
+/// A request over a limit is refused for that, not queued: with the only heavy permit taken
+/// and no room to wait, cost maps of an unscored goal within the limit get 503 `busy`, and past
+/// the limit 422 `map_too_large` (from the stored document, before any permit is asked for).
+#[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+async fn a_request_over_a_limit_is_refused_even_when_the_queue_is_full() {
+    let Some(db) = fresh_db(Db::Sqlite, "limit_before_queue").await else {
+        return;
+    };
+    let s = Server::start_with_env(
+        &db.url,
+        &db.data_dir,
+        &[],
+        &[
+            ("GOALSMITH_HEAVY_PERMITS", "1"),
+            ("GOALSMITH_HEAVY_QUEUE", "0"),
+        ],
+    );
+    let (editor, frame_id, heavy) = mask_heavy_goal(&s, "queue").await;
+    let (st, goal) = s
+        .post(
+            "/api/goals",
+            Some(&editor),
+            &point_goal(&frame_id, "pot to bench"),
+        )
+        .await;
+    assert_eq!(st, reqwest::StatusCode::CREATED, "{goal}");
+    let maps = |w: u32| {
+        format!(
+            "/api/goals/{}/revisions/1/cost-maps.npy?width={w}&height={w}",
+            goal["goal_id"].as_str().expect("goal id")
+        )
+    };
+    // The mask-heavy save takes the one permit.
+    let saving = {
+        let (client, url, editor) = (s.client.clone(), s.url("/api/goals"), editor.clone());
+        tokio::spawn(async move {
+            client
+                .post(url)
+                .bearer_auth(editor)
+                .header("content-type", "application/json")
+                .body(heavy)
+                .send()
+                .await
+                .map(|r| r.status())
+        })
+    };
+    until_heavy_running(&s, "the mask-heavy save never took the permit").await;
+    let (st, busy) = s.get(&maps(64), Some(&editor)).await;
+    let (st_over, over) = s.get(&maps(8192), Some(&editor)).await;
+    let still = metric(&s, "goalsmith_heavy_running").await;
+    assert_eq!(still, 1, "the save ended too early for this test");
+    assert_eq!(st, reqwest::StatusCode::SERVICE_UNAVAILABLE, "{busy}");
+    assert_eq!(busy["error"]["code"], "busy");
+    assert_eq!(st_over, reqwest::StatusCode::UNPROCESSABLE_ENTITY, "{over}");
+    assert_eq!(over["error"]["code"], "map_too_large");
+    assert_eq!(over["error"]["field"], "width");
+    assert_eq!(
+        saving.await.expect("join").expect("the save answers"),
+        reqwest::StatusCode::CREATED
+    );
+}
