@@ -131,32 +131,29 @@ pub async fn cost(
         let result = export::score_buffered(checked, content_type, body, max).await?;
         return Ok(Json(scoring::cost_response(&result)));
     }
-    let (checked, permit) = match export::checked_model(&state, &who, &id, &n).await {
-        Ok(c) => c,
-        Err(e) => return Err(refuse(req, e).await),
-    };
     let declared = req
         .headers()
         .get(header::CONTENT_LENGTH)
         .and_then(|v| v.to_str().ok())
         .and_then(|v| v.parse::<usize>().ok());
     let mut body = req.into_body();
-    let permit = match permit {
-        Some(p) => Ok(p),
-        None => state.heavy_permits.acquire().await,
-    };
-    let result = match permit {
-        Ok(_permit) => {
-            export::score_npy(
+    // The NPY header before the model and the permit: a body over a limit, or of the wrong
+    // shape, is refused from its header whether or not the heavy queue has room.
+    let result = match export::npy_head(&state, &who, &id, &n, &mut Chunks(&mut body)).await {
+        Ok(head) => {
+            score_npy_body(
                 &state,
-                checked,
+                &who,
+                &id,
+                &n,
                 content_type,
                 declared,
-                &mut Chunks(&mut body),
+                head,
+                &mut body,
             )
             .await
         }
-        Err(busy) => Err(busy),
+        Err(e) => Err(e),
     };
     if result.is_err() {
         // Read what the client is still sending (the route's body limit bounds it), so that it
@@ -164,6 +161,35 @@ pub async fn cost(
         drain(&mut body).await;
     }
     result.map(|r| Json(scoring::cost_response(&r.into())))
+}
+
+/// The rest of [`cost`] for an NPY body whose header [`export::npy_head`] has read and
+/// checked: the model (built under a permit, or from the cache), a permit, and the scoring.
+#[allow(clippy::too_many_arguments)]
+async fn score_npy_body(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+    content_type: String,
+    declared: Option<usize>,
+    head: Vec<u8>,
+    body: &mut axum::body::Body,
+) -> ServiceResult<goalsmith_core::cost::CostResult> {
+    let (checked, permit) = export::checked_model(state, who, id, n).await?;
+    let _permit = match permit {
+        Some(p) => p,
+        None => state.heavy_permits.acquire().await?,
+    };
+    export::score_npy(
+        state,
+        checked,
+        content_type,
+        declared,
+        head,
+        &mut Chunks(body),
+    )
+    .await
 }
 
 /// Reads a JSON cost body of at most `max` bytes, refusing (413) as soon as it is known to be

@@ -489,11 +489,7 @@ pub async fn cost_maps(
     // An asked size over the limit is refused from the stored document's source points, before
     // the request waits for a permit to build the model.
     if let Some((w, h)) = size {
-        let doc: Value = serde_json::from_str(&row.document)
-            .map_err(|e| ServiceError::Internal(format!("revision unreadable: {e}")))?;
-        if let Some(points) = doc["derived"]["points"].as_array() {
-            check_map_values(&state.limits, points.len(), w, h, Some("width"))?;
-        }
+        check_map_values(&state.limits, points_of(&row)?, w, h, Some("width"))?;
     }
     let mut l = load_row(state, who, row).await?;
     let (fw, fh) = l.spec().frame_size();
@@ -597,16 +593,100 @@ pub async fn bundle(
 }
 
 /// Scores an NPY body as it arrives (from any [`ChunkSource`]): probability maps block by block, points (small) buffered.
+/// The number of source points P of a stored revision, from its document's derived points
+/// (what the limits need before any model is built).
+fn points_of(row: &RevisionRow) -> ServiceResult<usize> {
+    let doc: Value = serde_json::from_str(&row.document)
+        .map_err(|e| ServiceError::Internal(format!("revision unreadable: {e}")))?;
+    doc["derived"]["points"]
+        .as_array()
+        .map(Vec::len)
+        .ok_or_else(|| ServiceError::Internal("revision without derived points".into()))
+}
+
+/// The bytes of an NPY cost body up to the end of its header (and whatever came with it), its
+/// header checked against the limits of revision `n` ([`check_npy_shape`]) before a model is
+/// built or a permit asked for. An over-limit or malformed body is refused from its header
+/// alone; a body that ends before its header is complete comes back whole, for
+/// [`score_npy`] to say why.
+pub async fn npy_head<B: ChunkSource>(
+    state: &AppState,
+    who: &Principal,
+    id: &str,
+    n: &str,
+    body: &mut B,
+) -> ServiceResult<Vec<u8>> {
+    let row = load_revision(state, who, id, Some(parse_revision(n)?)).await?;
+    let p = points_of(&row)?;
+    let max = state.limits.cost_body_bytes;
+    let mut head = Vec::new();
+    loop {
+        match npy::parse_header_prefix(&head, max) {
+            Ok(header) => {
+                check_npy_shape(&state.limits, p, &header)?;
+                return Ok(head);
+            }
+            Err(npy::NpyError::TruncatedHeader { .. }) => {}
+            Err(e) => return Err(ScoreError::from_npy(e).into()),
+        }
+        match body.next_chunk().await? {
+            Some(chunk) => head.extend_from_slice(&chunk),
+            None => return Ok(head),
+        }
+    }
+}
+
+/// What an NPY cost body of a goal with `p` source points may be, from its header: maps
+/// (N, T, P, h, w) of float32 or float16 within the map limit, or points (N, T, P, 2) within
+/// the NPY points limit. Returns the maps' (N, T, h, w), `None` for points.
+fn check_npy_shape(
+    limits: &Limits,
+    p: usize,
+    header: &npy::NpyHeader,
+) -> ServiceResult<Option<(usize, usize, usize, usize)>> {
+    match header.shape.as_slice() {
+        [n, t, pp, h, w] if *pp == p && header.dtype != npy::Dtype::F64 => {
+            check_map_values(limits, p, *w, *h, None)?;
+            Ok(Some((*n, *t, *h, *w)))
+        }
+        [n, t, pp, 2] if *pp == p => {
+            let points = n.saturating_mul(*t).saturating_mul(p);
+            let limit = limits.max_npy_points;
+            if points > limit {
+                return Err(ServiceError::TooLarge(format!(
+                    "NPY points of shape ({n}, {t}, {p}, 2) are {points} points, over the \
+                     limit of {limit} points (N · T · P) per request; send smaller batches"
+                )));
+            }
+            Ok(None)
+        }
+        [_, _, pp, _, _] if *pp == p => Err(ServiceError::invalid_body(
+            "bad_npy",
+            "probability maps must be float32 or float16, not float64",
+        )),
+        other => Err(ServiceError::invalid_body(
+            "bad_shape",
+            format!(
+                "this goal has P = {p} source points: send maps of shape (N, T, {p}, h, w) or \
+                 points of shape (N, T, {p}, 2), not {other:?}"
+            ),
+        )),
+    }
+}
+
+/// Scores an NPY cost body: `head`, its start as [`npy_head`] read it, then the rest from
+/// `body`. Maps are scored block by block as they arrive; points are buffered (up to their
+/// limit) and scored whole.
 pub async fn score_npy<B: ChunkSource>(
     state: &AppState,
     checked: Checked,
     content_type: String,
     declared: Option<usize>,
+    mut head: Vec<u8>,
     body: &mut B,
 ) -> ServiceResult<goalsmith_core::cost::CostResult> {
     let max = state.limits.cost_body_bytes;
     // The NPY header first: it says whether these are maps, which are scored as they arrive.
-    let mut head = Vec::new();
     let header = loop {
         match npy::parse_header_prefix(&head, max) {
             Ok(h) => break h,
@@ -633,41 +713,7 @@ pub async fn score_npy<B: ChunkSource>(
         })
         .into());
     }
-    let p = checked.1.len();
-    let maps = match header.shape.as_slice() {
-        [n, t, pp, h, w] if *pp == p && header.dtype != npy::Dtype::F64 => Some((*n, *t, *h, *w)),
-        _ => None,
-    };
-    let Some((n, t, h, w)) = maps else {
-        // Only points are buffered, and only up to their own limit: anything else would be
-        // refused after buffering anyway, so it is refused from its header alone.
-        match header.shape.as_slice() {
-            [n, t, pp, 2] if *pp == p => {
-                let points = n.saturating_mul(*t).saturating_mul(p);
-                let limit = state.limits.max_npy_points;
-                if points > limit {
-                    return Err(ServiceError::TooLarge(format!(
-                        "NPY points of shape ({n}, {t}, {p}, 2) are {points} points, over the \
-                         limit of {limit} points (N · T · P) per request; send smaller batches"
-                    )));
-                }
-            }
-            [_, _, pp, _, _] if *pp == p => {
-                return Err(ServiceError::invalid_body(
-                    "bad_npy",
-                    "probability maps must be float32 or float16, not float64",
-                ));
-            }
-            other => {
-                return Err(ServiceError::invalid_body(
-                    "bad_shape",
-                    format!(
-                        "this goal has P = {p} source points: send maps of shape (N, T, {p}, h, \
-                         w) or points of shape (N, T, {p}, 2), not {other:?}"
-                    ),
-                ));
-            }
-        }
+    let Some((n, t, h, w)) = check_npy_shape(&state.limits, checked.1.len(), &header)? else {
         // Points are small: buffer them and use the one full check.
         while let Some(chunk) = body.next_chunk().await? {
             if head.len() + chunk.len() > total {
@@ -683,7 +729,6 @@ pub async fn score_npy<B: ChunkSource>(
             .await
             .map(|s| s.result);
     };
-    check_map_values(&state.limits, p, w, h, None)?;
     let prepared = prepared_maps(state, &checked, w, h).await?;
     let scorer = scoring::MapScorer::new(prepared, header.dtype, n, t)?;
     let block_bytes = scorer.block_candidates() * scorer.candidate_bytes();

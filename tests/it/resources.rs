@@ -12,6 +12,7 @@
 mod probe;
 
 use crate::support::*;
+use goalsmith_core::npy;
 use std::time::Duration;
 
 /// Heavy permits and queue of the server under test, set explicitly so the envelope does not
@@ -320,9 +321,31 @@ crate::on_both_databases!(
     a_goal_check_stops_when_its_client_hangs_up
 );
 
+/// The header of an NPY array of `descr` and `shape` (format 1.0), without its data.
+fn npy_header_only(descr: &str, shape: &[usize]) -> Vec<u8> {
+    let dims: Vec<String> = shape.iter().map(usize::to_string).collect();
+    let mut dict = format!(
+        "{{'descr': '{descr}', 'fortran_order': False, 'shape': ({}), }}",
+        dims.join(", ")
+    );
+    while (10 + dict.len() + 1) % 64 != 0 {
+        dict.push(' ');
+    }
+    dict.push('\n');
+    let mut out = b"\x93NUMPY\x01\x00".to_vec();
+    out.extend_from_slice(
+        &u16::try_from(dict.len())
+            .expect("short header")
+            .to_le_bytes(),
+    );
+    out.extend_from_slice(dict.as_bytes());
+    out
+}
+
 /// A request over a limit is refused for that, not queued: with the only heavy permit taken
-/// and no room to wait, cost maps of an unscored goal within the limit get 503 `busy`, and past
-/// the limit 422 `map_too_large` (from the stored document, before any permit is asked for).
+/// and no room to wait, cost maps (`cost-maps.npy`, or NPY probability maps sent to `…/cost`) of
+/// an unscored goal within the limit get 503 `busy`, and past the limit 422 `map_too_large`
+/// (from the stored document and the NPY header, before any permit is asked for).
 #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
 async fn a_request_over_a_limit_is_refused_even_when_the_queue_is_full() {
     let Some(db) = fresh_db(Db::Sqlite, "limit_before_queue").await else {
@@ -366,9 +389,32 @@ async fn a_request_over_a_limit_is_refused_even_when_the_queue_is_full() {
                 .map(|r| r.status())
         })
     };
+    let cost = s.url(&format!(
+        "/api/goals/{}/revisions/1/cost",
+        goal["goal_id"].as_str().expect("goal id")
+    ));
+    let score = |body: Vec<u8>| {
+        let (client, cost, editor) = (s.client.clone(), cost.clone(), editor.clone());
+        async move {
+            let resp = client
+                .post(cost)
+                .bearer_auth(editor)
+                .header("content-type", "application/x-npy")
+                .body(body)
+                .send()
+                .await
+                .expect("cost answers");
+            into_json(resp).await
+        }
+    };
     until_heavy_running(&s, "the mask-heavy save never took the permit").await;
     let (st, busy) = s.get(&maps(64), Some(&editor)).await;
     let (st_over, over) = s.get(&maps(8192), Some(&editor)).await;
+    // The same for probability maps sent as NPY: within the limit, busy; past it (the header
+    // alone is sent), refused from the header.
+    let (st_npy, busy_npy) =
+        score(npy::write_f32(&[1, 1, 1, 8, 8], &[1.0 / 64.0; 64]).expect("npy")).await;
+    let (st_npy_over, over_npy) = score(npy_header_only("<f4", &[1, 1, 1, 8192, 8192])).await;
     let still = metric(&s, "goalsmith_heavy_running").await;
     assert_eq!(still, 1, "the save ended too early for this test");
     assert_eq!(st, reqwest::StatusCode::SERVICE_UNAVAILABLE, "{busy}");
@@ -376,6 +422,18 @@ async fn a_request_over_a_limit_is_refused_even_when_the_queue_is_full() {
     assert_eq!(st_over, reqwest::StatusCode::UNPROCESSABLE_ENTITY, "{over}");
     assert_eq!(over["error"]["code"], "map_too_large");
     assert_eq!(over["error"]["field"], "width");
+    assert_eq!(
+        st_npy,
+        reqwest::StatusCode::SERVICE_UNAVAILABLE,
+        "{busy_npy}"
+    );
+    assert_eq!(busy_npy["error"]["code"], "busy");
+    assert_eq!(
+        st_npy_over,
+        reqwest::StatusCode::UNPROCESSABLE_ENTITY,
+        "{over_npy}"
+    );
+    assert_eq!(over_npy["error"]["code"], "map_too_large");
     assert_eq!(
         saving.await.expect("join").expect("the save answers"),
         reqwest::StatusCode::CREATED
