@@ -295,6 +295,12 @@ pub async fn prepare(config: &ServeConfig) -> Result<AppState, Box<dyn std::erro
 /// Runs until SIGTERM or Ctrl-C, then stops accepting, finishes in-flight requests (up to 30 s)
 /// and returns.
 pub async fn serve(config: ServeConfig) -> Result<(), Box<dyn std::error::Error>> {
+    // The parallel parts of heavy work (scoring, map building) run on rayon's pool: at heavy
+    // work's lower priority too, so they never crowd out the async workers. (Fails only when
+    // something built the pool already, which then keeps its threads as they are.)
+    let _ = rayon::ThreadPoolBuilder::new()
+        .start_handler(|_| crate::service::heavy::lower_this_thread())
+        .build_global();
     let state = prepare(&config).await?;
     let listener = TcpListener::bind(&config.bind).await?;
     let addr = listener.local_addr()?;

@@ -77,7 +77,7 @@ pub async fn cost_map_png(
     let tolerance = point.tolerance_px;
     let permit = state.heavy_permits.acquire().await?;
     // The map is CPU work: keep it off the async workers.
-    let png = tokio::task::spawn_blocking(move || -> Result<(Vec<u8>, f64), String> {
+    let png = crate::service::heavy::spawn(move || -> Result<(Vec<u8>, f64), String> {
         let _permit = permit;
         let model = CostModel::new(fw as usize, fh as usize, vec![point], settings)
             .map_err(|e| e.to_string())?;

@@ -141,7 +141,7 @@ impl UploadTicket {
         };
         let format = self.format;
         let permit = self.permit;
-        let demo = tokio::task::spawn_blocking(move || {
+        let demo = super::heavy::spawn(move || {
             let _permit = permit;
             let read = match format {
                 DemoFormat::Zip => demo_archive::read_zip(&bytes, rules, &limits.demo),

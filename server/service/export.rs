@@ -289,7 +289,7 @@ pub async fn load_row(
             // The permit comes back with the model: a model too large for the cache is held by
             // this request alone, and it must not wait in the queue for a second permit while
             // holding it (the memory envelope counts one model per permit).
-            let (built, permit) = tokio::task::spawn_blocking(move || {
+            let (built, permit) = super::heavy::spawn(move || {
                 let reward_grid = |id: &str| grids.get(id).cloned();
                 let built =
                     scoring::spec_from_revision(&doc2, w, h, &reward_grid).and_then(|spec| {
@@ -340,7 +340,7 @@ pub async fn score_buffered(
     body: impl AsRef<[u8]> + Send + 'static,
     max: usize,
 ) -> ServiceResult<scoring::Scored> {
-    Ok(tokio::task::spawn_blocking(move || {
+    Ok(super::heavy::spawn(move || {
         scoring::evaluate(&checked.1, &content_type, body.as_ref(), max)
     })
     .await
@@ -416,7 +416,7 @@ pub async fn prepared_maps(
     let cancel = Cancel::new();
     let stop = cancel.flag();
     let (built, done) =
-        tokio::task::spawn_blocking(move || c.1.prepare_maps_until(w, h, &|| stop.is_set()))
+        super::heavy::spawn(move || c.1.prepare_maps_until(w, h, &|| stop.is_set()))
             .await
             .map_err(|e| ServiceError::Internal(e.to_string()))?
             .map_err(|e| ServiceError::from(ScoreError::from_cost(e)))?;
@@ -505,7 +505,7 @@ pub async fn cost_maps(
     let permit = l.work_permit(state).await?;
     let cancel = Cancel::new();
     let stop = cancel.flag();
-    let bytes = tokio::task::spawn_blocking(move || {
+    let bytes = super::heavy::spawn(move || {
         let _permit = permit;
         scoring::cost_maps_npy_until(l.model(), w, h, &|| stop.is_set())
     })
@@ -532,7 +532,7 @@ pub async fn overlay(
     let permit = l.work_permit(state).await?;
     let cancel = Cancel::new();
     let stop = cancel.flag();
-    let png = tokio::task::spawn_blocking(move || {
+    let png = super::heavy::spawn(move || {
         let _permit = permit;
         scoring::overlay_png_until(
             l.spec(),
@@ -576,7 +576,7 @@ pub async fn bundle(
     let permit = l.work_permit(state).await?;
     let cancel = Cancel::new();
     let stop = cancel.flag();
-    let zip = tokio::task::spawn_blocking(move || {
+    let zip = super::heavy::spawn(move || {
         let _permit = permit;
         let maps = l.full_size_maps(&stop)?;
         scoring::bundle_zip(&l.bundle_parts(&content_type, &frame, &maps, &fits))
@@ -735,7 +735,7 @@ pub async fn score_npy<B: ChunkSource>(
     // Blocks go to one blocking worker through a channel of two: the upload goes on while a
     // block is scored, and at most three blocks are held at once.
     let (tx, mut rx) = tokio::sync::mpsc::channel::<Vec<u8>>(2);
-    let worker = tokio::task::spawn_blocking(move || {
+    let worker = super::heavy::spawn(move || {
         let mut scorer = scorer;
         while let Some(block) = rx.blocking_recv() {
             scorer.block(&block)?;

@@ -67,7 +67,7 @@ pub async fn store_frame(
     let limits = state.limits.clone();
     let permit = state.heavy_permits.acquire().await?;
     // Decoding is CPU work: keep it off the async workers.
-    let (bytes, decoded) = tokio::task::spawn_blocking(move || {
+    let (bytes, decoded) = super::heavy::spawn(move || {
         let _permit = permit;
         let r = images::decode(
             &bytes,

@@ -271,7 +271,7 @@ pub async fn bundle(
     let permit = state.heavy_permits.acquire().await?;
     let cancel = super::heavy::Cancel::new();
     let stop = cancel.flag();
-    let zip = tokio::task::spawn_blocking(move || {
+    let zip = super::heavy::spawn(move || {
         let _permit = permit;
         let maps = loaded
             .iter()

@@ -72,7 +72,7 @@ pub async fn check_document(
     let cancel = Cancel::new();
     let stop = cancel.flag();
     // Mask decoding and checks are CPU work: keep them off the async workers.
-    let checked = tokio::task::spawn_blocking(move || {
+    let checked = super::heavy::spawn(move || {
         let _permit = permit;
         let spec = check_against_camera_until(doc, &camera, &limits, &grids, &stop)?;
         Ok((spec, camera))

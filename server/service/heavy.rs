@@ -74,6 +74,38 @@ impl Default for Heavy {
     }
 }
 
+/// The scheduling priority ("nice" value) heavy work runs at: below the async workers and the
+/// database's threads (nice 0), so that on a machine whose cores the heavy work fills,
+/// `/healthz`, sign-ins and document reads still get the CPU when they need it.
+pub const HEAVY_NICE: i32 = 10;
+
+/// Lowers the calling thread's priority to [`HEAVY_NICE`] (Linux; elsewhere nothing). A thread
+/// cannot raise its priority again without privileges, so this is for threads that do heavy
+/// work: rayon's pool (set at its start) and the blocking threads of [`spawn`].
+pub fn lower_this_thread() {
+    #[cfg(target_os = "linux")]
+    // SAFETY: plain system calls on the calling thread, with no pointers; a failure (not
+    // permitted, say) leaves the priority as it was, which is harmless.
+    unsafe {
+        let tid = libc::syscall(libc::SYS_gettid) as libc::id_t;
+        if libc::getpriority(libc::PRIO_PROCESS, tid) < HEAVY_NICE {
+            libc::setpriority(libc::PRIO_PROCESS, tid, HEAVY_NICE);
+        }
+    }
+}
+
+/// Runs heavy CPU work on tokio's blocking threads, at [`HEAVY_NICE`].
+pub fn spawn<F, R>(f: F) -> tokio::task::JoinHandle<R>
+where
+    F: FnOnce() -> R + Send + 'static,
+    R: Send + 'static,
+{
+    tokio::task::spawn_blocking(move || {
+        lower_this_thread();
+        f()
+    })
+}
+
 /// Heavy computations that stopped early because their client hung up, since the process
 /// started (`goalsmith_heavy_stopped_total` in `/metrics`).
 static STOPPED_EARLY: AtomicU64 = AtomicU64::new(0);
@@ -165,6 +197,35 @@ mod tests {
             .expect("the waiter gets the permit");
         assert_eq!(h.waiting.load(Ordering::SeqCst), 0);
         assert!(h.acquire().await.is_ok());
+    }
+
+    /// The calling thread's nice value (Linux).
+    #[cfg(target_os = "linux")]
+    fn nice_now() -> i32 {
+        // SAFETY: system calls on the calling thread, with no pointers.
+        unsafe { libc::getpriority(libc::PRIO_PROCESS, libc::syscall(libc::SYS_gettid) as _) }
+    }
+
+    #[cfg(target_os = "linux")]
+    #[tokio::test]
+    async fn heavy_work_runs_below_the_async_workers() {
+        let worker = nice_now();
+        let heavy = spawn(nice_now).await.expect("join");
+        assert!(heavy >= HEAVY_NICE, "heavy work at nice {heavy}");
+        // The caller's own thread is left as it was.
+        assert_eq!(nice_now(), worker);
+        // A thread already lower than that is not raised.
+        let lowest = std::thread::spawn(|| {
+            // SAFETY: a system call on the calling thread.
+            unsafe {
+                libc::setpriority(libc::PRIO_PROCESS, libc::syscall(libc::SYS_gettid) as _, 19)
+            };
+            lower_this_thread();
+            nice_now()
+        })
+        .join()
+        .expect("join");
+        assert_eq!(lowest, 19);
     }
 
     #[test]

@@ -673,7 +673,7 @@ pub async fn reward_map_png(state: &AppState, who: &Principal, id: &str) -> Serv
         })
         .collect();
     let permit = state.heavy_permits.acquire().await?;
-    tokio::task::spawn_blocking(move || {
+    super::heavy::spawn(move || {
         let _permit = permit;
         let frame = image::load_from_memory(&image)
             .map_err(|e| ServiceError::Internal(format!("stored frame unreadable: {e}")))?
@@ -765,7 +765,7 @@ pub(super) async fn run(
     let fit_settings = settings.fit_settings();
     let cap = fit_settings.lbfgs.max_iterations.max(1) as f64;
     let p = progress.clone();
-    let fitted = tokio::task::spawn_blocking(move || {
+    let fitted = super::heavy::spawn(move || {
         // The fit's trace so far, streamed as the operation's detail.
         let mut trace: Vec<[f64; 3]> = Vec::new();
         let mut last = None::<irl::IterationReport>;

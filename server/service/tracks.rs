@@ -478,7 +478,7 @@ pub(super) async fn run(
     let handle = tokio::runtime::Handle::current();
     let total = (forward.len() + backward.len()).max(1) as f64;
     let p = progress.clone();
-    let out = tokio::task::spawn_blocking(move || -> Result<Vec<SampleRow>, RunError> {
+    let out = super::heavy::spawn(move || -> Result<Vec<SampleRow>, RunError> {
         let build = |k: i64, sha: &String| -> Result<Pyramid, RunError> {
             let (content_type, bytes) = handle
                 .block_on(store::frames::image_bytes(&store, sha))
