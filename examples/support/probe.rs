@@ -572,13 +572,7 @@ pub fn burst(
 /// poller, and the server). Without this, one poll in a few hundred waited over 100 ms for its
 /// own turn on the CPU while the server had answered within a few milliseconds.
 fn lowest_priority() {
-    #[cfg(target_os = "linux")]
-    // SAFETY: plain system calls on the calling thread, with no pointers; a failure leaves the
-    // priority as it was.
-    unsafe {
-        let tid = libc::syscall(libc::SYS_gettid) as libc::id_t;
-        libc::setpriority(libc::PRIO_PROCESS, tid, 19);
-    }
+    goalsmith::service::heavy::lower_this_thread_to(19);
 }
 
 /// From the server's `/metrics` (read from loopback): `/healthz` answers so far, and how many

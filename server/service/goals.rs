@@ -63,9 +63,10 @@ pub async fn check_document(
         .terms
         .iter()
         .any(|t| matches!(t, TermDocument::Mask { .. }));
-    let permit = match has_masks {
-        true => Some(state.heavy_permits.acquire().await?),
-        false => None,
+    let permit = if has_masks {
+        Some(state.heavy_permits.acquire().await?)
+    } else {
+        None
     };
     // Part of the handler's future: a client that hangs up drops it, and the check stops
     // before its next mask.

@@ -83,15 +83,23 @@ pub const HEAVY_NICE: i32 = 10;
 /// cannot raise its priority again without privileges, so this is for threads that do heavy
 /// work: rayon's pool (set at its start) and the blocking threads of [`spawn`].
 pub fn lower_this_thread() {
+    lower_this_thread_to(HEAVY_NICE);
+}
+
+/// Lowers the calling thread's priority to the nice value `nice` (Linux; elsewhere nothing);
+/// a thread already at or below it is left as it is.
+pub fn lower_this_thread_to(nice: i32) {
     #[cfg(target_os = "linux")]
     // SAFETY: plain system calls on the calling thread, with no pointers; a failure (not
     // permitted, say) leaves the priority as it was, which is harmless.
     unsafe {
         let tid = libc::syscall(libc::SYS_gettid) as libc::id_t;
-        if libc::getpriority(libc::PRIO_PROCESS, tid) < HEAVY_NICE {
-            libc::setpriority(libc::PRIO_PROCESS, tid, HEAVY_NICE);
+        if libc::getpriority(libc::PRIO_PROCESS, tid) < nice {
+            libc::setpriority(libc::PRIO_PROCESS, tid, nice);
         }
     }
+    #[cfg(not(target_os = "linux"))]
+    let _ = nice;
 }
 
 /// Runs heavy CPU work on tokio's blocking threads, at [`HEAVY_NICE`].
@@ -216,10 +224,7 @@ mod tests {
         assert_eq!(nice_now(), worker);
         // A thread already lower than that is not raised.
         let lowest = std::thread::spawn(|| {
-            // SAFETY: a system call on the calling thread.
-            unsafe {
-                libc::setpriority(libc::PRIO_PROCESS, libc::syscall(libc::SYS_gettid) as _, 19)
-            };
+            lower_this_thread_to(19);
             lower_this_thread();
             nice_now()
         })
