@@ -28,13 +28,15 @@ const PARSE_ERRORS: &[(&[u8], &str, &str, &str)] = &[
         b"414",
         "URI Too Long",
         "uri_too_long",
-        "the request's URI is longer than the server reads (64 KiB)",
+        "the request's URI is longer than the server reads (64 KiB); keep ids and query \
+         parameters in the URI and send data in the request body",
     ),
     (
         b"431",
         "Request Header Fields Too Large",
         "headers_too_large",
-        "the request's head (request line and headers) is larger than the server reads",
+        "the request's head (request line and headers) is larger than the server reads \
+         (about 400 KiB); send fewer or shorter headers",
     ),
 ];
 
