@@ -7,8 +7,8 @@
 //! `cost` times the map kernel (N=200, T=10, P=2 at 64×64 and 128×128, steps `all`, float32
 //! and float16, on one thread and on all cores), the point kernel (N=10000, T=10, P=4) and,
 //! as the yardstick for a memory-bound kernel, one thread summing a 512 MiB float32 buffer
-//! (`memory_read`, read as four streams with the same wide registers and prefetching as the
-//! kernel, which also reads four maps at once, so the ratio compares like with like). Map rows
+//! (`memory_read`, read as one stream with the same wide registers and prefetching as the
+//! kernel, which also reads its maps one after another, so the ratio compares like with like). Map rows
 //! carry `gb_per_s` (bytes of maps read per second), `memory_ratio` = their `gb_per_s` ÷
 //! the 512 MiB `memory_read` rate, and `vs_f32` = their median ÷ the float32 median of the
 //! same size and threads; the float32 and float16 runs of one size and thread count take

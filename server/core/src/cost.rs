@@ -921,15 +921,17 @@ const BLOCK: usize = 1024;
 /// Independent float32 accumulators, so the compiler can keep several vector registers busy.
 const LANES: usize = 16;
 
-/// How far ahead of the read position the map kernels ask for data, in bytes. The hardware
-/// prefetcher alone leaves single-thread streaming well below the memory's rate on the machines
-/// we measured; explicit prefetches 2 KiB ahead gain about 40 % (see `bench`).
-const PREFETCH_BYTES: usize = 2048;
-
-/// Prefetch distance per map in the grouped kernel: with four maps in flight, 1 KiB ahead of
-/// each (4 KiB in all) measured as fast as or faster than 2 KiB on the 64×64 batch, equal on
-/// 128×128.
-const GROUP_PREFETCH_BYTES: usize = 1024;
+/// How far ahead of the read position the map kernels ask for data, in bytes. The kernels read
+/// a batch's maps one after another in memory order, one stream, and prefetch into whatever
+/// follows the map they are reading (the next map, for all but the last). The hardware
+/// prefetcher alone leaves one thread's streaming well below the memory's rate, and a prefetch
+/// must be issued far ahead to hide the memory's latency. On the 200 × 10 × 2 × 64² batch, one
+/// thread, an AMD EPYC (Zen 5) read float32 maps in 1.67–1.70 ms and float16 maps in
+/// 0.87–0.94 ms at 8 KiB ahead, against 1.76–1.77 and 0.94–0.98 ms at 6 KiB and 1.84 and
+/// 1.14 ms at 4 KiB; 10 to 24 KiB were no faster. Reading four maps at once instead (four
+/// streams, each load of the cost map serving all four, the best distance 3 KiB ahead in each)
+/// took 1.89 and 1.15 ms there, so the kernels read one map at a time.
+const PREFETCH_BYTES: usize = 8192;
 
 /// Hints the CPU to fetch the cache line at `p` into L1. Any address is allowed.
 #[inline(always)]
@@ -1013,20 +1015,6 @@ fn dot_min_f32_portable(a: &[f32], b: &[f32]) -> (f64, f32) {
 /// A kernel's result for one map: Σ a·b and the minimum of `a`.
 type SumMin = (f64, f32);
 
-/// Maps of one point scored in one call of a kernel; see [`PreparedMaps::run`].
-const GROUP: usize = 4;
-
-/// A one-map kernel applied map by map, for [`PreparedMaps::run`].
-fn each<T>(
-    dot: impl Fn(&[T], &[f32]) -> (f64, f32) + Sync,
-) -> impl Fn(&[&[T]], &[f32], &mut [SumMin]) + Sync {
-    move |a, b, out| {
-        for (x, o) in a.iter().zip(out.iter_mut()) {
-            *o = dot(x, b);
-        }
-    }
-}
-
 /// As [`dot_min_f32`] for float16 `a`, converted block by block into a stack buffer. The lanes
 /// and their float64 totals are those of [`dot_min_f32`], and float16 → float32 is exact, so
 /// the result is bit-identical to [`dot_min_f32`] of the maps converted to float32: a float16
@@ -1049,35 +1037,21 @@ fn dot_min_f16(a: &[f16], b: &[f32]) -> (f64, f32) {
     lanes_result(&total, &mn)
 }
 
-/// Sum of a float32 buffer read as four streams (its quarters, 16 lanes each) with the
-/// grouped kernel's prefetching: the fastest plain streaming read we have (four streams read
-/// faster than one here, as they do in the grouped map kernel), the yardstick the benchmarks
-/// compare the map kernel with.
+/// Sum of a float32 buffer read as one stream in 16 lanes with the map kernels' prefetching
+/// ([`PREFETCH_BYTES`] ahead): a plain streaming read, the yardstick the benchmarks compare the
+/// map kernel with.
 pub(crate) fn streaming_sum(data: &[f32]) -> f32 {
     #[inline(always)]
     fn sum(data: &[f32]) -> f32 {
-        let part = data.len() / 4 / LANES * LANES;
-        let (body, rest) = data.split_at(part * 4);
-        let (q0, q) = body.split_at(part);
-        let (q1, q) = q.split_at(part);
-        let (q2, q3) = q.split_at(part);
-        let mut acc = [[0.0f32; LANES]; 4];
-        let quarters = q0
-            .chunks_exact(LANES)
-            .zip(q1.chunks_exact(LANES))
-            .zip(q2.chunks_exact(LANES).zip(q3.chunks_exact(LANES)));
-        for ((c0, c1), (c2, c3)) in quarters {
-            for c in [c0, c1, c2, c3] {
-                prefetch(c.as_ptr().cast::<u8>().wrapping_add(GROUP_PREFETCH_BYTES));
-            }
+        let mut acc = [0.0f32; LANES];
+        let mut chunks = data.chunks_exact(LANES);
+        for c in &mut chunks {
+            prefetch(c.as_ptr().cast::<u8>().wrapping_add(PREFETCH_BYTES));
             for l in 0..LANES {
-                acc[0][l] += c0[l];
-                acc[1][l] += c1[l];
-                acc[2][l] += c2[l];
-                acc[3][l] += c3[l];
+                acc[l] += c[l];
             }
         }
-        acc.iter().flatten().sum::<f32>() + rest.iter().sum::<f32>()
+        acc.iter().sum::<f32>() + chunks.remainder().iter().sum::<f32>()
     }
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2")]
@@ -1097,7 +1071,7 @@ pub(crate) fn streaming_sum(data: &[f32]) -> f32 {
 /// operations are the same, only wider registers carry them (and float16 → float32 is exact).
 #[cfg(target_arch = "x86_64")]
 mod x86 {
-    use super::{BLOCK, GROUP_PREFETCH_BYTES, LANES, SumMin, prefetch};
+    use super::{BLOCK, LANES, PREFETCH_BYTES, SumMin, prefetch};
     use half::f16;
     use std::arch::x86_64::{
         __m256, _mm_loadu_si128, _mm256_add_ps, _mm256_cvtph_ps, _mm256_loadu_ps, _mm256_min_ps,
@@ -1139,157 +1113,86 @@ mod x86 {
         }
     }
 
-    /// [`super::dot_min_f32`] for `G` maps against the same cost map `b` in one pass, so each
-    /// load of `b` serves `G` maps and `G` independent streams keep the memory busy. Per map
-    /// the lanes, their order and the float32 operations are those of the portable kernel
-    /// (two 8-wide registers of the 16 lanes, a separate multiply and add, the remainder in
-    /// lane 0, lane totals in float64 every [`BLOCK`] values), so each result is bit-identical
-    /// to `dot_min_f32(a[g], b)`, or for float16 maps to `dot_min_f16(a[g], b)` (F16C converts
-    /// exactly, as the portable conversion does). Every `a[g]` must have the length of `b`.
-    /// Inlined into [`dot_min_f32_group`] and [`dot_min_f16_group`], which enable the CPU
+    /// [`super::dot_min_f32`] in 8-wide registers. The lanes, their order and the float32
+    /// operations are those of the portable kernel (two registers of the 16 lanes, a separate
+    /// multiply and add, the remainder in lane 0, lane totals in float64 every [`BLOCK`]
+    /// values), so the result is bit-identical to `dot_min_f32(a, b)`, or for float16 maps to
+    /// `dot_min_f16(a, b)` (F16C converts exactly, as the portable conversion does). `a` must
+    /// have the length of `b`. Prefetches [`PREFETCH_BYTES`] ahead of `a`, into whatever follows
+    /// it. Inlined into [`dot_min_f32_avx2`] and [`dot_min_f16_avx2`], which enable the CPU
     /// features that the loads need.
     #[inline(always)]
-    fn dot_min_group<T: MapValue, const G: usize>(a: [&[T]; G], b: &[f32]) -> [SumMin; G] {
+    fn dot_min<T: MapValue>(a: &[T], b: &[f32]) -> SumMin {
         let len = b.len();
-        assert!(
-            a.iter().all(|x| x.len() == len),
-            "maps and cost map differ in length"
-        );
+        assert_eq!(a.len(), len, "map and cost map differ in length");
         let bytes = std::mem::size_of::<T>();
-        let mut total = [[0.0f64; LANES]; G];
+        let ahead = a.as_ptr().cast::<u8>().wrapping_add(PREFETCH_BYTES);
+        let mut total = [0.0f64; LANES];
         // SAFETY (all intrinsics below): the callers enable AVX2 (and F16C for float16).
-        let mut m = [unsafe { _mm256_set1_ps(f32::INFINITY) }; G];
+        let mut m = unsafe { _mm256_set1_ps(f32::INFINITY) };
         let mut start = 0;
         while start < len {
             let block = (len - start).min(BLOCK);
             let full = block - block % LANES;
-            let mut acc = [[unsafe { _mm256_setzero_ps() }; 2]; G];
+            let mut acc = [unsafe { _mm256_setzero_ps() }; 2];
             let mut k = start;
             while k < start + full {
-                // SAFETY (loads): k + 16 ≤ len, and every `a[g]` and `b` hold `len` values.
-                let (y0, y1) = unsafe {
-                    (
+                prefetch(ahead.wrapping_add(k * bytes));
+                // SAFETY (loads): k + 16 ≤ len, and `a` and `b` hold `len` values.
+                unsafe {
+                    let (y0, y1) = (
                         _mm256_loadu_ps(b.as_ptr().add(k)),
                         _mm256_loadu_ps(b.as_ptr().add(k + 8)),
-                    )
-                };
-                for g in 0..G {
-                    let base = a[g].as_ptr();
-                    prefetch(
-                        base.cast::<u8>()
-                            .wrapping_add(k * bytes + GROUP_PREFETCH_BYTES),
                     );
-                    unsafe {
-                        let (x0, x1) = (T::load8(base.add(k)), T::load8(base.add(k + 8)));
-                        acc[g][0] = _mm256_add_ps(acc[g][0], _mm256_mul_ps(x0, y0));
-                        acc[g][1] = _mm256_add_ps(acc[g][1], _mm256_mul_ps(x1, y1));
-                        // min(x, m) = x < m ? x : m, as the portable lanes; the minimum's value
-                        // does not depend on the order the lanes are folded in.
-                        m[g] = _mm256_min_ps(_mm256_min_ps(x0, x1), m[g]);
-                    }
+                    let (x0, x1) = (T::load8(a.as_ptr().add(k)), T::load8(a.as_ptr().add(k + 8)));
+                    acc[0] = _mm256_add_ps(acc[0], _mm256_mul_ps(x0, y0));
+                    acc[1] = _mm256_add_ps(acc[1], _mm256_mul_ps(x1, y1));
+                    // min(x, m) = x < m ? x : m, as the portable lanes; the minimum's value
+                    // does not depend on the order the lanes are folded in.
+                    m = _mm256_min_ps(_mm256_min_ps(x0, x1), m);
                 }
                 k += LANES;
             }
-            for g in 0..G {
-                let mut lanes = [0.0f32; LANES];
-                let mut mn = [f32::INFINITY; 8];
-                // SAFETY: both arrays hold at least the 8 floats each store writes.
-                unsafe {
-                    _mm256_storeu_ps(lanes.as_mut_ptr(), acc[g][0]);
-                    _mm256_storeu_ps(lanes.as_mut_ptr().add(8), acc[g][1]);
-                    _mm256_storeu_ps(mn.as_mut_ptr(), m[g]);
-                }
-                let tail = start + full..start + block;
-                for (x, y) in a[g][tail.clone()].iter().zip(&b[tail]) {
-                    let x = x.to_f32();
-                    lanes[0] += x * y;
-                    mn[0] = if x < mn[0] { x } else { mn[0] };
-                }
-                // SAFETY: `mn` holds 8 floats.
-                m[g] = unsafe { _mm256_loadu_ps(mn.as_ptr()) };
-                for l in 0..LANES {
-                    total[g][l] += f64::from(lanes[l]);
-                }
+            let mut lanes = [0.0f32; LANES];
+            let mut mn = [f32::INFINITY; 8];
+            // SAFETY: both arrays hold at least the 8 floats each store writes.
+            unsafe {
+                _mm256_storeu_ps(lanes.as_mut_ptr(), acc[0]);
+                _mm256_storeu_ps(lanes.as_mut_ptr().add(8), acc[1]);
+                _mm256_storeu_ps(mn.as_mut_ptr(), m);
+            }
+            let tail = start + full..start + block;
+            for (x, y) in a[tail.clone()].iter().zip(&b[tail]) {
+                let x = x.to_f32();
+                lanes[0] += x * y;
+                mn[0] = if x < mn[0] { x } else { mn[0] };
+            }
+            // SAFETY: `mn` holds 8 floats.
+            m = unsafe { _mm256_loadu_ps(mn.as_ptr()) };
+            for l in 0..LANES {
+                total[l] += f64::from(lanes[l]);
             }
             start += block;
         }
-        std::array::from_fn(|g| {
-            let mut mn = [f32::INFINITY; 8];
-            // SAFETY: `mn` holds 8 floats.
-            unsafe { _mm256_storeu_ps(mn.as_mut_ptr(), m[g]) };
-            (
-                total[g].iter().sum(),
-                mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)),
-            )
-        })
+        let mut mn = [f32::INFINITY; 8];
+        // SAFETY: `mn` holds 8 floats.
+        unsafe { _mm256_storeu_ps(mn.as_mut_ptr(), m) };
+        (
+            total.iter().sum(),
+            mn.iter().fold(f32::INFINITY, |m, &v| m.min(v)),
+        )
     }
 
-    /// [`dot_min_group`] for float32 maps.
+    /// [`dot_min`] for float32 maps.
     #[target_feature(enable = "avx2")]
-    pub(super) fn dot_min_f32_group<const G: usize>(a: [&[f32]; G], b: &[f32]) -> [SumMin; G] {
-        dot_min_group(a, b)
+    pub(super) fn dot_min_f32_avx2(a: &[f32], b: &[f32]) -> SumMin {
+        dot_min(a, b)
     }
 
-    /// [`dot_min_group`] for float16 maps.
+    /// [`dot_min`] for float16 maps.
     #[target_feature(enable = "avx2,f16c")]
-    pub(super) fn dot_min_f16_group<const G: usize>(a: [&[f16]; G], b: &[f32]) -> [SumMin; G] {
-        dot_min_group(a, b)
-    }
-
-    /// Calls `group` with the maps of `a` as an array (up to [`super::GROUP`] of them, one by
-    /// one beyond) and puts the results into `out`.
-    #[inline(always)]
-    fn by_count<T: Copy>(
-        a: &[&[T]],
-        out: &mut [SumMin],
-        one: impl Fn([&[T]; 1]) -> [SumMin; 1],
-        two: impl Fn([&[T]; 2]) -> [SumMin; 2],
-        three: impl Fn([&[T]; 3]) -> [SumMin; 3],
-        four: impl Fn([&[T]; 4]) -> [SumMin; 4],
-    ) {
-        match *a {
-            [a0] => out[..1].copy_from_slice(&one([a0])),
-            [a0, a1] => out[..2].copy_from_slice(&two([a0, a1])),
-            [a0, a1, a2] => out[..3].copy_from_slice(&three([a0, a1, a2])),
-            [a0, a1, a2, a3] => out[..4].copy_from_slice(&four([a0, a1, a2, a3])),
-            _ => {
-                for (x, o) in a.iter().zip(out.iter_mut()) {
-                    *o = one([*x])[0];
-                }
-            }
-        }
-    }
-
-    /// [`dot_min_f32_group`] for up to [`super::GROUP`] maps, results into `out`.
-    ///
-    /// # Safety
-    /// The CPU must support AVX2.
-    #[target_feature(enable = "avx2")]
-    pub(super) unsafe fn dot_min_f32_avx2(a: &[&[f32]], b: &[f32], out: &mut [SumMin]) {
-        by_count(
-            a,
-            out,
-            |x| dot_min_f32_group(x, b),
-            |x| dot_min_f32_group(x, b),
-            |x| dot_min_f32_group(x, b),
-            |x| dot_min_f32_group(x, b),
-        );
-    }
-
-    /// [`dot_min_f16_group`] for up to [`super::GROUP`] maps, results into `out`.
-    ///
-    /// # Safety
-    /// The CPU must support AVX2 and F16C.
-    #[target_feature(enable = "avx2,f16c")]
-    pub(super) unsafe fn dot_min_f16_avx2(a: &[&[f16]], b: &[f32], out: &mut [SumMin]) {
-        by_count(
-            a,
-            out,
-            |x| dot_min_f16_group(x, b),
-            |x| dot_min_f16_group(x, b),
-            |x| dot_min_f16_group(x, b),
-            |x| dot_min_f16_group(x, b),
-        );
+    pub(super) fn dot_min_f16_avx2(a: &[f16], b: &[f32]) -> SumMin {
+        dot_min(a, b)
     }
 }
 
@@ -1335,14 +1238,12 @@ impl PreparedMaps {
                 #[cfg(target_arch = "x86_64")]
                 if std::arch::is_x86_feature_detected!("avx2") {
                     // SAFETY: the CPU has AVX2 (checked just above).
-                    let dot = |a: &[&[f32]], b: &[f32], out: &mut [(f64, f32)]| unsafe {
-                        x86::dot_min_f32_avx2(a, b, out)
-                    };
+                    let dot = |a: &[f32], b: &[f32]| unsafe { x86::dot_min_f32_avx2(a, b) };
                     return self
                         .run(v, &mut per, t, steps, parallel, dot)
                         .and_then(|()| finish(per, np));
                 }
-                self.run(v, &mut per, t, steps, parallel, each(dot_min_f32_portable))
+                self.run(v, &mut per, t, steps, parallel, dot_min_f32_portable)
             }
             MapBatch::F16(v) => {
                 #[cfg(target_arch = "x86_64")]
@@ -1350,23 +1251,21 @@ impl PreparedMaps {
                     && std::arch::is_x86_feature_detected!("f16c")
                 {
                     // SAFETY: the CPU has AVX2 and F16C (checked just above).
-                    let dot = |a: &[&[f16]], b: &[f32], out: &mut [SumMin]| unsafe {
-                        x86::dot_min_f16_avx2(a, b, out)
-                    };
+                    let dot = |a: &[f16], b: &[f32]| unsafe { x86::dot_min_f16_avx2(a, b) };
                     return self
                         .run(v, &mut per, t, steps, parallel, dot)
                         .and_then(|()| finish(per, np));
                 }
-                self.run(v, &mut per, t, steps, parallel, each(dot_min_f16))
+                self.run(v, &mut per, t, steps, parallel, dot_min_f16)
             }
         };
         result?;
         finish(per, np)
     }
 
-    /// Adds each candidate's weighted per-point costs into `per`. `dot` scores up to
-    /// [`GROUP`] maps of one point (several steps) against that point's kernel map in one call,
-    /// so a wide kernel can share the kernel map's loads between them.
+    /// Adds each candidate's weighted per-point costs into `per`. `dot` scores one map
+    /// against its point's cost map; the maps are read in memory order (step by step, point by
+    /// point), so the batch is one stream that `dot`'s prefetching keeps ahead of.
     fn run<T: Sync>(
         &self,
         maps: &[T],
@@ -1374,49 +1273,30 @@ impl PreparedMaps {
         t: usize,
         steps: std::ops::Range<usize>,
         parallel: bool,
-        dot: impl Fn(&[&[T]], &[f32], &mut [SumMin]) + Sync,
+        dot: impl Fn(&[T], &[f32]) -> SumMin + Sync,
     ) -> Result<(), CostError> {
         let np = self.points();
         let plane = self.width * self.height;
         let stride = t * np * plane;
-        let at = |s: usize, p: usize| (s * np + p) * plane..(s * np + p + 1) * plane;
-        let good = |(sum, min): (f64, f32)| sum.is_finite() && min >= 0.0;
         let score = |cand: &[T], out: &mut [f64]| -> Result<(), (usize, usize)> {
-            let mut first = steps.start;
-            while first < steps.end {
-                let count = (steps.end - first).min(GROUP);
-                let group = first..first + count;
-                for (p, acc) in out.iter_mut().enumerate() {
-                    let kernel = &self.kernel[p * plane..(p + 1) * plane];
-                    let mut slices: [&[T]; GROUP] = [&[]; GROUP];
-                    for (slot, s) in slices.iter_mut().zip(group.clone()) {
-                        *slot = &cand[at(s, p)];
+            for s in steps.clone() {
+                let row = &cand[s * np * plane..(s + 1) * np * plane];
+                let kernels = self.kernel.chunks_exact(plane);
+                for (p, ((map, kernel), acc)) in row
+                    .chunks_exact(plane)
+                    .zip(kernels)
+                    .zip(out.iter_mut())
+                    .enumerate()
+                {
+                    let (sum, min) = dot(map, kernel);
+                    if !(sum.is_finite() && min >= 0.0) {
+                        return Err((s, p));
                     }
-                    let mut res = [(0.0, 0.0); GROUP];
-                    dot(&slices[..count], kernel, &mut res[..count]);
-                    if !res[..count].iter().all(|&r| good(r)) {
-                        // Name the first bad map in (step, point) order, as a one-map pass
-                        // would: later points of earlier steps in this group are unread yet.
-                        for s in group.clone() {
-                            for q in 0..np {
-                                let mut one = [(0.0, 0.0)];
-                                let k = &self.kernel[q * plane..(q + 1) * plane];
-                                dot(&[&cand[at(s, q)]], k, &mut one);
-                                if !good(one[0]) {
-                                    return Err((s, q));
-                                }
-                            }
-                        }
-                        return Err((first, p));
-                    }
-                    for &(sum, _) in &res[..count] {
-                        *acc += match self.settings.mode {
-                            Mode::Expected => sum,
-                            Mode::Hit => hit_cost(sum),
-                        };
-                    }
+                    *acc += match self.settings.mode {
+                        Mode::Expected => sum,
+                        Mode::Hit => hit_cost(sum),
+                    };
                 }
-                first += count;
             }
             for (acc, w) in out.iter_mut().zip(&self.weights) {
                 *acc *= w;
@@ -1958,33 +1838,9 @@ mod tests {
             let a16_as_f32: Vec<f32> = a16.iter().map(|v| v.to_f32()).collect();
             // The portable float16 kernel scores exactly as float32 does on the converted maps.
             prop_assert_eq!(dot_min_f16(&a16, &b), dot_min_f32::<false>(&a16_as_f32, &b));
-            // Groups of one to five maps (the others are shifted copies), both types.
-            let shifted = |r: usize| {
-                let mut v = a.clone();
-                let mut v16 = a16.clone();
-                if len > 0 {
-                    v.rotate_left(r * 7 % len);
-                    v16.rotate_left(r * 7 % len);
-                }
-                (v, v16)
-            };
-            let (rot, rot16): (Vec<Vec<f32>>, Vec<Vec<f16>>) = (0..4).map(shifted).unzip();
-            for g in 1..=5 {
-                let group: Vec<&[f32]> = (0..g).map(|r| rot[r % 4].as_slice()).collect();
-                let mut out = vec![(0.0, 0.0); g];
-                // SAFETY: both features were detected above.
-                unsafe { x86::dot_min_f32_avx2(&group, &b, &mut out) };
-                for (r, got) in out.iter().enumerate() {
-                    prop_assert_eq!(*got, dot_min_f32::<false>(&rot[r % 4], &b));
-                }
-                let group16: Vec<&[f16]> = (0..g).map(|r| rot16[r % 4].as_slice()).collect();
-                let mut out16 = vec![(0.0, 0.0); g];
-                // SAFETY: both features were detected above.
-                unsafe { x86::dot_min_f16_avx2(&group16, &b, &mut out16) };
-                for (r, got) in out16.iter().enumerate() {
-                    prop_assert_eq!(*got, dot_min_f16(&rot16[r % 4], &b));
-                }
-            }
+            // SAFETY (both calls): both features were detected above.
+            prop_assert_eq!(unsafe { x86::dot_min_f32_avx2(&a, &b) }, dot_min_f32::<false>(&a, &b));
+            prop_assert_eq!(unsafe { x86::dot_min_f16_avx2(&a16, &b) }, dot_min_f16(&a16, &b));
         }
 
         #[test]
@@ -2159,8 +2015,7 @@ mod tests {
     }
 
     #[test]
-    fn grouped_steps_sum_in_step_order_and_report_the_first_bad_map() {
-        // T = 7: groups of four and three steps per point in the wide kernel.
+    fn steps_sum_in_step_order_and_report_the_first_bad_map() {
         let (n, t, np, w, h) = (3usize, 7usize, 4usize, 9usize, 5usize);
         let plane = w * h;
         let prepared = mixed_model(Steps::All, Mode::Expected)
@@ -2201,7 +2056,7 @@ mod tests {
         );
     }
 
-    /// float16 batches go through the grouped kernel too (on AVX2 + F16C machines): for every
+    /// float16 batches go through the wide kernel too (on AVX2 + F16C machines): for every
     /// steps and mode setting, a float16 batch scores bit for bit as its float32 conversion,
     /// and the first bad map is named as for float32.
     #[test]

@@ -114,7 +114,13 @@ def _flush_caches():
 
 
 def median_ms(fns, rounds, state="warm"):
-    """Runs the functions in turn, `rounds` times, and returns each one's median in ms.
+    """Runs the functions in turn, `rounds` times, and returns each one's median in ms."""
+    return {k: statistics.median(v) for k, v in times_ms(fns, rounds, state).items()}
+
+
+def times_ms(fns, rounds, state="warm"):
+    """Runs the functions in turn, `rounds` times, and returns each one's times in ms, round
+    by round (entry i of every list is from the same round).
 
     Every timed call starts from the same cache state, whatever ran before it: ``"warm"``, the
     call just made once untimed (its inputs as hot as the caches can keep them, as maps that a
@@ -131,7 +137,16 @@ def median_ms(fns, rounds, state="warm"):
             t0 = time.perf_counter()
             f()
             times[k].append((time.perf_counter() - t0) * 1e3)
-    return {k: statistics.median(v) for k, v in times.items()}
+    return times
+
+
+def paired_ratio(slow, fast):
+    """Median and quartiles of slow[i] / fast[i]: each ratio compares two calls of one round,
+    made one after the other, so a change in the machine's load between rounds (it is shared)
+    moves both sides of a ratio together rather than one median and not the other."""
+    r = sorted(a / b for a, b in zip(slow, fast))
+    q = statistics.quantiles(r, n=4) if len(r) > 1 else [r[0]] * 3
+    return {"median": statistics.median(r), "q1": q[0], "q3": q[2]}
 
 
 def peak_rss_child():
@@ -163,7 +178,7 @@ def main():
     if args.peak_rss_child:
         peak_rss_child()
         return
-    rounds = 3 if args.quick else 15
+    rounds = 3 if args.quick else 31
     two, four = bundles()
     rng = np.random.default_rng(1)
     n, t, p, h, w = 200, 10, 2, 64, 64
@@ -182,14 +197,16 @@ def main():
     }
     states = {}
     for state in ("warm", "cold"):
-        ms = median_ms(contenders, rounds, state)
+        raw = times_ms(contenders, rounds, state)
+        ms = {k: statistics.median(v) for k, v in raw.items()}
         best = min((v, k) for k, v in ms.items() if k.startswith("numpy"))
         states[state] = {
             "maps_ms": ms,
             "numpy_fastest": best[1],
             "numpy_fastest_ms": best[0],
-            "f32_vs_numpy": best[0] / ms["goalsmith f32, 1 thread"],
-            "f16_vs_numpy_f32": best[0] / ms["goalsmith f16, 1 thread"],
+            # numpy's time ÷ goalsmith's, round by round: above 1 is faster than numpy.
+            "f32_vs_numpy": paired_ratio(raw[best[1]], raw["goalsmith f32, 1 thread"]),
+            "f16_vs_numpy_f32": paired_ratio(raw[best[1]], raw["goalsmith f16, 1 thread"]),
         }
     pts = rng.uniform(-10, 75, size=(10_000, 10, 4, 2))
     pts_ms = median_ms({
@@ -216,10 +233,13 @@ def main():
         print(f"| {k} | {states['warm']['maps_ms'][k]:.2f} ms | {states['cold']['maps_ms'][k]:.2f} ms |")
     for k, v in pts_ms.items():
         print(f"| {k} | {v:.2f} ms | |")
+    def ratio(r):
+        return f"{r['median']:.2f}× (quartiles {r['q1']:.2f}–{r['q3']:.2f})"
+
     for state, r in states.items():
         print(f"\n{state}: numpy's fastest is {r['numpy_fastest']} ({r['numpy_fastest_ms']:.2f} ms); "
-              f"goalsmith f32 is {r['f32_vs_numpy']:.2f}× numpy's speed, "
-              f"f16 {r['f16_vs_numpy_f32']:.2f}×.")
+              f"round by round, goalsmith f32 is {ratio(r['f32_vs_numpy'])} numpy's speed, "
+              f"f16 {ratio(r['f16_vs_numpy_f32'])}.")
     grow = (mem["hwm_after_kb"] - mem["hwm_before_kb"]) / 1024
     print(f"1 GiB f16 batch ({mem['batch_bytes'] / 2**30:.2f} GiB): peak RSS "
           f"{mem['hwm_before_kb'] / 1024:.0f} MiB before scoring, {mem['hwm_after_kb'] / 1024:.0f} "
