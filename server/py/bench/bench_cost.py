@@ -125,11 +125,15 @@ def times_ms(fns, rounds, state="warm"):
     Every timed call starts from the same cache state, whatever ran before it: ``"warm"``, the
     call just made once untimed (its inputs as hot as the caches can keep them, as maps that a
     model has just written are); ``"cold"``, the caches flushed first (inputs from memory).
-    Without this the order of the contenders decides which inputs the caches still hold.
+    Without this the order of the contenders decides which inputs the caches still hold. The
+    order rotates from round to round too, so that no contender always follows the same one
+    (whatever one leaves behind, such as dirty cache lines to write back, falls on each in turn).
     """
     times = {k: [] for k in fns}
-    for _ in range(rounds):
-        for k, f in fns.items():
+    names = list(fns)
+    for r in range(rounds):
+        for k in names[r % len(names):] + names[:r % len(names)]:
+            f = fns[k]
             if state == "cold":
                 _flush_caches()
             else:
