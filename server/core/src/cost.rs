@@ -926,7 +926,7 @@ const LANES: usize = 16;
 /// follows the map they are reading (the next map, for all but the last). The hardware
 /// prefetcher alone leaves one thread's streaming well below the memory's rate, and a prefetch
 /// must be issued far ahead to hide the memory's latency. On the 200 × 10 × 2 × 64² batch, one
-/// thread, an AMD EPYC (Zen 5) read float32 maps in 1.67–1.70 ms and float16 maps in
+/// thread, an AMD EPYC (CPU family 26, Zen 5) read float32 maps in 1.67–1.70 ms and float16 maps in
 /// 0.87–0.94 ms at 8 KiB ahead, against 1.76–1.77 and 0.94–0.98 ms at 6 KiB and 1.84 and
 /// 1.14 ms at 4 KiB; 10 to 24 KiB were no faster. Reading four maps at once instead (four
 /// streams, each load of the cost map serving all four, the best distance 3 KiB ahead in each)

@@ -10,8 +10,8 @@ same cache state (warm: just made once untimed; cold: after reading 1 GiB of oth
 
 - maps 200 × 10 × 2 × 64 × 64 float32 (65 MB) on one thread: Bundle.cost against numpy's
   fastest expression of the same sum Σ_u P(u)·M_p(u) (the best of einsum, matmul over strided
-  views and tensordot, with numpy's BLAS held to one thread by OPENBLAS_NUM_THREADS=1 set here
-  before numpy loads);
+  views, tensordot, a batched matmul and one GEMM with a block-diagonal kernel, with numpy's
+  BLAS held to one thread by OPENBLAS_NUM_THREADS=1 set here before numpy loads);
 - the same maps as float16 through Bundle.cost, against numpy's float32;
 - points N = 10 000, T = 10, P = 4, all steps, one thread and all cores;
 - memory: a 1 GiB float16 batch is scored and the peak resident set size before and after is
@@ -98,7 +98,19 @@ def numpy_variants(maps, kernel):
     def tensordot():
         return np.stack([np.tensordot(flat[:, :, q, :], k2[q], axes=([2], [0])) for q in range(p)], axis=-1)
 
-    return {"einsum": einsum, "matmul over strided views": matmul_views, "tensordot": tensordot}
+    def matmul_batched():
+        return (maps.reshape(n * t, p, 1, h * w) @ k2.reshape(p, h * w, 1)).reshape(n, t, p)
+
+    # One GEMM over all points at once: (N·T, P·hw) @ the (P·hw, P) block diagonal of the maps.
+    block = np.zeros((p * h * w, p), dtype=np.float32)
+    for q in range(p):
+        block[q * h * w:(q + 1) * h * w, q] = k2[q]
+
+    def gemm_block_diagonal():
+        return (maps.reshape(n * t, p * h * w) @ block).reshape(n, t, p)
+
+    return {"einsum": einsum, "matmul over strided views": matmul_views, "tensordot": tensordot,
+            "matmul batched": matmul_batched, "GEMM with a block-diagonal kernel": gemm_block_diagonal}
 
 
 _FLUSH = None
