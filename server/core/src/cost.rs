@@ -926,11 +926,13 @@ const LANES: usize = 16;
 /// follows the map they are reading (the next map, for all but the last). The hardware
 /// prefetcher alone leaves one thread's streaming well below the memory's rate, and a prefetch
 /// must be issued far ahead to hide the memory's latency. On the 200 × 10 × 2 × 64² batch, one
-/// thread, an AMD EPYC (CPU family 26, Zen 5) read float32 maps in 1.67–1.70 ms and float16 maps in
-/// 0.87–0.94 ms at 8 KiB ahead, against 1.76–1.77 and 0.94–0.98 ms at 6 KiB and 1.84 and
-/// 1.14 ms at 4 KiB; 10 to 24 KiB were no faster. Reading four maps at once instead (four
+/// thread, an AMD EPYC (CPU family 26, Zen 5) read float32 maps in 1.67–1.70 ms and float16
+/// maps in 0.87–0.94 ms at 8 KiB ahead, against 1.76–1.77 and 0.94–0.98 ms at 6 KiB and 1.84
+/// and 1.14 ms at 4 KiB; 10 to 24 KiB were no faster. Reading four maps at once instead (four
 /// streams, each load of the cost map serving all four, the best distance 3 KiB ahead in each)
-/// took 1.89 and 1.15 ms there, so the kernels read one map at a time.
+/// took 1.89 and 1.15 ms there, so the kernels read one map at a time. At 128² (a 64 KiB cost
+/// map per point) the four streams were a little faster (7.5 against 7.9 ms, 3.9 against
+/// 4.6 ms); one read pattern for every size was kept.
 const PREFETCH_BYTES: usize = 8192;
 
 /// Hints the CPU to fetch the cache line at `p` into L1. Any address is allowed.
