@@ -374,7 +374,9 @@ pub const LIGHT_WORK: usize = 4 << 20;
 /// bytes holds at most L / 4 coordinate pairs (`0,0,` is the shortest), and each costs one
 /// distance per point term, counted at its worst: 1 for point and learned targets, the vertex
 /// count for a region, the frame's width for a mask (a query scans at most the columns that
-/// hold painted pixels). Planners scoring small batches at a high rate at
+/// hold painted pixels); and twice that, since the body may ask for `"grad": true`, which
+/// evaluates every distance a second time with its gradient (the bound holds before the body
+/// is parsed). Planners scoring small batches at a high rate at
 /// many connections are then not shed with 503 `busy` behind the heavy queue, while a body
 /// that could ask for real work still waits for a permit.
 pub fn is_light_json(checked: &Checked, body_bytes: usize) -> bool {
@@ -392,7 +394,7 @@ pub fn is_light_json(checked: &Checked, body_bytes: usize) -> bool {
         })
         .max()
         .unwrap_or(1);
-    (body_bytes / 4).saturating_mul(per_pair) <= LIGHT_WORK
+    (body_bytes / 4).saturating_mul(per_pair).saturating_mul(2) <= LIGHT_WORK
 }
 
 /// Largest prepared map set kept in the cache (P·h·w float32 values and weights).
@@ -811,6 +813,23 @@ mod tests {
         let spec = scoring::spec_from_revision(&doc, 64, 48, &|_| None).expect("spec");
         let model = scoring::model(&spec).expect("model");
         std::sync::Arc::new((spec, model))
+    }
+
+    #[test]
+    fn light_json_counts_the_worst_case_work_with_gradients() {
+        // Point terms only: one distance per pair, twice with gradients. A body of L bytes
+        // holds L / 4 pairs, so 4 · LIGHT_WORK / 2 bytes is the most work allows, but the
+        // byte limit comes first.
+        let points = checked(false);
+        assert!(is_light_json(&points, LIGHT_JSON_BYTES));
+        assert!(!is_light_json(&points, LIGHT_JSON_BYTES + 1));
+        // With a mask on a 64-wide frame each pair counts 64 · 2: light up to
+        // LIGHT_WORK / 128 pairs, LIGHT_WORK / 32 bytes.
+        let mask = checked(true);
+        let edge = LIGHT_WORK / 32;
+        assert!(edge < LIGHT_JSON_BYTES);
+        assert!(is_light_json(&mask, edge));
+        assert!(!is_light_json(&mask, edge + 4));
     }
 
     #[test]
