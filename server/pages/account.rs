@@ -1,6 +1,6 @@
 //! Signing in and out, accepting an invite, changing one's password, switching teams.
 
-use super::error::{PageError, safe_next};
+use super::error::{PageError, PageQuery, safe_next};
 use super::render::{Chrome, ok, page, redirect, redirect_flash};
 use super::session::{
     CsrfForm, PreForm, SET_COOKIE, Signed, clear_session_cookie, form_cookie, session_cookie,
@@ -12,7 +12,7 @@ use crate::service::audit::AuditSlot;
 use crate::service::{AppState, ServiceError, auth};
 use crate::store::accounts::InviteRow;
 use askama::Template;
-use axum::extract::{Path, Query, State};
+use axum::extract::{Path, State};
 use axum::http::{HeaderMap, HeaderValue};
 use axum::response::Response;
 use serde::Deserialize;
@@ -63,7 +63,7 @@ pub(super) struct NextQuery {
 pub(super) async fn signin_form(
     State(state): State<AppState>,
     headers: HeaderMap,
-    Query(q): Query<NextQuery>,
+    PageQuery(q): PageQuery<NextQuery>,
 ) -> Result<Response, PageError> {
     let next = safe_next(q.next.as_deref().unwrap_or("/")).to_string();
     if let Some(secret) = session_secret(&headers)

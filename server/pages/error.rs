@@ -224,6 +224,40 @@ pub fn percent_encode(s: &str) -> String {
     percent_encoding::utf8_percent_encode(s, QUERY_VALUE).to_string()
 }
 
+/// A page's query string (`?frame=…`), as axum's `Query`, but refused with a readable 400 page
+/// that says which part of the address is missing or wrong, instead of a bare status: the
+/// pages that need one are reached from links, and a person who typed or trimmed the address
+/// is told to use the link.
+pub struct PageQuery<T>(pub T);
+
+impl<T, S> axum::extract::FromRequestParts<S> for PageQuery<T>
+where
+    T: serde::de::DeserializeOwned,
+    S: Send + Sync,
+{
+    type Rejection = PageError;
+
+    async fn from_request_parts(
+        parts: &mut axum::http::request::Parts,
+        state: &S,
+    ) -> Result<Self, Self::Rejection> {
+        match axum::extract::Query::<T>::from_request_parts(parts, state).await {
+            Ok(axum::extract::Query(q)) => Ok(Self(q)),
+            Err(e) => {
+                let detail = e.body_text();
+                let detail = detail
+                    .strip_prefix("Failed to deserialize query string: ")
+                    .unwrap_or(&detail);
+                Err(PageError::BadRequest(format!(
+                    "This page's address is incomplete ({detail}). Open the page from its link \
+                     (the team home links to every goal, frame, camera and set) rather than \
+                     typing the address."
+                )))
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::safe_next;

@@ -3,13 +3,13 @@
 //! plotted per iteration, its reward map and held-out figures, and a goal term made from it.
 //! Both are shells; `web/static/fit.js` draws them and talks to the JSON API.
 
-use super::error::PageError;
+use super::error::{PageError, PageQuery};
 use super::render::{Chrome, ok, page};
 use super::session::Signed;
 use crate::service::auth::Role;
 use crate::service::{AppState, cameras, demos, frames, reward_fits, tracks};
 use askama::Template;
-use axum::extract::{Path, Query, State};
+use axum::extract::{Path, State};
 use axum::http::HeaderMap;
 use axum::response::Response;
 use serde::Deserialize;
@@ -88,7 +88,7 @@ pub(super) async fn new_fit(
     State(state): State<AppState>,
     headers: HeaderMap,
     signed: Signed,
-    Query(q): Query<NewQuery>,
+    PageQuery(q): PageQuery<NewQuery>,
 ) -> Result<Response, PageError> {
     signed.require(Role::Editor)?;
     let who = &signed.who;

@@ -2,7 +2,7 @@
 //! old revision as a new one.
 
 use super::compare::{Change, diff};
-use super::error::PageError;
+use super::error::{PageError, PageQuery};
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
 use crate::service::auth::Role;
@@ -12,7 +12,7 @@ use crate::service::goals::{
 use crate::service::{AppState, ServiceError, cameras, frames};
 use crate::store;
 use askama::Template;
-use axum::extract::{Path, Query, State};
+use axum::extract::{Path, State};
 use axum::http::HeaderMap;
 use axum::response::Response;
 use serde::Deserialize;
@@ -104,7 +104,7 @@ pub(super) async fn new_goal(
     State(state): State<AppState>,
     headers: HeaderMap,
     signed: Signed,
-    Query(q): Query<NewQuery>,
+    PageQuery(q): PageQuery<NewQuery>,
 ) -> Result<Response, PageError> {
     signed.require(Role::Editor)?;
     let (frame, camera, camera_name) = frame_and_camera(&state, &signed, &q.frame).await?;
@@ -148,7 +148,7 @@ pub(super) async fn editor(
     headers: HeaderMap,
     signed: Signed,
     Path(id): Path<String>,
-    Query(q): Query<RevisionQuery>,
+    PageQuery(q): PageQuery<RevisionQuery>,
 ) -> Result<Response, PageError> {
     let latest = load_revision(&state, &signed.who, &id, None).await?;
     let shown = match q.revision.as_deref().filter(|s| !s.is_empty()) {
@@ -253,7 +253,7 @@ pub(super) async fn compare(
     headers: HeaderMap,
     signed: Signed,
     Path(id): Path<String>,
-    Query(q): Query<CompareQuery>,
+    PageQuery(q): PageQuery<CompareQuery>,
 ) -> Result<Response, PageError> {
     let latest = load_revision(&state, &signed.who, &id, None).await?;
     let a = load_revision(&state, &signed.who, &id, Some(parse_revision(&q.a)?)).await?;

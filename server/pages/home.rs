@@ -1,14 +1,14 @@
 //! The team home: cameras, recent frames, goals with their status, goal sets; search by name;
 //! new cameras and frame uploads.
 
-use super::error::PageError;
+use super::error::{PageError, PageQuery};
 use super::render::{Chrome, ok, page, redirect_flash, when};
 use super::session::{CsrfForm, Signed};
 use crate::service::auth::{Role, same_secret};
 use crate::service::{AppState, ServiceError, cameras, frames, goals, outcomes};
 use crate::store;
 use askama::Template;
-use axum::extract::{FromRequest, Multipart, Path, Query, Request, State};
+use axum::extract::{FromRequest, Multipart, Path, Request, State};
 use axum::http::{HeaderMap, header};
 use axum::response::Response;
 use serde::Deserialize;
@@ -104,7 +104,7 @@ pub(super) async fn home(
     State(state): State<AppState>,
     headers: HeaderMap,
     signed: Signed,
-    Query(query): Query<HomeQuery>,
+    PageQuery(query): PageQuery<HomeQuery>,
 ) -> Result<Response, PageError> {
     let who = &signed.who;
     let q = query.q.unwrap_or_default().trim().to_lowercase();

@@ -107,7 +107,10 @@ async fn readable_errors(resp: Response) -> Response {
         StatusCode::PAYLOAD_TOO_LARGE => {
             "What you sent is larger than this page accepts.".to_string()
         }
-        StatusCode::METHOD_NOT_ALLOWED => "This address does not take that kind of request.".into(),
+        StatusCode::METHOD_NOT_ALLOWED => "This address does not take that kind of request: \
+                                            pages open from links and forms send from their \
+                                            buttons. Go back and use the page's links and buttons."
+            .into(),
         StatusCode::NOT_FOUND => "There is no page at this address.".into(),
         _ => "The request could not be handled.".into(),
     };

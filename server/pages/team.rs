@@ -1,7 +1,7 @@
 //! Members and tokens: owners invite people with a role, change roles, remove members, create and
 //! revoke API tokens for robots and planners, and rename the team. Others see who is in the team.
 
-use super::error::PageError;
+use super::error::{PageError, PageQuery};
 use super::render::{Chrome, ok, page, redirect_flash, render, when};
 use super::session::{CsrfForm, Signed};
 use crate::service::auth::Role;
@@ -337,11 +337,9 @@ pub(super) async fn changes(
     State(state): State<AppState>,
     headers: HeaderMap,
     signed: Signed,
-    query: Result<axum::extract::Query<ChangesQuery>, axum::extract::rejection::QueryRejection>,
+    PageQuery(q): PageQuery<ChangesQuery>,
 ) -> Result<Response, PageError> {
     signed.require(Role::Owner)?;
-    let axum::extract::Query(q) =
-        query.map_err(|e| PageError::BadRequest(format!("the address could not be read: {e}")))?;
     let (entries, next) =
         crate::service::audit::list(&state, &signed.who, q.before.as_deref(), Some(50)).await?;
     let page = ChangesPage {

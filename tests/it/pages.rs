@@ -1201,6 +1201,26 @@ async fn fit_pages(kind: Db) {
         assert_eq!(page.status, StatusCode::NOT_FOUND, "{path}");
         assert!(page.content_type.starts_with("text/html"), "{path}");
     }
+    // An address with its query trimmed off, as a person may type it: a readable 400 that
+    // names what is missing and says where the link is.
+    for (path, field) in [
+        ("/fits/new".to_string(), "camera"),
+        ("/goals/new".to_string(), "frame"),
+        (format!("/goals/{fit_id}/compare?a=1"), "b"),
+    ] {
+        let page = owner.get(&path).await;
+        assert_eq!(page.status, StatusCode::BAD_REQUEST, "{path}");
+        assert!(page.content_type.starts_with("text/html"), "{path}");
+        assert!(
+            page.body.contains(&format!("missing field `{field}`"))
+                || page
+                    .body
+                    .contains(&format!("missing field &#96;{field}&#96;")),
+            "{path}: {}",
+            page.body
+        );
+        assert!(page.body.contains("from its link"), "{path}: {}", page.body);
+    }
 }
 
 macro_rules! both {

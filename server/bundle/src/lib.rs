@@ -228,8 +228,15 @@ fn readme(parts: &BundleParts<'_>) -> String {
          manifest.json   SHA-256 of every other file, format version, this caution\n\n\
          Pixel coordinates are [x, y], x right, y down, the centre of the top-left pixel at (0, 0).\n\
          Source points are numbered over all terms in term order (goal.json derived.points);\n\
-         a rigid term contributes one point per source.\n\
-         Score offline with: goalsmith cost --bundle THIS.zip --points P.json | --maps M.npy\n",
+         a rigid term contributes one point per source.\n\n\
+         A candidate's cost is C = sum over points p of w_p * sum over the counted steps t of c,\n\
+         with w_p the weight in derived.points and the steps, metric m and mode in goal.json\n\
+         \"cost\" (steps \"final\": the last step only; \"all\": every step). In mode \"expected\",\n\
+         for a predicted point x, c = m(distance from x to point p's target); for a probability\n\
+         map X of the frame's size (H, W), c = sum over j, i of X[j, i] * cost-maps[p, j, i].\n\
+         Mode \"hit\", maps of other sizes and gradients: goalsmith's docs/conventions.md.\n\
+         Score offline with: goalsmith cost --bundle THIS.zip --points P.json | --maps M.npy\n\
+         or in Python: goalsmith.open_bundle(\"THIS.zip\").cost(points=... or maps=...)\n",
         caution = SAFETY_CAUTION,
         p = parts.points,
         h = parts.height,
